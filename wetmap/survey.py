@@ -1,0 +1,686 @@
+"""survey.toml -> :class:`Survey`: every check of user values lives here.
+
+The file format is described in ``docs/SURVEY_FORMAT.md`` of the project (units are
+in the key names: ``_c`` degC, ``_m`` metres, ``_m2`` square metres, ``_pct`` percent,
+``_m_s`` metres per second). :func:`load_survey` reads and validates the whole file
+before any work starts and reports *every* problem it finds at once, one line each,
+naming the file, the key (with its line where it can be found) and what is expected.
+
+Examples
+--------
+>>> import tempfile, pathlib
+>>> d = pathlib.Path(tempfile.mkdtemp())
+>>> _ = (d / "survey.toml").write_text('[survey]\\nkind = "roof"\\n')
+>>> try:
+...     load_survey(d)
+... except SurveyError as err:
+...     print(err.problems[0])  # doctest: +ELLIPSIS
+/.../survey.toml: [survey] title: is missing: expected a text, e.g. title = "Main roof"
+"""
+
+from __future__ import annotations
+
+import difflib
+import math
+import re
+import sys
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from datetime import time as clock_time
+from pathlib import Path
+from typing import Any, Literal, get_args
+
+if sys.version_info >= (3, 11):
+    import tomllib
+else:  # pragma: no cover
+    import tomli as tomllib
+
+from .errors import MissingFileError, SurveyError
+
+__all__ = [
+    "Kind",
+    "Units",
+    "Sky",
+    "Side",
+    "SurveyInfo",
+    "Conditions",
+    "Camera",
+    "Plan",
+    "Mosaic",
+    "Frame",
+    "Detect",
+    "Cores",
+    "Repair",
+    "Survey",
+    "load_survey",
+    "SURVEY_FILE",
+    "DEFAULT_MIN_AREA_M2",
+]
+
+SURVEY_FILE = "survey.toml"
+
+Kind = Literal["roof", "hull"]
+Units = Literal["C", "K", "F"]
+Sky = Literal["clear", "partly", "overcast"]
+Side = Literal["port", "starboard"]
+
+#: Default smallest anomaly kept, by survey kind (common practice: a roof survey
+#: does not report patches smaller than about a board's corner; hull patches are smaller).
+DEFAULT_MIN_AREA_M2: dict[str, float] = {"roof": 0.5, "hull": 0.05}
+
+
+# --------------------------------------------------------------------------------------
+# The configuration, as frozen dataclasses
+# --------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class SurveyInfo:
+    """The ``[survey]`` table."""
+
+    title: str
+    kind: Kind
+    crs: str
+    """A projected CRS in metres as the user wrote it, or ``"local"``."""
+    site: str | None = None
+    date: str | None = None
+    surveyor: str | None = None
+    side: Side | None = None
+
+    @property
+    def is_local(self) -> bool:
+        """True when the plan is in plan metres with no geo-reference."""
+        return self.crs == "local"
+
+
+@dataclass(frozen=True)
+class Conditions:
+    """The ``[conditions]`` table: what was observed on site."""
+
+    air_c: float
+    humidity_pct: float
+    sky: Sky | None = None
+    wind_m_s: float | None = None
+    reflected_c: float | None = None
+    """Measured reflected apparent temperature; ``None`` = estimate from sky and air."""
+    sunset: clock_time | None = None
+    time: clock_time | None = None
+    hours_since_rain: float | None = None
+    surface_dry: bool | None = None
+
+
+@dataclass(frozen=True)
+class Camera:
+    """The ``[camera]`` table."""
+
+    emissivity: float
+    band_um: tuple[float, float] = (7.5, 14.0)
+    distance_m: float = 0.0
+    transmittance: float | None = None
+
+
+@dataclass(frozen=True)
+class Plan:
+    """The ``[plan]`` table, with paths resolved against the survey folder."""
+
+    outline: Path
+    exclusions: Path | None = None
+    sections: Path | None = None
+
+
+@dataclass(frozen=True)
+class Mosaic:
+    """One ``[[mosaic]]`` entry: a raster of apparent temperature on the plan grid."""
+
+    path: Path
+    units: Units
+    time: clock_time | None = None
+    scale: float = 1.0
+    offset: float = 0.0
+    origin: tuple[float, float] | None = None
+    """Plan x, y of the upper-left corner, for a raster with no transform of its own."""
+    pixel_m: float | None = None
+
+
+@dataclass(frozen=True)
+class Frame:
+    """One ``[[frame]]`` entry: a single frame placed by control points."""
+
+    path: Path
+    units: Units
+    points: tuple[tuple[float, float, float, float], ...]
+    """Control points as ``(col, row, x, y)``: image pixel -> plan metres."""
+    time: clock_time | None = None
+    scale: float = 1.0
+    offset: float = 0.0
+
+
+@dataclass(frozen=True)
+class Detect:
+    """The ``[detect]`` table (defaults resolved by survey kind)."""
+
+    delta_c: float = 1.0
+    background_m: float | None = None
+    """``None``: chosen from the kind and the plan size at run time."""
+    min_area_m2: float = 0.5
+
+
+@dataclass(frozen=True)
+class Cores:
+    """The ``[cores]`` table."""
+
+    path: Path
+    wet_above: float | None = None
+    wet_above_pct: float | None = None
+
+
+@dataclass(frozen=True)
+class Repair:
+    """The ``[repair]`` table."""
+
+    margin_m: float = 0.3
+    board_m: tuple[float, float] | None = (1.2, 2.4)
+    include_unverified: bool = True
+
+
+@dataclass(frozen=True)
+class Survey:
+    """A validated survey: every value checked, every path resolved and existing."""
+
+    folder: Path
+    file: Path
+    survey: SurveyInfo
+    conditions: Conditions
+    camera: Camera
+    plan: Plan
+    mosaics: tuple[Mosaic, ...] = ()
+    frames: tuple[Frame, ...] = ()
+    detect: Detect = field(default_factory=Detect)
+    cores: Cores | None = None
+    repair: Repair = field(default_factory=Repair)
+
+
+# --------------------------------------------------------------------------------------
+# Checking machinery
+# --------------------------------------------------------------------------------------
+
+_TIME_RE = re.compile(r"^([01]?\d|2[0-3]):([0-5]\d)$")
+
+
+class _Problems:
+    """Collects problem lines for one survey file."""
+
+    def __init__(self, file: Path, text: str):
+        self.file = file
+        self.lines = text.splitlines()
+        self.items: list[str] = []
+
+    def line_of(self, table: str, key: str | None, index: int | None) -> int | None:
+        """1-based line of ``key`` inside ``[table]`` (or its ``index``-th ``[[table]]``)."""
+        current, count = None, -1
+        header = re.compile(r"^\s*(\[\[?)\s*([A-Za-z0-9_.-]+)\s*\]\]?\s*(#.*)?$")
+        for n, line in enumerate(self.lines, start=1):
+            m = header.match(line)
+            if m:
+                current = m.group(2)
+                if current == table:
+                    count += 1
+                    if key is None and (index is None or count == index):
+                        return n
+                continue
+            if current != table or key is None or (index is not None and count != index):
+                continue
+            if re.match(rf"^\s*{re.escape(key)}\s*=", line):
+                return n
+        return None
+
+    def add(self, table: str, key: str | None, message: str, *, index: int | None = None) -> None:
+        where = f"[{table}]" if index is None else f"[[{table}]] #{index + 1}"
+        if key is not None:
+            where += f" {key}"
+        line = self.line_of(table, key, index)
+        at = f" (line {line})" if line else ""
+        self.items.append(f"{self.file}: {where}{at}: {message}")
+
+
+def _fmt(value: Any) -> str:
+    if isinstance(value, str):
+        return f'"{value}"'
+    return repr(value)
+
+
+class _Table:
+    """Typed access to one TOML table that records every problem it meets."""
+
+    def __init__(
+        self,
+        problems: _Problems,
+        name: str,
+        data: Mapping[str, Any],
+        allowed: tuple[str, ...],
+        *,
+        index: int | None = None,
+    ):
+        self.p = problems
+        self.name = name
+        self.data = data
+        self.index = index
+        for key in data:
+            if key not in allowed:
+                near = difflib.get_close_matches(key, allowed, n=1, cutoff=0.6)
+                hint = f'; did you mean "{near[0]}"?' if near else f"; valid keys: {', '.join(allowed)}"
+                self.problem(key, f"unknown key{hint}")
+
+    def problem(self, key: str | None, message: str) -> None:
+        self.p.add(self.name, key, message, index=self.index)
+
+    def _get(self, key: str, required: bool, example: str, expected: str) -> Any:
+        if key not in self.data:
+            if required:
+                self.problem(key, f"is missing: expected {expected}, e.g. {key} = {example}")
+            return None
+        return self.data[key]
+
+    def text(self, key: str, *, required: bool = False, example: str = '"..."') -> str | None:
+        value = self._get(key, required, example, "a text")
+        if value is None:
+            return None
+        if not isinstance(value, str) or not value.strip():
+            self.problem(key, f"= {_fmt(value)}: expected a non-empty text in quotes, e.g. {key} = {example}")
+            return None
+        return value
+
+    def number(
+        self,
+        key: str,
+        *,
+        required: bool = False,
+        low: float | None = None,
+        high: float | None = None,
+        low_open: bool = False,
+        high_open: bool = False,
+        example: str = "1.0",
+    ) -> float | None:
+        expected = _range_text(low, high, low_open, high_open)
+        value = self._get(key, required, example, f"a number{expected}")
+        if value is None:
+            return None
+        if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
+            self.problem(key, f"= {_fmt(value)}: expected a number{expected}, e.g. {key} = {example}")
+            return None
+        value = float(value)
+        bad = (
+            (low is not None and (value <= low if low_open else value < low))
+            or (high is not None and (value >= high if high_open else value > high))
+        )
+        if bad:
+            self.problem(key, f"= {value:g}: expected a number{expected}")
+            return None
+        return value
+
+    def choice(self, key: str, options: tuple[str, ...], *, required: bool = False) -> str | None:
+        expected = "one of " + ", ".join(f'"{o}"' for o in options)
+        value = self._get(key, required, f'"{options[0]}"', expected)
+        if value is None:
+            return None
+        if value not in options:
+            near = difflib.get_close_matches(str(value), options, n=1, cutoff=0.5)
+            hint = f' (did you mean "{near[0]}"?)' if near else ""
+            self.problem(key, f"= {_fmt(value)}: expected {expected}{hint}")
+            return None
+        return value
+
+    def boolean(self, key: str) -> bool | None:
+        value = self._get(key, False, "true", "true or false")
+        if value is None:
+            return None
+        if not isinstance(value, bool):
+            self.problem(key, f"= {_fmt(value)}: expected true or false (no quotes)")
+            return None
+        return value
+
+    def clock(self, key: str) -> clock_time | None:
+        value = self._get(key, False, '"21:30"', "a local time")
+        if value is None:
+            return None
+        if isinstance(value, clock_time):
+            return value
+        m = _TIME_RE.match(value) if isinstance(value, str) else None
+        if not m:
+            self.problem(key, f'= {_fmt(value)}: expected a local time "HH:MM", e.g. {key} = "21:30"')
+            return None
+        return clock_time(int(m.group(1)), int(m.group(2)))
+
+    def numbers(self, key: str, count: int, *, example: str, positive: bool = False) -> tuple[float, ...] | None:
+        value = self._get(key, False, example, f"a list of {count} numbers")
+        if value is None:
+            return None
+        ok = (
+            isinstance(value, list)
+            and len(value) == count
+            and all(isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) for v in value)
+        )
+        if ok and positive:
+            ok = all(v > 0 for v in value)
+        if not ok:
+            what = "positive numbers" if positive else "numbers"
+            self.problem(key, f"= {_fmt(value)}: expected a list of {count} {what}, e.g. {key} = {example}")
+            return None
+        return tuple(float(v) for v in value)
+
+    def path(self, key: str, folder: Path, *, required: bool = False, example: str = '"file"') -> Path | None:
+        value = self.text(key, required=required, example=example)
+        if value is None:
+            return None
+        path = (folder / value).resolve() if not Path(value).is_absolute() else Path(value)
+        if not path.is_file():
+            self.problem(key, f'= "{value}": file not found at {path}; check the path (relative to the survey folder)')
+            return None
+        return path
+
+
+def _range_text(low, high, low_open, high_open) -> str:
+    if low is None and high is None:
+        return ""
+    if low is not None and high is not None:
+        return f" with {low:g} {'<' if low_open else '<='} value {'<' if high_open else '<='} {high:g}"
+    if low is not None:
+        return f" {'>' if low_open else '>='} {low:g}"
+    return f" {'<' if high_open else '<='} {high:g}"
+
+
+def _check_crs(table: _Table, value: str | None) -> str | None:
+    """Accept ``local`` or a projected CRS whose axes are in metres."""
+    if value is None or value == "local":
+        return value
+    from pyproj import CRS
+    from pyproj.exceptions import CRSError
+
+    try:
+        crs = CRS.from_user_input(value)
+    except CRSError:
+        table.problem("crs", f'= "{value}": not a CRS pyproj knows; expected e.g. "EPSG:32633" or "local"')
+        return None
+    if crs.is_geographic:
+        table.problem(
+            "crs",
+            f'= "{value}" is geographic (degrees): areas would be in square degrees; '
+            'expected a projected CRS in metres (e.g. the site\'s UTM zone) or "local"',
+        )
+        return None
+    units = {(ax.unit_name or "").lower() for ax in crs.axis_info[:2]}
+    if not crs.is_projected or not units <= {"metre", "meter", "m"}:
+        table.problem("crs", f'= "{value}": axes in {", ".join(sorted(units)) or "unknown units"}; expected a projected CRS in metres or "local"')
+        return None
+    return value
+
+
+# --------------------------------------------------------------------------------------
+# Sections of survey.toml
+# --------------------------------------------------------------------------------------
+
+_TOP = ("survey", "conditions", "camera", "plan", "mosaic", "frame", "detect", "cores", "repair")
+
+
+def _read_survey_info(t: _Table) -> SurveyInfo | None:
+    title = t.text("title", required=True, example='"Main roof"')
+    kind = t.choice("kind", get_args(Kind), required=True)
+    crs = _check_crs(t, t.text("crs", required=True, example='"EPSG:32633"'))
+    site, date, surveyor = t.text("site"), t.text("date"), t.text("surveyor")
+    side = t.choice("side", get_args(Side))
+    if side is not None and kind == "roof":
+        t.problem("side", f'= "{side}": applies to hull surveys only; remove it or set kind = "hull"')
+    if None in (title, kind, crs):
+        return None
+    return SurveyInfo(title=title, kind=kind, crs=crs, site=site, date=date, surveyor=surveyor, side=side)
+
+
+def _read_conditions(t: _Table) -> Conditions | None:
+    air = t.number("air_c", required=True, low=-60, high=60, example="6.0")
+    rh = t.number("humidity_pct", required=True, low=0, high=100, low_open=True, example="65")
+    wind = t.number("wind_m_s", low=0, high=60, example="2.0")
+    reflected = t.number("reflected_c", low=-100, high=100, example="-18.0")
+    sky = t.choice("sky", get_args(Sky), required=reflected is None and "reflected_c" not in t.data)
+    sunset, at = t.clock("sunset"), t.clock("time")
+    rain = t.number("hours_since_rain", low=0, example="48")
+    dry = t.boolean("surface_dry")
+    if air is None or rh is None:
+        return None
+    return Conditions(
+        air_c=air, humidity_pct=rh, sky=sky, wind_m_s=wind, reflected_c=reflected,
+        sunset=sunset, time=at, hours_since_rain=rain, surface_dry=dry,
+    )
+
+
+def _read_camera(t: _Table) -> Camera | None:
+    eps = t.number("emissivity", required=True, low=0, high=1, low_open=True, example="0.94")
+    band = t.numbers("band_um", 2, example="[7.5, 14.0]", positive=True)
+    if band is not None and not (1.0 <= band[0] < band[1] <= 20.0):
+        t.problem("band_um", f"= {list(band)}: expected [short, long] in micrometres with 1 <= short < long <= 20")
+        band = None
+    distance = t.number("distance_m", low=0, high=10_000, example="35.0")
+    tau = t.number("transmittance", low=0, high=1, low_open=True, example="0.97")
+    if eps is None:
+        return None
+    return Camera(
+        emissivity=eps,
+        band_um=band or (7.5, 14.0),
+        distance_m=distance or 0.0,
+        transmittance=tau,
+    )
+
+
+def _read_plan(t: _Table, folder: Path) -> Plan | None:
+    outline = t.path("outline", folder, required=True, example='"plan/outline.geojson"')
+    exclusions = t.path("exclusions", folder, example='"plan/exclusions.geojson"')
+    sections = t.path("sections", folder, example='"plan/sections.geojson"')
+    if outline is None:
+        return None
+    return Plan(outline=outline, exclusions=exclusions, sections=sections)
+
+
+def _scale_offset(t: _Table) -> tuple[float | None, float | None]:
+    scale = t.number("scale", example="0.01")
+    if scale is not None and scale == 0:
+        t.problem("scale", "= 0: expected a non-zero number (value = raw * scale + offset)")
+        scale = None
+    return scale, t.number("offset", example="-273.15")
+
+
+def _read_mosaic(t: _Table, folder: Path) -> Mosaic | None:
+    path = t.path("path", folder, required=True, example='"thermal/pass1.tif"')
+    units = t.choice("units", get_args(Units), required=True)
+    at = t.clock("time")
+    scale, offset = _scale_offset(t)
+    origin = t.numbers("origin", 2, example="[512300.0, 5463140.0]")
+    pixel = t.number("pixel_m", low=0, low_open=True, high=100, example="0.05")
+    if ("origin" in t.data) != ("pixel_m" in t.data):
+        missing = "origin" if "origin" not in t.data else "pixel_m"
+        t.problem(missing, "is missing: origin and pixel_m go together (upper-left corner and pixel size)")
+    if path is None or units is None:
+        return None
+    return Mosaic(
+        path=path, units=units, time=at,
+        scale=1.0 if scale is None else scale, offset=offset or 0.0,
+        origin=origin, pixel_m=pixel,
+    )
+
+
+def _read_frame(t: _Table, folder: Path) -> Frame | None:
+    path = t.path("path", folder, required=True, example='"frames/f01.csv"')
+    if path is not None and path.suffix.lower() not in (".tif", ".tiff", ".png", ".npy", ".csv"):
+        t.problem("path", f'= "{path.name}": expected a .tif, .tiff, .png, .npy or .csv frame')
+        path = None
+    units = t.choice("units", get_args(Units), required=True)
+    at = t.clock("time")
+    scale, offset = _scale_offset(t)
+    raw = t._get("points", True, "[[col, row, x, y], ...]", "at least 4 control points")
+    points: tuple[tuple[float, float, float, float], ...] | None = None
+    if raw is not None:
+        ok = isinstance(raw, list) and all(
+            isinstance(p, list) and len(p) == 4
+            and all(isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) for v in p)
+            for p in raw
+        )
+        if not ok:
+            t.problem("points", "expected a list of [col, row, x, y] lists of 4 numbers each")
+        elif len(raw) < 4:
+            t.problem("points", f"has {len(raw)} control points: expected at least 4 [col, row, x, y]")
+        else:
+            points = tuple(tuple(float(v) for v in p) for p in raw)  # type: ignore[misc]
+    if path is None or units is None or points is None:
+        return None
+    return Frame(path=path, units=units, points=points, time=at,
+                 scale=1.0 if scale is None else scale, offset=offset or 0.0)
+
+
+def _read_detect(t: _Table, kind: str | None) -> Detect:
+    delta = t.number("delta_c", low=0, high=50, low_open=True, example="1.0")
+    background = t.number("background_m", low=0, low_open=True, high=1000, example="20.0")
+    min_area = t.number("min_area_m2", low=0, example="0.5")
+    return Detect(
+        delta_c=1.0 if delta is None else delta,
+        background_m=background,
+        min_area_m2=min_area if min_area is not None else DEFAULT_MIN_AREA_M2.get(kind or "roof", 0.5),
+    )
+
+
+def _read_cores(t: _Table, folder: Path) -> Cores | None:
+    path = t.path("path", folder, required=True, example='"cores.csv"')
+    wet_above = t.number("wet_above", example="30")
+    wet_above_pct = t.number("wet_above_pct", low=0, example="5.0")
+    if path is None:
+        return None
+    return Cores(path=path, wet_above=wet_above, wet_above_pct=wet_above_pct)
+
+
+def _read_repair(t: _Table) -> Repair:
+    margin = t.number("margin_m", low=0, high=10, example="0.3")
+    board = t.numbers("board_m", 2, example="[1.2, 2.4]", positive=True)
+    include = t.boolean("include_unverified")
+    return Repair(
+        margin_m=0.3 if margin is None else margin,
+        board_m=board if board is not None else (1.2, 2.4),
+        include_unverified=True if include is None else include,
+    )
+
+
+_KEYS: dict[str, tuple[str, ...]] = {
+    "survey": ("title", "kind", "crs", "site", "date", "surveyor", "side"),
+    "conditions": ("air_c", "humidity_pct", "wind_m_s", "sky", "reflected_c", "sunset", "time",
+                   "hours_since_rain", "surface_dry"),
+    "camera": ("emissivity", "band_um", "distance_m", "transmittance"),
+    "plan": ("outline", "exclusions", "sections"),
+    "mosaic": ("path", "units", "time", "scale", "offset", "origin", "pixel_m"),
+    "frame": ("path", "units", "points", "time", "scale", "offset"),
+    "detect": ("delta_c", "background_m", "min_area_m2"),
+    "cores": ("path", "wet_above", "wet_above_pct"),
+    "repair": ("margin_m", "board_m", "include_unverified"),
+}
+
+
+def _table(problems: _Problems, doc: Mapping[str, Any], name: str, *, required: bool) -> _Table | None:
+    data = doc.get(name)
+    if data is None:
+        if required:
+            problems.add(name, None, f"table is missing: add a [{name}] table (see the survey format)")
+        return None
+    if not isinstance(data, dict):
+        problems.add(name, None, f"expected a [{name}] table, not [[{name}]] or a value")
+        return None
+    return _Table(problems, name, data, _KEYS[name])
+
+
+def _array(problems: _Problems, doc: Mapping[str, Any], name: str) -> list[_Table]:
+    data = doc.get(name, [])
+    if isinstance(data, dict):
+        data = [data]  # a single [mosaic] written as a plain table is accepted as one entry
+    if not isinstance(data, list) or not all(isinstance(d, dict) for d in data):
+        problems.add(name, None, f"expected one or more [[{name}]] tables")
+        return []
+    return [_Table(problems, name, d, _KEYS[name], index=i) for i, d in enumerate(data)]
+
+
+def load_survey(folder: str | Path) -> Survey:
+    """Read and validate ``folder/survey.toml``.
+
+    Parameters
+    ----------
+    folder
+        The survey folder (or the path of its ``survey.toml``).
+
+    Returns
+    -------
+    Survey
+        Frozen, with every path resolved to an existing file.
+
+    Raises
+    ------
+    MissingFileError
+        The folder or its survey.toml does not exist.
+    SurveyError
+        Any value is missing, malformed or out of range; ``problems`` lists them all.
+    """
+    folder = Path(folder)
+    if folder.is_file() and folder.name.endswith(".toml"):
+        file, folder = folder, folder.parent
+    else:
+        file = folder / SURVEY_FILE
+    if not folder.is_dir():
+        raise MissingFileError(f"{folder}: survey folder not found; expected a folder holding {SURVEY_FILE}")
+    if not file.is_file():
+        raise MissingFileError(f"{file}: not found; expected the survey description {SURVEY_FILE} in {folder}")
+    folder = folder.resolve()
+    text = file.read_text(encoding="utf-8", errors="replace")
+    try:
+        doc = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as err:
+        raise SurveyError(f"{file}: not valid TOML: {err}; fix the syntax at that line") from None
+
+    problems = _Problems(file, text)
+    for key in doc:
+        if key not in _TOP:
+            near = difflib.get_close_matches(key, _TOP, n=1, cutoff=0.6)
+            hint = f'; did you mean "[{near[0]}]"?' if near else f"; valid tables: {', '.join(_TOP)}"
+            problems.items.append(f"{file}: [{key}]: unknown table{hint}")
+
+    t_survey = _table(problems, doc, "survey", required=True)
+    info = _read_survey_info(t_survey) if t_survey else None
+    t_cond = _table(problems, doc, "conditions", required=True)
+    conditions = _read_conditions(t_cond) if t_cond else None
+    t_cam = _table(problems, doc, "camera", required=True)
+    camera = _read_camera(t_cam) if t_cam else None
+    t_plan = _table(problems, doc, "plan", required=True)
+    plan = _read_plan(t_plan, folder) if t_plan else None
+    mosaics = [_read_mosaic(t, folder) for t in _array(problems, doc, "mosaic")]
+    frames = [_read_frame(t, folder) for t in _array(problems, doc, "frame")]
+    if not mosaics and not frames and "mosaic" not in doc and "frame" not in doc:
+        problems.items.append(
+            f"{file}: no imagery: add at least one [[mosaic]] (a raster on the plan grid) "
+            "or [[frame]] (a frame placed by control points)"
+        )
+    kind = info.kind if info else None
+    t_det = _table(problems, doc, "detect", required=False)
+    detect = _read_detect(t_det, kind) if t_det else Detect(min_area_m2=DEFAULT_MIN_AREA_M2.get(kind or "roof", 0.5))
+    t_cores = _table(problems, doc, "cores", required=False)
+    cores = _read_cores(t_cores, folder) if t_cores else None
+    t_rep = _table(problems, doc, "repair", required=False)
+    repair = _read_repair(t_rep) if t_rep else Repair()
+
+    if problems.items:
+        raise SurveyError(problems.items)
+    assert info and conditions and camera and plan  # guaranteed when no problem was recorded
+    return Survey(
+        folder=folder,
+        file=file.resolve(),
+        survey=info,
+        conditions=conditions,
+        camera=camera,
+        plan=plan,
+        mosaics=tuple(m for m in mosaics if m is not None),
+        frames=tuple(f for f in frames if f is not None),
+        detect=detect,
+        cores=cores,
+        repair=repair,
+    )
+
