@@ -1,0 +1,184 @@
+"""Reading cores and meter readings (``cores.csv``) into plain arrays.
+
+Columns ``id,x,y`` (plan coordinates) and at least one of
+
+- ``result``: ``wet`` or ``dry`` (a core cut and inspected);
+- ``moisture_pct``: moisture content by weight (ASTM C1616: (wet - dry) / dry x 100 %),
+  judged wet above ``[cores] wet_above_pct``;
+- ``reading``: a meter reading on the meter's own scale, judged wet above
+  ``[cores] wet_above``.
+
+On each row the first of these that holds a value decides. Other columns are kept
+as text for the map and report. The delimiter may be ``,`` or ``;``.
+"""
+
+from __future__ import annotations
+
+import csv
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Literal
+
+import numpy as np
+
+from .errors import InputFileError
+
+__all__ = ["Confirmations", "read_confirmations", "Basis"]
+
+Basis = Literal["result", "moisture_pct", "reading"]
+
+_RESULT_WORDS = {"wet": True, "dry": False}
+
+
+@dataclass(frozen=True)
+class Confirmations:
+    """Cores and readings, one entry per row of cores.csv.
+
+    Attributes
+    ----------
+    ids
+        Row identifiers, as written.
+    xs, ys
+        Plan coordinates, metres, shape ``(n,)``.
+    wet
+        Judgement per row, bool ``(n,)``.
+    basis
+        Which column decided each row.
+    values
+        The number judged (``moisture_pct`` or ``reading``), NaN for a ``result`` row.
+    extra
+        Other columns, name -> texts.
+    """
+
+    ids: tuple[str, ...]
+    xs: np.ndarray
+    ys: np.ndarray
+    wet: np.ndarray
+    basis: tuple[Basis, ...]
+    values: np.ndarray
+    extra: dict[str, tuple[str, ...]] = field(default_factory=dict)
+
+    def __len__(self) -> int:
+        return len(self.ids)
+
+    @staticmethod
+    def empty() -> "Confirmations":
+        z = np.zeros(0)
+        return Confirmations((), z, z.copy(), np.zeros(0, bool), (), z.copy())
+
+
+def read_confirmations(path: Path, *, wet_above: float | None = None,
+                       wet_above_pct: float | None = None) -> Confirmations:
+    """Read and judge ``cores.csv``.
+
+    Parameters
+    ----------
+    path
+        The CSV file.
+    wet_above
+        Threshold for the ``reading`` column (meter scale); required if any row is judged by it.
+    wet_above_pct
+        Threshold for the ``moisture_pct`` column; required if any row is judged by it.
+
+    Raises
+    ------
+    InputFileError
+        A missing column, a malformed number or result, a duplicated id, or a row that
+        needs a threshold that is not set; the message names the file, row and column.
+    """
+    try:
+        text = path.read_text(encoding="utf-8-sig")
+    except UnicodeDecodeError:
+        raise InputFileError(f"{path}: not UTF-8 text; save the cores table as CSV (UTF-8)") from None
+    lines = text.splitlines()
+    if not lines or not lines[0].strip():
+        raise InputFileError(f"{path}: is empty; expected a header id,x,y,result (or moisture_pct, reading)")
+    delimiter = ";" if lines[0].count(";") > lines[0].count(",") else ","
+    decimal_comma = delimiter == ";"
+    reader = csv.DictReader(lines, delimiter=delimiter)
+    header = [h.strip() for h in (reader.fieldnames or [])]
+    reader.fieldnames = header
+    for col in ("id", "x", "y"):
+        if col not in header:
+            raise InputFileError(f"{path}: column '{col}' is missing; expected columns id,x,y and result, moisture_pct or reading")
+    judged = [c for c in ("result", "moisture_pct", "reading") if c in header]
+    if not judged:
+        raise InputFileError(
+            f"{path}: no judgement column; add 'result' (wet/dry), 'moisture_pct' or 'reading'"
+        )
+
+    def number(row_no: int, col: str, value: str) -> float:
+        v = value.strip()
+        if decimal_comma:
+            v = v.replace(",", ".")
+        try:
+            out = float(v)
+        except ValueError:
+            raise InputFileError(f"{path}: row {row_no}, column '{col}' = {value!r}: expected a number") from None
+        if not math.isfinite(out):
+            raise InputFileError(f"{path}: row {row_no}, column '{col}' = {value!r}: expected a finite number")
+        return out
+
+    ids: list[str] = []
+    xs: list[float] = []
+    ys: list[float] = []
+    wet: list[bool] = []
+    basis: list[Basis] = []
+    values: list[float] = []
+    extra_cols = [c for c in header if c not in ("id", "x", "y", "result", "moisture_pct", "reading")]
+    extra: dict[str, list[str]] = {c: [] for c in extra_cols}
+    for row_no, row in enumerate(reader, start=2):
+        if not any((v or "").strip() for v in row.values() if isinstance(v, str)):
+            continue  # blank line
+        ident = (row.get("id") or "").strip()
+        if not ident:
+            raise InputFileError(f"{path}: row {row_no}, column 'id' is empty; give every core an id")
+        if ident in ids:
+            raise InputFileError(f"{path}: row {row_no}, column 'id' = {ident!r} repeats; ids must be unique")
+        x = number(row_no, "x", row.get("x") or "")
+        y = number(row_no, "y", row.get("y") or "")
+        decided = False
+        for col in judged:
+            raw = (row.get(col) or "").strip()
+            if not raw:
+                continue
+            if col == "result":
+                word = raw.lower()
+                if word not in _RESULT_WORDS:
+                    raise InputFileError(f"{path}: row {row_no}, column 'result' = {raw!r}: expected wet or dry")
+                wet.append(_RESULT_WORDS[word])
+                values.append(math.nan)
+            else:
+                value = number(row_no, col, raw)
+                limit = wet_above_pct if col == "moisture_pct" else wet_above
+                if limit is None:
+                    key = "wet_above_pct" if col == "moisture_pct" else "wet_above"
+                    raise InputFileError(
+                        f"{path}: row {row_no} is judged by column '{col}' but [cores] {key} is not set; "
+                        f"add {key} = ... to survey.toml (the level above which a {col} reading counts as wet)"
+                    )
+                wet.append(value > limit)
+                values.append(value)
+            basis.append(col)  # type: ignore[arg-type]
+            decided = True
+            break
+        if not decided:
+            raise InputFileError(
+                f"{path}: row {row_no} (id {ident}) has no value in {', '.join(judged)}; "
+                "give a result (wet/dry) or a number"
+            )
+        ids.append(ident)
+        xs.append(x)
+        ys.append(y)
+        for c in extra_cols:
+            extra[c].append((row.get(c) or "").strip())
+    return Confirmations(
+        ids=tuple(ids),
+        xs=np.asarray(xs, dtype=float),
+        ys=np.asarray(ys, dtype=float),
+        wet=np.asarray(wet, dtype=bool),
+        basis=tuple(basis),
+        values=np.asarray(values, dtype=float),
+        extra={c: tuple(v) for c, v in extra.items()},
+    )

@@ -1,0 +1,287 @@
+"""Reading thermal rasters onto the plan grid.
+
+A *plan grid* is a north-up raster grid in the survey CRS (or plan metres for
+``local`` surveys): ``transform`` maps ``(col, row)`` pixel-corner coordinates to
+plan ``(x, y)``; pixel ``(row, col)`` is represented by its centre
+``transform * (col + 0.5, row + 0.5)``.
+
+Mosaics already on the plan grid (same pixel size, aligned) are read by window,
+without resampling; anything else (another pixel size, a rotated or south-up
+transform, another CRS) is resampled bilinearly with :func:`rasterio.warp.reproject`.
+Values are converted ``raw * scale + offset`` then from the declared units to kelvin;
+nodata (declared nodata, internal masks, non-finite values) becomes NaN.
+"""
+
+from __future__ import annotations
+
+import logging
+import math
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Literal
+
+import numpy as np
+from affine import Affine
+
+from .errors import InputFileError
+
+__all__ = ["PlanGrid", "to_kelvin", "plan_grid_for", "read_onto_grid", "RasterInfo", "inspect_raster"]
+
+log = logging.getLogger(__name__)
+
+Units = Literal["C", "K", "F"]
+
+
+@dataclass(frozen=True)
+class PlanGrid:
+    """A north-up grid on the plan.
+
+    Attributes
+    ----------
+    transform
+        Affine from ``(col, row)`` pixel corners to plan ``(x, y)``; ``b == d == 0``, ``e < 0``.
+    rows, cols
+        Grid shape.
+    crs
+        The survey CRS as a string, or ``None`` for ``local`` plans.
+    """
+
+    transform: Affine
+    rows: int
+    cols: int
+    crs: str | None
+
+    @property
+    def shape(self) -> tuple[int, int]:
+        return (self.rows, self.cols)
+
+    @property
+    def pixel_m(self) -> float:
+        """Pixel side in plan metres."""
+        return float(self.transform.a)
+
+    @property
+    def pixel_area_m2(self) -> float:
+        return float(abs(self.transform.determinant))
+
+    @property
+    def bounds(self) -> tuple[float, float, float, float]:
+        """``(xmin, ymin, xmax, ymax)`` of the grid's outer pixel edges."""
+        x0, y0 = self.transform.c, self.transform.f
+        return (x0, y0 + self.transform.e * self.rows, x0 + self.transform.a * self.cols, y0)
+
+
+def to_kelvin(values: np.ndarray, units: Units) -> np.ndarray:
+    """Convert temperatures in ``units`` to kelvin, in place where possible.
+
+    >>> to_kelvin(np.array([0.0, 100.0]), "C")
+    array([273.15, 373.15])
+    >>> to_kelvin(np.array([32.0, 212.0]), "F")
+    array([273.15, 373.15])
+    """
+    if units == "C":
+        values += np.float32(273.15) if values.dtype == np.float32 else 273.15
+    elif units == "F":
+        values -= 32.0
+        values *= 5.0 / 9.0
+        values += 273.15
+    elif units != "K":
+        raise ValueError(f"units = {units!r}: expected one of 'C', 'K', 'F'")
+    return values
+
+
+@dataclass(frozen=True)
+class RasterInfo:
+    """What a raster file declares about its placement."""
+
+    transform: Affine
+    crs: str | None
+    rows: int
+    cols: int
+    count: int
+    dtype: str
+    nodata: float | None
+
+
+def _open(path: Path):
+    import rasterio
+    from rasterio.errors import RasterioIOError
+
+    try:
+        return rasterio.open(path)
+    except RasterioIOError as err:
+        raise InputFileError(f"{path}: cannot be opened as a raster ({err}); expected a GeoTIFF of temperatures") from None
+
+
+def inspect_raster(path: Path, *, origin: tuple[float, float] | None = None, pixel_m: float | None = None,
+                   survey_crs: str | None = None) -> RasterInfo:
+    """Read a raster's placement and check that it can be put on a metric plan.
+
+    Parameters
+    ----------
+    path
+        The raster file.
+    origin, pixel_m
+        Upper-left corner (plan x, y) and pixel size, for a raster with no transform.
+    survey_crs
+        The survey CRS (``None`` for a local plan).
+
+    Raises
+    ------
+    InputFileError
+        No transform and no origin/pixel_m; a geographic CRS; more than one band.
+    """
+    with _open(path) as src:
+        transform, crs, rows, cols = src.transform, src.crs, src.height, src.width
+        count, dtype, nodata = src.count, src.dtypes[0], src.nodata
+    if count != 1:
+        raise InputFileError(
+            f"{path}: has {count} bands: looks like a colour or multi-band image; "
+            "expected a single band of radiometric temperatures"
+        )
+    if rows < 1 or cols < 1:
+        raise InputFileError(f"{path}: is empty ({rows} x {cols} pixels)")
+    if origin is not None and pixel_m is not None:
+        transform = Affine(pixel_m, 0.0, origin[0], 0.0, -pixel_m, origin[1])
+    elif transform.is_identity:
+        raise InputFileError(
+            f"{path}: has no geo-transform (pixel coordinates only), so areas would be in pixels; "
+            "add origin = [x, y] (upper-left corner) and pixel_m to its [[mosaic]] entry"
+        )
+    if abs(transform.determinant) == 0:
+        raise InputFileError(f"{path}: degenerate geo-transform {tuple(transform)[:6]}")
+    crs_text = None
+    if crs is not None:
+        if crs.is_geographic:
+            raise InputFileError(
+                f"{path}: CRS {crs.to_string()} is geographic (degrees): areas would be in square degrees; "
+                "reproject the mosaic to the survey's projected CRS in metres"
+            )
+        crs_text = crs.to_string()
+    return RasterInfo(transform=transform, crs=crs_text, rows=rows, cols=cols, count=count, dtype=dtype,
+                      nodata=nodata)
+
+
+def plan_grid_for(infos: list[RasterInfo], bounds: tuple[float, float, float, float], *,
+                  crs: str | None, pixel_m: float | None = None) -> PlanGrid:
+    """The plan grid covering ``bounds`` at the finest raster's pixel size.
+
+    The grid is aligned to the first north-up raster whose pixel size equals the
+    chosen one, so that raster is read without resampling.
+
+    Parameters
+    ----------
+    infos
+        Placement of each raster, in survey order.
+    bounds
+        ``(xmin, ymin, xmax, ymax)`` to cover (the outline's bounds), plan metres.
+    pixel_m
+        Override the pixel size.
+    """
+    sizes = [math.sqrt(abs(i.transform.determinant)) for i in infos]
+    size = pixel_m or min(sizes)
+    ax, ay = 0.0, 0.0
+    for info in infos:
+        t = info.transform
+        if t.b == 0 and t.d == 0 and t.e < 0 and math.isclose(t.a, size, rel_tol=1e-9) and math.isclose(-t.e, size, rel_tol=1e-9):
+            ax, ay = t.c, t.f
+            break
+    xmin, ymin, xmax, ymax = bounds
+    # snap outward to the alignment lattice
+    c0 = math.floor((xmin - ax) / size + 1e-9)
+    c1 = math.ceil((xmax - ax) / size - 1e-9)
+    r0 = math.floor((ay - ymax) / size + 1e-9)
+    r1 = math.ceil((ay - ymin) / size - 1e-9)
+    transform = Affine(size, 0.0, ax + c0 * size, 0.0, -size, ay - r0 * size)
+    return PlanGrid(transform=transform, rows=max(r1 - r0, 1), cols=max(c1 - c0, 1), crs=crs)
+
+
+def _aligned(info: RasterInfo, grid: PlanGrid) -> tuple[int, int] | None:
+    """Row/col offset of the grid inside the raster when no resampling is needed."""
+    t, g = info.transform, grid.transform
+    if t.b != 0 or t.d != 0 or not math.isclose(t.a, g.a, rel_tol=1e-9) or not math.isclose(t.e, g.e, rel_tol=1e-9):
+        return None
+    dc = (g.c - t.c) / t.a
+    dr = (g.f - t.f) / t.e
+    if abs(dc - round(dc)) > 1e-6 or abs(dr - round(dr)) > 1e-6:
+        return None
+    return int(round(dr)), int(round(dc))
+
+
+def read_onto_grid(path: Path, grid: PlanGrid, *, info: RasterInfo, units: Units, scale: float = 1.0,
+                   offset: float = 0.0) -> np.ndarray:
+    """Read a raster's temperatures onto ``grid``, in kelvin, float32, NaN where no data.
+
+    Parameters
+    ----------
+    path
+        The raster.
+    grid
+        Target plan grid.
+    info
+        From :func:`inspect_raster` (carries an origin/pixel_m override).
+    units, scale, offset
+        ``value = raw * scale + offset`` is in ``units``.
+
+    Returns
+    -------
+    numpy.ndarray
+        ``grid.shape`` float32 kelvin; NaN outside the raster and at nodata.
+    """
+    from rasterio.errors import RasterioError
+    from rasterio.windows import Window
+
+    out = np.full(grid.shape, np.nan, dtype=np.float32)
+    try:
+        with _open(path) as src:
+            offsets = _aligned(info, grid)
+            if offsets is not None:
+                r0, c0 = offsets
+                rr0, cc0 = max(r0, 0), max(c0, 0)
+                rr1, cc1 = min(r0 + grid.rows, info.rows), min(c0 + grid.cols, info.cols)
+                if rr1 > rr0 and cc1 > cc0:
+                    window = Window(cc0, rr0, cc1 - cc0, rr1 - rr0)
+                    data = src.read(1, window=window, masked=True)
+                    block = _to_float(data, scale, offset)
+                    out[rr0 - r0: rr1 - r0, cc0 - c0: cc1 - c0] = block
+            else:
+                _warp(src, info, grid, out, scale, offset)
+    except RasterioError as err:
+        raise InputFileError(
+            f"{path}: cannot be read ({err}); the file may be truncated or corrupt: export it again"
+        ) from None
+    return to_kelvin(out, units)
+
+
+def _to_float(data: np.ma.MaskedArray, scale: float, offset: float) -> np.ndarray:
+    values = np.asarray(data.data, dtype=np.float32)
+    if scale != 1.0:
+        values *= np.float32(scale)
+    if offset != 0.0:
+        values += np.float32(offset)
+    mask = np.ma.getmaskarray(data)
+    values[mask | ~np.isfinite(values)] = np.nan
+    return values
+
+
+def _warp(src, info: RasterInfo, grid: PlanGrid, out: np.ndarray, scale: float, offset: float) -> None:
+    """Bilinear resampling of the whole raster onto the grid (rotated, south-up, other size or CRS)."""
+    from rasterio.warp import Resampling, reproject
+
+    log.info("%s: resampled onto the plan grid (bilinear)", src.name)
+    data = _to_float(src.read(1, masked=True), scale, offset)
+    src_crs = info.crs or grid.crs
+    dst_crs = grid.crs or src_crs
+    if grid.crs is None:  # local plan: raster coordinates are plan metres
+        src_crs = dst_crs = "EPSG:3857"  # any metric CRS: identical on both sides, so no reprojection happens
+    reproject(
+        source=data,
+        destination=out,
+        src_transform=info.transform,
+        src_crs=src_crs,
+        src_nodata=np.nan,
+        dst_transform=grid.transform,
+        dst_crs=dst_crs,
+        dst_nodata=np.nan,
+        resampling=Resampling.bilinear,
+    )
