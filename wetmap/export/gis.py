@@ -1,0 +1,114 @@
+"""GeoPackage, GeoJSON and GeoTIFF outputs.
+
+- ``anomalies.gpkg``: the anomaly polygons in the survey CRS (no CRS for ``local``).
+- ``anomalies.geojson``: the same; WGS84 longitude/latitude (RFC 7946) for a
+  georeferenced survey, plan metres for ``local``.
+- ``repair.gpkg``: layers ``repair`` (outlines), ``boards``, ``anomalies``, ``cores``.
+- ``surface_c.tif`` / ``delta_c.tif``: float32 degC on the plan grid, NaN nodata.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+import numpy as np
+import shapely
+
+from ..errors import ProcessingError
+
+if TYPE_CHECKING:
+    from ..pipeline import SurveyResult
+    from ..rasters import PlanGrid
+
+__all__ = ["anomaly_frame", "write_anomalies", "write_repair", "write_raster", "confirmation_frame"]
+
+ANOMALY_COLUMNS = ("id", "status", "area_m2", "perimeter_m", "delta_mean_c", "delta_max_c", "confirmations", "section")
+
+
+def _crs(result: "SurveyResult") -> str | None:
+    return None if result.survey.survey.is_local else result.survey.survey.crs
+
+
+def anomaly_frame(result: "SurveyResult"):
+    """The anomalies as a GeoDataFrame with the format's attribute names, plan CRS."""
+    import geopandas as gpd
+
+    rows = {
+        "id": [a.id for a in result.anomalies],
+        "status": [a.status for a in result.anomalies],
+        "area_m2": [round(a.area_m2, 4) for a in result.anomalies],
+        "perimeter_m": [round(a.perimeter_m, 4) for a in result.anomalies],
+        "delta_mean_c": [round(a.delta_mean_c, 3) for a in result.anomalies],
+        "delta_max_c": [round(a.delta_max_c, 3) for a in result.anomalies],
+        "confirmations": [",".join(a.confirmations) for a in result.anomalies],
+        "section": [a.section or "" for a in result.anomalies],
+    }
+    geoms = [a.geometry for a in result.anomalies]
+    return gpd.GeoDataFrame(rows, geometry=geoms, crs=_crs(result))
+
+
+def confirmation_frame(result: "SurveyResult"):
+    """Cores and readings with their judgement and the delta-T sampled there."""
+    import geopandas as gpd
+
+    c = result.confirmations
+    rows = {
+        "id": list(c.ids),
+        "judged": ["wet" if w else "dry" for w in c.wet],
+        "basis": list(c.basis),
+        "value": [None if np.isnan(v) else float(v) for v in c.values],
+        "delta_c": [None if np.isnan(v) else round(float(v), 3) for v in result.confirmation_delta_c],
+        "anomaly": [int(a) + 1 if a >= 0 else None for a in result.verdicts.anomaly_of],
+        **{k: list(v) for k, v in c.extra.items()},
+    }
+    return gpd.GeoDataFrame(rows, geometry=list(shapely.points(c.xs, c.ys)) if len(c) else [], crs=_crs(result))
+
+
+def _check_valid(frame, path: Path) -> None:
+    if len(frame) and not shapely.is_valid(np.asarray(frame.geometry.values)).all():
+        raise ProcessingError(f"{path.name}: an output geometry is invalid; this is a wetmap bug, please report it")
+
+
+def write_anomalies(result: "SurveyResult", gpkg: Path, geojson: Path) -> None:
+    """Write ``anomalies.gpkg`` (plan CRS) and ``anomalies.geojson`` (RFC 7946 when georeferenced)."""
+    frame = anomaly_frame(result)
+    _check_valid(frame, gpkg)
+    frame.to_file(gpkg, layer="anomalies", driver="GPKG", engine="pyogrio")
+    out = frame.to_crs("EPSG:4326") if frame.crs is not None else frame
+    out.to_file(geojson, driver="GeoJSON", engine="pyogrio", RFC7946="YES" if frame.crs is not None else "NO",
+                WRITE_NAME="NO")
+
+
+def write_repair(result: "SurveyResult", gpkg: Path) -> None:
+    """Write ``repair.gpkg`` with layers ``repair``, ``boards``, ``anomalies`` and ``cores``."""
+    import geopandas as gpd
+
+    crs = _crs(result)
+    parts = list(shapely.get_parts(result.repair)) if not result.repair.is_empty else []
+    repair = gpd.GeoDataFrame({"id": list(range(1, len(parts) + 1)),
+                               "area_m2": [round(p.area, 4) for p in parts]}, geometry=parts, crs=crs)
+    boards = gpd.GeoDataFrame({"id": list(range(1, result.takeoff.count + 1))},
+                              geometry=list(result.takeoff.boards), crs=crs)
+    for layer, frame in (("repair", repair), ("boards", boards), ("anomalies", anomaly_frame(result)),
+                         ("cores", confirmation_frame(result))):
+        _check_valid(frame, gpkg)
+        frame.to_file(gpkg, layer=layer, driver="GPKG", engine="pyogrio")
+
+
+def write_raster(values: np.ndarray, grid: "PlanGrid", path: Path) -> None:
+    """Write a float32 degC raster on the plan grid (tiled, deflate, NaN nodata, BigTIFF if needed)."""
+    import rasterio
+
+    rows, cols = values.shape
+    tiled = rows >= 256 and cols >= 256
+    profile = dict(
+        driver="GTiff", width=cols, height=rows, count=1, dtype="float32", crs=grid.crs,
+        transform=grid.transform, nodata=float("nan"), compress="deflate", predictor=3,
+        BIGTIFF="IF_SAFER",
+    )
+    if tiled:
+        profile.update(tiled=True, blockxsize=256, blockysize=256)
+    with rasterio.open(path, "w", **profile) as dst:
+        dst.write(values.astype(np.float32, copy=False), 1)
+        dst.update_tags(1, units="degC")

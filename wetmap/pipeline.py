@@ -1,0 +1,464 @@
+"""``run_survey()``: the stages wired in one direction, results written atomically.
+
+survey.toml -> plan -> imagery on the plan grid -> surface temperature -> background,
+delta, mask -> polygons -> confirmations -> quantities -> results/.
+
+Results are written to a temporary folder beside the destination and moved into place
+only when every file was written; a failed run leaves earlier results exactly as they were.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+import shutil
+import tempfile
+from collections.abc import Callable
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import shapely
+from shapely.geometry import Polygon
+from shapely.geometry.base import BaseGeometry
+
+from . import __version__
+from .confirm import Status, Verdicts, assign_status
+from .confirmations import Confirmations, read_confirmations
+from .detect import Detection, default_background_m, detect_anomalies
+from .errors import InputFileError, ProcessingError
+from .polygons import label_regions, polygonize, region_stats
+from .quantities import BoardTakeoff, SectionTotals, board_takeoff, largest_overlap, repair_outline, section_totals
+from .rasters import PlanGrid, inspect_raster, plan_grid_for, read_onto_grid
+from .survey import Survey, load_survey
+from .vectors import Section, read_layer, read_outline, read_sections
+
+__all__ = ["Anomaly", "SurveyResult", "process_survey", "write_results", "run_survey", "check_survey", "RESULT_FILES"]
+
+log = logging.getLogger(__name__)
+
+Progress = Callable[[str], None]
+
+#: Files every run writes (map.html and report.html are added by their exporters).
+RESULT_FILES = (
+    "summary.json",
+    "anomalies.gpkg",
+    "anomalies.geojson",
+    "repair.gpkg",
+    "quantities.csv",
+    "surface_c.tif",
+    "delta_c.tif",
+)
+
+
+@dataclass(frozen=True)
+class Anomaly:
+    """One anomaly polygon with its attributes (names as in the output format)."""
+
+    id: int
+    geometry: Polygon
+    status: Status
+    area_m2: float
+    perimeter_m: float
+    delta_mean_c: float
+    delta_max_c: float
+    confirmations: tuple[str, ...]
+    section: str | None
+
+
+@dataclass(frozen=True)
+class Radiometry:
+    """How apparent temperature was turned into surface temperature."""
+
+    band_um: tuple[float, float]
+    emissivity: float
+    reflected_c: float
+    reflected_source: str
+    transmittance: float
+    transmittance_source: str
+    atmosphere_c: float
+
+
+@dataclass(frozen=True)
+class SurveyResult:
+    """Everything a run computed; exporters read only this."""
+
+    survey: Survey
+    grid: PlanGrid
+    surface_c: np.ndarray
+    detection: Detection
+    outline: BaseGeometry
+    exclusions: BaseGeometry
+    roof: BaseGeometry
+    sections: tuple[Section, ...]
+    anomalies: tuple[Anomaly, ...]
+    confirmations: Confirmations
+    verdicts: Verdicts
+    confirmation_delta_c: np.ndarray
+    repair: BaseGeometry
+    takeoff: BoardTakeoff
+    section_totals: tuple[SectionTotals, ...]
+    radiometry: Radiometry
+    coverage: dict[str, float]
+    warnings: tuple[str, ...] = field(default_factory=tuple)
+
+    def summary(self) -> dict[str, Any]:
+        """The ``summary.json`` content (areas in m2)."""
+        by: dict[str, float] = {"wet": 0.0, "dry": 0.0, "unverified": 0.0}
+        for a in self.anomalies:
+            by[a.status] += a.area_m2
+        roof_area = self.roof.area
+        wet = by["wet"] + by["unverified"]
+        d, s = self.detection, self.survey
+        return {
+            "title": s.survey.title,
+            "kind": s.survey.kind,
+            "crs": s.survey.crs,
+            "side": s.survey.side,
+            "roof_area_m2": round(roof_area, 4),
+            "anomaly_count": len(self.anomalies),
+            "wet_area_m2": round(wet, 4),
+            "confirmed_wet_area_m2": round(by["wet"], 4),
+            "unverified_area_m2": round(by["unverified"], 4),
+            "confirmed_dry_area_m2": round(by["dry"], 4),
+            "wet_fraction": round(wet / roof_area, 6) if roof_area > 0 else 0.0,
+            "repair_area_m2": round(self.repair.area, 4),
+            "boards": self.takeoff.count,
+            "board_area_m2": round(self.takeoff.board_area_m2, 4),
+            "tearoff_area_m2": round(self.takeoff.tearoff_area_m2, 4),
+            "warnings": list(self.warnings),
+            "sections": [
+                {k: (round(v, 4) if isinstance(v, float) else v) for k, v in vars(t).items()}
+                for t in self.section_totals
+            ],
+            "coverage": {k: round(v, 4) for k, v in self.coverage.items()},
+            "confirmations": {
+                "count": len(self.confirmations),
+                "wet": int(self.confirmations.wet.sum()),
+                "dry": int((~self.confirmations.wet).sum()),
+                "outside_anomalies": int((self.verdicts.anomaly_of < 0).sum()),
+            },
+            "method": {
+                "band_um": list(self.radiometry.band_um),
+                "emissivity": self.radiometry.emissivity,
+                "reflected_c": round(self.radiometry.reflected_c, 3),
+                "reflected_source": self.radiometry.reflected_source,
+                "transmittance": round(self.radiometry.transmittance, 5),
+                "transmittance_source": self.radiometry.transmittance_source,
+                "delta_c": d.threshold_c,
+                "background_m": round(d.background_m, 3),
+                "min_area_m2": s.detect.min_area_m2,
+                "pixel_m": self.grid.pixel_m,
+                "perimeter": "length of the smoothed outline (mid-edge rule), not the pixel staircase",
+                "margin_m": s.repair.margin_m,
+                "board_m": list(s.repair.board_m) if s.repair.board_m else None,
+                "include_unverified": s.repair.include_unverified,
+            },
+            "wetmap_version": __version__,
+        }
+
+
+def _emit(progress: Progress | None, message: str) -> None:
+    log.info(message)
+    if progress is not None:
+        progress(message)
+
+
+def _union(geoms) -> BaseGeometry:
+    return shapely.union_all(np.asarray(list(geoms), dtype=object)) if geoms else Polygon()
+
+
+def _radiometry(survey: Survey, warnings: list[str]) -> Radiometry:
+    from .conditions import estimate_reflected_c
+    from .radiometry import atmospheric_transmittance
+
+    cond, cam = survey.conditions, survey.camera
+    if cond.reflected_c is not None:
+        reflected, source = cond.reflected_c, "measured (as entered in [conditions] reflected_c)"
+    else:
+        sky_view = 1.0 if survey.survey.kind == "roof" else 0.5
+        est = estimate_reflected_c(cond.air_c, cond.humidity_pct, cond.sky or "clear", sky_view=sky_view)
+        reflected, source = est.reflected_c, f"estimated: {est.model}"
+        warnings.append(f"{est.note} ({est.model})")
+    if cam.transmittance is not None:
+        tau, tau_source = cam.transmittance, "as entered in [camera] transmittance"
+    elif cam.distance_m > 0:
+        tau = atmospheric_transmittance(cam.distance_m, air_c=cond.air_c, humidity_pct=cond.humidity_pct)
+        tau_source = f"approximate water-vapour model over {cam.distance_m:g} m"
+    else:
+        tau, tau_source = 1.0, "no atmosphere (distance_m = 0)"
+    return Radiometry(band_um=cam.band_um, emissivity=cam.emissivity, reflected_c=reflected,
+                      reflected_source=source, transmittance=tau, transmittance_source=tau_source,
+                      atmosphere_c=cond.air_c)
+
+
+def _mask_of(geoms: BaseGeometry, grid: PlanGrid) -> np.ndarray:
+    """Pixels whose centre lies inside ``geoms`` (the pixel-centre rule)."""
+    from rasterio.features import geometry_mask
+
+    if geoms.is_empty:
+        return np.zeros(grid.shape, dtype=bool)
+    return geometry_mask([geoms], out_shape=grid.shape, transform=grid.transform, invert=True, all_touched=False)
+
+
+def _surface_on_grid(survey: Survey, outline: BaseGeometry, radiometry: Radiometry,
+                     warnings: list[str], progress: Progress | None) -> tuple[PlanGrid, np.ndarray]:
+    from .radiometry import surface_from_apparent
+
+    if survey.frames:
+        raise ProcessingError(
+            f"{survey.file}: [[frame]] entries need frame registration, which this version of wetmap "
+            "does not do yet; supply the imagery as a [[mosaic]] on the plan grid"
+        )
+    crs = None if survey.survey.is_local else survey.survey.crs
+    infos = [inspect_raster(m.path, origin=m.origin, pixel_m=m.pixel_m, survey_crs=crs) for m in survey.mosaics]
+    for m, info in zip(survey.mosaics, infos):
+        if info.crs is not None and crs is not None:
+            from pyproj import CRS
+
+            if not CRS(info.crs).equals(CRS(crs)):
+                warnings.append(f"{m.path.name}: CRS {info.crs} differs from the survey's {crs}; resampled")
+    grid = plan_grid_for(infos, outline.bounds, crs=crs)
+    if grid.rows * grid.cols > 2_000_000_000:
+        raise ProcessingError(f"{survey.file}: the plan grid would be {grid.rows} x {grid.cols} pixels; "
+                              "check the outline's coordinates and the mosaic's pixel size")
+    apparent: np.ndarray | None = None
+    for m, info in zip(survey.mosaics, infos):
+        _emit(progress, f"reading {m.path.name}")
+        values = read_onto_grid(m.path, grid, info=info, units=m.units, scale=m.scale, offset=m.offset)
+        if apparent is None:
+            apparent = values
+        else:  # later mosaics fill what earlier ones do not cover
+            gap = np.isnan(apparent)
+            apparent[gap] = values[gap]
+    assert apparent is not None  # the survey loader guarantees at least one mosaic here
+    _emit(progress, "correcting apparent to surface temperature")
+    surface = surface_from_apparent(
+        apparent,
+        emissivity=radiometry.emissivity,
+        reflected_k=radiometry.reflected_c + 273.15,
+        transmittance=radiometry.transmittance,
+        atmosphere_k=radiometry.atmosphere_c + 273.15,
+        band_um=radiometry.band_um,
+    )
+    lost = int(np.count_nonzero(np.isnan(surface) & ~np.isnan(apparent)))
+    if lost:
+        warnings.append(
+            f"{lost} pixels could not be corrected (apparent temperature too low for the emissivity and "
+            "reflected temperature given): check [camera] emissivity and [conditions] reflected_c"
+        )
+    surface -= np.float32(273.15)
+    return grid, surface
+
+
+def process_survey(folder: str | Path, *, progress: Progress | None = None) -> SurveyResult:
+    """Run every stage on the survey in ``folder`` and return the results (nothing written).
+
+    Raises
+    ------
+    WetmapError
+        On any invalid input; the message names the file, key or row and the fix.
+    """
+    survey = load_survey(folder)
+    crs = None if survey.survey.is_local else survey.survey.crs
+    warnings: list[str] = []
+
+    _emit(progress, "reading the plan")
+    outline, notes = read_outline(survey.plan.outline, survey_crs=crs)
+    warnings.extend(notes)
+    exclusions: BaseGeometry = Polygon()
+    if survey.plan.exclusions is not None:
+        layer = read_layer(survey.plan.exclusions, survey_crs=crs, what="exclusions")
+        warnings.extend(layer.notes)
+        exclusions = _union(layer.geometries)
+    sections: list[Section] = []
+    if survey.plan.sections is not None:
+        sections, notes = read_sections(survey.plan.sections, survey_crs=crs)
+        warnings.extend(notes)
+    roof = outline.difference(exclusions) if not exclusions.is_empty else outline
+    if roof.area <= 0:
+        raise InputFileError(f"{survey.plan.exclusions}: the exclusions cover the whole outline; nothing is left to survey")
+
+    radiometry = _radiometry(survey, warnings)
+    grid, surface_c = _surface_on_grid(survey, outline, radiometry, warnings, progress)
+
+    _emit(progress, "masking the roof")
+    in_roof = _mask_of(roof, grid)
+    usable = in_roof & np.isfinite(surface_c)
+    roof_px = int(in_roof.sum())
+    covered_px = int(usable.sum())
+    px_area = grid.pixel_area_m2
+    coverage = {
+        "roof_pixels_m2": roof_px * px_area,
+        "covered_m2": covered_px * px_area,
+        "uncovered_m2": (roof_px - covered_px) * px_area,
+        "uncovered_pct": 100.0 * (roof_px - covered_px) / roof_px if roof_px else 100.0,
+    }
+    if covered_px == 0:
+        warnings.append("no usable thermal data on the roof (all nodata, or the mosaic misses the outline): "
+                        "nothing was detected; check the mosaic's placement and nodata")
+    elif coverage["uncovered_pct"] > 0.5:
+        warnings.append(
+            f"{coverage['uncovered_m2']:.1f} m2 ({coverage['uncovered_pct']:.1f} %) of the roof has no thermal data: "
+            "it is not surveyed, which does not mean dry"
+        )
+    sdt = survey.detect
+    x0, y0, x1, y1 = outline.bounds
+    background_m = sdt.background_m or default_background_m(survey.survey.kind, max(x1 - x0, y1 - y0))
+    _emit(progress, "estimating the dry background and thresholding")
+    if covered_px and np.nanmax(np.where(usable, surface_c, np.nan)) == np.nanmin(np.where(usable, surface_c, np.nan)):
+        warnings.append("the thermal data on the roof are constant: no contrast, nothing can be detected")
+    detection = detect_anomalies(surface_c, usable, pixel_m=grid.pixel_m, delta_c=sdt.delta_c,
+                                 background_m=background_m, min_area_m2=sdt.min_area_m2)
+
+    _emit(progress, "outlining anomalies")
+    labels, count = label_regions(detection.mask)
+    stats = region_stats(labels, count, detection.delta_c)
+    polys = polygonize(labels, count, grid.transform)
+
+    if survey.cores is not None:
+        conf = read_confirmations(survey.cores.path, wet_above=survey.cores.wet_above,
+                                  wet_above_pct=survey.cores.wet_above_pct)
+    else:
+        conf = Confirmations.empty()
+    verdicts = assign_status(polys, conf)
+    conf_delta = _sample(detection.delta_c, grid, conf.xs, conf.ys)
+    if len(conf):
+        inside_roof = shapely.covers(outline, shapely.points(conf.xs, conf.ys))
+        for i in np.flatnonzero(~inside_roof):
+            warnings.append(f"{survey.cores.path.name}: {conf.ids[i]} at ({conf.xs[i]:.2f}, {conf.ys[i]:.2f}) "
+                            "lies outside the outline; check its coordinates")
+        for i in np.flatnonzero(conf.wet & (verdicts.anomaly_of < 0) & inside_roof):
+            d = conf_delta[i]
+            seen = f"delta-T there {d:+.2f} °C" if np.isfinite(d) else "no thermal data there"
+            warnings.append(
+                f"{conf.ids[i]} says wet but lies outside every anomaly ({seen}; threshold {sdt.delta_c:g} °C): "
+                "a possible missed wet area"
+            )
+    if len(conf) == 0 and count:
+        warnings.append("no cores or readings: every anomaly is unverified; infrared alone does not "
+                        "establish wet insulation (invasive verification is required)")
+
+    section_of = largest_overlap(polys, [s.geometry for s in sections])
+    anomalies = tuple(
+        Anomaly(
+            id=i + 1,
+            geometry=p,
+            status=verdicts.status[i],
+            area_m2=float(p.area),
+            perimeter_m=float(p.length),
+            delta_mean_c=float(stats.mean[i]),
+            delta_max_c=float(stats.max[i]),
+            confirmations=verdicts.confirmation_ids[i],
+            section=sections[section_of[i]].name if section_of[i] >= 0 else None,
+        )
+        for i, p in enumerate(polys)
+    )
+
+    _emit(progress, "repair quantities")
+    counted = {"wet", "unverified"} if survey.repair.include_unverified else {"wet"}
+    repair = repair_outline([a.geometry for a in anomalies if a.status in counted],
+                            margin_m=survey.repair.margin_m, outline=outline, exclusions=exclusions)
+    takeoff = board_takeoff(repair, board_m=survey.repair.board_m, roof=roof) if survey.repair.board_m \
+        else BoardTakeoff((), 0, 0.0, 0.0, 0.0)
+    totals = tuple(
+        section_totals(s.name, s.geometry, roof=roof, anomalies=[a.geometry for a in anomalies],
+                       status=tuple(a.status for a in anomalies), repair=repair, boards=takeoff.boards,
+                       assembly=s.assembly, insulation=s.insulation)
+        for s in sections
+    )
+    return SurveyResult(
+        survey=survey, grid=grid, surface_c=surface_c, detection=detection, outline=outline,
+        exclusions=exclusions, roof=roof, sections=tuple(sections), anomalies=anomalies, confirmations=conf,
+        verdicts=verdicts, confirmation_delta_c=conf_delta, repair=repair, takeoff=takeoff,
+        section_totals=totals, radiometry=radiometry, coverage=coverage, warnings=tuple(warnings),
+    )
+
+
+def _sample(values: np.ndarray, grid: PlanGrid, xs: np.ndarray, ys: np.ndarray, radius_px: int = 1) -> np.ndarray:
+    """Median of ``values`` in a (2 r + 1)^2 neighbourhood of each point; NaN off the grid."""
+    out = np.full(len(xs), np.nan)
+    if not len(xs):
+        return out
+    cols, rows = ~grid.transform * (np.asarray(xs), np.asarray(ys))
+    for i, (r, c) in enumerate(zip(np.floor(rows).astype(int), np.floor(cols).astype(int))):
+        r0, r1 = max(r - radius_px, 0), min(r + radius_px + 1, grid.rows)
+        c0, c1 = max(c - radius_px, 0), min(c + radius_px + 1, grid.cols)
+        if r1 > r0 and c1 > c0:
+            window = values[r0:r1, c0:c1]
+            if np.isfinite(window).any():
+                out[i] = float(np.nanmedian(window))
+    return out
+
+
+def write_results(result: SurveyResult, out_dir: Path, *, extra_writers: tuple[Callable[[SurveyResult, Path], None], ...] = ()) -> Path:
+    """Write every result file into ``out_dir`` atomically.
+
+    The files are written to a temporary folder beside ``out_dir``; only when all are
+    written is an existing ``out_dir`` replaced. On failure the temporary folder is
+    removed and ``out_dir`` is untouched.
+    """
+    from .export import gis, tables
+
+    out_dir = Path(out_dir).resolve()
+    out_dir.parent.mkdir(parents=True, exist_ok=True)
+    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.tmp-", dir=out_dir.parent))
+    try:
+        tables.write_summary(result, tmp / "summary.json")
+        tables.write_quantities(result, tmp / "quantities.csv")
+        gis.write_anomalies(result, tmp / "anomalies.gpkg", tmp / "anomalies.geojson")
+        gis.write_repair(result, tmp / "repair.gpkg")
+        gis.write_raster(result.surface_c, result.grid, tmp / "surface_c.tif")
+        gis.write_raster(result.detection.delta_c, result.grid, tmp / "delta_c.tif")
+        for writer in extra_writers:
+            writer(result, tmp)
+        if out_dir.exists():
+            old = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.old-", dir=out_dir.parent))
+            os.replace(out_dir, old / out_dir.name)
+            try:
+                os.replace(tmp, out_dir)
+            except BaseException:
+                os.replace(old / out_dir.name, out_dir)  # put the earlier results back
+                raise
+            shutil.rmtree(old, ignore_errors=True)
+        else:
+            os.replace(tmp, out_dir)
+    except BaseException:
+        shutil.rmtree(tmp, ignore_errors=True)
+        raise
+    return out_dir
+
+
+def run_survey(folder: str | Path, *, out: str | Path | None = None, progress: Progress | None = None,
+               extra_writers: tuple[Callable[[SurveyResult, Path], None], ...] = ()) -> SurveyResult:
+    """Process the survey in ``folder`` and write its results (default ``folder/results``)."""
+    result = process_survey(folder, progress=progress)
+    out_dir = Path(out) if out is not None else result.survey.folder / "results"
+    _emit(progress, f"writing results to {out_dir}")
+    write_results(result, out_dir, extra_writers=extra_writers)
+    return result
+
+
+def check_survey(folder: str | Path) -> tuple[Survey, tuple[str, ...]]:
+    """Validate a survey without processing it: survey.toml, plan files, rasters, cores.
+
+    Returns the survey and the warnings found; raises :class:`WetmapError` on the first
+    file that cannot be used (every survey.toml problem at once).
+    """
+    survey = load_survey(folder)
+    crs = None if survey.survey.is_local else survey.survey.crs
+    warnings: list[str] = []
+    _, notes = read_outline(survey.plan.outline, survey_crs=crs)
+    warnings.extend(notes)
+    if survey.plan.exclusions is not None:
+        warnings.extend(read_layer(survey.plan.exclusions, survey_crs=crs, what="exclusions").notes)
+    if survey.plan.sections is not None:
+        warnings.extend(read_sections(survey.plan.sections, survey_crs=crs)[1])
+    for m in survey.mosaics:
+        inspect_raster(m.path, origin=m.origin, pixel_m=m.pixel_m, survey_crs=crs)
+    if survey.cores is not None:
+        read_confirmations(survey.cores.path, wet_above=survey.cores.wet_above,
+                           wet_above_pct=survey.cores.wet_above_pct)
+    _radiometry(survey, warnings)
+    return survey, tuple(warnings)
