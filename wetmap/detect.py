@@ -4,7 +4,8 @@ The dry background is estimated robustly, so that a wet area several metres acro
 not absorbed into its own background:
 
 1. the roof is cut into square blocks of ``block_px`` pixels and each block's median of
-   the usable pixels is taken (a block with fewer than a quarter usable is left empty);
+   the usable pixels is taken (a block with fewer than a quarter of its pixels usable is
+   left empty; when every block is empty, one median of the whole roof is used);
 2. empty blocks take the value of the nearest filled block; a median filter of
    ``footprint`` blocks (an odd number; about ``background_m`` across) smooths the block grid;
 3. the block grid is interpolated bilinearly back to every pixel (block centres are
@@ -102,7 +103,10 @@ def _block_median(values: np.ndarray, usable: np.ndarray, block: int) -> np.ndar
     rows, cols = values.shape
     nr, nc = -(-rows // block), -(-cols // block)
     out = np.full((nr, nc), np.nan, dtype=np.float64)
-    need = max(1, int(math.ceil(MIN_BLOCK_FILL * block * block)))
+    # pixels of each block that lie inside the array (edge blocks are partial)
+    extent_r = np.minimum(block, rows - np.arange(nr) * block)
+    extent_c = np.minimum(block, cols - np.arange(nc) * block)
+    need_all = np.maximum(1, np.ceil(MIN_BLOCK_FILL * extent_r[:, None] * extent_c[None, :])).astype(np.int64)
     band_rows = max(1, (1 << 22) // max(cols * block, 1))  # bound the temporary to a few MB
     for br0 in range(0, nr, band_rows):
         br1 = min(nr, br0 + band_rows)
@@ -119,7 +123,7 @@ def _block_median(values: np.ndarray, usable: np.ndarray, block: int) -> np.ndar
         hi = np.clip(n // 2, 0, None)
         med = 0.5 * (np.take_along_axis(v, lo[..., None], -1)[..., 0].astype(np.float64)
                      + np.take_along_axis(v, hi[..., None], -1)[..., 0])
-        med[n < need] = np.nan
+        med[n < need_all[br0:br1]] = np.nan
         out[br0:br1] = med
     return out
 
@@ -190,7 +194,10 @@ def dry_background(surface_c: np.ndarray, usable: np.ndarray, *, pixel_m: float,
     for _ in range(max(1, iterations)):
         coarse = _block_median(surface_c, keep, grid.block_px)
         if np.isnan(coarse).all():
-            break  # every block lost to outliers: keep the previous estimate
+            if background is not None:
+                break  # every block lost to outliers: keep the previous estimate
+            # usable pixels too sparse for any block: one median for the whole roof
+            coarse = np.full(coarse.shape, float(np.median(surface_c[keep])))
         coarse = ndimage.median_filter(_fill_nearest(coarse), size=grid.footprint, mode="nearest")
         background = _upsample(coarse, surface_c.shape, grid.block_px)
         delta = surface_c[usable] - background[usable]

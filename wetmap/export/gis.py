@@ -9,6 +9,7 @@
 
 from __future__ import annotations
 
+import warnings
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -65,6 +66,14 @@ def confirmation_frame(result: "SurveyResult"):
     return gpd.GeoDataFrame(rows, geometry=list(shapely.points(c.xs, c.ys)) if len(c) else [], crs=_crs(result))
 
 
+def _to_file(frame, path: Path, **kwargs) -> None:
+    """Write a layer; a ``local`` plan has no CRS on purpose, so the no-CRS warning is dropped."""
+    with warnings.catch_warnings():
+        if frame.crs is None:
+            warnings.filterwarnings("ignore", message="'crs' was not provided")
+        frame.to_file(path, engine="pyogrio", **kwargs)
+
+
 def _check_valid(frame, path: Path) -> None:
     if len(frame) and not shapely.is_valid(np.asarray(frame.geometry.values)).all():
         raise ProcessingError(f"{path.name}: an output geometry is invalid; this is a wetmap bug, please report it")
@@ -74,10 +83,11 @@ def write_anomalies(result: "SurveyResult", gpkg: Path, geojson: Path) -> None:
     """Write ``anomalies.gpkg`` (plan CRS) and ``anomalies.geojson`` (RFC 7946 when georeferenced)."""
     frame = anomaly_frame(result)
     _check_valid(frame, gpkg)
-    frame.to_file(gpkg, layer="anomalies", driver="GPKG", engine="pyogrio")
+    _to_file(frame, gpkg, layer="anomalies", driver="GPKG")
     out = frame.to_crs("EPSG:4326") if frame.crs is not None else frame
-    out.to_file(geojson, driver="GeoJSON", engine="pyogrio", RFC7946="YES" if frame.crs is not None else "NO",
-                WRITE_NAME="NO")
+    # RFC 7946 writers round to 7 decimals (about 1 cm); 9 keep about 0.1 mm
+    _to_file(out, geojson, driver="GeoJSON", RFC7946="YES" if frame.crs is not None else "NO",
+             WRITE_NAME="NO", COORDINATE_PRECISION=9)
 
 
 def write_repair(result: "SurveyResult", gpkg: Path) -> None:
@@ -93,7 +103,7 @@ def write_repair(result: "SurveyResult", gpkg: Path) -> None:
     for layer, frame in (("repair", repair), ("boards", boards), ("anomalies", anomaly_frame(result)),
                          ("cores", confirmation_frame(result))):
         _check_valid(frame, gpkg)
-        frame.to_file(gpkg, layer=layer, driver="GPKG", engine="pyogrio")
+        _to_file(frame, gpkg, layer=layer, driver="GPKG")
 
 
 def write_raster(values: np.ndarray, grid: "PlanGrid", path: Path) -> None:
