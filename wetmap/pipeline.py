@@ -381,7 +381,7 @@ def _sample(values: np.ndarray, grid: PlanGrid, xs: np.ndarray, ys: np.ndarray, 
     out = np.full(len(xs), np.nan)
     if not len(xs):
         return out
-    cols, rows = ~grid.transform * (np.asarray(xs), np.asarray(ys))
+    cols, rows = ~grid.transform @ (np.asarray(xs), np.asarray(ys))
     for i, (r, c) in enumerate(zip(np.floor(rows).astype(int), np.floor(cols).astype(int))):
         r0, r1 = max(r - radius_px, 0), min(r + radius_px + 1, grid.rows)
         c0, c1 = max(c - radius_px, 0), min(c + radius_px + 1, grid.cols)
