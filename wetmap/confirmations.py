@@ -9,7 +9,9 @@ Columns ``id,x,y`` (plan coordinates) and at least one of
   ``[cores] wet_above``.
 
 On each row the first of these that holds a value decides. Other columns are kept
-as text for the map and report. The delimiter may be ``,`` or ``;``.
+as text for the map and report. The delimiter may be ``,`` or ``;`` (then a decimal
+comma is accepted too). Messages give the row as a spreadsheet shows it: the line of
+the file, the header being row 1.
 """
 
 from __future__ import annotations
@@ -99,6 +101,10 @@ def read_confirmations(path: Path, *, wet_above: float | None = None,
     reader = csv.DictReader(lines, delimiter=delimiter)
     header = [h.strip() for h in (reader.fieldnames or [])]
     reader.fieldnames = header
+    repeated = sorted({h for h in header if h and header.count(h) > 1})
+    if repeated:
+        raise InputFileError(f"{path}: column {', '.join(repr(h) for h in repeated)} appears twice in the header; "
+                             "expected each column once")
     for col in ("id", "x", "y"):
         if col not in header:
             raise InputFileError(f"{path}: column '{col}' is missing; expected columns id,x,y and result, moisture_pct or reading")
@@ -128,7 +134,15 @@ def read_confirmations(path: Path, *, wet_above: float | None = None,
     values: list[float] = []
     extra_cols = [c for c in header if c not in ("id", "x", "y", "result", "moisture_pct", "reading")]
     extra: dict[str, list[str]] = {c: [] for c in extra_cols}
-    for row_no, row in enumerate(reader, start=2):
+    for row in reader:
+        # the row number a spreadsheet shows: the line in the file (csv skips blank lines itself)
+        row_no = reader.line_num
+        if any((v or "").strip() for v in row.get(None, ())):  # more values than header columns (blank extras pass)
+            raise InputFileError(
+                f"{path}: row {row_no} has {len(header) + len(row[None])} values but the header has "
+                f"{len(header)} columns; a decimal comma in a comma-separated file? "
+                "use a decimal point, or ';' as the delimiter"
+            )
         if not any((v or "").strip() for v in row.values() if isinstance(v, str)):
             continue  # blank line
         ident = (row.get("id") or "").strip()

@@ -214,7 +214,7 @@ def anomaly_mask(delta_c: np.ndarray, threshold_c: float, *, min_pixels: int) ->
     NaN deltas (unusable pixels) are never anomalous.
 
     >>> d = np.zeros((6, 6)); d[1:4, 1:4] = 2.0; d[5, 5] = 3.0
-    >>> anomaly_mask(d, 1.0, min_pixels=2).sum()
+    >>> int(anomaly_mask(d, 1.0, min_pixels=2).sum())
     9
     """
     with np.errstate(invalid="ignore"):

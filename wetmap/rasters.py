@@ -79,6 +79,8 @@ def to_kelvin(values: np.ndarray, units: Units) -> np.ndarray:
     >>> to_kelvin(np.array([32.0, 212.0]), "F")
     array([273.15, 373.15])
     """
+    if not np.issubdtype(values.dtype, np.floating):
+        values = values.astype(np.float64)  # integers cannot hold kelvin in place
     if units == "C":
         values += np.float32(273.15) if values.dtype == np.float32 else 273.15
     elif units == "F":
@@ -107,8 +109,15 @@ def _open(path: Path):
     import rasterio
     from rasterio.errors import RasterioIOError
 
+    import warnings
+
+    from rasterio.errors import NotGeoreferencedWarning
+
     try:
-        return rasterio.open(path)
+        with warnings.catch_warnings():
+            # a raster without a transform is reported by inspect_raster, or placed by origin/pixel_m
+            warnings.simplefilter("ignore", NotGeoreferencedWarning)
+            return rasterio.open(path)
     except RasterioIOError as err:
         raise InputFileError(f"{path}: cannot be opened as a raster ({err}); expected a GeoTIFF of temperatures") from None
 
@@ -129,11 +138,19 @@ def inspect_raster(path: Path, *, origin: tuple[float, float] | None = None, pix
     Raises
     ------
     InputFileError
-        No transform and no origin/pixel_m; a geographic CRS; more than one band.
+        No transform and no origin/pixel_m; a geographic CRS; more than one band; a palette image.
     """
+    from rasterio.enums import ColorInterp
+
     with _open(path) as src:
         transform, crs, rows, cols = src.transform, src.crs, src.height, src.width
         count, dtype, nodata = src.count, src.dtypes[0], src.nodata
+        palette = count >= 1 and src.colorinterp[0] == ColorInterp.palette
+    if palette:
+        raise InputFileError(
+            f"{path}: is a palette (false-colour) image: its pixel values are colour indices, not temperatures; "
+            "expected a single band of radiometric temperatures"
+        )
     if count != 1:
         raise InputFileError(
             f"{path}: has {count} bands: looks like a colour or multi-band image; "
@@ -178,11 +195,13 @@ def plan_grid_for(infos: list[RasterInfo], bounds: tuple[float, float, float, fl
     pixel_m
         Override the pixel size.
     """
-    sizes = [math.sqrt(abs(i.transform.determinant)) for i in infos]
+    sizes = [_pixel_size_in(i, crs) for i in infos]
     size = pixel_m or min(sizes)
     ax, ay = 0.0, 0.0
     for info in infos:
         t = info.transform
+        if not _same_crs(info.crs, crs):
+            continue  # its lattice is in another CRS: it is resampled anyway
         if t.b == 0 and t.d == 0 and t.e < 0 and math.isclose(t.a, size, rel_tol=1e-9) and math.isclose(-t.e, size, rel_tol=1e-9):
             ax, ay = t.c, t.f
             break
@@ -196,8 +215,33 @@ def plan_grid_for(infos: list[RasterInfo], bounds: tuple[float, float, float, fl
     return PlanGrid(transform=transform, rows=max(r1 - r0, 1), cols=max(c1 - c0, 1), crs=crs)
 
 
+def _same_crs(raster_crs: str | None, grid_crs: str | None) -> bool:
+    """True when raster coordinates are plan coordinates (no CRS on either side, or equal CRSs)."""
+    if raster_crs is None or grid_crs is None:
+        return True
+    from pyproj import CRS
+
+    return CRS(raster_crs).equals(CRS(grid_crs))
+
+
+def _pixel_size_in(info: RasterInfo, crs: str | None) -> float:
+    """Side of the raster's central pixel measured in ``crs`` (plan metres)."""
+    t = info.transform
+    if _same_crs(info.crs, crs):
+        return math.sqrt(abs(t.determinant))
+    from pyproj import Transformer
+
+    tr = Transformer.from_crs(info.crs, crs, always_xy=True)
+    c, r = info.cols / 2.0, info.rows / 2.0
+    cols_, rows_ = np.array([c, c + 1, c]), np.array([r, r, r + 1])
+    (x0, x1, x2), (y0, y1, y2) = tr.transform(t.a * cols_ + t.b * rows_ + t.c, t.d * cols_ + t.e * rows_ + t.f)
+    return math.sqrt(abs((x1 - x0) * (y2 - y0) - (x2 - x0) * (y1 - y0)))
+
+
 def _aligned(info: RasterInfo, grid: PlanGrid) -> tuple[int, int] | None:
     """Row/col offset of the grid inside the raster when no resampling is needed."""
+    if not _same_crs(info.crs, grid.crs):
+        return None
     t, g = info.transform, grid.transform
     if t.b != 0 or t.d != 0 or not math.isclose(t.a, g.a, rel_tol=1e-9) or not math.isclose(t.e, g.e, rel_tol=1e-9):
         return None
@@ -231,6 +275,11 @@ def read_onto_grid(path: Path, grid: PlanGrid, *, info: RasterInfo, units: Units
     from rasterio.errors import RasterioError
     from rasterio.windows import Window
 
+    try:  # GDAL's own errors (some reads raise them directly); a private module, hence the fallback
+        from rasterio._err import CPLE_BaseError
+    except ImportError:  # pragma: no cover
+        CPLE_BaseError = RasterioError
+
     out = np.full(grid.shape, np.nan, dtype=np.float32)
     try:
         with _open(path) as src:
@@ -246,9 +295,10 @@ def read_onto_grid(path: Path, grid: PlanGrid, *, info: RasterInfo, units: Units
                     out[rr0 - r0: rr1 - r0, cc0 - c0: cc1 - c0] = block
             else:
                 _warp(src, info, grid, out, scale, offset)
-    except RasterioError as err:
+    except (RasterioError, CPLE_BaseError) as err:
+        detail = err.__cause__ or err  # rasterio's "see previous exception" hides GDAL's own reason
         raise InputFileError(
-            f"{path}: cannot be read ({err}); the file may be truncated or corrupt: export it again"
+            f"{path}: cannot be read ({detail}); the file may be truncated or corrupt: export it again"
         ) from None
     return to_kelvin(out, units)
 

@@ -76,7 +76,13 @@ def read_layer(path: Path, *, survey_crs: str | None, what: str) -> PlanLayer:
     Raises
     ------
     InputFileError
-        Unreadable file, no polygons, non-polygon features, geographic coordinates on a local plan.
+        Unreadable file, no features, a feature without geometry or not a polygon.
+
+    Notes
+    -----
+    On a local plan (``survey_crs=None``) every coordinate is read as plan metres, whatever
+    CRS the file declares (see the survey format); a declared geographic CRS whose
+    features span less than a metre gets a note, as those are surely degrees.
     """
     import pyogrio
     from pyproj import CRS
@@ -103,6 +109,12 @@ def read_layer(path: Path, *, survey_crs: str | None, what: str) -> PlanLayer:
     file_crs = frame.crs
     bounds = np.asarray(shapely.total_bounds(geoms))
     if survey_crs is None:
+        if file_crs is not None and CRS(file_crs).is_geographic and max(bounds[2] - bounds[0], bounds[3] - bounds[1]) < 1.0:
+            notes.append(
+                f"{path.name}: declares {CRS(file_crs).to_string()} and spans under 1 unit: these look like "
+                "longitude/latitude degrees, but a local survey reads them as plan metres; export the plan "
+                "in metres or give the survey a projected crs"
+            )
         file_crs = None  # a local plan: coordinates are plan metres, whatever the file declares
     elif file_crs is not None and CRS(file_crs).is_geographic and not _looks_like_lonlat(bounds):
         file_crs = None  # plan coordinates in a GeoJSON with no crs member
@@ -126,6 +138,11 @@ def read_layer(path: Path, *, survey_crs: str | None, what: str) -> PlanLayer:
     return PlanLayer(path=path, geometries=tuple(geoms), attributes=attributes, notes=tuple(notes))
 
 
+def _missing(value: object) -> bool:
+    """True for an absent attribute: None, or the NaN a data frame puts in an empty cell."""
+    return value is None or (isinstance(value, float) and np.isnan(value))
+
+
 def read_outline(path: Path, *, survey_crs: str | None) -> tuple[BaseGeometry, tuple[str, ...]]:
     """The roof outline (or developed hull side) as one polygonal geometry."""
     layer = read_layer(path, survey_crs=survey_crs, what="outline")
@@ -140,17 +157,17 @@ def read_sections(path: Path, *, survey_crs: str | None) -> tuple[list[Section],
     layer = read_layer(path, survey_crs=survey_crs, what="sections")
     if "name" not in layer.attributes:
         raise InputFileError(f"{path}: has no 'name' column; every section needs a name (and optionally assembly, insulation)")
-    names = [str(n) if n is not None else "" for n in layer.attributes["name"]]
+    names = ["" if _missing(n) else str(n) for n in layer.attributes["name"]]
     for i, n in enumerate(names):
         if not n.strip():
-            raise InputFileError(f"{path}: feature {i} has an empty name; give every section a name")
+            raise InputFileError(f"{path}: feature {i} has no name (column 'name' is empty); give every section a name")
     dup = {n for n in names if names.count(n) > 1}
     if dup:
         raise InputFileError(f"{path}: section names repeat ({', '.join(sorted(dup))}); names must be unique")
 
     def column(key: str) -> list[str | None]:
         values = layer.attributes.get(key, (None,) * len(names))
-        return [None if v is None or (isinstance(v, float) and np.isnan(v)) else str(v) for v in values]
+        return [None if _missing(v) else str(v) for v in values]
 
     sections = [
         Section(name=n, geometry=g, assembly=a, insulation=ins)
