@@ -462,3 +462,17 @@ def test_transmittance_long_path_logs(caplog):
 def test_distance_validated(bad):
     with pytest.raises(ValueError, match="distance_m"):
         atmospheric_transmittance(bad, air_c=20.0, humidity_pct=50.0)
+
+
+def test_uniform_lookup_fast_path_equals_general_path():
+    """Scalar parameters take the uniform-grid look-up; the same parameters given as arrays
+    take the general two-table path (the slower reference). They agree to 1e-5 K."""
+    rng = np.random.default_rng(3)
+    app = rng.uniform(240.0, 330.0, size=(300, 400))
+    app[0, :5] = np.nan
+    app[1, 0] = 90.0  # below the table: NaN on both paths
+    kw = dict(reflected_k=255.0, transmittance=0.97, atmosphere_k=280.0)
+    fast = surface_from_apparent(app, emissivity=0.91, **kw)
+    general = surface_from_apparent(app, emissivity=np.full((1, 400), 0.91), **kw)
+    np.testing.assert_array_equal(np.isnan(fast), np.isnan(general))
+    np.testing.assert_allclose(fast[~np.isnan(fast)], general[~np.isnan(general)], atol=1e-5, rtol=0)

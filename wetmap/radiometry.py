@@ -365,6 +365,42 @@ def _run_blocks(
     return out[()] if out.ndim == 0 else out
 
 
+@functools.lru_cache(maxsize=16)
+def _surface_lookup(*, band_um: tuple[float, float], emissivity: float, reflected_k: float,
+                    transmittance: float, atmosphere_k: float) -> np.ndarray:
+    """Surface temperature at every apparent temperature of the band table's grid.
+
+    The grid is uniform (:data:`TABLE_MIN_K` to :data:`TABLE_MAX_K` every
+    :data:`TABLE_STEP_K`), so a look-up is an index computation, not a search.
+    Linear interpolation on it adds less than 1e-6 K to the table's own error.
+    """
+    table = band_table(band_um)
+    lm = table.radiance.copy()
+    lm -= transmittance * (1.0 - emissivity) * float(table.radiance_of(reflected_k))
+    if transmittance != 1.0:
+        lm -= (1.0 - transmittance) * float(table.radiance_of(atmosphere_k))
+    lm /= transmittance * emissivity
+    values = table.temperature_of(np.where(lm > 0.0, lm, np.nan))
+    values.setflags(write=False)
+    return values
+
+
+def _read_uniform(x: np.ndarray, values: np.ndarray) -> np.ndarray:
+    """Linear interpolation of ``values`` (on the uniform table grid) at ``x`` (K); NaN outside."""
+    u = np.asarray(x, dtype=np.float64) - TABLE_MIN_K
+    u *= 1.0 / TABLE_STEP_K
+    n = values.size
+    inside = (u >= 0.0) & (u <= n - 1)  # False for NaN
+    u[~inside] = 0.0
+    np.clip(u, 0.0, n - 1.000001, out=u)
+    i = u.astype(np.intp)
+    u -= i
+    y = values[i]
+    y += u * (values[i + 1] - y)
+    y[~inside] = np.nan
+    return y
+
+
 def surface_from_apparent(
     apparent_k: ArrayLike,
     *,
@@ -422,6 +458,13 @@ def surface_from_apparent(
     """
     data, out, params = _prepare(apparent_k, emissivity, reflected_k, transmittance, atmosphere_k)
     table = band_table(band_um)
+    if data.ndim and all(isinstance(v, float) for v in params.values()):
+        # one set of parameters for the whole image: apparent -> surface is one monotone
+        # function of one variable, tabulated once on a uniform grid and read by index
+        lookup = _surface_lookup(band_um=table.band_um, **params)
+        for idx in _blocks(data.shape, CHUNK_ELEMENTS):
+            out[idx] = _read_uniform(data[idx], lookup)
+        return out
 
     def convert(
         app: np.ndarray,
