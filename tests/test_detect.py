@@ -12,13 +12,14 @@ from hypothesis import strategies as st
 from scipy import ndimage
 
 from wetmap.detect import (
-    _block_median,
-    _upsample,
     anomaly_mask,
     background_grid,
+    block_statistics,
     default_background_m,
     detect_anomalies,
     dry_background,
+    noise_sigma,
+    upsample_window,
 )
 
 
@@ -47,7 +48,7 @@ def test_block_median_equals_slow_reference(rows, cols, block, seed, nan_frac):
     values = rng.normal(5.0, 2.0, (rows, cols)).astype(np.float32)
     usable = rng.random((rows, cols)) >= nan_frac
     values[rng.random((rows, cols)) < 0.1] = np.nan
-    fast = _block_median(values, usable, block)
+    fast = block_statistics(values, usable, block).median
     slow = slow_block_median(values, usable, block)
     np.testing.assert_array_equal(np.isnan(fast), np.isnan(slow))
     np.testing.assert_allclose(fast[~np.isnan(fast)], slow[~np.isnan(slow)], rtol=0, atol=1e-6)
@@ -60,7 +61,7 @@ def test_upsample_equals_map_coordinates(shape, block):
     rng = np.random.default_rng(1)
     nr, nc = -(-shape[0] // block), -(-shape[1] // block)
     coarse = rng.normal(size=(nr, nc))
-    fast = _upsample(coarse, shape, block)
+    fast = upsample_window(coarse, block, shape=shape)
     r = np.clip((np.arange(shape[0]) + 0.5) / block - 0.5, 0, nr - 1)
     c = np.clip((np.arange(shape[1]) + 0.5) / block - 0.5, 0, nc - 1)
     rr, cc = np.meshgrid(r, c, indexing="ij")
@@ -164,3 +165,23 @@ def test_default_background_follows_kind_and_size():
     assert default_background_m("roof", 60.0) == pytest.approx(18.0)
     assert default_background_m("hull", 12.0) == pytest.approx(3.6)
     assert default_background_m("hull", 2.0) == 1.0
+
+
+def test_upsample_window_is_bitwise_the_whole_grid():
+    """A window of the interpolated grid equals the same pixels of the whole grid, bit for bit
+    (what lets a mosaic be processed in windows)."""
+    rng = np.random.default_rng(2)
+    coarse = rng.normal(size=(9, 13))
+    whole = upsample_window(coarse, 8, shape=(70, 100))
+    part = upsample_window(coarse, 8, shape=(25, 33), row0=16, col0=40)
+    np.testing.assert_array_equal(part, whole[16:41, 40:73])
+
+
+def test_block_sigma_measures_pixel_noise_and_ignores_wet_blocks():
+    """IQR / 1.349 is a normal distribution's standard deviation (normal quantiles +-0.6745);
+    the median over blocks is not moved by a warm area covering a fifth of the blocks."""
+    rng = np.random.default_rng(7)
+    values = rng.normal(0.0, 0.2, (400, 400)).astype(np.float32)
+    values[:80] += 3.0 * (rng.random((80, 400)) > 0.5)  # a patchy warm strip
+    stats = block_statistics(values, np.ones(values.shape, bool), 20)
+    assert noise_sigma(stats.sigma) == pytest.approx(0.2, rel=0.08)

@@ -11,8 +11,13 @@ not absorbed into its own background:
 3. the block grid is interpolated bilinearly back to every pixel (block centres are
    the interpolation nodes; the pixel-centre rule holds throughout);
 4. pixels warmer than the background by more than ``max(delta_c / 2, 3 sigma)``
-   (sigma: robust noise of the delta, from its median absolute deviation) are warm
-   outliers; they are left out and steps 1-3 are repeated (``iterations`` times in all).
+   (sigma: the pixel noise, the median over blocks of each block's interquartile range
+   / 1.349, measured on the first pass) are warm outliers; they are left out and steps
+   1-3 are repeated (``iterations`` times in all).
+
+Every step is either per block (1, 3, 4) or on the small block grid (2), so a mosaic
+processed in windows that start at multiples of the block size gives the same
+background, bit for bit, as the whole array.
 
 A smoothed (mean or Gaussian) background is pulled up by large warm areas and loses
 detections; a full-resolution median filter metres wide costs thousands of seconds per
@@ -95,19 +100,45 @@ def background_grid(pixel_m: float, background_m: float) -> BackgroundGrid:
     return BackgroundGrid(block_px=block, footprint=footprint)
 
 
-def _block_median(values: np.ndarray, usable: np.ndarray, block: int) -> np.ndarray:
-    """Median of the usable pixels of each ``block`` x ``block`` block; NaN when too few.
+@dataclass(frozen=True)
+class BlockStats:
+    """Per-block statistics of the usable pixels (shape ``(block rows, block cols)``).
 
-    Exact (no binning): each block is sorted with NaN last and the middle taken.
+    Attributes
+    ----------
+    median
+        Median, degC; NaN where fewer than a quarter of the block's pixels are usable.
+    sigma
+        Robust spread, degC: interquartile range / 1.349 (a normal distribution's
+        standard deviation); NaN where the median is NaN.
+    """
+
+    median: np.ndarray
+    sigma: np.ndarray
+
+
+def block_statistics(values: np.ndarray, usable: np.ndarray, block: int) -> BlockStats:
+    """Median and robust spread of the usable pixels of each ``block`` x ``block`` block.
+
+    Exact (no binning): each block is sorted with NaN last; the median is the middle
+    (mean of the two middle values for an even count), the quartiles are the values at
+    ranks ``floor(0.25 (n - 1))`` and ``floor(0.75 (n - 1))``. Blocks are anchored at
+    ``(0, 0)`` of ``values``: a window of a larger grid gives the same blocks when it
+    starts at a multiple of ``block``. Edge blocks are partial; a block needs a quarter of
+    its pixels inside the array usable.
     """
     rows, cols = values.shape
     nr, nc = -(-rows // block), -(-cols // block)
-    out = np.full((nr, nc), np.nan, dtype=np.float64)
-    # pixels of each block that lie inside the array (edge blocks are partial)
+    median = np.full((nr, nc), np.nan, dtype=np.float64)
+    sigma = np.full((nr, nc), np.nan, dtype=np.float64)
     extent_r = np.minimum(block, rows - np.arange(nr) * block)
     extent_c = np.minimum(block, cols - np.arange(nc) * block)
     need_all = np.maximum(1, np.ceil(MIN_BLOCK_FILL * extent_r[:, None] * extent_c[None, :])).astype(np.int64)
     band_rows = max(1, (1 << 22) // max(cols * block, 1))  # bound the temporary to a few MB
+
+    def rank(v: np.ndarray, k: np.ndarray) -> np.ndarray:
+        return np.take_along_axis(v, np.clip(k, 0, None)[..., None], -1)[..., 0].astype(np.float64)
+
     for br0 in range(0, nr, band_rows):
         br1 = min(nr, br0 + band_rows)
         r0, r1 = br0 * block, min(rows, br1 * block)
@@ -119,13 +150,14 @@ def _block_median(values: np.ndarray, usable: np.ndarray, block: int) -> np.ndar
         v = v.reshape(br1 - br0, block, nc, block).transpose(0, 2, 1, 3).reshape(br1 - br0, nc, block * block)
         v = np.sort(v, axis=-1)  # NaN sort last
         n = np.count_nonzero(~np.isnan(v), axis=-1)
-        lo = np.clip((n - 1) // 2, 0, None)
-        hi = np.clip(n // 2, 0, None)
-        med = 0.5 * (np.take_along_axis(v, lo[..., None], -1)[..., 0].astype(np.float64)
-                     + np.take_along_axis(v, hi[..., None], -1)[..., 0])
-        med[n < need_all[br0:br1]] = np.nan
-        out[br0:br1] = med
-    return out
+        med = 0.5 * (rank(v, (n - 1) // 2) + rank(v, n // 2))
+        spread = (rank(v, (3 * (n - 1)) // 4) - rank(v, (n - 1) // 4)) / 1.349
+        few = n < need_all[br0:br1]
+        med[few] = np.nan
+        spread[few] = np.nan
+        median[br0:br1] = med
+        sigma[br0:br1] = spread
+    return BlockStats(median=median, sigma=sigma)
 
 
 def _fill_nearest(grid: np.ndarray) -> np.ndarray:
@@ -136,22 +168,60 @@ def _fill_nearest(grid: np.ndarray) -> np.ndarray:
     return grid[tuple(idx)]
 
 
-def _interp_axis(n_out: int, n_in: int, block: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """Bilinear weights from block centres to pixel centres along one axis."""
-    u = (np.arange(n_out) + 0.5) / block - 0.5
+def smooth_block_grid(median: np.ndarray, footprint: int) -> np.ndarray:
+    """Empty blocks take the nearest filled block's value; then a ``footprint``-block median filter.
+
+    Works on the whole (small) block grid; returns NaN everywhere when every block is empty.
+    """
+    return ndimage.median_filter(_fill_nearest(median), size=footprint, mode="nearest")
+
+
+def noise_sigma(sigma: np.ndarray) -> float:
+    """The survey's pixel noise, degC: the median of the blocks' robust spreads (0 if none)."""
+    finite = sigma[np.isfinite(sigma)]
+    return float(np.median(finite)) if finite.size else 0.0
+
+
+def warm_cut(delta_c: float, sigma: float) -> float:
+    """Pixels warmer than the background by more than this are left out of the next estimate."""
+    return max(0.5 * delta_c, 3.0 * sigma)
+
+
+def _interp_axis(start: int, n_out: int, n_in: int, block: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Bilinear weights from block centres to pixel centres ``start .. start + n_out - 1``."""
+    u = (np.arange(start, start + n_out) + 0.5) / block - 0.5
     u = np.clip(u, 0.0, n_in - 1)
     i0 = np.floor(u).astype(np.intp)
     i1 = np.minimum(i0 + 1, n_in - 1)
     return i0, i1, (u - i0).astype(np.float32)
 
 
-def _upsample(coarse: np.ndarray, shape: tuple[int, int], block: int) -> np.ndarray:
-    """Separable bilinear interpolation of block values (at block centres) to pixel centres."""
+def upsample_window(grid: np.ndarray, block: int, *, shape: tuple[int, int], row0: int = 0,
+                    col0: int = 0) -> np.ndarray:
+    """Separable bilinear interpolation of block values (at block centres) to pixel centres.
+
+    Parameters
+    ----------
+    grid
+        The whole block grid, ``(block rows, block cols)``.
+    block
+        Block size, pixels.
+    shape
+        ``(rows, cols)`` of the window to fill.
+    row0, col0
+        The window's first pixel in the full grid. Every pixel gets the same value,
+        bit for bit, whichever window it is computed in.
+
+    Returns
+    -------
+    numpy.ndarray
+        float32 ``shape``.
+    """
     rows, cols = shape
-    r0, r1, wr = _interp_axis(rows, coarse.shape[0], block)
-    c0, c1, wc = _interp_axis(cols, coarse.shape[1], block)
-    coarse = coarse.astype(np.float32)
-    by_row = coarse[r0] * (1 - wr)[:, None] + coarse[r1] * wr[:, None]  # (rows, nc)
+    r0, r1, wr = _interp_axis(row0, rows, grid.shape[0], block)
+    c0, c1, wc = _interp_axis(col0, cols, grid.shape[1], block)
+    g = grid.astype(np.float32)
+    by_row = g[r0] * (1 - wr)[:, None] + g[r1] * wr[:, None]  # (rows, block cols)
     out = np.empty(shape, dtype=np.float32)
     step = max(1, (1 << 22) // max(cols, 1))
     for s in range(0, rows, step):
@@ -188,23 +258,24 @@ def dry_background(surface_c: np.ndarray, usable: np.ndarray, *, pixel_m: float,
     usable = usable & np.isfinite(surface_c)
     if not usable.any():
         return np.full(surface_c.shape, np.nan, dtype=np.float32)
-    grid = background_grid(pixel_m, background_m)
+    spec = background_grid(pixel_m, background_m)
     keep = usable
     background = None
+    cut = None
     for _ in range(max(1, iterations)):
-        coarse = _block_median(surface_c, keep, grid.block_px)
-        if np.isnan(coarse).all():
+        stats = block_statistics(surface_c, keep, spec.block_px)
+        median = stats.median
+        if np.isnan(median).all():
             if background is not None:
                 break  # every block lost to outliers: keep the previous estimate
             # usable pixels too sparse for any block: one median for the whole roof
-            coarse = np.full(coarse.shape, float(np.median(surface_c[keep])))
-        coarse = ndimage.median_filter(_fill_nearest(coarse), size=grid.footprint, mode="nearest")
-        background = _upsample(coarse, surface_c.shape, grid.block_px)
-        delta = surface_c[usable] - background[usable]
-        sigma = 1.4826 * float(np.median(np.abs(delta - np.median(delta))))
-        cut = max(0.5 * delta_c, 3.0 * sigma)
+            median = np.full(median.shape, float(np.median(surface_c[keep])))
+        if cut is None:  # the noise is measured once, on the first (all usable) pass
+            cut = warm_cut(delta_c, noise_sigma(stats.sigma))
+        background = upsample_window(smooth_block_grid(median, spec.footprint), spec.block_px,
+                                     shape=surface_c.shape)
         keep = usable & ~(surface_c - background > cut)
-    assert background is not None  # the first pass always has usable blocks
+    assert background is not None  # the first pass always sets it
     return background
 
 
