@@ -14,7 +14,7 @@ import os
 import shutil
 import tempfile
 from collections.abc import Callable
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -28,8 +28,9 @@ from .confirm import Status, Verdicts, assign_status
 from .confirmations import Confirmations, read_confirmations
 from .detect import Detection, default_background_m, detect_anomalies
 from .errors import InputFileError, ProcessingError
+from .passes import PassComparison, align_to_grid, compare_passes, group_passes
 from .polygons import label_regions, polygonize, region_stats
-from .quantities import BoardTakeoff, SectionTotals, board_takeoff, largest_overlap, repair_outline, section_totals
+from .quantities import BoardTakeoff, Quantities, SectionTotals, compute_quantities, largest_overlap
 from .rasters import PlanGrid, inspect_raster, plan_grid_for, read_onto_grid
 from .survey import Survey, load_survey
 from .vectors import Section, read_layer, read_outline, read_sections
@@ -46,6 +47,7 @@ RESULT_FILES = (
     "anomalies.gpkg",
     "anomalies.geojson",
     "repair.gpkg",
+    "repair.dxf",
     "quantities.csv",
     "surface_c.tif",
     "delta_c.tif",
@@ -102,6 +104,10 @@ class SurveyResult:
     radiometry: Radiometry
     coverage: dict[str, float]
     warnings: tuple[str, ...] = field(default_factory=tuple)
+    passes: PassComparison | None = None
+    """Several passes of one night compared (``None`` for a single pass)."""
+    quantities: Quantities | None = None
+    """The whole quantities step (outside-sections figures, board sections, bill)."""
 
     def summary(self) -> dict[str, Any]:
         """The ``summary.json`` content (areas in m2)."""
@@ -127,7 +133,9 @@ class SurveyResult:
             "boards": self.takeoff.count,
             "board_area_m2": round(self.takeoff.board_area_m2, 4),
             "tearoff_area_m2": round(self.takeoff.tearoff_area_m2, 4),
+            **self._quantity_entries(),
             "warnings": list(self.warnings),
+            **({"passes": self.passes.summary()} if self.passes is not None else {}),
             "sections": [
                 {k: (round(v, 4) if isinstance(v, float) else v) for k, v in vars(t).items()}
                 for t in self.section_totals
@@ -154,9 +162,25 @@ class SurveyResult:
                 "margin_m": s.repair.margin_m,
                 "board_m": list(s.repair.board_m) if s.repair.board_m else None,
                 "include_unverified": s.repair.include_unverified,
+                "board_angle_deg": round(self.takeoff.angle_deg, 6) if s.repair.board_m else None,
+                "board_origin": [round(v, 4) for v in self.takeoff.origin_xy] if s.repair.board_m else None,
+                "replace_above_pct": s.repair.replace_above_pct,
+                "area_units": list(s.repair.area_units),
             },
             "wetmap_version": __version__,
         }
+
+    def _quantity_entries(self) -> dict[str, Any]:
+        """summary.json entries of the quantities step (areas m2, lengths m)."""
+        q = self.quantities
+        if q is None:
+            return {}
+        out: dict[str, Any] = {"repair_perimeter_m": round(q.repair_perimeter_m, 4), "replace_flag": q.replace_flag}
+        if q.outside is not None:
+            out["outside_sections"] = {k: (round(v, 4) if isinstance(v, float) else v)
+                                       for k, v in vars(q.outside).items() if k not in ("assembly", "insulation")}
+        out["bill"] = q.bill.as_dict()
+        return out
 
 
 def _emit(progress: Progress | None, message: str) -> None:
@@ -180,7 +204,7 @@ def _radiometry(survey: Survey, warnings: list[str]) -> Radiometry:
         sky_view = 1.0 if survey.survey.kind == "roof" else 0.5
         est = estimate_reflected_c(cond.air_c, cond.humidity_pct, cond.sky or "clear", sky_view=sky_view)
         reflected, source = est.reflected_c, f"estimated: {est.model}"
-        warnings.append(f"{est.note} ({est.model})")
+        # the caution about the estimate is one of the condition warnings (wetmap.conditions)
     if cam.transmittance is not None:
         tau, tau_source = cam.transmittance, "as entered in [camera] transmittance"
     elif cam.distance_m > 0:
@@ -252,6 +276,47 @@ def _surface_on_grid(survey: Survey, outline: BaseGeometry, radiometry: Radiomet
     return grid, surface
 
 
+def _condition_warnings(survey: Survey, sections, *, surface_c: float | None = None) -> list[str]:
+    """The survey-condition checks (:func:`wetmap.conditions.check_conditions`) as warning lines."""
+    from .conditions import check_conditions
+
+    times = list(dict.fromkeys(item.time for item in (*survey.mosaics, *survey.frames) if item.time is not None))
+    found = check_conditions(survey.conditions, survey.camera, survey.survey, limits=survey.limits,
+                             sections=sections, surface_c=surface_c, pass_times=times,
+                             surface_source=None if surface_c is None else "median dry background of the run")
+    return [w.text for w in found]
+
+
+def _compare_passes(survey: Survey, groups, outline: BaseGeometry, radiometry: Radiometry, warnings: list[str],
+                    progress: Progress | None, *, grid: PlanGrid, surface_c: np.ndarray, in_roof: np.ndarray,
+                    detection: Detection, labels: np.ndarray, count: int, background_m: float) -> PassComparison:
+    """Detect anomalies in each earlier pass and compare them with the primary (last) pass."""
+    sdt = survey.detect
+    surfaces, deltas, label_list, counts = [], [], [], []
+    for g in groups[:-1]:
+        _emit(progress, f"pass {g.label}: surface temperature and detection")
+        sub = replace(survey, mosaics=g.mosaics, frames=g.frames)
+        g_grid, g_surface = _surface_on_grid(sub, outline, radiometry, warnings, progress)
+        g_surface = align_to_grid(g_surface, g_grid.transform, grid.transform, grid.shape)
+        g_usable = in_roof & np.isfinite(g_surface)
+        det = detect_anomalies(g_surface, g_usable, pixel_m=grid.pixel_m, delta_c=sdt.delta_c,
+                               background_m=background_m, min_area_m2=sdt.min_area_m2)
+        lab, n = label_regions(det.mask)
+        surfaces.append(np.where(g_usable, g_surface, np.nan))
+        deltas.append(det.delta_c)
+        label_list.append(lab)
+        counts.append(n)
+    surfaces.append(np.where(in_roof & np.isfinite(surface_c), surface_c, np.nan))
+    deltas.append(detection.delta_c)
+    label_list.append(labels)
+    counts.append(count)
+    _emit(progress, "matching anomalies across passes")
+    result = compare_passes(surfaces, deltas, label_list, counts, hours=[g.hours for g in groups],
+                            pass_labels=[g.label for g in groups], transform=grid.transform)
+    warnings.extend(result.warnings())
+    return result
+
+
 def process_survey(folder: str | Path, *, progress: Progress | None = None) -> SurveyResult:
     """Run every stage on the survey in ``folder`` and return the results (nothing written).
 
@@ -281,7 +346,12 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None) -> S
         raise InputFileError(f"{survey.plan.exclusions}: the exclusions cover the whole outline; nothing is left to survey")
 
     radiometry = _radiometry(survey, warnings)
-    grid, surface_c = _surface_on_grid(survey, outline, radiometry, warnings, progress)
+    # several passes (imagery with different times): the last pass is the primary detection
+    pass_groups, notes = group_passes(survey.mosaics, survey.frames, sunset=survey.conditions.sunset)
+    warnings.extend(notes)
+    primary = survey if len(pass_groups) == 1 else replace(
+        survey, mosaics=pass_groups[-1].mosaics, frames=pass_groups[-1].frames)
+    grid, surface_c = _surface_on_grid(primary, outline, radiometry, warnings, progress)
 
     _emit(progress, "masking the roof")
     in_roof = _mask_of(roof, grid)
@@ -316,6 +386,12 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None) -> S
     labels, count = label_regions(detection.mask)
     stats = region_stats(labels, count, detection.delta_c)
     polys = polygonize(labels, count, grid.transform)
+    passes = None if len(pass_groups) == 1 else _compare_passes(
+        survey, pass_groups, outline, radiometry, warnings, progress, grid=grid, surface_c=surface_c,
+        in_roof=in_roof, detection=detection, labels=labels, count=count, background_m=background_m)
+    dry_c = detection.background_c[usable]
+    warnings[:0] = _condition_warnings(survey, sections, surface_c=float(np.nanmedian(dry_c))
+                                       if np.isfinite(dry_c).any() else None)
 
     if survey.cores is not None:
         conf = read_confirmations(survey.cores.path, wet_above=survey.cores.wet_above,
@@ -357,22 +433,19 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None) -> S
     )
 
     _emit(progress, "repair quantities")
-    counted = {"wet", "unverified"} if survey.repair.include_unverified else {"wet"}
-    repair = repair_outline([a.geometry for a in anomalies if a.status in counted],
-                            margin_m=survey.repair.margin_m, outline=outline, exclusions=exclusions)
-    takeoff = board_takeoff(repair, board_m=survey.repair.board_m, roof=roof) if survey.repair.board_m \
-        else BoardTakeoff((), 0, 0.0, 0.0, 0.0)
-    totals = tuple(
-        section_totals(s.name, s.geometry, roof=roof, anomalies=[a.geometry for a in anomalies],
-                       status=tuple(a.status for a in anomalies), repair=repair, boards=takeoff.boards,
-                       assembly=s.assembly, insulation=s.insulation)
-        for s in sections
+    quantities = compute_quantities(
+        [a.geometry for a in anomalies], [a.status for a in anomalies], outline=outline, exclusions=exclusions,
+        sections=sections, settings=survey.repair, prices=survey.prices, kind=survey.survey.kind,
     )
+    warnings.extend(quantities.notes)
+    repair, takeoff, totals = quantities.repair, quantities.takeoff, quantities.sections
     return SurveyResult(
         survey=survey, grid=grid, surface_c=surface_c, detection=detection, outline=outline,
         exclusions=exclusions, roof=roof, sections=tuple(sections), anomalies=anomalies, confirmations=conf,
         verdicts=verdicts, confirmation_delta_c=conf_delta, repair=repair, takeoff=takeoff,
         section_totals=totals, radiometry=radiometry, coverage=coverage, warnings=tuple(warnings),
+        passes=passes,
+        quantities=quantities,
     )
 
 
@@ -399,7 +472,7 @@ def write_results(result: SurveyResult, out_dir: Path, *, extra_writers: tuple[C
     written is an existing ``out_dir`` replaced. On failure the temporary folder is
     removed and ``out_dir`` is untouched.
     """
-    from .export import gis, tables
+    from .export import cad, gis, tables
 
     out_dir = Path(out_dir).resolve()
     out_dir.parent.mkdir(parents=True, exist_ok=True)
@@ -409,8 +482,14 @@ def write_results(result: SurveyResult, out_dir: Path, *, extra_writers: tuple[C
         tables.write_quantities(result, tmp / "quantities.csv")
         gis.write_anomalies(result, tmp / "anomalies.gpkg", tmp / "anomalies.geojson")
         gis.write_repair(result, tmp / "repair.gpkg")
+        cad.write_dxf(result, tmp / "repair.dxf")
         gis.write_raster(result.surface_c, result.grid, tmp / "surface_c.tif")
         gis.write_raster(result.detection.delta_c, result.grid, tmp / "delta_c.tif")
+        if result.passes is not None:
+            gis.write_raster(result.passes.cooling_c_per_h, result.grid, tmp / "cooling_c_per_h.tif")
+        for name in ("window.json", "window.png"):  # the cool-down plan of `wetmap window` is kept
+            if (out_dir / name).is_file() and not (tmp / name).exists():
+                shutil.copy2(out_dir / name, tmp / name)
         for writer in extra_writers:
             writer(result, tmp)
         if out_dir.exists():
@@ -453,12 +532,15 @@ def check_survey(folder: str | Path) -> tuple[Survey, tuple[str, ...]]:
     warnings.extend(notes)
     if survey.plan.exclusions is not None:
         warnings.extend(read_layer(survey.plan.exclusions, survey_crs=crs, what="exclusions").notes)
+    sections: list[Section] = []
     if survey.plan.sections is not None:
-        warnings.extend(read_sections(survey.plan.sections, survey_crs=crs)[1])
+        sections, notes = read_sections(survey.plan.sections, survey_crs=crs)
+        warnings.extend(notes)
     for m in survey.mosaics:
         inspect_raster(m.path, origin=m.origin, pixel_m=m.pixel_m, survey_crs=crs)
     if survey.cores is not None:
         read_confirmations(survey.cores.path, wet_above=survey.cores.wet_above,
                            wet_above_pct=survey.cores.wet_above_pct)
     _radiometry(survey, warnings)
+    warnings[:0] = _condition_warnings(survey, sections)
     return survey, tuple(warnings)

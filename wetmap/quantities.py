@@ -1,31 +1,55 @@
-"""Repair quantities: margin, whole boards, roof sections and totals.
+"""Repair quantities: margin, whole boards, roof sections, units and the bill.
 
-All areas are square metres on the plan (for a hull side, the developed area).
+All areas are square metres on the plan (for a hull side, the developed area); lengths
+are metres. Other area units are derived only for display (:func:`convert_area`).
 
 - The *repair outline* is the union of the anomalies counted as wet (``wet``, plus
   ``unverified`` when ``include_unverified``) grown by ``margin_m`` (common practice:
-  0.3-0.6 m beyond the marked boundary; no published value), clipped to the outline
-  and out of the exclusions.
+  0.3-0.6 m beyond the marked boundary; no published value), merged where the grown
+  shapes overlap, clipped to the outline and out of the exclusions.
 - *Whole boards*: a grid of ``board_m`` boards aligned with the outline's dominant edge
-  direction; every board the repair outline overlaps (more than touching) is replaced
-  (rounding up to whole boards is common practice). The tear-off area is the union of
-  those boards clipped to the roof.
+  direction (or a given angle and origin); every board the repair outline overlaps
+  (more than touching) is replaced (rounding up to whole boards is common practice). A
+  board's *tear-off* is the board clipped to the roof (outline minus exclusions); the
+  tear-off area is their sum.
+- *Sections*: anomaly, repair and board figures per roof section. Each board belongs to
+  the section holding the largest share of its tear-off area, or to no section, so the
+  sections (plus the part of the roof in no section) add up to the totals.
+- *Replace rather than repair*: a section whose wet fraction is above
+  ``replace_above_pct`` is flagged (default 25 %: some local codes require full
+  replacement when more than 25 % of a roof is wet; the local code decides).
+- *Bill of quantities*: tear-off and replacement area, boards, cut edge (the repair
+  outline's perimeter) and mobilisation, priced when unit rates are given.
 """
 
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass
+from decimal import ROUND_HALF_UP, Decimal
+from typing import TYPE_CHECKING, Any
 
 import numpy as np
 import shapely
 from shapely import affinity
-from shapely.geometry import Polygon
+from shapely.geometry import MultiPolygon, Polygon, box
 from shapely.geometry.base import BaseGeometry
 
 from .confirm import Status
 
+if TYPE_CHECKING:
+    from .survey import AreaUnit, Prices, Repair
+    from .vectors import Section
+
 __all__ = [
+    "M_PER_FT",
+    "M2_PER_FT2",
+    "FT2_PER_SQUARE",
+    "M2_PER_SQUARE",
+    "QUAD_SEGS",
+    "OUTSIDE_SECTIONS",
+    "convert_area",
     "dominant_angle_deg",
     "repair_outline",
     "BoardTakeoff",
@@ -33,13 +57,80 @@ __all__ = [
     "SectionTotals",
     "section_totals",
     "largest_overlap",
+    "BillLine",
+    "Bill",
+    "bill_of_quantities",
+    "Quantities",
+    "compute_quantities",
 ]
 
+#: One international foot in metres, exactly (International Yard and Pound Agreement,
+#: 1959; NIST SP 811, appendix B).
+M_PER_FT = 0.3048
+#: One square foot in square metres (0.09290304 exactly).
+M2_PER_FT2 = M_PER_FT * M_PER_FT
+#: A roofing "square" is 100 ft2 (common practice in the trade).
+FT2_PER_SQUARE = 100.0
+#: One roofing square in square metres (9.290304).
+M2_PER_SQUARE = FT2_PER_SQUARE * M2_PER_FT2
+
+#: Segments per quarter circle of the margin's rounded corners. The buffer of a square
+#: of side ``a`` by ``m`` then has area ``a**2 + 4*a*m + 2*QUAD_SEGS*m**2*sin(pi/(2*QUAD_SEGS))``,
+#: 0.16 % short of ``pi*m**2`` on the corners (an inscribed polygon).
+QUAD_SEGS = 16
+
+#: Name given to the part of the roof that lies in no section.
+OUTSIDE_SECTIONS = "(outside sections)"
+
 _TOUCH_M2 = 1e-6  # an overlap smaller than this is a touch, not an overlap
+_OVERLAP_NOTE_M2 = 0.01  # sections overlapping by more than this are reported
+
+
+def convert_area(area_m2: float, unit: "AreaUnit") -> float:
+    """An area in square metres expressed in ``unit``.
+
+    Parameters
+    ----------
+    area_m2
+        Area, m2.
+    unit
+        ``"m2"``, ``"ft2"`` (international foot, 0.3048 m exactly) or ``"squares"``
+        (roofing squares of 100 ft2).
+
+    Examples
+    --------
+    >>> convert_area(M2_PER_FT2, "ft2")
+    1.0
+    >>> round(convert_area(100.0, "squares"), 6)   # 100 m2 = 1076.39 ft2
+    10.76391
+    """
+    if unit == "m2":
+        return float(area_m2)
+    if unit == "ft2":
+        return float(area_m2) / M2_PER_FT2
+    if unit == "squares":
+        return float(area_m2) / M2_PER_SQUARE
+    raise ValueError(f"area unit {unit!r}: expected one of 'm2', 'ft2', 'squares'")
+
+
+def _polygonal(geom: BaseGeometry) -> BaseGeometry:
+    """The polygonal part of ``geom`` (lines and points from touching edges dropped)."""
+    if geom.is_empty:
+        return Polygon()
+    if not geom.is_valid:
+        geom = shapely.make_valid(geom)
+    polys = [p for p in shapely.get_parts(geom) if isinstance(p, (Polygon, MultiPolygon)) and p.area > 0]
+    if not polys:
+        return Polygon()
+    parts = [q for p in polys for q in shapely.get_parts(p)]
+    return parts[0] if len(parts) == 1 else MultiPolygon(parts)
 
 
 def dominant_angle_deg(outline: BaseGeometry) -> float:
     """Direction of the outline's edges, degrees in ``[0, 90)``, weighted by edge length.
+
+    Only exterior rings count. The mean is taken on the 90-degree period, so the edges of
+    a rectangle all vote for the same direction.
 
     >>> from shapely.geometry import box
     >>> dominant_angle_deg(box(0, 0, 10, 5))
@@ -57,23 +148,42 @@ def dominant_angle_deg(outline: BaseGeometry) -> float:
     return float(round(best, 9) % 90.0)
 
 
-def repair_outline(wet: list[BaseGeometry], *, margin_m: float, outline: BaseGeometry,
+def repair_outline(wet: Sequence[BaseGeometry], *, margin_m: float, outline: BaseGeometry,
                    exclusions: BaseGeometry | None = None) -> BaseGeometry:
     """Wet anomalies grown by ``margin_m``, merged, clipped to the roof.
 
+    Parameters
+    ----------
+    wet
+        The anomalies counted as wet, plan coordinates.
+    margin_m
+        Distance added beyond each anomaly's boundary, metres (round corners,
+        :data:`QUAD_SEGS` segments per quarter circle).
+    outline
+        Roof outline; the result is clipped to it.
+    exclusions
+        Curbs, units, skylights...; cut out of the result.
+
+    Returns
+    -------
+    Polygon or MultiPolygon
+        Empty when nothing is counted as wet.
+
+    Examples
+    --------
     >>> from shapely.geometry import box
     >>> r = repair_outline([box(4, 4, 6, 6)], margin_m=1.0, outline=box(0, 0, 100, 100))
-    >>> round(r.area, 2)  # a^2 + 4 a m + pi m^2 (buffered square)
+    >>> round(r.area, 2)  # a^2 + 4 a m + pi m^2 (buffered square), less 0.16 % of the corners
     15.14
     """
-    if not wet:
+    if not len(wet):
         return Polygon()
-    grown = shapely.union_all(shapely.buffer(np.asarray(wet, dtype=object), margin_m, quad_segs=16)) if margin_m > 0 \
-        else shapely.union_all(np.asarray(wet, dtype=object))
+    arr = np.asarray(list(wet), dtype=object)
+    grown = shapely.union_all(shapely.buffer(arr, margin_m, quad_segs=QUAD_SEGS) if margin_m > 0 else arr)
     out = grown.intersection(outline)
     if exclusions is not None and not exclusions.is_empty:
         out = out.difference(exclusions)
-    return out
+    return _polygonal(out)
 
 
 @dataclass(frozen=True)
@@ -89,9 +199,17 @@ class BoardTakeoff:
     board_area_m2
         ``count`` times one board's area.
     tearoff_area_m2
-        Area of the boards' union clipped to the roof (outline minus exclusions).
+        Area of the boards clipped to the roof (outline minus exclusions), m2: the sum
+        of ``tearoff_m2``.
     angle_deg
-        Direction of the board grid.
+        Direction of the board grid, degrees anticlockwise from plan x.
+    origin_xy
+        Plan x, y of a corner of the board grid.
+    board_m
+        Board size ``(along, across)`` the grid direction, metres; ``None`` when no
+        whole-board take-off was asked for.
+    tearoff_m2
+        Per board, its area inside the roof, m2 (shape ``(count,)``).
     """
 
     boards: tuple[Polygon, ...]
@@ -99,10 +217,14 @@ class BoardTakeoff:
     board_area_m2: float
     tearoff_area_m2: float
     angle_deg: float
+    origin_xy: tuple[float, float] = (0.0, 0.0)
+    board_m: tuple[float, float] | None = None
+    tearoff_m2: tuple[float, ...] = ()
 
 
 def board_takeoff(repair: BaseGeometry, *, board_m: tuple[float, float], roof: BaseGeometry,
-                  angle_deg: float | None = None, origin_xy: tuple[float, float] | None = None) -> BoardTakeoff:
+                  angle_deg: float | None = None, origin_xy: tuple[float, float] | None = None,
+                  grid_of: BaseGeometry | None = None) -> BoardTakeoff:
     """Every board of the grid that the repair outline overlaps.
 
     Parameters
@@ -112,11 +234,15 @@ def board_takeoff(repair: BaseGeometry, *, board_m: tuple[float, float], roof: B
     board_m
         Board size ``(along, across)`` the grid direction, metres.
     roof
-        Outline minus exclusions (where insulation exists).
+        Outline minus exclusions (where insulation exists); tear-off is clipped to it.
     angle_deg
-        Grid direction; default the roof's dominant edge direction.
+        Grid direction, degrees anticlockwise from plan x; default the dominant edge
+        direction of ``grid_of``.
     origin_xy
-        A grid corner; default the lower-left corner of the roof in the grid's frame.
+        A grid corner, plan x, y; default the lower-left corner of ``grid_of`` in the
+        grid's frame.
+    grid_of
+        The shape the default grid is aligned with (the roof outline); default ``roof``.
 
     Examples
     --------
@@ -125,18 +251,21 @@ def board_takeoff(repair: BaseGeometry, *, board_m: tuple[float, float], roof: B
     >>> t.count, round(t.board_area_m2, 2)   # 2 boards along x, 1 across
     (2, 5.76)
     """
+    ref = roof if grid_of is None else grid_of
     if angle_deg is None:
-        angle_deg = dominant_angle_deg(roof)
-    if repair.is_empty:
-        return BoardTakeoff((), 0, 0.0, 0.0, angle_deg)
-    w, h = board_m
+        angle_deg = dominant_angle_deg(ref)
     pivot = (0.0, 0.0)
-    rot_roof = affinity.rotate(roof, -angle_deg, origin=pivot)
-    rot_repair = affinity.rotate(repair, -angle_deg, origin=pivot)
     if origin_xy is None:
-        ox, oy = rot_roof.bounds[0], rot_roof.bounds[1]
+        rot_ref = affinity.rotate(ref, -angle_deg, origin=pivot)
+        ox, oy = rot_ref.bounds[0], rot_ref.bounds[1]
+        origin_xy = tuple(affinity.rotate(shapely.Point(ox, oy), angle_deg, origin=pivot).coords[0])  # type: ignore[assignment]
     else:
         ox, oy = affinity.rotate(shapely.Point(origin_xy), -angle_deg, origin=pivot).coords[0]
+    origin_xy = (float(origin_xy[0]), float(origin_xy[1]))
+    if repair.is_empty:
+        return BoardTakeoff((), 0, 0.0, 0.0, float(angle_deg), origin_xy, tuple(board_m))
+    w, h = board_m
+    rot_repair = affinity.rotate(repair, -angle_deg, origin=pivot)
     xmin, ymin, xmax, ymax = rot_repair.bounds
     i0, i1 = math.floor((xmin - ox) / w), math.ceil((xmax - ox) / w)
     j0, j1 = math.floor((ymin - oy) / h), math.ceil((ymax - oy) / h)
@@ -145,22 +274,30 @@ def board_takeoff(repair: BaseGeometry, *, board_m: tuple[float, float], roof: B
     y0 = oy + jj.ravel() * h
     cells = shapely.box(x0, y0, x0 + w, y0 + h)
     shapely.prepare(rot_repair)
-    hit = shapely.intersects(rot_repair, cells)
-    cells = cells[hit]
+    cells = cells[shapely.intersects(rot_repair, cells)]
     if len(cells):
         overlap = shapely.area(shapely.intersection(cells, rot_repair))
         cells = cells[overlap > _TOUCH_M2]
     boards = tuple(affinity.rotate(c, angle_deg, origin=pivot) for c in cells)
-    tearoff = shapely.union_all(np.asarray(boards, dtype=object)).intersection(roof).area if boards else 0.0
-    return BoardTakeoff(boards, len(boards), len(boards) * w * h, float(tearoff), angle_deg)
+    pieces = shapely.area(shapely.intersection(np.asarray(boards, dtype=object), roof)) if boards else np.zeros(0)
+    tearoff = tuple(float(a) for a in pieces)
+    return BoardTakeoff(boards, len(boards), len(boards) * w * h, math.fsum(tearoff), float(angle_deg),
+                        origin_xy, (float(w), float(h)), tearoff)
 
 
-def largest_overlap(geoms: list[BaseGeometry], zones: list[BaseGeometry]) -> list[int]:
-    """For each geometry, the index of the zone it overlaps most, or -1."""
-    if not zones:
+def largest_overlap(geoms: Sequence[BaseGeometry], zones: Sequence[BaseGeometry]) -> list[int]:
+    """For each geometry, the index of the zone it overlaps most, or -1.
+
+    Ties go to the first zone.
+
+    >>> from shapely.geometry import box
+    >>> largest_overlap([box(0, 0, 2, 1), box(5, 5, 6, 6)], [box(0, 0, 0.5, 1), box(0.5, 0, 9, 1)])
+    [1, -1]
+    """
+    if not len(zones):
         return [-1] * len(geoms)
     out = []
-    zone_arr = np.asarray(zones, dtype=object)
+    zone_arr = np.asarray(list(zones), dtype=object)
     for g in geoms:
         areas = shapely.area(shapely.intersection(zone_arr, g))
         out.append(int(np.argmax(areas)) if areas.max() > 0 else -1)
@@ -169,7 +306,12 @@ def largest_overlap(geoms: list[BaseGeometry], zones: list[BaseGeometry]) -> lis
 
 @dataclass(frozen=True)
 class SectionTotals:
-    """Areas of one roof section (m2), and its wet fraction."""
+    """Figures of one roof section (areas m2), its wet fraction and replace flag.
+
+    ``wet_area_m2`` is confirmed wet plus unverified (as in the survey totals);
+    ``wet_fraction`` is ``wet_area_m2 / area_m2``; ``replace_flag`` is true when the wet
+    fraction is above the replace-rather-than-repair threshold.
+    """
 
     name: str
     assembly: str | None
@@ -182,28 +324,360 @@ class SectionTotals:
     repair_area_m2: float
     boards: int
     wet_fraction: float
+    board_area_m2: float = 0.0
+    tearoff_area_m2: float = 0.0
+    replace_flag: bool = False
 
 
-def section_totals(name: str, zone: BaseGeometry, *, roof: BaseGeometry, anomalies: list[BaseGeometry],
-                   status: tuple[Status, ...], repair: BaseGeometry, boards: tuple[Polygon, ...],
-                   assembly: str | None = None, insulation: str | None = None) -> SectionTotals:
+def section_totals(name: str, zone: BaseGeometry, *, roof: BaseGeometry, anomalies: Sequence[BaseGeometry],
+                   status: Sequence[Status], repair: BaseGeometry, boards: Sequence[Polygon],
+                   assembly: str | None = None, insulation: str | None = None,
+                   in_zone: np.ndarray | None = None, board_m: tuple[float, float] | None = None,
+                   tearoff_m2: Sequence[float] | None = None,
+                   replace_above_pct: float | None = None) -> SectionTotals:
     """Areas of the anomalies and repair inside one section (clipped to it).
 
-    A board is counted in the section holding its centroid, so sections add up to the total.
+    Parameters
+    ----------
+    name, zone, assembly, insulation
+        The section and its polygon, plan coordinates.
+    roof
+        Outline minus exclusions: ``area_m2`` is the zone's part of it.
+    anomalies, status
+        Every anomaly and its status (same length); their parts inside the zone count.
+    repair
+        The repair outline; its part inside the zone counts.
+    boards
+        Board rectangles.
+    in_zone
+        Which boards belong to this section (bool, shape ``(len(boards),)``); default:
+        those whose centroid the zone covers.
+    board_m
+        Board size, metres (for ``board_area_m2``).
+    tearoff_m2
+        Per board, its tear-off area (for ``tearoff_area_m2``).
+    replace_above_pct
+        Threshold for ``replace_flag``, percent; ``None``: never flagged.
     """
     area = zone.intersection(roof).area
     by = {s: 0.0 for s in ("wet", "dry", "unverified")}
-    if anomalies:
-        parts = shapely.area(shapely.intersection(np.asarray(anomalies, dtype=object), zone))
+    if len(anomalies):
+        parts = shapely.area(shapely.intersection(np.asarray(list(anomalies), dtype=object), zone))
         for s, a in zip(status, parts):
             by[s] += float(a)
     wet = by["wet"] + by["unverified"]
-    n_boards = 0
-    if boards:
-        n_boards = int(shapely.covers(zone, shapely.centroid(np.asarray(boards, dtype=object))).sum())
+    if in_zone is None:
+        in_zone = (shapely.covers(zone, shapely.centroid(np.asarray(list(boards), dtype=object)))
+                   if len(boards) else np.zeros(0, dtype=bool))
+    in_zone = np.asarray(in_zone, dtype=bool)
+    n_boards = int(in_zone.sum())
+    board_area = n_boards * board_m[0] * board_m[1] if board_m else 0.0
+    tearoff = math.fsum(np.asarray(tearoff_m2, dtype=float)[in_zone]) if tearoff_m2 is not None and len(in_zone) else 0.0
+    fraction = wet / area if area > 0 else 0.0
     return SectionTotals(
         name=name, assembly=assembly, insulation=insulation, area_m2=area,
         confirmed_wet_area_m2=by["wet"], unverified_area_m2=by["unverified"], confirmed_dry_area_m2=by["dry"],
         wet_area_m2=wet, repair_area_m2=repair.intersection(zone).area if not repair.is_empty else 0.0,
-        boards=n_boards, wet_fraction=wet / area if area > 0 else 0.0,
+        boards=n_boards, wet_fraction=fraction, board_area_m2=board_area, tearoff_area_m2=tearoff,
+        replace_flag=replace_above_pct is not None and 100.0 * fraction > replace_above_pct,
     )
+
+
+# --------------------------------------------------------------------------------------
+# Bill of quantities
+# --------------------------------------------------------------------------------------
+
+_CENT = Decimal("0.01")
+
+
+def _dec(value: float) -> Decimal:
+    return Decimal(repr(float(value)))
+
+
+def _round2(value: float) -> float:
+    """Round half up to 2 decimals (as a bill is written), from the shortest decimal repr."""
+    return float(_dec(value).quantize(_CENT, rounding=ROUND_HALF_UP))
+
+
+@dataclass(frozen=True)
+class BillLine:
+    """One line of the bill of quantities.
+
+    Attributes
+    ----------
+    item
+        ``"tear-off"``, ``"replace"``, ``"boards"``, ``"cut edge"`` or ``"mobilisation"``.
+    description
+        What the line covers, in words.
+    unit
+        Unit of ``quantity`` and of ``rate``: an area unit (``"m2"``, ``"ft2"``,
+        ``"squares"``), ``"board"``, ``"m"`` or ``"item"``.
+    quantity
+        Billed quantity, rounded to 0.01 (boards and items: whole numbers).
+    rate
+        Currency per ``unit``; ``None``: not priced.
+    amount
+        ``quantity * rate`` rounded half up to 0.01; ``None``: not priced.
+    areas
+        Area lines only: the area in each reported unit, ``(unit, value)`` pairs, each
+        rounded to 0.01.
+    """
+
+    item: str
+    description: str
+    unit: str
+    quantity: float
+    rate: float | None = None
+    amount: float | None = None
+    areas: tuple[tuple[str, float], ...] = ()
+
+    def as_dict(self) -> dict[str, Any]:
+        """The line as JSON-ready data (``quantity_<unit>`` keys for the areas)."""
+        qty: float | int = int(self.quantity) if self.unit in ("board", "item") else self.quantity
+        out: dict[str, Any] = {"item": self.item, "description": self.description, "unit": self.unit,
+                               "quantity": qty, "rate": self.rate, "amount": self.amount}
+        out.update({f"quantity_{u}": v for u, v in self.areas})
+        return out
+
+
+@dataclass(frozen=True)
+class Bill:
+    """A bill of quantities, priced where rates were given.
+
+    Attributes
+    ----------
+    currency
+        Currency of rates and amounts; ``None`` when no ``[prices]`` were given.
+    lines
+        The lines, in order.
+    total
+        Sum of the priced amounts; ``None`` when no line is priced.
+    area_basis
+        Which area the tear-off and replace lines measure.
+    """
+
+    currency: str | None
+    lines: tuple[BillLine, ...]
+    total: float | None
+    area_basis: str
+
+    def as_dict(self) -> dict[str, Any]:
+        """The bill as JSON-ready data."""
+        return {"currency": self.currency, "area_basis": self.area_basis,
+                "lines": [line.as_dict() for line in self.lines], "total": self.total,
+                "note": "quantities measured on the plan from apparent thermal anomalies and confirmations; "
+                        "check them on site before ordering or quoting"}
+
+
+def bill_of_quantities(*, tearoff_area_m2: float, cut_edge_m: float, boards: int | None = None,
+                       prices: "Prices | None" = None, area_units: Sequence["AreaUnit"] = ("m2",),
+                       area_basis: str = "tear-off area") -> Bill:
+    """Lines for tear-off, replacement, boards, cut edge and mobilisation, priced if asked.
+
+    Quantities are rounded to 0.01 first; each amount is then ``quantity * rate``
+    rounded half up to 0.01, and the total is the sum of the amounts (as a bill is
+    checked by hand).
+
+    Parameters
+    ----------
+    tearoff_area_m2
+        Area torn off and replaced, m2.
+    cut_edge_m
+        Length of cut edge, metres (the repair outline's perimeter).
+    boards
+        Whole boards replaced; ``None``: no board line.
+    prices
+        Unit rates (``[prices]``); ``None``: an unpriced bill.
+    area_units
+        Units in which the area lines are also given (``"m2"`` always).
+    area_basis
+        Words saying what the area is.
+
+    Examples
+    --------
+    >>> from wetmap.survey import Prices
+    >>> b = bill_of_quantities(tearoff_area_m2=10.0, cut_edge_m=12.5, boards=4,
+    ...                        prices=Prices(currency="EUR", tearoff_rate=20.0, board_each=15.0,
+    ...                                      cut_edge_per_m=3.0, mobilisation=100.0))
+    >>> [(line.item, line.amount) for line in b.lines]
+    [('tear-off', 200.0), ('replace', None), ('boards', 60.0), ('cut edge', 37.5), ('mobilisation', 100.0)]
+    >>> b.total
+    397.5
+    """
+    units = ["m2", *[u for u in area_units if u != "m2"]]
+
+    def area_line(item: str, words: str, rate: float | None, unit: "AreaUnit") -> BillLine:
+        areas = tuple((u, _round2(convert_area(tearoff_area_m2, u))) for u in units)  # type: ignore[arg-type]
+        qty = dict(areas).get(unit, _round2(convert_area(tearoff_area_m2, unit)))
+        return _priced(BillLine(item, words, unit, qty, areas=areas), rate)
+
+    p = prices
+    lines = [
+        area_line("tear-off", "remove membrane and wet insulation, dispose",
+                  p.tearoff_rate if p else None, p.tearoff_unit if p else "m2"),
+        area_line("replace", "new insulation and membrane over the torn-off area",
+                  p.replace_rate if p else None, p.replace_unit if p else "m2"),
+    ]
+    if boards is not None:
+        lines.append(_priced(BillLine("boards", "whole insulation boards", "board", float(boards)),
+                             p.board_each if p else None))
+    lines.append(_priced(BillLine("cut edge", "membrane cut and tie-in along the repair outline", "m",
+                                  _round2(cut_edge_m)), p.cut_edge_per_m if p else None))
+    if p is not None and p.mobilisation is not None:
+        lines.append(_priced(BillLine("mobilisation", "fixed: access, set-up, removal", "item", 1.0),
+                             p.mobilisation))
+    amounts = [_dec(line.amount) for line in lines if line.amount is not None]
+    total = float(sum(amounts, Decimal(0))) if amounts else None
+    return Bill(currency=p.currency if p else None, lines=tuple(lines), total=total, area_basis=area_basis)
+
+
+def _priced(line: BillLine, rate: float | None) -> BillLine:
+    if rate is None:
+        return line
+    amount = float((_dec(line.quantity) * _dec(rate)).quantize(_CENT, rounding=ROUND_HALF_UP))
+    return BillLine(line.item, line.description, line.unit, line.quantity, float(rate), amount, line.areas)
+
+
+# --------------------------------------------------------------------------------------
+# The whole step
+# --------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Quantities:
+    """Everything the quantities step computes.
+
+    Attributes
+    ----------
+    repair
+        Repair outline (Polygon or MultiPolygon; empty when nothing is counted wet).
+    repair_perimeter_m
+        Its perimeter including holes, metres (the cut edge).
+    takeoff
+        Whole boards.
+    sections
+        One entry per section, in the order given.
+    outside
+        The part of the roof in no section (``name`` :data:`OUTSIDE_SECTIONS`); ``None``
+        when no sections were given.
+    board_section
+        Per board, the index of its section, or -1 for no section.
+    bill
+        The bill of quantities.
+    wet_fraction
+        Wet (confirmed plus unverified) area over the roof area.
+    replace_flag
+        The whole roof's wet fraction is above ``replace_above_pct``.
+    notes
+        Warning lines (replace flags, overlapping sections).
+    """
+
+    repair: BaseGeometry
+    repair_perimeter_m: float
+    takeoff: BoardTakeoff
+    sections: tuple[SectionTotals, ...]
+    outside: SectionTotals | None
+    board_section: tuple[int, ...]
+    bill: Bill
+    wet_fraction: float
+    replace_flag: bool
+    notes: tuple[str, ...]
+
+
+def _replace_note(where: str, fraction: float, threshold_pct: float, kind: str) -> str:
+    head = (f"{where}: wet fraction {100 * fraction:.1f} % is above {threshold_pct:g} % "
+            "([repair] replace_above_pct): consider replacement rather than repair")
+    if kind == "hull":
+        return head + "; an accredited marine surveyor decides"
+    return (head + "; some local codes require full replacement when more than 25 % of a roof is wet, and the "
+            "International Building Code (1511.3.1.1 in recent editions) forbids re-covering a water-soaked "
+            "roof; the local code decides, check which rule applies")
+
+
+def compute_quantities(anomalies: Sequence[BaseGeometry], status: Sequence[Status], *,
+                       outline: BaseGeometry, exclusions: BaseGeometry | None = None,
+                       sections: Sequence["Section"] = (), settings: "Repair",
+                       prices: "Prices | None" = None, kind: str = "roof") -> Quantities:
+    """Repair outline, whole boards, section totals and the bill for one survey.
+
+    Parameters
+    ----------
+    anomalies, status
+        Anomaly polygons (plan coordinates) and their statuses, same length.
+    outline, exclusions
+        The roof outline and what is cut out of it.
+    sections
+        Roof sections (``name``, ``geometry``, ``assembly``, ``insulation``).
+    settings
+        The ``[repair]`` settings: margin, board size and grid, what counts as wet, the
+        replace threshold and area units.
+    prices
+        The ``[prices]`` rates, or ``None``.
+    kind
+        ``"roof"`` or ``"hull"`` (only the wording of the replace note differs).
+    """
+    excl = exclusions if exclusions is not None and not exclusions.is_empty else None
+    roof = outline.difference(excl) if excl is not None else outline
+    counted = {"wet", "unverified"} if settings.include_unverified else {"wet"}
+    repair = repair_outline([g for g, s in zip(anomalies, status) if s in counted],
+                            margin_m=settings.margin_m, outline=outline, exclusions=excl)
+    if settings.board_m:
+        takeoff = board_takeoff(repair, board_m=settings.board_m, roof=roof, angle_deg=settings.board_angle_deg,
+                                origin_xy=settings.board_origin, grid_of=outline)
+    else:
+        takeoff = BoardTakeoff((), 0, 0.0, 0.0, 0.0)
+    notes: list[str] = []
+    threshold = settings.replace_above_pct
+
+    totals: tuple[SectionTotals, ...] = ()
+    outside: SectionTotals | None = None
+    board_section = np.full(takeoff.count, -1, dtype=int)
+    if sections:
+        zones = [s.geometry for s in sections]
+        tree = shapely.STRtree(zones)
+        left, right = tree.query(zones, predicate="intersects")
+        for i, j in zip(left, right):
+            if i < j:
+                shared = zones[i].intersection(zones[j]).area
+                if shared > _OVERLAP_NOTE_M2:
+                    notes.append(f"sections {sections[i].name} and {sections[j].name} overlap by {shared:.2f} m2: "
+                                 "that area counts in both; correct the sections file so they do not overlap")
+        union = shapely.union_all(np.asarray(zones, dtype=object))
+        everything = [outline, *anomalies, *zones, *takeoff.boards]
+        x0, y0, x1, y1 = shapely.total_bounds(np.asarray(everything, dtype=object))
+        rest = box(x0 - 1.0, y0 - 1.0, x1 + 1.0, y1 + 1.0).difference(union)
+        if takeoff.count:
+            pieces = shapely.intersection(np.asarray(takeoff.boards, dtype=object), roof)
+            board_section = np.asarray(largest_overlap(list(pieces), [*zones, rest]), dtype=int)
+            board_section[board_section == len(zones)] = -1
+        common = dict(roof=roof, anomalies=anomalies, status=status, repair=repair, boards=takeoff.boards,
+                      board_m=takeoff.board_m, tearoff_m2=takeoff.tearoff_m2, replace_above_pct=threshold)
+        totals = tuple(
+            section_totals(s.name, s.geometry, assembly=s.assembly, insulation=s.insulation,
+                           in_zone=board_section == k, **common)  # type: ignore[arg-type]
+            for k, s in enumerate(sections)
+        )
+        outside = section_totals(OUTSIDE_SECTIONS, rest, in_zone=board_section == -1, **common)  # type: ignore[arg-type]
+        for t in totals:
+            if t.replace_flag:
+                notes.append(_replace_note(f"section {t.name}", t.wet_fraction, threshold, kind))
+        if outside.replace_flag and outside.area_m2 > 0:
+            notes.append(_replace_note("the roof outside every section", outside.wet_fraction, threshold, kind))
+
+    wet = math.fsum(g.area for g, s in zip(anomalies, status) if s in ("wet", "unverified"))
+    fraction = wet / roof.area if roof.area > 0 else 0.0
+    flag = 100.0 * fraction > threshold
+    if flag and not sections:
+        notes.append(_replace_note("the whole roof" if kind == "roof" else "the hull side", fraction, threshold, kind))
+
+    perimeter = float(repair.length)
+    basis = ("tear-off area: the whole boards clipped to the roof" if settings.board_m
+             else "repair area: the repair outline")
+    bill = bill_of_quantities(
+        tearoff_area_m2=takeoff.tearoff_area_m2 if settings.board_m else repair.area,
+        cut_edge_m=perimeter, boards=takeoff.count if settings.board_m else None, prices=prices,
+        area_units=settings.area_units, area_basis=basis,
+    )
+    return Quantities(repair=repair, repair_perimeter_m=perimeter, takeoff=takeoff, sections=totals,
+                      outside=outside, board_section=tuple(int(k) for k in board_section), bill=bill,
+                      wet_fraction=fraction, replace_flag=flag, notes=tuple(notes))

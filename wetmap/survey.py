@@ -26,6 +26,7 @@ import re
 import sys
 from collections.abc import Mapping
 from dataclasses import dataclass, field
+from datetime import date as date_type
 from datetime import time as clock_time
 from pathlib import Path
 from typing import Any, Literal, get_args
@@ -51,10 +52,16 @@ __all__ = [
     "Detect",
     "Cores",
     "Repair",
+    "AreaUnit",
+    "Prices",
     "Survey",
     "load_survey",
     "SURVEY_FILE",
     "DEFAULT_MIN_AREA_M2",
+    "Limits",
+    "Cooldown",
+    "COOLDOWN_INSULATIONS",
+    "COOLDOWN_DECKS",
 ]
 
 SURVEY_FILE = "survey.toml"
@@ -180,7 +187,92 @@ class Repair:
 
     margin_m: float = 0.3
     board_m: tuple[float, float] | None = (1.2, 2.4)
+    """Board size ``(along, across)`` the board grid's direction, metres."""
     include_unverified: bool = True
+    board_angle_deg: float | None = None
+    """Direction of the board grid, degrees anticlockwise from plan x; ``None``: the
+    outline's dominant edge direction."""
+    board_origin: tuple[float, float] | None = None
+    """Plan x, y of one board corner; ``None``: the outline's lower-left corner in the grid's frame."""
+    replace_above_pct: float = 25.0
+    """Wet fraction above which a section is flagged for replacement rather than repair
+    (default: some local codes require full replacement above 25 % wet; the local code decides)."""
+    area_units: tuple[AreaUnit, ...] = ("m2",)
+    """Area units reported; ``"m2"`` always comes first."""
+
+
+AreaUnit = Literal["m2", "ft2", "squares"]
+
+
+@dataclass(frozen=True)
+class Prices:
+    """The ``[prices]`` table: optional unit rates for the bill of quantities.
+
+    Each ``*_rate`` is in ``currency`` per unit; ``None`` leaves that line unpriced.
+    """
+
+    currency: str
+    tearoff_rate: float | None = None
+    tearoff_unit: AreaUnit = "m2"
+    replace_rate: float | None = None
+    replace_unit: AreaUnit = "m2"
+    board_each: float | None = None
+    cut_edge_per_m: float | None = None
+    mobilisation: float | None = None
+
+
+@dataclass(frozen=True)
+class Limits:
+    """The ``[limits]`` table: thresholds of the survey-condition checks.
+
+    Defaults (documented in ``docs/SURVEY_FORMAT.md``): wind below about 6.7 m/s
+    (15 mph) and no rain in the previous 24 h (trade sources citing ASTM C1153; common
+    practice), a survey from sunset to about 4 h after it (common practice), surface at
+    least 3 K above the dew or frost point (from memory), air paths over about 30 m in
+    humid air treated as uncertain, emissivity within 0.02 of the documented range of
+    the stated surface.
+    """
+
+    wind_max_m_s: float = 6.7
+    rain_free_h: float = 24.0
+    dew_margin_c: float = 3.0
+    after_sunset_min_h: float = 0.0
+    after_sunset_max_h: float = 4.0
+    path_max_m: float = 30.0
+    path_humidity_pct: float = 50.0
+    emissivity_tolerance: float = 0.02
+
+
+#: Insulation presets of the cool-down planner (``[cooldown] insulation``).
+COOLDOWN_INSULATIONS: tuple[str, ...] = ("perlite", "polyiso", "eps", "xps", "wood_fibre")
+#: Deck presets of the cool-down planner (``[cooldown] deck``).
+COOLDOWN_DECKS: tuple[str, ...] = ("steel", "concrete", "timber")
+
+
+@dataclass(frozen=True)
+class Cooldown:
+    """The ``[cooldown]`` table: roof assembly and day of the cool-down planner.
+
+    ``None`` means the documented default of :mod:`wetmap.cooldown` (the preset's
+    value, or for ``insulation`` the insulation named by the plan's sections).
+    """
+
+    insulation: str | None = None
+    insulation_m: float | None = None
+    water_vol_pct: float | None = None
+    insulation_k_w_mk: float | None = None
+    insulation_rho_kg_m3: float | None = None
+    insulation_c_j_kgk: float | None = None
+    moisture_factor: float | None = None
+    membrane_m: float = 0.01
+    deck: str = "steel"
+    deck_m: float | None = None
+    absorptance: float = 0.9
+    sun_peak_w_m2: float = 700.0
+    sunrise: clock_time | None = None
+    air_range_c: float = 8.0
+    interior_c: float = 20.0
+    window_fraction: float = 0.5
 
 
 @dataclass(frozen=True)
@@ -198,6 +290,9 @@ class Survey:
     detect: Detect = field(default_factory=Detect)
     cores: Cores | None = None
     repair: Repair = field(default_factory=Repair)
+    prices: Prices | None = None
+    limits: Limits = field(default_factory=Limits)
+    cooldown: Cooldown = field(default_factory=Cooldown)
 
 
 # --------------------------------------------------------------------------------------
@@ -246,7 +341,15 @@ class _Problems:
 def _fmt(value: Any) -> str:
     if isinstance(value, str):
         return f'"{value}"'
+    if isinstance(value, (clock_time, date_type)):  # TOML dates and times, as written in the file
+        return value.isoformat()
     return repr(value)
+
+
+def _short(value: Any, limit: int = 60) -> str:
+    """``_fmt(value)`` cut to ``limit`` characters, for long lists."""
+    text = _fmt(value)
+    return text if len(text) <= limit else text[: limit - 3] + "..."
 
 
 class _Table:
@@ -408,8 +511,12 @@ def _check_crs(table: _Table, value: str | None) -> str | None:
             'expected a projected CRS in metres (e.g. the site\'s UTM zone) or "local"',
         )
         return None
+    if not crs.is_projected:
+        table.problem("crs", f'= "{value}" is not a projected CRS ({crs.type_name}); '
+                      'expected a projected CRS in metres (e.g. the site\'s UTM zone) or "local"')
+        return None
     units = {(ax.unit_name or "").lower() for ax in crs.axis_info[:2]}
-    if not crs.is_projected or not units <= {"metre", "meter", "m"}:
+    if not units <= {"metre", "meter", "m"}:
         table.problem("crs", f'= "{value}": axes in {", ".join(sorted(units)) or "unknown units"}; expected a projected CRS in metres or "local"')
         return None
     return value
@@ -419,14 +526,18 @@ def _check_crs(table: _Table, value: str | None) -> str | None:
 # Sections of survey.toml
 # --------------------------------------------------------------------------------------
 
-_TOP = ("survey", "conditions", "camera", "plan", "mosaic", "frame", "detect", "cores", "repair")
+_TOP = ("survey", "conditions", "camera", "plan", "mosaic", "frame", "detect", "cores", "repair", "prices",
+        "limits", "cooldown")
 
 
 def _read_survey_info(t: _Table) -> SurveyInfo | None:
     title = t.text("title", required=True, example='"Main roof"')
     kind = t.choice("kind", get_args(Kind), required=True)
     crs = _check_crs(t, t.text("crs", required=True, example='"EPSG:32633"'))
-    site, date, surveyor = t.text("site"), t.text("date"), t.text("surveyor")
+    site, surveyor = t.text("site"), t.text("surveyor")
+    raw_date = t.data.get("date")
+    # an unquoted TOML date (date = 2024-11-12) is as good as the text "2024-11-12"
+    date = raw_date.isoformat() if isinstance(raw_date, date_type) else t.text("date")
     side = t.choice("side", get_args(Side))
     if side is not None and kind == "roof":
         t.problem("side", f'= "{side}": applies to hull surveys only; remove it or set kind = "hull"')
@@ -523,7 +634,7 @@ def _read_frame(t: _Table, folder: Path) -> Frame | None:
             for p in raw
         )
         if not ok:
-            t.problem("points", "expected a list of [col, row, x, y] lists of 4 numbers each")
+            t.problem("points", f"= {_short(raw)}: expected a list of [col, row, x, y] lists of 4 numbers each")
         elif len(raw) < 4:
             t.problem("points", f"has {len(raw)} control points: expected at least 4 [col, row, x, y]")
         else:
@@ -558,14 +669,115 @@ def _read_repair(t: _Table) -> Repair:
     margin = t.number("margin_m", low=0, high=10, example="0.3")
     board = t.numbers("board_m", 2, example="[1.2, 2.4]", positive=True)
     include = t.boolean("include_unverified")
+    angle = t.number("board_angle_deg", low=-360, high=360, example="0.0")
+    origin = t.numbers("board_origin", 2, example="[512300.0, 5463100.0]")
+    replace = t.number("replace_above_pct", low=0, high=100, low_open=True, example="25")
+    units: tuple[AreaUnit, ...] = ("m2",)
+    raw = t.data.get("area_units")
+    if raw is not None:
+        valid = get_args(AreaUnit)
+        if not isinstance(raw, list) or not all(isinstance(u, str) for u in raw):
+            t.problem("area_units", f'= {_short(raw)}: expected a list of unit names from {", ".join(valid)}, '
+                      'e.g. area_units = ["m2", "ft2", "squares"]')
+        else:
+            bad = [u for u in raw if u not in valid]
+            for u in bad:
+                near = difflib.get_close_matches(u, valid, n=1, cutoff=0.5)
+                hint = f' (did you mean "{near[0]}"?)' if near else ""
+                t.problem("area_units", f'= {_short(raw)}: "{u}" is not a unit wetmap reports{hint}; '
+                          f'expected names from {", ".join(valid)}')
+            if not bad:  # m2 always, first; the others in the order of `valid`, once each
+                units = tuple(u for u in valid if u == "m2" or u in raw)  # type: ignore[misc]
     return Repair(
         margin_m=0.3 if margin is None else margin,
         board_m=board if board is not None else (1.2, 2.4),
         include_unverified=True if include is None else include,
+        board_angle_deg=angle,
+        board_origin=origin,  # type: ignore[arg-type]
+        replace_above_pct=25.0 if replace is None else replace,
+        area_units=units,
     )
 
 
+#: ``[prices]`` rates given per area: the key's suffix names the unit of the rate.
+_RATE_SUFFIX: dict[str, AreaUnit] = {"_per_m2": "m2", "_per_ft2": "ft2", "_per_square": "squares"}
+
+
+def _read_prices(t: _Table) -> Prices | None:
+    currency = t.text("currency", required=True, example='"EUR"')
+    rates: dict[str, tuple[float | None, AreaUnit]] = {}
+    for item in ("tearoff", "replace"):
+        given = [f"{item}{suffix}" for suffix in _RATE_SUFFIX if f"{item}{suffix}" in t.data]
+        if len(given) > 1:
+            t.problem(given[1], f"and {given[0]} are both given: give the {item} rate once, "
+                      f"per m2, per ft2 or per square")
+        rate, unit = None, "m2"
+        if given:
+            rate = t.number(given[0], low=0, example="12.50")
+            unit = _RATE_SUFFIX[given[0][len(item):]]
+        rates[item] = (rate, unit)  # type: ignore[assignment]
+    board = t.number("board_each", low=0, example="18.00")
+    edge = t.number("cut_edge_per_m", low=0, example="4.00")
+    mobilisation = t.number("mobilisation", low=0, example="350.00")
+    if currency is None:
+        return None
+    return Prices(
+        currency=currency.strip(),
+        tearoff_rate=rates["tearoff"][0], tearoff_unit=rates["tearoff"][1],
+        replace_rate=rates["replace"][0], replace_unit=rates["replace"][1],
+        board_each=board, cut_edge_per_m=edge, mobilisation=mobilisation,
+    )
+
+
+def _read_limits(t: _Table) -> Limits:
+    d = Limits()
+    values = {
+        "wind_max_m_s": t.number("wind_max_m_s", low=0, low_open=True, high=60, example="6.7"),
+        "rain_free_h": t.number("rain_free_h", low=0, high=720, example="24"),
+        "dew_margin_c": t.number("dew_margin_c", low=0, high=30, example="3.0"),
+        "after_sunset_min_h": t.number("after_sunset_min_h", low=-12, high=12, example="0.0"),
+        "after_sunset_max_h": t.number("after_sunset_max_h", low=-12, high=12, example="4.0"),
+        "path_max_m": t.number("path_max_m", low=0, high=10_000, example="30"),
+        "path_humidity_pct": t.number("path_humidity_pct", low=0, high=100, example="50"),
+        "emissivity_tolerance": t.number("emissivity_tolerance", low=0, high=1, example="0.02"),
+    }
+    values = {k: (getattr(d, k) if v is None else v) for k, v in values.items()}
+    if values["after_sunset_min_h"] >= values["after_sunset_max_h"]:
+        t.problem("after_sunset_max_h", f"= {values['after_sunset_max_h']:g}: expected more than "
+                  f"after_sunset_min_h = {values['after_sunset_min_h']:g} (hours after sunset)")
+    return Limits(**values)
+
+
+def _read_cooldown(t: _Table) -> Cooldown:
+    d = Cooldown()
+    insulation = t.choice("insulation", COOLDOWN_INSULATIONS)
+    deck = t.choice("deck", COOLDOWN_DECKS)
+    numbers = {
+        "insulation_m": t.number("insulation_m", low=0.005, high=1.0, example="0.05"),
+        "water_vol_pct": t.number("water_vol_pct", low=0, high=90, example="15"),
+        "insulation_k_w_mk": t.number("insulation_k_w_mk", low=0, low_open=True, high=5, example="0.052"),
+        "insulation_rho_kg_m3": t.number("insulation_rho_kg_m3", low=0, low_open=True, high=3000, example="160"),
+        "insulation_c_j_kgk": t.number("insulation_c_j_kgk", low=0, low_open=True, high=5000, example="1340"),
+        "moisture_factor": t.number("moisture_factor", low=0, high=50, example="4"),
+        "membrane_m": t.number("membrane_m", low=0.0005, high=0.1, example="0.01"),
+        "deck_m": t.number("deck_m", low=0.0002, high=1.0, example="0.001"),
+        "absorptance": t.number("absorptance", low=0, high=1, example="0.9"),
+        "sun_peak_w_m2": t.number("sun_peak_w_m2", low=0, high=1400, example="700"),
+        "air_range_c": t.number("air_range_c", low=0, high=40, example="8"),
+        "interior_c": t.number("interior_c", low=-40, high=60, example="20"),
+        "window_fraction": t.number("window_fraction", low=0, high=1, low_open=True, high_open=True,
+                                    example="0.5"),
+    }
+    keep = {k: (getattr(d, k) if v is None else v) for k, v in numbers.items()}
+    return Cooldown(insulation=insulation, deck=deck or d.deck, sunrise=t.clock("sunrise"), **keep)
+
+
 _KEYS: dict[str, tuple[str, ...]] = {
+    "limits": ("wind_max_m_s", "rain_free_h", "dew_margin_c", "after_sunset_min_h", "after_sunset_max_h",
+               "path_max_m", "path_humidity_pct", "emissivity_tolerance"),
+    "cooldown": ("insulation", "insulation_m", "water_vol_pct", "insulation_k_w_mk", "insulation_rho_kg_m3",
+                 "insulation_c_j_kgk", "moisture_factor", "membrane_m", "deck", "deck_m", "absorptance",
+                 "sun_peak_w_m2", "sunrise", "air_range_c", "interior_c", "window_fraction"),
     "survey": ("title", "kind", "crs", "site", "date", "surveyor", "side"),
     "conditions": ("air_c", "humidity_pct", "wind_m_s", "sky", "reflected_c", "sunset", "time",
                    "hours_since_rain", "surface_dry"),
@@ -575,7 +787,10 @@ _KEYS: dict[str, tuple[str, ...]] = {
     "frame": ("path", "units", "points", "time", "scale", "offset"),
     "detect": ("delta_c", "background_m", "min_area_m2"),
     "cores": ("path", "wet_above", "wet_above_pct"),
-    "repair": ("margin_m", "board_m", "include_unverified"),
+    "repair": ("margin_m", "board_m", "include_unverified", "board_angle_deg", "board_origin",
+               "replace_above_pct", "area_units"),
+    "prices": ("currency", "tearoff_per_m2", "tearoff_per_ft2", "tearoff_per_square", "replace_per_m2",
+               "replace_per_ft2", "replace_per_square", "board_each", "cut_edge_per_m", "mobilisation"),
 }
 
 
@@ -599,6 +814,16 @@ def _array(problems: _Problems, doc: Mapping[str, Any], name: str) -> list[_Tabl
         problems.add(name, None, f"expected one or more [[{name}]] tables")
         return []
     return [_Table(problems, name, d, _KEYS[name], index=i) for i, d in enumerate(data)]
+
+
+def _top_level_line(text: str, key: str) -> int | None:
+    """1-based line of ``key = ...`` written before the first table header."""
+    for n, line in enumerate(text.splitlines(), start=1):
+        if re.match(r"^\s*\[", line):
+            return None
+        if re.match(rf"^\s*{re.escape(key)}\s*=", line):
+            return n
+    return None
 
 
 def load_survey(folder: str | Path) -> Survey:
@@ -638,11 +863,23 @@ def load_survey(folder: str | Path) -> Survey:
         raise SurveyError(f"{file}: not valid TOML: {err}; fix the syntax at that line") from None
 
     problems = _Problems(file, text)
-    for key in doc:
-        if key not in _TOP:
+    for key, value in doc.items():
+        if key in _TOP:
+            continue
+        if isinstance(value, (dict, list)) and (isinstance(value, dict) or all(isinstance(v, dict) for v in value)):
             near = difflib.get_close_matches(key, _TOP, n=1, cutoff=0.6)
             hint = f'; did you mean "[{near[0]}]"?' if near else f"; valid tables: {', '.join(_TOP)}"
-            problems.items.append(f"{file}: [{key}]: unknown table{hint}")
+            line = problems.line_of(key, None, None)
+            at = f" (line {line})" if line else ""
+            problems.items.append(f"{file}: [{key}]{at}: unknown table{hint}")
+        else:  # a key = value written before the first table header
+            owners = [name for name, keys in _KEYS.items() if key in keys]
+            hint = (f"; move it under [{owners[0]}]" if len(owners) == 1
+                    else f"; it belongs in one of {', '.join(f'[{o}]' for o in owners)}" if owners
+                    else f"; valid tables: {', '.join(_TOP)}")
+            line = _top_level_line(text, key)
+            at = f" (line {line})" if line else ""
+            problems.items.append(f"{file}: {key}{at} = {_short(value)}: a key outside any table{hint}")
 
     t_survey = _table(problems, doc, "survey", required=True)
     info = _read_survey_info(t_survey) if t_survey else None
@@ -654,7 +891,7 @@ def load_survey(folder: str | Path) -> Survey:
     plan = _read_plan(t_plan, folder) if t_plan else None
     mosaics = [_read_mosaic(t, folder) for t in _array(problems, doc, "mosaic")]
     frames = [_read_frame(t, folder) for t in _array(problems, doc, "frame")]
-    if not mosaics and not frames and "mosaic" not in doc and "frame" not in doc:
+    if not mosaics and not frames:  # also `mosaic = []`, which holds no imagery either
         problems.items.append(
             f"{file}: no imagery: add at least one [[mosaic]] (a raster on the plan grid) "
             "or [[frame]] (a frame placed by control points)"
@@ -666,6 +903,12 @@ def load_survey(folder: str | Path) -> Survey:
     cores = _read_cores(t_cores, folder) if t_cores else None
     t_rep = _table(problems, doc, "repair", required=False)
     repair = _read_repair(t_rep) if t_rep else Repair()
+    t_lim = _table(problems, doc, "limits", required=False)
+    limits = _read_limits(t_lim) if t_lim else Limits()
+    t_cool = _table(problems, doc, "cooldown", required=False)
+    cooldown = _read_cooldown(t_cool) if t_cool else Cooldown()
+    t_prices = _table(problems, doc, "prices", required=False)
+    prices = _read_prices(t_prices) if t_prices else None
 
     if problems.items:
         raise SurveyError(problems.items)
@@ -682,5 +925,8 @@ def load_survey(folder: str | Path) -> Survey:
         detect=detect,
         cores=cores,
         repair=repair,
+        limits=limits,
+        cooldown=cooldown,
+        prices=prices,
     )
 

@@ -1,0 +1,189 @@
+"""``repair.dxf``: the plan, anomalies, repair outlines and boards for CAD users.
+
+Plan coordinates (the survey CRS, or plan metres for ``local``), drawing units metres.
+Every polygon ring is a closed ``LWPOLYLINE``: exteriors anticlockwise, holes clockwise
+as separate polylines on the same layer, so a CAD area command on an exterior less its
+holes gives the polygon's area, and the signed areas of a layer's rings add up to it.
+Repair outlines are also filled with a hatch (holes left open) on their own layer.
+
+Layers (names of wetmap's own; see :data:`LAYERS`): ``OUTLINE``, ``EXCLUSIONS``,
+``SECTIONS``, ``ANOMALY-WET``, ``ANOMALY-UNVERIFIED``, ``ANOMALY-DRY``, ``REPAIR``,
+``REPAIR-HATCH``, ``BOARDS``, ``CORES``, ``LABELS``.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+import numpy as np
+import shapely
+from shapely.geometry import Polygon
+from shapely.geometry.base import BaseGeometry
+
+from ..errors import ProcessingError
+from ..quantities import convert_area
+
+if TYPE_CHECKING:
+    from ..pipeline import SurveyResult
+
+__all__ = ["LAYERS", "STATUS_LAYER", "write_dxf", "polygon_rings"]
+
+#: Layer name -> (AutoCAD colour index, description).
+LAYERS: dict[str, tuple[int, str]] = {
+    "OUTLINE": (7, "roof outline (or developed hull side), plan coordinates"),
+    "EXCLUSIONS": (8, "curbs, rooftop units, skylights and other areas left out"),
+    "SECTIONS": (9, "roof sections"),
+    "ANOMALY-WET": (1, "apparent thermal anomalies confirmed wet by a core or reading"),
+    "ANOMALY-UNVERIFIED": (30, "apparent thermal anomalies with no confirmation inside"),
+    "ANOMALY-DRY": (3, "apparent thermal anomalies refuted: confirmations inside all dry"),
+    "REPAIR": (5, "repair outlines: counted anomalies plus the margin, clipped to the roof"),
+    "REPAIR-HATCH": (5, "fill of the repair outlines"),
+    "BOARDS": (4, "whole insulation boards to replace"),
+    "CORES": (6, "cores and readings with their judgement"),
+    "LABELS": (7, "ids and areas"),
+}
+
+#: Anomaly status -> layer.
+STATUS_LAYER = {"wet": "ANOMALY-WET", "unverified": "ANOMALY-UNVERIFIED", "dry": "ANOMALY-DRY"}
+
+
+def polygon_rings(geom: BaseGeometry) -> list[tuple[np.ndarray, bool]]:
+    """The rings of a (multi)polygon as ``(xy, is_hole)``, exteriors anticlockwise, holes clockwise.
+
+    ``xy`` has shape ``(n, 2)`` without the repeated closing vertex.
+
+    >>> from shapely.geometry import box
+    >>> [(len(xy), hole) for xy, hole in polygon_rings(box(0, 0, 4, 4).difference(box(1, 1, 2, 2)))]
+    [(4, False), (4, True)]
+    """
+    out: list[tuple[np.ndarray, bool]] = []
+    if geom.is_empty:
+        return out
+    for poly in shapely.get_parts(shapely.orient_polygons(geom, exterior_cw=False)):
+        if not isinstance(poly, Polygon) or poly.is_empty:
+            continue
+        out.append((np.asarray(poly.exterior.coords)[:-1, :2], False))
+        out.extend((np.asarray(r.coords)[:-1, :2], True) for r in poly.interiors)
+    return out
+
+
+def _text_height_m(outline: BaseGeometry) -> float:
+    x0, y0, x1, y1 = outline.bounds
+    return float(np.clip(max(x1 - x0, y1 - y0) / 150.0, 0.05, 2.0))
+
+
+def _area_text(area_m2: float, units: tuple[str, ...]) -> str:
+    parts = [f"{area_m2:.2f} m2"]
+    if "ft2" in units:
+        parts.append(f"{convert_area(area_m2, 'ft2'):.1f} ft2")
+    if "squares" in units:
+        parts.append(f"{convert_area(area_m2, 'squares'):.2f} sq")
+    return " / ".join(parts)
+
+
+def write_dxf(result: "SurveyResult", path: Path) -> None:
+    """Write ``repair.dxf`` (DXF R2010, metres, plan coordinates) and audit it.
+
+    Parameters
+    ----------
+    result
+        The survey's results.
+    path
+        File to write.
+
+    Raises
+    ------
+    ProcessingError
+        ezdxf's audit found an error in the drawing (a wetmap bug).
+    """
+    import ezdxf
+    from ezdxf import appsettings, zoom
+    from ezdxf.enums import TextEntityAlignment
+
+    from .tables import quantities_of
+
+    q = quantities_of(result)
+    units = tuple(result.survey.repair.area_units)
+    doc = ezdxf.new("R2010", setup=True)
+    doc.units = ezdxf.units.M
+    doc.header["$MEASUREMENT"] = 1  # metric
+    doc.header["$LUNITS"] = 2  # decimal
+    for name, (colour, description) in LAYERS.items():
+        layer = doc.layers.add(name, color=colour)
+        layer.description = description
+    msp = doc.modelspace()
+    h = _text_height_m(result.outline)
+
+    def rings(geom: BaseGeometry, layer: str) -> None:
+        for xy, _ in polygon_rings(geom):
+            msp.add_lwpolyline(xy.tolist(), close=True, dxfattribs={"layer": layer})
+
+    def label(text: str, xy: tuple[float, float], *, height: float = h, layer: str = "LABELS") -> None:
+        msp.add_text(text, height=height, dxfattribs={"layer": layer}).set_placement(
+            xy, align=TextEntityAlignment.MIDDLE_CENTER)
+
+    def inside(geom: BaseGeometry) -> tuple[float, float]:
+        p = geom.representative_point()
+        return float(p.x), float(p.y)
+
+    rings(result.outline, "OUTLINE")
+    rings(result.exclusions, "EXCLUSIONS")
+    for s in result.sections:
+        rings(s.geometry, "SECTIONS")
+        part = s.geometry.intersection(result.roof)
+        if not part.is_empty and part.area > 0:
+            label(f"section {s.name}", inside(part), height=1.5 * h)
+    for a in result.anomalies:
+        rings(a.geometry, STATUS_LAYER[a.status])
+        label(f"A{a.id} {a.status} {_area_text(a.area_m2, units)}", inside(a.geometry))
+    parts = list(shapely.get_parts(q.repair)) if not q.repair.is_empty else []
+    for k, part in enumerate(parts, start=1):
+        rings(part, "REPAIR")
+        hatch = msp.add_hatch(color=LAYERS["REPAIR"][0], dxfattribs={"layer": "REPAIR-HATCH"})
+        hatch.set_pattern_fill("ANSI31", scale=h / 4.0)  # 45-degree lines 3.175 x scale apart
+        for xy, hole in polygon_rings(part):
+            hatch.paths.add_polyline_path(
+                xy.tolist(), is_closed=True,
+                flags=ezdxf.const.BOUNDARY_PATH_DEFAULT if hole else ezdxf.const.BOUNDARY_PATH_EXTERNAL)
+        x, y = inside(part)
+        label(f"R{k} repair {_area_text(part.area, units)}", (x, y - 1.2 * h))
+    for board in q.takeoff.boards:
+        rings(board, "BOARDS")
+    c = result.confirmations
+    for i in range(len(c)):
+        x, y = float(c.xs[i]), float(c.ys[i])
+        msp.add_circle((x, y), radius=0.4 * h, dxfattribs={"layer": "CORES"})
+        msp.add_point((x, y), dxfattribs={"layer": "CORES"})
+        judged = "wet" if c.wet[i] else "dry"
+        msp.add_text(f"{c.ids[i]} {judged}", height=0.8 * h, dxfattribs={"layer": "CORES"}).set_placement(
+            (x + 0.6 * h, y), align=TextEntityAlignment.MIDDLE_LEFT)
+
+    # a title block under the outline: what the drawing is, the totals, the caution
+    x0, y0, _, _ = result.outline.bounds
+    s = result.survey
+    crs = "plan metres (local)" if s.survey.is_local else f"{s.survey.crs}, metres"
+    lines = [
+        f"{s.survey.title}: repair take-off by wetmap; coordinates {crs}",
+        f"repair outlines {_area_text(q.repair.area, units)}, perimeter {q.repair_perimeter_m:.2f} m, "
+        f"margin {s.repair.margin_m:g} m",
+    ]
+    if s.repair.board_m:
+        lines.append(f"{q.takeoff.count} boards of {s.repair.board_m[0]:g} x {s.repair.board_m[1]:g} m, "
+                     f"tear-off {_area_text(q.takeoff.tearoff_area_m2, units)}, "
+                     f"grid at {q.takeoff.angle_deg:.2f} deg")
+    lines.append("Apparent thermal anomalies, not measured moisture: verify by coring; "
+                 "local codes and licensed professionals decide.")
+    for n, text in enumerate(lines):
+        msp.add_text(text, height=h, dxfattribs={"layer": "LABELS"}).set_placement(
+            (x0, y0 - (2.0 + 1.6 * n) * h), align=TextEntityAlignment.LEFT)
+
+    extents = appsettings.update_extents(doc)  # header and model-space extents
+    if extents.has_data:  # the initial view: CAD opens on the roof
+        zoom.window(msp, extents.extmin, extents.extmax)
+    auditor = doc.audit()
+    if auditor.has_errors:
+        first = auditor.errors[0].message if auditor.errors else "unknown"
+        raise ProcessingError(f"{path.name}: ezdxf's audit found {len(auditor.errors)} errors (first: {first}); "
+                              "this is a wetmap bug, please report it")
+    doc.saveas(path)
