@@ -121,8 +121,10 @@ def test_hole_filling_never_takes_excluded_pixels():
     delta = np.zeros((30, 30))
     delta[5:25, 5:25] = 2.0
     delta[14:16, 14:16] = np.nan  # an excluded drain inside a wet area
+    delta[13, 14] = 0.0  # with a cool pixel beside it: the hole holds an unusable pixel
     mask = anomaly_mask(delta, 1.0, min_pixels=10)
     assert not mask[14:16, 14:16].any()
+    assert not mask[13, 14]  # left open as a whole
     delta[10, 10] = 0.0  # a one-pixel cool hole is filled
     assert anomaly_mask(delta, 1.0, min_pixels=10)[10, 10]
 

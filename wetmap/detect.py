@@ -24,8 +24,8 @@ detections; a full-resolution median filter metres wide costs thousands of secon
 megapixel: the block median is both robust and cheap.
 
 Thresholding is separate from computing the threshold: ``delta > delta_c`` on usable
-pixels, then regions smaller than the minimum area are dropped and holes smaller than
-it are filled.
+pixels, then regions smaller than the minimum area are dropped and holes up to it are
+filled, unless a hole holds an unusable pixel (an excluded drain, missing data).
 """
 
 from __future__ import annotations
@@ -291,9 +291,8 @@ def anomaly_mask(delta_c: np.ndarray, threshold_c: float, *, min_pixels: int) ->
     with np.errstate(invalid="ignore"):
         mask = delta_c > threshold_c
     mask = remove_small_regions(mask, min_pixels=min_pixels)
-    mask = fill_small_holes(mask, max_pixels=min_pixels)
-    mask &= np.isfinite(delta_c)  # a filled hole never takes in an excluded or unusable pixel
-    return mask
+    # a hole holding an excluded or unusable pixel (a drain, a curb, missing data) stays open
+    return fill_small_holes(mask, max_pixels=min_pixels, fillable=np.isfinite(delta_c))
 
 
 @dataclass(frozen=True)

@@ -222,12 +222,14 @@ def remove_small_regions(mask: np.ndarray, *, min_pixels: int) -> np.ndarray:
     return keep[labels]
 
 
-def fill_small_holes(mask: np.ndarray, *, max_pixels: int) -> np.ndarray:
+def fill_small_holes(mask: np.ndarray, *, max_pixels: int, fillable: np.ndarray | None = None) -> np.ndarray:
     """Fill holes of at most ``max_pixels`` pixels.
 
     A hole is a 4-connected background component that does not touch the
     array border -- the holes :func:`polygonize` draws. Background touching
-    the border may continue outside the array and is never filled.
+    the border may continue outside the array and is never filled. With
+    ``fillable``, a hole holding any pixel that is not fillable (an excluded
+    drain, missing data) is left open as a whole.
 
     Parameters
     ----------
@@ -235,6 +237,8 @@ def fill_small_holes(mask: np.ndarray, *, max_pixels: int) -> np.ndarray:
         The anomaly mask.
     max_pixels : int
         Largest hole filled, in pixels. ``max_pixels <= 0`` fills nothing.
+    fillable : numpy.ndarray of bool, shape (rows, cols), optional
+        Pixels that may be filled; default all.
 
     Returns
     -------
@@ -260,6 +264,8 @@ def fill_small_holes(mask: np.ndarray, *, max_pixels: int) -> np.ndarray:
     fill[0] = False
     border = np.concatenate([background[0], background[-1], background[:, 0], background[:, -1]])
     fill[border] = False
+    if fillable is not None:
+        fill[np.unique(background[~fillable])] = False
     return mask | fill[background]
 
 
