@@ -24,7 +24,8 @@ from shapely.geometry import Polygon
 from shapely.geometry.base import BaseGeometry
 
 from . import __version__
-from .confirm import Status, Verdicts, assign_status
+from .confirm import (AreaRange, Status, SuggestedCore, ThresholdCheck, Verdicts, assign_status,
+                      sample_at_points, suggest_cores, threshold_check, wet_area_range)
 from .confirmations import Confirmations, read_confirmations
 from .detect import Detection, default_background_m, detect_anomalies
 from .errors import InputFileError, ProcessingError
@@ -108,6 +109,12 @@ class SurveyResult:
     """Several passes of one night compared (``None`` for a single pass)."""
     quantities: Quantities | None = None
     """The whole quantities step (outside-sections figures, board sections, bill)."""
+    threshold: ThresholdCheck | None = None
+    """The chosen threshold against the confirmations."""
+    area_range: AreaRange | None = None
+    """The counted wet area with its range."""
+    suggested_cores: tuple[SuggestedCore, ...] = ()
+    """Where one more core is worth most."""
 
     def summary(self) -> dict[str, Any]:
         """The ``summary.json`` content (areas in m2)."""
@@ -136,6 +143,7 @@ class SurveyResult:
             **self._quantity_entries(),
             "warnings": list(self.warnings),
             **({"passes": self.passes.summary()} if self.passes is not None else {}),
+            **self._calibration_entries(),
             "sections": [
                 {k: (round(v, 4) if isinstance(v, float) else v) for k, v in vars(t).items()}
                 for t in self.section_totals
@@ -169,6 +177,30 @@ class SurveyResult:
             },
             "wetmap_version": __version__,
         }
+
+    def _calibration_entries(self) -> dict[str, Any]:
+        """summary.json entries of the threshold check, the area range and the suggested cores."""
+        out: dict[str, Any] = {}
+        if self.area_range is not None:
+            r = self.area_range
+            out["wet_area_range_m2"] = [round(r.low_m2, 4), round(r.high_m2, 4)]
+            out["wet_area_range"] = {
+                "likely_m2": round(r.likely_m2, 4), "low_m2": round(r.low_m2, 4), "high_m2": round(r.high_m2, 4),
+                "threshold_low_c": r.threshold_low_c, "threshold_high_c": r.threshold_high_c,
+                "geometric_m2": round(r.geometric_m2, 4),
+            }
+        if self.threshold is not None:
+            t = self.threshold
+            out["threshold_check"] = {
+                "chosen_c": t.chosen_c, "range_c": [t.low_c, t.high_c], "range_bounded_by": list(t.bounded_by),
+                "errors_at_best": t.errors, "separable": t.separable, "confusion": t.confusion,
+                "misclassified": list(t.misclassified), "wet_cores": t.n_wet, "dry_cores": t.n_dry,
+            }
+        out["suggested_cores"] = [
+            {"x": c.x, "y": c.y, "kind": c.kind, "anomaly": c.anomaly, "reason": c.reason}
+            for c in self.suggested_cores
+        ]
+        return out
 
     def _quantity_entries(self) -> dict[str, Any]:
         """summary.json entries of the quantities step (areas m2, lengths m)."""
@@ -399,7 +431,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None) -> S
     else:
         conf = Confirmations.empty()
     verdicts = assign_status(polys, conf)
-    conf_delta = _sample(detection.delta_c, grid, conf.xs, conf.ys)
+    conf_delta = sample_at_points(detection.delta_c, grid.transform, conf.xs, conf.ys)
     if len(conf):
         inside_roof = shapely.covers(outline, shapely.points(conf.xs, conf.ys))
         for i in np.flatnonzero(~inside_roof):
@@ -408,13 +440,29 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None) -> S
         for i in np.flatnonzero(conf.wet & (verdicts.anomaly_of < 0) & inside_roof):
             d = conf_delta[i]
             seen = f"delta-T there {d:+.2f} °C" if np.isfinite(d) else "no thermal data there"
+            include = (f"; a threshold below {np.floor(d * 20) / 20:.2f} °C would include it"
+                       if np.isfinite(d) and d > 0 else "")
             warnings.append(
                 f"{conf.ids[i]} says wet but lies outside every anomaly ({seen}; threshold {sdt.delta_c:g} °C): "
-                "a possible missed wet area"
+                f"a possible missed wet area{include}"
             )
     if len(conf) == 0 and count:
         warnings.append("no cores or readings: every anomaly is unverified; infrared alone does not "
                         "establish wet insulation (invasive verification is required)")
+    check = threshold_check(conf.ids, conf_delta, conf.wet, chosen_c=sdt.delta_c)
+    if len(conf):
+        warnings.extend(check.warnings)
+    core_cols, core_rows = ~grid.transform @ (conf.xs, conf.ys)
+    counted = ("wet", "unverified") if survey.repair.include_unverified else ("wet",)
+    counted_polys = [p for p, st in zip(polys, verdicts.status) if st in counted]
+    area_range, band = wet_area_range(
+        detection.delta_c, check, likely_m2=float(sum(p.area for p in counted_polys)),
+        perimeter_m=float(sum(p.length for p in counted_polys)), pixel_m=grid.pixel_m,
+        min_pixels=detection.min_pixels, core_rows=np.floor(core_rows).astype(np.intp),
+        core_cols=np.floor(core_cols).astype(np.intp), core_wet=conf.wet,
+        include_unverified=survey.repair.include_unverified)
+    suggestions = suggest_cores(polys, verdicts.status, list(range(1, count + 1)), band=band,
+                                transform=grid.transform, pixel_m=grid.pixel_m, min_pixels=detection.min_pixels)
 
     section_of = largest_overlap(polys, [s.geometry for s in sections])
     anomalies = tuple(
@@ -446,23 +494,10 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None) -> S
         section_totals=totals, radiometry=radiometry, coverage=coverage, warnings=tuple(warnings),
         passes=passes,
         quantities=quantities,
+        threshold=check,
+        area_range=area_range,
+        suggested_cores=tuple(suggestions),
     )
-
-
-def _sample(values: np.ndarray, grid: PlanGrid, xs: np.ndarray, ys: np.ndarray, radius_px: int = 1) -> np.ndarray:
-    """Median of ``values`` in a (2 r + 1)^2 neighbourhood of each point; NaN off the grid."""
-    out = np.full(len(xs), np.nan)
-    if not len(xs):
-        return out
-    cols, rows = ~grid.transform @ (np.asarray(xs), np.asarray(ys))
-    for i, (r, c) in enumerate(zip(np.floor(rows).astype(int), np.floor(cols).astype(int))):
-        r0, r1 = max(r - radius_px, 0), min(r + radius_px + 1, grid.rows)
-        c0, c1 = max(c - radius_px, 0), min(c + radius_px + 1, grid.cols)
-        if r1 > r0 and c1 > c0:
-            window = values[r0:r1, c0:c1]
-            if np.isfinite(window).any():
-                out[i] = float(np.nanmedian(window))
-    return out
 
 
 def write_results(result: SurveyResult, out_dir: Path, *, extra_writers: tuple[Callable[[SurveyResult, Path], None], ...] = ()) -> Path:
