@@ -355,7 +355,8 @@ def suggest_cores(anomalies: list[BaseGeometry], status: tuple[Status, ...], ids
     The point in an anomaly is its pole of inaccessibility (:func:`shapely.ops.polylabel`):
     the interior point farthest from every edge, where a core is least likely to hit the
     boundary. A boundary point is the pixel farthest from the edge of one connected part
-    of the uncertain band (largest parts first).
+    of the uncertain band (largest parts first), leaving out parts that lie within 1 m
+    (or two pixels) of an unverified anomaly: that anomaly's own core settles them.
     """
     from scipy import ndimage
     from shapely.ops import polylabel
@@ -375,18 +376,24 @@ def suggest_cores(anomalies: list[BaseGeometry], status: tuple[Status, ...], ids
             reason=f"anomaly {ids[i]} ({anomalies[i].area:.1f} m2) has no core: a core here confirms or refutes it",
         ))
     labels, count = label_regions(band)
+    unverified = [anomalies[i] for i in range(len(anomalies)) if status[i] == "unverified"]
+    near_m = max(1.0, 2 * pixel_m)  # a boundary this close to an unverified anomaly is settled by its core
     if count:
         sizes = np.bincount(labels.ravel(), minlength=count + 1)
         sizes[0] = 0
         boxes = ndimage.find_objects(labels)
-        for lab in np.argsort(sizes)[::-1][:max_boundary]:
-            if sizes[lab] < max(min_pixels, 1):
+        found = 0
+        for lab in np.argsort(sizes)[::-1]:
+            if found >= max_boundary or sizes[lab] < max(min_pixels, 1):
                 break
             sl = boxes[lab - 1]
             part = np.pad(labels[sl] == lab, 1)
             dist = ndimage.distance_transform_edt(part)
             r, c = np.unravel_index(int(np.argmax(dist)), dist.shape)
             x, y = transform @ (sl[1].start + c - 1 + 0.5, sl[0].start + r - 1 + 0.5)
+            if any(a.distance(shapely.Point(x, y)) < near_m for a in unverified):
+                continue
+            found += 1
             area = sizes[lab] * pixel_m * pixel_m
             out.append(SuggestedCore(
                 x=round(float(x), 3), y=round(float(y), 3), kind="boundary", anomaly=None,

@@ -1,6 +1,7 @@
 """GeoPackage, GeoJSON and GeoTIFF outputs.
 
-- ``anomalies.gpkg``: the anomaly polygons in the survey CRS (no CRS for ``local``).
+- ``anomalies.gpkg``: the anomaly polygons in the survey CRS (no CRS for ``local``), and a
+  ``suggested_cores`` point layer (where one more core is worth most).
 - ``anomalies.geojson``: the same; WGS84 longitude/latitude (RFC 7946) for a
   georeferenced survey, plan metres for ``local``.
 - ``repair.gpkg``: layers ``repair`` (outlines), ``boards``, ``anomalies``, ``cores``.
@@ -66,6 +67,19 @@ def confirmation_frame(result: "SurveyResult"):
     return gpd.GeoDataFrame(rows, geometry=list(shapely.points(c.xs, c.ys)) if len(c) else [], crs=_crs(result))
 
 
+def suggestion_frame(result: "SurveyResult"):
+    """Suggested core positions (points) with their kind, anomaly and reason."""
+    import geopandas as gpd
+
+    cores = getattr(result, "suggested_cores", ())
+    rows = {
+        "kind": [c.kind for c in cores],
+        "anomaly": [c.anomaly for c in cores],
+        "reason": [c.reason for c in cores],
+    }
+    return gpd.GeoDataFrame(rows, geometry=[shapely.Point(c.x, c.y) for c in cores], crs=_crs(result))
+
+
 def _to_file(frame, path: Path, **kwargs) -> None:
     """Write a layer; a ``local`` plan has no CRS on purpose, so the no-CRS warning is dropped."""
     with warnings.catch_warnings():
@@ -84,6 +98,7 @@ def write_anomalies(result: "SurveyResult", gpkg: Path, geojson: Path) -> None:
     frame = anomaly_frame(result)
     _check_valid(frame, gpkg)
     _to_file(frame, gpkg, layer="anomalies", driver="GPKG")
+    _to_file(suggestion_frame(result), gpkg, layer="suggested_cores", driver="GPKG")
     out = frame.to_crs("EPSG:4326") if frame.crs is not None else frame
     # RFC 7946 writers round to 7 decimals (about 1 cm); 9 keep about 0.1 mm
     _to_file(out, geojson, driver="GeoJSON", RFC7946="YES" if frame.crs is not None else "NO",
