@@ -27,6 +27,46 @@ def _fail(err: WetmapError) -> None:
     sys.exit(1)
 
 
+class _Progress:
+    """Stage lines and progress bars (windows, surveys) on stderr; nothing when quiet."""
+
+    def __init__(self, quiet: bool):
+        self.quiet = quiet
+        self.bar = None
+        self.done = 0
+
+    def stage(self, message: str) -> None:
+        if not self.quiet:
+            self._close()
+            click.echo(f"  {message}", err=True)
+
+    def windows(self, label: str, done: int, total: int) -> None:
+        if self.quiet:
+            return
+        if done == 0 or self.bar is None:
+            self._close()
+            self.bar = click.progressbar(length=total, label=f"  {label}", show_pos=True, show_eta=False,
+                                         file=click.get_text_stream("stderr"))
+            self.bar.__enter__()
+            self.done = 0
+        if done > self.done:
+            self.bar.update(done - self.done)
+            self.done = done
+        if done >= total:
+            self._close()
+
+    def _close(self) -> None:
+        if self.bar is not None:
+            self.bar.__exit__(None, None, None)
+            self.bar = None
+
+
+_SCHEDULER_HELP = ("Where windows of a large mosaic run: threads (default), processes, or the address of a "
+                   "dask.distributed scheduler (e.g. tcp://10.0.0.5:8786; workers must see the survey folder "
+                   "at the same path).")
+_TILE_HELP = "Window side in pixels for processing in windows (0: the whole array at once); overrides [detect] tile_px."
+
+
 @click.group(help=f"Map wet roof insulation and wet hull core from thermal imagery.\n\n{CAUTIONS}",
              context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(__version__, prog_name="wetmap")
@@ -39,29 +79,96 @@ def main() -> None:
 @click.option("--out", "out", type=click.Path(path_type=Path), default=None,
               help="Write the results here instead of SURVEY_DIR/results.")
 @click.option("--quiet", "-q", is_flag=True, help="Print only the summary line and errors.")
-def run(survey_dir: Path, out: Path | None, quiet: bool) -> None:
+@click.option("--no-map", "no_map", is_flag=True, help="Do not write map.html (the interactive map).")
+@click.option("--no-report", "no_report", is_flag=True, help="Do not write report.html (the printable report).")
+@click.option("--scheduler", default=None, metavar="ADDRESS", help=_SCHEDULER_HELP)
+@click.option("--tile-px", "tile_px", type=click.IntRange(min=0), default=None, help=_TILE_HELP)
+def run(survey_dir: Path, out: Path | None, quiet: bool, no_map: bool, no_report: bool, scheduler: str | None,
+        tile_px: int | None) -> None:
     from wetmap.pipeline import run_survey
 
-    def progress(message: str) -> None:
-        if not quiet:
-            click.echo(f"  {message}", err=True)
-
+    bars = _Progress(quiet)
     try:
-        result = run_survey(survey_dir, out=out, progress=progress)
+        result = run_survey(survey_dir, out=out, progress=bars.stage, map_html=not no_map, report_html=not no_report,
+                            scheduler=scheduler, tile_px=tile_px, window_progress=bars.windows)
     except WetmapError as err:
+        bars._close()
         _fail(err)
         return
     s = result.summary()
     for w in s["warnings"]:
         click.echo(f"warning: {w}", err=True)
+    hull = s["kind"] == "hull"
+    area = s.get("area_label", "roof")
+    if hull:  # plan x = station, y = girth; no boards unless [repair] board_m asks for them
+        where = f"{area} {s['roof_area_m2']:.2f} m2 (x = station, y = girth)"
+        repair = f"repair {s['repair_area_m2']:.2f} m2" + (f", {s['boards']} boards" if s["boards"] else "")
+    else:
+        where = f"{area} {s['roof_area_m2']:.1f} m2"
+        repair = f"repair {s['repair_area_m2']:.2f} m2, {s['boards']} boards"
     click.echo(
         f"{s['anomaly_count']} anomalies: wet {s['confirmed_wet_area_m2']:.2f} m2 confirmed, "
         f"{s['unverified_area_m2']:.2f} m2 unverified, {s['confirmed_dry_area_m2']:.2f} m2 refuted (dry); "
-        f"roof {s['roof_area_m2']:.1f} m2, wet fraction {100 * s['wet_fraction']:.1f} %; "
-        f"repair {s['repair_area_m2']:.2f} m2, {s['boards']} boards"
+        f"{where}, wet fraction {100 * s['wet_fraction']:.1f} %; {repair}"
     )
     click.echo(f"results: {(out or result.survey.folder / 'results')}")
-    click.echo("Apparent thermal anomalies only: verify by coring before any repair decision.")
+    if hull:
+        click.echo("Apparent thermal anomalies only: verify by sounding and cores before any repair decision.")
+    else:
+        click.echo("Apparent thermal anomalies only: verify by coring before any repair decision.")
+
+
+@main.command(help=f"""Process many surveys (a portfolio of roofs), each writing its own results
+atomically (SURVEY_DIR/results, or OUT_ROOT/<folder name>). A survey that fails never stops
+the others; a table of outcomes is printed and the exit status is non-zero when any failed.
+
+{CAUTIONS}""")
+@click.argument("survey_dirs", nargs=-1, required=True, type=click.Path(path_type=Path))
+@click.option("--out-root", "out_root", type=click.Path(path_type=Path), default=None,
+              help="Write each survey's results to OUT_ROOT/<folder name> instead of <folder>/results.")
+@click.option("--quiet", "-q", is_flag=True, help="Print only the table of outcomes and errors.")
+@click.option("--no-map", "no_map", is_flag=True, help="Do not write map.html.")
+@click.option("--no-report", "no_report", is_flag=True, help="Do not write report.html.")
+@click.option("--scheduler", default=None, metavar="ADDRESS",
+              help=_SCHEDULER_HELP + " On a cluster every survey is a task, so many run at once.")
+def batch(survey_dirs: tuple[Path, ...], out_root: Path | None, quiet: bool, no_map: bool, no_report: bool,
+          scheduler: str | None) -> None:
+    from wetmap.tiles import run_batch
+
+    bars = _Progress(quiet)
+
+    def survey_done(outcome, done: int, total: int) -> None:
+        bars._close()
+        if not quiet:
+            state = "ok" if outcome.ok else "FAILED"
+            click.echo(f"[{done}/{total}] {outcome.folder}: {state} ({outcome.seconds:.1f} s)", err=True)
+
+    try:
+        outcomes = run_batch(survey_dirs, scheduler=scheduler, out_root=out_root, progress=bars.stage,
+                             window_progress=bars.windows, survey_done=survey_done, map_html=not no_map,
+                             report_html=not no_report)
+    except WetmapError as err:
+        bars._close()
+        _fail(err)
+        return
+    rows = [("survey", "outcome", "anomalies", "wet m2", "seconds", "results / problem")]
+    for o in outcomes:
+        if o.ok:
+            rows.append((str(o.folder), "ok", str(o.anomalies), f"{o.wet_area_m2:.2f}", f"{o.seconds:.1f}", str(o.results)))
+        else:
+            rows.append((str(o.folder), "FAILED", "-", "-", f"{o.seconds:.1f}", o.problems[0] if o.problems else ""))
+    widths = [max(len(r[i]) for r in rows) for i in range(5)]
+    for r in rows:
+        click.echo("  ".join(v.ljust(w) for v, w in zip(r, widths)) + "  " + r[5])
+    failed = [o for o in outcomes if not o.ok]
+    for o in failed:
+        for line in o.problems:
+            click.echo(f"wetmap: error: {line}", err=True)
+    click.echo(f"{len(outcomes) - len(failed)} of {len(outcomes)} surveys done. Apparent thermal anomalies only: "
+               "verify by coring before any repair decision.")
+    if failed:
+        click.echo("wetmap: failed: " + ", ".join(str(o.folder) for o in failed), err=True)
+        sys.exit(1)
 
 
 @main.command(help="Validate SURVEY_DIR (survey.toml, plan, rasters, cores) without running it, and check "

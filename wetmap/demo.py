@@ -60,6 +60,18 @@ __all__ = [
     "DemoCore",
     "render_roof",
     "write_roof_survey",
+    "CameraStation",
+    "DemoFrame",
+    "render_frame",
+    "WalkedRoofScene",
+    "render_walked_roof",
+    "write_walked_roof_survey",
+    "HullScene",
+    "HullTruth",
+    "DemoReading",
+    "render_hull",
+    "write_hull_survey",
+    "SKY_APPARENT_C",
     "main",
     "MARGIN_M",
     "NODATA_FLOAT",
@@ -601,17 +613,719 @@ def write_roof_survey(
     return truth
 
 
+# --------------------------------------------------------------------------------------
+# Frames placed by control points: a walked roof and a hull side (invented demo data)
+# --------------------------------------------------------------------------------------
+#
+# A camera station is a pinhole camera above a plane: the roof plane (scene coordinates
+# u, v on the roof, height above it) or the developed side of a hull (station, girth,
+# stand-off from the hull). The scene plane is z = 0, the camera on the z > 0 side.
+# Image coordinates are pixel-index coordinates: whole numbers are pixel centres, as in
+# :mod:`wetmap.register`.
+
+#: Apparent temperature of the night sky seen by a frame above the horizon, degC (invented).
+SKY_APPARENT_C = -35.0
+
+
+@dataclass(frozen=True)
+class CameraStation:
+    """An invented camera pose for one frame (pinhole camera, square pixels).
+
+    Parameters
+    ----------
+    position
+        Camera centre: scene ``u, v`` (metres on the surface plane) and its height
+        above (stand-off from) that plane, metres.
+    target
+        Scene ``u, v`` of the surface point on the optical axis.
+    size_px
+        ``(cols, rows)`` of the frame.
+    hfov_deg
+        Horizontal field of view, degrees.
+    up
+        Scene direction that points up in the image: ``(0, 0, 1)`` (away from the
+        plane) for a camera looking down at a roof, ``(0, 1, 0)`` (girth up) for a
+        camera looking at a hull side.
+    """
+
+    position: tuple[float, float, float]
+    target: tuple[float, float]
+    size_px: tuple[int, int] = (160, 120)
+    hfov_deg: float = 50.0
+    up: tuple[float, float, float] = (0.0, 0.0, 1.0)
+
+    @classmethod
+    def aimed(cls, u: float, v: float, *, height_m: float, heading_deg: float, tilt_deg: float,
+              **kwargs) -> "CameraStation":
+        """A roof camera at ``(u, v)``, ``height_m`` up, looking towards ``heading_deg``
+        (anticlockwise from +u) with its axis ``tilt_deg`` from straight down."""
+        reach = height_m * math.tan(math.radians(tilt_deg))
+        a = math.radians(heading_deg)
+        return cls(position=(u, v, height_m), target=(u + reach * math.cos(a), v + reach * math.sin(a)), **kwargs)
+
+    def scene_to_image(self) -> np.ndarray:
+        """``(3, 3)`` homography: scene ``(u, v, 1)`` on the plane -> image ``(col, row)``."""
+        centre = np.asarray(self.position, dtype=float)
+        forward = np.array([self.target[0], self.target[1], 0.0]) - centre
+        forward /= np.linalg.norm(forward)
+        right = np.cross(forward, np.asarray(self.up, dtype=float))
+        right /= np.linalg.norm(right)
+        down = np.cross(forward, right)
+        rot = np.vstack([right, down, forward])
+        cols, rows = self.size_px
+        focal = (cols / 2.0) / math.tan(math.radians(self.hfov_deg) / 2.0)
+        k = np.array([[focal, 0.0, (cols - 1) / 2.0], [0.0, focal, (rows - 1) / 2.0], [0.0, 0.0, 1.0]])
+        p = k @ np.hstack([rot, (-rot @ centre)[:, None]])
+        return p[:, [0, 1, 3]]
+
+
+@dataclass(frozen=True)
+class DemoFrame:
+    """One rendered frame (invented demo data).
+
+    Attributes
+    ----------
+    name
+        File name stem, e.g. ``"f01"``.
+    fmt
+        ``"png"`` (16-bit counts of 0.01 K), ``"tif"`` (float32 degC, no transform),
+        ``"npy"`` (float32 degC) or ``"csv"`` (degC, 2 decimals).
+    apparent_c
+        Apparent temperature, degC, ``(rows, cols)``.
+    points
+        Control points ``(col, row, x, y)``: picked image pixel -> plan metres.
+    plan_to_image
+        The true ``(3, 3)`` homography plan ``(x, y)`` -> image ``(col, row)``.
+    """
+
+    name: str
+    fmt: str
+    apparent_c: np.ndarray
+    points: tuple[tuple[float, float, float, float], ...]
+    plan_to_image: np.ndarray
+
+
+def _affine3(t: affine.Affine) -> np.ndarray:
+    return np.array([[t.a, t.b, t.c], [t.d, t.e, t.f], [0.0, 0.0, 1.0]])
+
+
+def render_frame(station: CameraStation, field_c: np.ndarray, field_transform: affine.Affine, *,
+                 plan_from_scene: affine.Affine, emissivity: float, reflected_c: float, outside_c: float,
+                 noise_c: float, rng: np.random.Generator, supersample: int = 3) -> tuple[np.ndarray, np.ndarray]:
+    """Render what a camera station sees of a surface-temperature field.
+
+    Parameters
+    ----------
+    station
+        The camera (scene coordinates).
+    field_c
+        True surface temperature, degC, ``(rows, cols)`` raster; NaN = not part of it.
+    field_transform
+        Pixel corner ``(col, row)`` of ``field_c`` -> plan ``(x, y)``.
+    plan_from_scene
+        Scene ``(u, v)`` -> plan ``(x, y)``.
+    emissivity, reflected_c
+        Surface emissivity and reflected apparent temperature (degC) for
+        :func:`wetmap.radiometry.apparent_from_surface` (transmittance 1).
+    outside_c
+        Surface temperature where the field has no value (surroundings), degC.
+    noise_c
+        Standard deviation of the camera's pixel noise, degC.
+    rng
+        Noise generator.
+    supersample
+        Sub-samples per pixel side; each pixel is the mean apparent temperature of its
+        sub-samples (its footprint on the plane).
+
+    Returns
+    -------
+    apparent_c : numpy.ndarray
+        ``(rows, cols)`` apparent temperature, degC; :data:`SKY_APPARENT_C` above the horizon.
+    plan_to_image : numpy.ndarray
+        ``(3, 3)`` plan ``(x, y)`` -> image ``(col, row)``.
+    """
+    from scipy import ndimage
+
+    from .radiometry import apparent_from_surface
+
+    cols, rows = station.size_px
+    g_scene = station.scene_to_image()
+    plan_to_image = g_scene @ np.linalg.inv(_affine3(plan_from_scene))
+    image_to_plan = np.linalg.inv(plan_to_image)
+    s = supersample
+    offs = (np.arange(s) + 0.5) / s - 0.5
+    # sub-sample centres, shape (rows, s, cols, s)
+    cc, rr = np.broadcast_arrays(np.arange(cols)[None, None, :, None] + offs[None, None, None, :],
+                                 np.arange(rows)[:, None, None, None] + offs[None, :, None, None])
+    w = image_to_plan[2, 0] * cc + image_to_plan[2, 1] * rr + image_to_plan[2, 2]
+    w_ref = float(image_to_plan[2] @ [(cols - 1) / 2, (rows - 1) / 2, 1.0])
+    front = w * w_ref > 0
+    with np.errstate(divide="ignore", invalid="ignore"):
+        xs = (image_to_plan[0, 0] * cc + image_to_plan[0, 1] * rr + image_to_plan[0, 2]) / w
+        ys = (image_to_plan[1, 0] * cc + image_to_plan[1, 1] * rr + image_to_plan[1, 2]) / w
+    fc, fr = ~field_transform @ (np.where(front, xs, 0.0), np.where(front, ys, 0.0))
+    surface = ndimage.map_coordinates(field_c, [np.asarray(fr) - 0.5, np.asarray(fc) - 0.5], order=1,
+                                      mode="constant", cval=np.nan, prefilter=False)
+    surface = np.where(np.isfinite(surface), surface, outside_c)
+    app_k = np.asarray(apparent_from_surface(surface + _KELVIN, emissivity=emissivity,
+                                             reflected_k=reflected_c + _KELVIN, transmittance=1.0), dtype=float)
+    app_c = np.where(front, app_k - _KELVIN, SKY_APPARENT_C)
+    out = app_c.mean(axis=(1, 3)) + rng.normal(0.0, noise_c, size=(rows, cols))
+    return out, plan_to_image
+
+
+def _pick_points(plan_to_image: np.ndarray, marks_xy: np.ndarray, size_px: tuple[int, int], *,
+                 count: int, margin_px: float = 3.0) -> tuple[tuple[float, float, float, float], ...]:
+    """Control points a surveyor would pick: marks well inside the frame, spread out.
+
+    Image positions are rounded to whole pixels (a mark is picked at a pixel).
+    """
+    cols, rows = size_px
+    w = marks_xy @ plan_to_image[2, :2] + plan_to_image[2, 2]
+    c = (marks_xy @ plan_to_image[0, :2] + plan_to_image[0, 2]) / w
+    r = (marks_xy @ plan_to_image[1, :2] + plan_to_image[1, 2]) / w
+    ok = (w > 0) & (c >= margin_px) & (c <= cols - 1 - margin_px) & (r >= margin_px) & (r <= rows - 1 - margin_px)
+    idx = list(np.flatnonzero(ok))
+    if len(idx) < 6:
+        raise ValueError(f"a demo camera station sees only {len(idx)} marks; move it (need at least 6)")
+    pts = np.column_stack([c[idx], r[idx]])
+    centre = np.array([(cols - 1) / 2.0, (rows - 1) / 2.0])
+    chosen = [int(np.argmax(((pts - centre) ** 2).sum(1)))]
+    while len(chosen) < min(count, len(idx)):  # farthest-point order: spread over the frame
+        d = np.min(((pts[:, None, :] - pts[None, chosen, :]) ** 2).sum(-1), axis=1)
+        chosen.append(int(np.argmax(d)))
+    return tuple(
+        (float(round(c[idx[k]])), float(round(r[idx[k]])), round(float(marks_xy[idx[k], 0]), 3),
+         round(float(marks_xy[idx[k], 1]), 3))
+        for k in chosen
+    )
+
+
+def _write_frame(folder: Path, frame: DemoFrame, *, decimal_comma: bool = False) -> dict:
+    """Write one frame file; returns its ``[[frame]]`` items (path, units, scale, offset)."""
+    import warnings
+
+    import rasterio
+    from rasterio.errors import NotGeoreferencedWarning
+
+    (folder / "frames").mkdir(parents=True, exist_ok=True)
+    rel = f"frames/{frame.name}.{frame.fmt}"
+    path = folder / rel
+    items: dict = {"path": rel, "units": "C"}
+    data = frame.apparent_c
+    if frame.fmt == "png":
+        raw = np.clip(np.rint((data + _KELVIN) / 0.01), 1, 65535).astype(np.uint16)
+        with warnings.catch_warnings():  # a frame has no geo-transform: it is placed by control points
+            warnings.simplefilter("ignore", NotGeoreferencedWarning)
+            with rasterio.open(path, "w", driver="PNG", width=raw.shape[1], height=raw.shape[0], count=1,
+                               dtype="uint16") as dst:
+                dst.write(raw, 1)
+        items.update(scale=0.01, offset=-_KELVIN)
+    elif frame.fmt == "tif":
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", NotGeoreferencedWarning)
+            with rasterio.open(path, "w", driver="GTiff", width=data.shape[1], height=data.shape[0], count=1,
+                               dtype="float32", compress="deflate", predictor=3) as dst:
+                dst.write(data.astype(np.float32), 1)
+    elif frame.fmt == "npy":
+        np.save(path, data.astype(np.float32))
+    elif frame.fmt == "csv":
+        delim, dec = (";", ",") if decimal_comma else (",", ".")
+        lines = [delim.join(f"{v:.2f}".replace(".", dec) for v in row) for row in data]
+        path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    else:
+        raise ValueError(f"unknown demo frame format {frame.fmt!r}")
+    return items
+
+
+# ----- the walked roof -------------------------------------------------------------------
+
+#: Camera stations of the walked roof, roof coordinates ``(u, v, heading_deg)`` (invented):
+#: a camera on a telescopic mast carried across the roof, 6.5 m above it, tilted 40°.
+_WALKED_STATIONS = (
+    (21.5, 0.5, 120.0), (0.5, 12.5, 330.0), (21.5, 12.0, 180.0), (11.0, 9.5, 270.0), (11.0, 3.5, 180.0),
+    (0.5, 6.5, 60.0), (14.5, 3.5, 0.0), (14.5, 12.5, 0.0), (0.5, 12.5, 0.0), (11.0, 0.5, 0.0),
+    (7.5, 0.5, 150.0),
+)
+_WALKED_FORMATS = ("png", "tif", "png", "npy", "png", "csv", "png", "png", "tif", "png", "png")
+
+
+def _default_walked_roof() -> RoofScene:
+    return RoofScene(crs="EPSG:32633", origin_xy=(498_240.0, 5_402_660.0), size_m=(24.0, 16.0), pixel_m=0.025,
+                     seed=7, air_c=5.0, humidity_pct=75.0, wind_m_s=1.5, reflected_c=-22.0)
+
+
+@dataclass(frozen=True)
+class WalkedRoofScene:
+    """An invented small workshop roof surveyed with oblique frames (invented demo data).
+
+    The roof is the warehouse scenario of :class:`RoofScene` scaled to ``roof.size_m``
+    (default 24 x 16 m: wet areas 6.4, 8.48 and 0.48 m2, extra plies 1.92 m2). Frames
+    are rendered from its true surface field; control points are roof corners, curb
+    corners and reference marks on a 2 m grid, picked at whole pixels.
+
+    Parameters
+    ----------
+    roof
+        The roof (its ``pixel_m`` is the resolution of the true field the frames see).
+    stations
+        ``(u, v, heading_deg)`` of each camera station, roof coordinates.
+    height_m, tilt_deg, hfov_deg, size_px
+        Camera height above the roof, tilt from straight down, field of view, frame size.
+    formats
+        File format of each frame (see :class:`DemoFrame`).
+    camera_noise_c
+        Pixel noise of the camera, degC.
+    points_per_frame
+        Control points picked per frame (at most).
+    min_area_m2
+        ``[detect] min_area_m2`` written to survey.toml (the smallest wet area is 0.48 m2).
+    seed
+        Seed of the camera noise.
+    """
+
+    roof: RoofScene = field(default_factory=_default_walked_roof)
+    stations: tuple[tuple[float, float, float], ...] = _WALKED_STATIONS
+    height_m: float = 6.5
+    tilt_deg: float = 40.0
+    hfov_deg: float = 50.0
+    size_px: tuple[int, int] = (160, 120)
+    formats: tuple[str, ...] = _WALKED_FORMATS
+    camera_noise_c: float = 0.05
+    points_per_frame: int = 8
+    min_area_m2: float = 0.25
+    seed: int = 11
+
+    def cameras(self) -> list[CameraStation]:
+        """The camera stations (roof coordinates)."""
+        return [CameraStation.aimed(u, v, height_m=self.height_m, heading_deg=h, tilt_deg=self.tilt_deg,
+                                    size_px=self.size_px, hfov_deg=self.hfov_deg) for u, v, h in self.stations]
+
+
+def _walked_marks(truth: RoofTruth, scene: WalkedRoofScene) -> np.ndarray:
+    """Plan positions of marks a surveyor can pick: roof and curb corners, and foil-tape marks
+    laid on a 2 m grid before the survey (low emissivity: they show in the thermal image)."""
+    pts = [np.asarray(truth.outline.exterior.coords)[:-1]]
+    for e in truth.exclusions:
+        pts.append(np.asarray(e.exterior.coords)[:-1])
+    w, h = scene.roof.size_m
+    grid = [(u, v) for u in np.arange(2.0, w, 2.0) for v in np.arange(2.0, h, 2.0)]
+    inside = [scene.roof.plan_from_roof @ g for g in grid
+              if truth.outline.buffer(-0.5).contains(shapely.Point(scene.roof.plan_from_roof @ g))]
+    pts.append(np.asarray(inside, dtype=float).reshape(-1, 2))
+    return np.unique(np.round(np.vstack(pts), 6), axis=0)
+
+
+def render_walked_roof(scene: WalkedRoofScene = WalkedRoofScene()) -> tuple[list[DemoFrame], RoofTruth]:
+    """Render the invented walked roof: frames with control points, and the truth.
+
+    Returns
+    -------
+    frames : list of DemoFrame
+        One per camera station, in order (``f01``, ``f02``, ...).
+    truth : RoofTruth
+        The roof's true geometry and surface field (see :func:`render_roof`).
+    """
+    _, truth = render_roof(scene.roof)
+    rng = np.random.default_rng(scene.seed)
+    marks = _walked_marks(truth, scene)
+    outside_c = scene.roof.dry_c - _GROUND_BELOW_C
+    frames = []
+    for k, cam in enumerate(scene.cameras()):
+        app, g = render_frame(cam, truth.surface_c, truth.transform, plan_from_scene=scene.roof.plan_from_roof,
+                              emissivity=scene.roof.emissivity, reflected_c=scene.roof.reflected_render_c,
+                              outside_c=outside_c, noise_c=scene.camera_noise_c, rng=rng)
+        pts = _pick_points(g, marks, cam.size_px, count=scene.points_per_frame)
+        frames.append(DemoFrame(name=f"f{k + 1:02d}", fmt=scene.formats[k % len(scene.formats)], apparent_c=app,
+                                points=pts, plan_to_image=g))
+    return frames, truth
+
+
+def _frame_entries(folder: Path, frames: list[DemoFrame], *, time: str, decimal_comma: bool = False) -> list[str]:
+    out = []
+    for f in frames:
+        items = _write_frame(folder, f, decimal_comma=decimal_comma)
+        items["time"] = time
+        items["points"] = [[int(c), int(r), x, y] for c, r, x, y in f.points]
+        out.append(_toml_table("frame", items, array=True))
+    return out
+
+
+def write_walked_roof_survey(folder: str | Path, scene: WalkedRoofScene = WalkedRoofScene(), *,
+                             title: str = "Invented workshop roof, walked") -> RoofTruth:
+    """Write the invented walked roof as a survey folder of frames with control points.
+
+    Parameters
+    ----------
+    folder
+        Created if missing; files this function writes are overwritten.
+    scene
+        The scene.
+    title
+        ``[survey] title``.
+
+    Returns
+    -------
+    RoofTruth
+        The truth of what was written.
+    """
+    folder = Path(folder)
+    (folder / "plan").mkdir(parents=True, exist_ok=True)
+    frames, truth = render_walked_roof(scene)
+    roof = scene.roof
+    _write_geojson(folder / "plan" / "outline.geojson", roof.crs, [(truth.outline, {"name": "invented workshop roof"})])
+    _write_geojson(folder / "plan" / "exclusions.geojson", roof.crs, [
+        (truth.exclusions[0], {"name": "RTU-1", "kind": "rooftop unit"}),
+        (truth.exclusions[1], {"name": "SK-1", "kind": "skylight"}),
+    ])
+    _write_geojson(folder / "plan" / "sections.geojson", roof.crs, [
+        (geom, {"name": name, "assembly": "built-up roof on perlite board" if name == "A"
+                else "built-up roof on wood fibreboard", "insulation": "perlite" if name == "A" else "wood fibre"})
+        for name, geom in truth.sections.items()
+    ])
+    with open(folder / "cores.csv", "w", newline="", encoding="utf-8") as f:
+        writer = csv.writer(f, lineterminator="\n")
+        writer.writerow(["id", "x", "y", "result", "depth_mm", "notes"])
+        for c in truth.cores:
+            writer.writerow([c.id, f"{c.x:.3f}", f"{c.y:.3f}", c.result, c.depth_mm, c.notes])
+    text = "\n".join([
+        "# Invented demo survey written by wetmap.demo: an invented workshop roof, invented data.",
+        "# Frames from a camera on a mast carried across the roof, placed by control points.",
+        "# Written by `python -m wetmap.demo --scene walked FOLDER` (see sample_surveys/README.md).",
+        "",
+        _toml_table("survey", {
+            "title": title, "kind": "roof", "crs": roof.crs, "site": "invented demo site",
+            "date": "2024-11-19", "surveyor": "demo surveyor (invented)",
+        }),
+        _toml_table("conditions", {
+            "air_c": roof.air_c, "humidity_pct": roof.humidity_pct, "wind_m_s": roof.wind_m_s,
+            "sky": roof.sky, "reflected_c": roof.reflected_c, "sunset": "16:35", "time": "19:40",
+            "hours_since_rain": 60, "surface_dry": True,
+        }),
+        _toml_table("camera", {"emissivity": roof.emissivity}),
+        _toml_table("plan", {
+            "outline": "plan/outline.geojson", "exclusions": "plan/exclusions.geojson",
+            "sections": "plan/sections.geojson",
+        }),
+        *_frame_entries(folder, frames, time="19:40"),
+        _toml_table("detect", {"delta_c": 1.0, "min_area_m2": scene.min_area_m2}),
+        _toml_table("cores", {"path": "cores.csv"}),
+        _toml_table("repair", {"margin_m": 0.3, "board_m": [1.2, 2.4]}),
+    ])
+    (folder / "survey.toml").write_text(text, encoding="utf-8")
+    return truth
+
+
+# ----- the hull side ---------------------------------------------------------------------
+
+_HULL_LENGTH_M = 11.0
+
+
+def _sheer_girth(s: np.ndarray | float) -> np.ndarray | float:
+    """Girth of the sheer (deck edge) above the keel at station ``s``, metres (invented)."""
+    return 1.2 + 0.8 * np.sin(np.pi * (np.asarray(s) + 1.0) / 13.0)
+
+
+def _hull_outline() -> Polygon:
+    ss = np.linspace(_HULL_LENGTH_M, 0.0, 23)
+    sheer = [(float(s), round(float(_sheer_girth(s)), 4)) for s in ss]
+    return shapely.normalize(Polygon([(0.6, 0.0), (_HULL_LENGTH_M, 0.0), *sheer, (0.0, 0.9)]))
+
+
+_FITTING_XY = (7.2, 0.55)                      # bronze through-hull fitting (station, girth), m
+_FITTING_R_M = 0.06
+_FITTING_MARGIN_M = 0.04
+
+
+def _hull_geometry() -> dict:
+    """The invented hull side's features in plan metres (x = station, y = girth)."""
+    wet1 = affinity.scale(shapely.Point(0, 0).buffer(1.0, quad_segs=32), 0.45, 0.30)
+    wet1 = affinity.translate(wet1, *_FITTING_XY)
+    fitting = shapely.Point(_FITTING_XY).buffer(_FITTING_R_M + _FITTING_MARGIN_M, quad_segs=16)
+    wet2 = box(2.6, 0.0, 4.1, 0.30)            # along the keel joint, 0.45 m2
+    wet3 = affinity.rotate(box(4.625, 1.5, 4.975, 1.8), 20.0, origin="centroid")  # by a chainplate, 0.105 m2
+    bulkhead = box(5.90, 0.30, 6.05, 1.60)     # internal plywood bulkhead: warm, but dry
+    anode = box(9.62, 0.32, 9.92, 0.47)        # zinc anode bolted to the hull: reads cold
+    return {
+        "outline": _hull_outline(),
+        "wet": [shapely.normalize(wet1.difference(fitting)), shapely.normalize(wet2), shapely.normalize(wet3)],
+        "wet_raw": [wet1, wet2, wet3],
+        "refuted": [bulkhead],
+        "fitting": shapely.Point(_FITTING_XY).buffer(_FITTING_R_M, quad_segs=16),
+        "anode": anode,
+        "exclusions": [shapely.normalize(fitting),
+                       shapely.normalize(anode.buffer(_FITTING_MARGIN_M, join_style="mitre"))],
+    }
+
+
+@dataclass(frozen=True)
+class DemoReading:
+    """One invented moisture-meter reading on the hull (relative meter scale)."""
+
+    id: str
+    x: float
+    y: float
+    reading: float
+    notes: str
+
+
+@dataclass(frozen=True)
+class HullTruth:
+    """What the invented hull side really is (invented demo data), plan metres.
+
+    Attributes
+    ----------
+    wet
+        True wet-core outlines (the excluded through-hull fitting cut out).
+    refuted
+        Warm but dry (an internal bulkhead).
+    exclusions
+        The through-hull fitting and the anode, each with its margin.
+    outline
+        The developed side: x = station from the stem, y = girth from the keel.
+    surface_c, transform
+        True surface temperature field, degC, and its raster transform.
+    readings
+        The meter readings written to ``cores.csv``.
+    """
+
+    wet: list[Polygon]
+    refuted: list[Polygon]
+    exclusions: list[Polygon]
+    outline: Polygon
+    surface_c: np.ndarray
+    transform: affine.Affine
+    readings: list[DemoReading] = field(default_factory=list)
+
+    @property
+    def wet_area_m2(self) -> float:
+        """Total true wet area, m2."""
+        return float(sum(p.area for p in self.wet))
+
+
+_HULL_STATIONS = (  # (station of the camera, station aimed at): 4.0 m off the hull, 1.0 m girth up
+    (1.6, 1.9), (4.4, 4.0), (7.0, 7.4), (9.6, 9.2),
+)
+
+
+@dataclass(frozen=True)
+class HullScene:
+    """An invented 11 m sailing yacht's port side, hauled out (invented demo data).
+
+    Developed side: x = station (m from the stem), y = girth (m up from the keel).
+    The hull was warmed by the afternoon sun and is imaged in the evening cool-down:
+    wet core keeps its heat longer. Each frame is taken as a view of a plane (the
+    developed side is treated as flat within a frame).
+
+    Parameters
+    ----------
+    pixel_m
+        Resolution of the true surface field the frames see, metres.
+    dry_c, wet_excess_c, bulkhead_excess_c, noise_c
+        Dry gelcoat temperature (near the keel), the wet-core excess, the excess over the
+        internal bulkhead, and the field's noise, degC.
+    emissivity
+        Gelcoat emissivity (from memory: measure it per ASTM E1933).
+    air_c, humidity_pct, wind_m_s, sky
+        Conditions; no reflected temperature is given, so the hull estimate (half sky,
+        half surroundings at air temperature) is used to render and to process.
+    stations, standoff_m, eye_girth_m, hfov_deg, size_px
+        Camera stations ``(station, aimed station)``, distance from the hull, girth of
+        the camera's eye, field of view and frame size.
+    formats
+        File format of each frame; CSV frames use ``;`` and a decimal comma.
+    camera_noise_c, points_per_frame, seed
+        Camera noise, control points per frame, noise seed.
+    """
+
+    pixel_m: float = 0.01
+    dry_c: float = 14.0
+    wet_excess_c: float = 1.6
+    bulkhead_excess_c: float = 1.2
+    noise_c: float = 0.08
+    emissivity: float = 0.92
+    air_c: float = 12.0
+    humidity_pct: float = 70.0
+    wind_m_s: float = 1.5
+    sky: str = "clear"
+    stations: tuple[tuple[float, float], ...] = _HULL_STATIONS
+    standoff_m: float = 4.0
+    eye_girth_m: float = 1.0
+    hfov_deg: float = 50.0
+    size_px: tuple[int, int] = (160, 120)
+    formats: tuple[str, ...] = ("csv", "tif", "csv", "npy")
+    camera_noise_c: float = 0.05
+    points_per_frame: int = 8
+    seed: int = 3
+
+    @property
+    def reflected_render_c(self) -> float:
+        """Reflected temperature used to render: the hull estimate (sky view 0.5), degC."""
+        from .conditions import estimate_reflected_c
+
+        return estimate_reflected_c(self.air_c, self.humidity_pct, self.sky, sky_view=0.5).reflected_c
+
+    def cameras(self) -> list[CameraStation]:
+        """The camera stations (plan coordinates: station, girth, stand-off)."""
+        return [CameraStation(position=(s, self.eye_girth_m, self.standoff_m), target=(t, self.eye_girth_m),
+                              size_px=self.size_px, hfov_deg=self.hfov_deg, up=(0.0, 1.0, 0.0))
+                for s, t in self.stations]
+
+
+def _cover(geom, transform: affine.Affine, shape: tuple[int, int], ss: int = _SUPERSAMPLE) -> np.ndarray:
+    """Fraction of each pixel of a north-up raster covered by ``geom``."""
+    from rasterio import features
+
+    fine = transform @ affine.Affine.scale(1.0 / ss)
+    mask = features.rasterize([(geom, 1)], out_shape=(shape[0] * ss, shape[1] * ss), transform=fine, fill=0,
+                              dtype="uint8")
+    return mask.reshape(shape[0], ss, shape[1], ss).mean(axis=(1, 3))
+
+
+def _hull_readings(geo: dict, rng: np.random.Generator) -> list[DemoReading]:
+    """A reading grid (1 m stations x 0.4 m girth) plus readings aimed at warm patches."""
+    outline, wet = geo["outline"], shapely.union_all(geo["wet_raw"])
+    out: list[DemoReading] = []
+    n = 0
+    for s in np.arange(0.5, _HULL_LENGTH_M, 1.0):
+        for g in np.arange(0.2, 2.0, 0.4):
+            p = shapely.Point(s, g)
+            if not outline.buffer(-0.05).contains(p):
+                continue
+            n += 1
+            is_wet = wet.contains(p)
+            value = rng.uniform(45, 75) if is_wet else rng.uniform(8, 16)
+            out.append(DemoReading(f"R{n:02d}", round(float(s), 3), round(float(g), 3), round(float(value)),
+                                   "grid reading (invented)"))
+    aimed = ((7.2, 0.8, True, "beside the through-hull (invented)"),
+             (3.3, 0.15, True, "keel joint (invented)"),
+             (5.975, 1.0, False, "over the bulkhead: reads dry (invented)"))
+    for k, (s, g, is_wet, note) in enumerate(aimed, start=1):
+        value = rng.uniform(45, 75) if is_wet else rng.uniform(8, 16)
+        out.append(DemoReading(f"T{k}", s, g, round(float(value)), note))
+    return out
+
+
+def render_hull(scene: HullScene = HullScene()) -> tuple[list[DemoFrame], HullTruth]:
+    """Render the invented hull side: frames with control points, readings and the truth."""
+    from scipy import ndimage
+
+    geo = _hull_geometry()
+    p = scene.pixel_m
+    x0, y0, x1, y1 = -1.0, -0.8, _HULL_LENGTH_M + 1.0, 2.8
+    shape = (int(round((y1 - y0) / p)), int(round((x1 - x0) / p)))
+    transform = affine.Affine(p, 0.0, x0, 0.0, -p, y1)
+    xs = x0 + (np.arange(shape[1]) + 0.5) * p
+    ys = y1 - (np.arange(shape[0]) + 0.5) * p
+    background = scene.dry_c + 0.5 * (ys[:, None] / 2.0) - 0.3 * (xs[None, :] / _HULL_LENGTH_M)
+    hull = _cover(geo["outline"], transform, shape)
+    surface = np.full(shape, scene.dry_c - 2.5)        # ground and stands below, yard beyond (invented)
+    surface += hull * (background - surface)
+
+    def soft(geom) -> np.ndarray:
+        return np.clip(ndimage.gaussian_filter(_cover(geom, transform, shape), 1.0, mode="nearest"), 0.0, 1.0)
+
+    surface += scene.wet_excess_c * soft(shapely.union_all(geo["wet_raw"])) * hull
+    surface += scene.bulkhead_excess_c * soft(geo["refuted"][0]) * hull
+    metal = soft(shapely.union(geo["fitting"], geo["anode"]))
+    surface += metal * ((scene.air_c - 4.0) - surface)  # bronze and zinc: low emissivity, read cold (invented)
+    surface += np.random.default_rng(scene.seed).normal(0.0, scene.noise_c, size=shape)
+
+    rng = np.random.default_rng(scene.seed + 1)
+    marks = np.array([(s, g) for s in np.arange(0.5, _HULL_LENGTH_M, 0.5) for g in (0.25, 0.75, 1.25)
+                      if geo["outline"].buffer(-0.05).contains(shapely.Point(s, g))])
+    frames = []
+    for k, cam in enumerate(scene.cameras()):
+        app, g = render_frame(cam, surface, transform, plan_from_scene=affine.Affine.identity(),
+                              emissivity=scene.emissivity, reflected_c=scene.reflected_render_c,
+                              outside_c=scene.dry_c - 2.5, noise_c=scene.camera_noise_c, rng=rng)
+        pts = _pick_points(g, marks, cam.size_px, count=scene.points_per_frame)
+        frames.append(DemoFrame(name=f"side{k + 1:02d}", fmt=scene.formats[k % len(scene.formats)],
+                                apparent_c=app, points=pts, plan_to_image=g))
+    truth = HullTruth(wet=geo["wet"], refuted=geo["refuted"], exclusions=geo["exclusions"], outline=geo["outline"],
+                      surface_c=surface, transform=transform,
+                      readings=_hull_readings(geo, np.random.default_rng(scene.seed + 2)))
+    return frames, truth
+
+
+def write_hull_survey(folder: str | Path, scene: HullScene = HullScene(), *,
+                      title: str = "Invented 11 m yacht, port side") -> HullTruth:
+    """Write the invented hull side as a survey folder (``local`` CRS, meter readings).
+
+    Parameters
+    ----------
+    folder
+        Created if missing; files this function writes are overwritten.
+    scene
+        The scene.
+    title
+        ``[survey] title``.
+
+    Returns
+    -------
+    HullTruth
+        The truth of what was written.
+    """
+    folder = Path(folder)
+    (folder / "plan").mkdir(parents=True, exist_ok=True)
+    frames, truth = render_hull(scene)
+    _write_geojson(folder / "plan" / "outline.geojson", "local",
+                   [(truth.outline, {"name": "port side, developed (x = station, y = girth)"})])
+    _write_geojson(folder / "plan" / "exclusions.geojson", "local",
+                   [(truth.exclusions[0], {"name": "TH-1", "kind": "through-hull fitting"}),
+                    (truth.exclusions[1], {"name": "AN-1", "kind": "anode"})])
+    with open(folder / "cores.csv", "w", newline="", encoding="utf-8") as f:
+        writer = csv.writer(f, lineterminator="\n")
+        writer.writerow(["id", "x", "y", "reading", "notes"])
+        for r in truth.readings:
+            writer.writerow([r.id, f"{r.x:.3f}", f"{r.y:.3f}", f"{r.reading:g}", r.notes])
+    text = "\n".join([
+        "# Invented demo survey written by wetmap.demo: an invented yacht, invented data.",
+        "# Plan x = station (m from the stem), y = girth (m up from the keel); frames placed by tape marks.",
+        "# Written by `python -m wetmap.demo --scene hull FOLDER` (see sample_surveys/README.md).",
+        "",
+        _toml_table("survey", {
+            "title": title, "kind": "hull", "crs": "local", "side": "port", "site": "invented boatyard",
+            "date": "2024-06-04", "surveyor": "demo surveyor (invented)",
+        }),
+        _toml_table("conditions", {
+            "air_c": scene.air_c, "humidity_pct": scene.humidity_pct, "wind_m_s": scene.wind_m_s,
+            "sky": scene.sky, "sunset": "21:20", "time": "22:05", "hours_since_rain": 96, "surface_dry": True,
+        }),
+        _toml_table("camera", {"emissivity": scene.emissivity}),
+        _toml_table("plan", {"outline": "plan/outline.geojson", "exclusions": "plan/exclusions.geojson"}),
+        *_frame_entries(folder, frames, time="22:05", decimal_comma=True),
+        _toml_table("detect", {"delta_c": 0.6}),
+        _toml_table("cores", {"path": "cores.csv", "wet_above": 30}),
+        _toml_table("repair", {"margin_m": 0.1}),
+    ])
+    (folder / "survey.toml").write_text(text, encoding="utf-8")
+    return truth
+
+
 def main(argv: list[str] | None = None) -> int:
-    """``python -m wetmap.demo FOLDER``: write the invented warehouse roof survey."""
+    """``python -m wetmap.demo [--scene warehouse|walked|hull] FOLDER``: write an invented demo survey.
+
+    The default scene is the invented warehouse roof (a flown mosaic); ``walked`` is the
+    invented workshop roof surveyed with frames and control points; ``hull`` the invented
+    yacht's port side with meter readings.
+    """
     import argparse
 
     parser = argparse.ArgumentParser(
         prog="python -m wetmap.demo",
-        description="Write the invented warehouse roof demo survey (invented demo data).",
+        description="Write an invented demo survey (invented demo data).",
     )
     parser.add_argument("folder", type=Path, help="survey folder to write, e.g. sample_surveys/warehouse_roof")
+    parser.add_argument("--scene", choices=("warehouse", "walked", "hull"), default="warehouse",
+                        help="which invented scene (default: warehouse)")
     args = parser.parse_args(argv)
-    write_roof_survey(args.folder)
+    if args.scene == "walked":
+        write_walked_roof_survey(args.folder)
+    elif args.scene == "hull":
+        write_hull_survey(args.folder)
+    else:
+        write_roof_survey(args.folder)
     return 0
 
 

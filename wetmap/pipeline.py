@@ -30,10 +30,12 @@ from .confirmations import Confirmations, read_confirmations
 from .detect import Detection, default_background_m, detect_anomalies
 from .errors import InputFileError, ProcessingError
 from .passes import PassComparison, align_to_grid, compare_passes, group_passes
-from .polygons import label_regions, polygonize, region_stats
+from .polygons import RegionStats, label_regions, polygonize, region_stats
 from .quantities import BoardTakeoff, Quantities, SectionTotals, compute_quantities, largest_overlap
 from .rasters import PlanGrid, inspect_raster, plan_grid_for, read_onto_grid
+from .register import SUSPECT_MIN_PX, FrameReport, Registration
 from .survey import Survey, load_survey
+from .tiles import FullRasters, WindowProgress, detect_in_windows
 from .vectors import Section, read_layer, read_outline, read_sections
 
 __all__ = ["Anomaly", "SurveyResult", "process_survey", "write_results", "run_survey", "check_survey", "RESULT_FILES"]
@@ -115,6 +117,13 @@ class SurveyResult:
     """The counted wet area with its range."""
     suggested_cores: tuple[SuggestedCore, ...] = ()
     """Where one more core is worth most."""
+    registration: tuple[FrameReport, ...] = ()
+    """Registration figures of each ``[[frame]]`` of the primary pass."""
+    full_rasters: FullRasters | None = None
+    """Processed in windows (:mod:`wetmap.tiles`): the full-resolution ``surface_c.tif`` and
+    ``delta_c.tif`` on disk and the full grid. ``grid``, ``surface_c`` and ``detection``'s
+    arrays are then a preview (block means, :data:`wetmap.tiles.PREVIEW_MAX_SIDE`); the
+    anomalies and their statistics are exact. ``None``: the whole array is in memory."""
 
     def summary(self) -> dict[str, Any]:
         """The ``summary.json`` content (areas in m2)."""
@@ -129,6 +138,8 @@ class SurveyResult:
             "kind": s.survey.kind,
             "crs": s.survey.crs,
             "side": s.survey.side,
+            "area_label": _area_word(s),
+            **({"plan_axes": dict(HULL_AXES)} if s.survey.kind == "hull" else {}),
             "roof_area_m2": round(roof_area, 4),
             "anomaly_count": len(self.anomalies),
             "wet_area_m2": round(wet, 4),
@@ -149,6 +160,7 @@ class SurveyResult:
                 for t in self.section_totals
             ],
             "coverage": {k: round(v, 4) for k, v in self.coverage.items()},
+            "registration": [r.as_dict() for r in self.registration],
             "confirmations": {
                 "count": len(self.confirmations),
                 "wet": int(self.confirmations.wet.sum()),
@@ -165,7 +177,8 @@ class SurveyResult:
                 "delta_c": d.threshold_c,
                 "background_m": round(d.background_m, 3),
                 "min_area_m2": s.detect.min_area_m2,
-                "pixel_m": self.grid.pixel_m,
+                "pixel_m": (self.full_rasters.grid if self.full_rasters is not None else self.grid).pixel_m,
+                "pixel_m_source": _pixel_source(s),
                 "perimeter": "length of the smoothed outline (mid-edge rule), not the pixel staircase",
                 "margin_m": s.repair.margin_m,
                 "board_m": list(s.repair.board_m) if s.repair.board_m else None,
@@ -174,9 +187,20 @@ class SurveyResult:
                 "board_origin": [round(v, 4) for v in self.takeoff.origin_xy] if s.repair.board_m else None,
                 "replace_above_pct": s.repair.replace_above_pct,
                 "area_units": list(s.repair.area_units),
+                "processing": self._processing(),
             },
             "wetmap_version": __version__,
         }
+
+    def _processing(self) -> dict[str, Any]:
+        """summary.json ``method.processing``: whole array, or windows and what used the preview."""
+        if self.full_rasters is None:
+            return {"mode": "whole array"}
+        return {**self.full_rasters.as_dict(),
+                "preview": (f"block means of {self.full_rasters.preview_factor} x {self.full_rasters.preview_factor} "
+                            "pixels: the wet-area range, the suggested boundary cores, the figures and the map "
+                            "overlays; anomalies, their statistics, confirmation delta-T and the rasters are full "
+                            "resolution")}
 
     def _calibration_entries(self) -> dict[str, Any]:
         """summary.json entries of the threshold check, the area range and the suggested cores."""
@@ -215,6 +239,25 @@ class SurveyResult:
         return out
 
 
+#: What plan x and y mean on a hull side (``summary.json`` ``plan_axes``).
+HULL_AXES = (("x", "station (m along the hull)"), ("y", "girth (m up from the keel)"))
+
+
+def _area_word(survey: Survey) -> str:
+    """``"roof"``, or ``"hull side"`` (with its side when given): the surveyed area in words."""
+    if survey.survey.kind != "hull":
+        return "roof"
+    return f"{survey.survey.side} hull side" if survey.survey.side else "hull side"
+
+
+def _pixel_source(survey: Survey) -> str:
+    if survey.plan.pixel_m is not None:
+        return "[plan] pixel_m"
+    if survey.mosaics:
+        return "the finest mosaic's pixel size"
+    return "the frames' median ground sampling distance, rounded down (1-1.5-2-2.5-3-4-5-6-8 series)"
+
+
 def _emit(progress: Progress | None, message: str) -> None:
     log.info(message)
     if progress is not None:
@@ -250,23 +293,119 @@ def _radiometry(survey: Survey, warnings: list[str]) -> Radiometry:
 
 
 def _mask_of(geoms: BaseGeometry, grid: PlanGrid) -> np.ndarray:
-    """Pixels whose centre lies inside ``geoms`` (the pixel-centre rule)."""
-    from rasterio.features import geometry_mask
+    """Pixels whose centre lies inside ``geoms`` (the pixel-centre rule, computed as every window of
+    :mod:`wetmap.tiles` computes it, so whole-array and windowed runs give the same pixels)."""
+    from .tiles import roof_mask
 
-    if geoms.is_empty:
-        return np.zeros(grid.shape, dtype=bool)
-    return geometry_mask([geoms], out_shape=grid.shape, transform=grid.transform, invert=True, all_touched=False)
+    return roof_mask(geoms, grid.transform, grid.shape)
+
+
+def _to_surface_k(apparent_k: np.ndarray, radiometry: Radiometry) -> np.ndarray:
+    """Apparent -> surface temperature, K: the measurement equation inverted (NaN stays NaN).
+
+    The same call for mosaics (on the plan grid) and frames (per frame, before resampling).
+    """
+    from .radiometry import surface_from_apparent
+
+    return surface_from_apparent(
+        apparent_k,
+        emissivity=radiometry.emissivity,
+        reflected_k=radiometry.reflected_c + 273.15,
+        transmittance=radiometry.transmittance,
+        atmosphere_k=radiometry.atmosphere_c + 273.15,
+        band_um=radiometry.band_um,
+    )
+
+
+@dataclass(frozen=True)
+class _RegisteredFrame:
+    """One ``[[frame]]``: its surface temperature (K, image pixels) and its registration."""
+
+    name: str
+    surface_k: np.ndarray
+    registration: Registration
+
+
+def _register_frames(survey: Survey, radiometry: Radiometry, warnings: list[str],
+                     progress: Progress | None) -> list[_RegisteredFrame]:
+    """Read each frame, correct it to surface temperature and fit its control points."""
+    from .errors import SurveyError
+    from .frames import read_frame
+    from .register import register_points
+
+    out = []
+    for i, f in enumerate(survey.frames):
+        try:
+            name = f.path.relative_to(survey.folder).as_posix()
+        except ValueError:
+            name = str(f.path)
+        _emit(progress, f"reading and registering {name}")
+        image = read_frame(f.path, units=f.units, scale=f.scale, offset=f.offset)
+        warnings.extend(image.notes)
+        pts = np.asarray(f.points, dtype=np.float64)
+        where = f"{survey.file}: [[frame]] #{i + 1} points"
+        rows, cols = image.shape
+        off = np.flatnonzero((pts[:, 0] < -0.5) | (pts[:, 0] > cols - 0.5) | (pts[:, 1] < -0.5) | (pts[:, 1] > rows - 0.5))
+        if len(off):
+            k = int(off[0])
+            raise SurveyError(
+                f"{where}: point {k + 1} has [col, row] = [{pts[k, 0]:g}, {pts[k, 1]:g}], outside {name} "
+                f"({cols} x {rows} pixels): expected -0.5 <= col <= {cols - 0.5:g} and -0.5 <= row <= {rows - 0.5:g}; "
+                "check that each point is [col, row, x, y]"
+            )
+        reg = register_points(pts[:, :2], pts[:, 2:], where=where)
+        surface = _to_surface_k(image.values_k, radiometry)
+        lost = int(np.count_nonzero(np.isnan(surface) & ~np.isnan(image.values_k)))
+        if lost:
+            warnings.append(f"{name}: {lost} pixels could not be corrected (apparent temperature too low for the "
+                            "emissivity and reflected temperature given): check [camera] emissivity and "
+                            "[conditions] reflected_c")
+        fit = reg.fit
+        if reg.loo.note:
+            warnings.append(f"{name} ([[frame]] #{i + 1}): {reg.loo.note}")
+        elif fit.rms_px > SUSPECT_MIN_PX:
+            warnings.append(f"{name} ([[frame]] #{i + 1}): the control points fit to {fit.rms_px:.1f} px RMS "
+                            f"({fit.rms_m:.3g} m): placement is uncertain; check them")
+        if fit.mirrored and survey.survey.kind == "roof":
+            warnings.append(f"{name} ([[frame]] #{i + 1}): the frame is a mirror image of the plan; check that each "
+                            "point is [col, row, x, y] (not x and y swapped) and that the image is not flipped")
+        out.append(_RegisteredFrame(name=name, surface_k=surface, registration=reg))
+    return out
+
+
+def _frames_onto_grid(frames: list[_RegisteredFrame], grid: PlanGrid, outline: BaseGeometry,
+                      warnings: list[str]) -> tuple[np.ndarray, list[FrameReport]]:
+    """Resample and blend the frames on the plan grid (surface K, NaN where no frame)."""
+    from .register import blend_frames, frame_gsd_m, resample_frame
+
+    parts, reports = [], []
+    for fr in frames:
+        matrix = fr.registration.matrix
+        part = resample_frame(fr.surface_k, matrix, grid_transform=grid.transform, grid_shape=grid.shape)
+        if part is None:
+            warnings.append(f"{fr.name}: lands nowhere on the plan grid (the outline's bounds): check its control "
+                            "points' plan x, y")
+        else:
+            parts.append(part)
+        reports.append(FrameReport.build(
+            fr.name, fr.registration, gsd_m=frame_gsd_m(matrix, fr.surface_k.shape, outline.bounds),
+            covered_m2=(part.covered if part is not None else 0) * grid.pixel_area_m2))
+    return blend_frames(parts, grid.shape), reports
 
 
 def _surface_on_grid(survey: Survey, outline: BaseGeometry, radiometry: Radiometry,
-                     warnings: list[str], progress: Progress | None) -> tuple[PlanGrid, np.ndarray]:
-    from .radiometry import surface_from_apparent
+                     warnings: list[str], progress: Progress | None, *,
+                     registration: list[FrameReport] | None = None) -> tuple[PlanGrid, np.ndarray]:
+    """Mosaics and frames on one plan grid, as surface temperature in degC (NaN = no data).
 
-    if survey.frames:
-        raise ProcessingError(
-            f"{survey.file}: [[frame]] entries need frame registration, which this version of wetmap "
-            "does not do yet; supply the imagery as a [[mosaic]] on the plan grid"
-        )
+    The grid's pixel is ``[plan] pixel_m``, else the finest mosaic's, else chosen from the
+    frames' ground sampling distance. Mosaics are corrected on the grid; frames are
+    corrected per frame, resampled and blended (:mod:`wetmap.register`). Mosaics win where
+    they have data (the first one first); the frames fill what no mosaic covers.
+    ``registration``, when given, receives one :class:`FrameReport` per frame.
+    """
+    from .register import choose_pixel_m, frame_gsd_m
+
     crs = None if survey.survey.is_local else survey.survey.crs
     infos = [inspect_raster(m.path, origin=m.origin, pixel_m=m.pixel_m, survey_crs=crs) for m in survey.mosaics]
     for m, info in zip(survey.mosaics, infos):
@@ -275,10 +414,18 @@ def _surface_on_grid(survey: Survey, outline: BaseGeometry, radiometry: Radiomet
 
             if not CRS(info.crs).equals(CRS(crs)):
                 warnings.append(f"{m.path.name}: CRS {info.crs} differs from the survey's {crs}; resampled")
-    grid = plan_grid_for(infos, outline.bounds, crs=crs)
+    frames = _register_frames(survey, radiometry, warnings, progress) if survey.frames else []
+    pixel_m = survey.plan.pixel_m
+    if pixel_m is None and not infos and frames:
+        gsds = [frame_gsd_m(f.registration.matrix, f.surface_k.shape, outline.bounds) for f in frames]
+        if not any(np.isfinite(gsds)):
+            raise ProcessingError(f"{survey.file}: no [[frame]] lands on the plan outline's bounds "
+                                  f"{tuple(round(v, 3) for v in outline.bounds)}: check the control points' plan x, y")
+        pixel_m = choose_pixel_m(gsds)
+    grid = plan_grid_for(infos, outline.bounds, crs=crs, pixel_m=pixel_m)
     if grid.rows * grid.cols > 2_000_000_000:
         raise ProcessingError(f"{survey.file}: the plan grid would be {grid.rows} x {grid.cols} pixels; "
-                              "check the outline's coordinates and the mosaic's pixel size")
+                              "check the outline's coordinates and the imagery's pixel size, or set [plan] pixel_m")
     apparent: np.ndarray | None = None
     for m, info in zip(survey.mosaics, infos):
         _emit(progress, f"reading {m.path.name}")
@@ -288,22 +435,28 @@ def _surface_on_grid(survey: Survey, outline: BaseGeometry, radiometry: Radiomet
         else:  # later mosaics fill what earlier ones do not cover
             gap = np.isnan(apparent)
             apparent[gap] = values[gap]
-    assert apparent is not None  # the survey loader guarantees at least one mosaic here
-    _emit(progress, "correcting apparent to surface temperature")
-    surface = surface_from_apparent(
-        apparent,
-        emissivity=radiometry.emissivity,
-        reflected_k=radiometry.reflected_c + 273.15,
-        transmittance=radiometry.transmittance,
-        atmosphere_k=radiometry.atmosphere_c + 273.15,
-        band_um=radiometry.band_um,
-    )
-    lost = int(np.count_nonzero(np.isnan(surface) & ~np.isnan(apparent)))
-    if lost:
-        warnings.append(
-            f"{lost} pixels could not be corrected (apparent temperature too low for the emissivity and "
-            "reflected temperature given): check [camera] emissivity and [conditions] reflected_c"
-        )
+    surface: np.ndarray | None = None
+    if apparent is not None:
+        _emit(progress, "correcting apparent to surface temperature")
+        surface = _to_surface_k(apparent, radiometry)
+        lost = int(np.count_nonzero(np.isnan(surface) & ~np.isnan(apparent)))
+        if lost:
+            warnings.append(
+                f"{lost} pixels could not be corrected (apparent temperature too low for the emissivity and "
+                "reflected temperature given): check [camera] emissivity and [conditions] reflected_c"
+            )
+    if frames:
+        _emit(progress, "resampling and blending the frames on the plan grid")
+        from_frames, reports = _frames_onto_grid(frames, grid, outline, warnings)
+        if registration is not None:
+            registration.extend(reports)
+        if surface is None:
+            surface = from_frames
+        else:  # frames fill what the mosaics do not cover
+            gap = np.isnan(surface)
+            surface[gap] = from_frames[gap]
+    assert surface is not None  # the survey loader guarantees a mosaic or a frame
+    surface = surface.astype(np.float32, copy=False)
     surface -= np.float32(273.15)
     return grid, surface
 
@@ -349,8 +502,27 @@ def _compare_passes(survey: Survey, groups, outline: BaseGeometry, radiometry: R
     return result
 
 
-def process_survey(folder: str | Path, *, progress: Progress | None = None) -> SurveyResult:
+def process_survey(folder: str | Path, *, progress: Progress | None = None, scheduler: Any = None,
+                   tile_px: int | None = None, window_progress: WindowProgress | None = None,
+                   scratch: str | Path | None = None) -> SurveyResult:
     """Run every stage on the survey in ``folder`` and return the results (nothing written).
+
+    Parameters
+    ----------
+    folder
+        The survey folder.
+    progress
+        Called with a message at each stage.
+    scheduler
+        Where windows run when the mosaic is processed in windows (:class:`wetmap.tiles.Engine`):
+        ``None``/``"threads"``, ``"processes"``, ``"sync"``, a dask scheduler address or a
+        ``distributed.Client``.
+    tile_px
+        Window side override (0: the whole array; ``None``: ``[detect] tile_px`` or by size).
+    window_progress
+        ``(stage, windows done, windows)`` as windows finish.
+    scratch
+        Folder for the windows' scratch folder (default: the survey folder).
 
     Raises
     ------
@@ -383,14 +555,36 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None) -> S
     warnings.extend(notes)
     primary = survey if len(pass_groups) == 1 else replace(
         survey, mosaics=pass_groups[-1].mosaics, frames=pass_groups[-1].frames)
-    grid, surface_c = _surface_on_grid(primary, outline, radiometry, warnings, progress)
-
-    _emit(progress, "masking the roof")
-    in_roof = _mask_of(roof, grid)
-    usable = in_roof & np.isfinite(surface_c)
-    roof_px = int(in_roof.sum())
-    covered_px = int(usable.sum())
-    px_area = grid.pixel_area_m2
+    frame_reports: list[FrameReport] = []
+    area_word = _area_word(survey)
+    sdt = survey.detect
+    x0, y0, x1, y1 = outline.bounds
+    background_m = sdt.background_m or default_background_m(survey.survey.kind, max(x1 - x0, y1 - y0))
+    # one pass of large mosaics on the plan grid's lattice: in windows, same result (wetmap.tiles)
+    tiled = None if len(pass_groups) > 1 else detect_in_windows(
+        primary, outline=outline, roof=roof, radiometry=radiometry, background_m=background_m, tile_px=tile_px,
+        scheduler=scheduler, scratch=None if scratch is None else Path(scratch), progress=progress,
+        window_progress=window_progress)
+    if tiled is None:
+        grid, surface_c = _surface_on_grid(primary, outline, radiometry, warnings, progress,
+                                           registration=frame_reports)
+        _emit(progress, "masking the roof")
+        in_roof = _mask_of(roof, grid)
+        usable = in_roof & np.isfinite(surface_c)
+        roof_px = int(in_roof.sum())
+        covered_px = int(usable.sum())
+        constant = bool(covered_px) and (np.nanmax(np.where(usable, surface_c, np.nan))
+                                         == np.nanmin(np.where(usable, surface_c, np.nan)))
+        px_area = grid.pixel_area_m2
+    else:  # grid and surface_c are the preview; the full rasters are on disk
+        grid, surface_c = tiled.grid, tiled.surface_c
+        roof_px, covered_px, constant = tiled.roof_px, tiled.covered_px, tiled.constant
+        px_area = tiled.full_rasters.grid.pixel_area_m2
+        if tiled.lost_px:
+            warnings.append(
+                f"{tiled.lost_px} pixels could not be corrected (apparent temperature too low for the emissivity and "
+                "reflected temperature given): check [camera] emissivity and [conditions] reflected_c"
+            )
     coverage = {
         "roof_pixels_m2": roof_px * px_area,
         "covered_m2": covered_px * px_area,
@@ -398,30 +592,35 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None) -> S
         "uncovered_pct": 100.0 * (roof_px - covered_px) / roof_px if roof_px else 100.0,
     }
     if covered_px == 0:
-        warnings.append("no usable thermal data on the roof (all nodata, or the mosaic misses the outline): "
-                        "nothing was detected; check the mosaic's placement and nodata")
+        warnings.append(f"no usable thermal data on the {area_word} (all nodata, or the imagery misses the outline): "
+                        "nothing was detected; check the imagery's placement and nodata")
     elif coverage["uncovered_pct"] > 0.5:
         warnings.append(
-            f"{coverage['uncovered_m2']:.1f} m2 ({coverage['uncovered_pct']:.1f} %) of the roof has no thermal data: "
+            f"{coverage['uncovered_m2']:.1f} m2 ({coverage['uncovered_pct']:.1f} %) of the {area_word} has no thermal data: "
             "it is not surveyed, which does not mean dry"
         )
-    sdt = survey.detect
-    x0, y0, x1, y1 = outline.bounds
-    background_m = sdt.background_m or default_background_m(survey.survey.kind, max(x1 - x0, y1 - y0))
-    _emit(progress, "estimating the dry background and thresholding")
-    if covered_px and np.nanmax(np.where(usable, surface_c, np.nan)) == np.nanmin(np.where(usable, surface_c, np.nan)):
-        warnings.append("the thermal data on the roof are constant: no contrast, nothing can be detected")
-    detection = detect_anomalies(surface_c, usable, pixel_m=grid.pixel_m, delta_c=sdt.delta_c,
-                                 background_m=background_m, min_area_m2=sdt.min_area_m2)
-
-    _emit(progress, "outlining anomalies")
-    labels, count = label_regions(detection.mask)
-    stats = region_stats(labels, count, detection.delta_c)
-    polys = polygonize(labels, count, grid.transform)
+    if constant:
+        warnings.append(f"the thermal data on the {area_word} are constant: no contrast, nothing can be detected")
+    if tiled is None:
+        _emit(progress, "estimating the dry background and thresholding")
+        detection = detect_anomalies(surface_c, usable, pixel_m=grid.pixel_m, delta_c=sdt.delta_c,
+                                     background_m=background_m, min_area_m2=sdt.min_area_m2)
+        _emit(progress, "outlining anomalies")
+        labels, count = label_regions(detection.mask)
+        stats = region_stats(labels, count, detection.delta_c)
+        polys = polygonize(labels, count, grid.transform)
+        dry_c = detection.background_c[usable]
+        range_min_pixels = detection.min_pixels
+    else:  # exact polygons and statistics; the preview's background and delta-T
+        detection = tiled.detection
+        count = len(tiled.polygons)
+        stats = RegionStats(pixel_count=tiled.pixels, mean=tiled.delta_mean, max=tiled.delta_max)
+        polys = list(tiled.polygons)
+        dry_c = detection.background_c[np.isfinite(detection.background_c)]
+        range_min_pixels = tiled.preview_min_pixels  # the wet-area range is computed on the preview
     passes = None if len(pass_groups) == 1 else _compare_passes(
         survey, pass_groups, outline, radiometry, warnings, progress, grid=grid, surface_c=surface_c,
         in_roof=in_roof, detection=detection, labels=labels, count=count, background_m=background_m)
-    dry_c = detection.background_c[usable]
     warnings[:0] = _condition_warnings(survey, sections, surface_c=float(np.nanmedian(dry_c))
                                        if np.isfinite(dry_c).any() else None)
 
@@ -431,7 +630,8 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None) -> S
     else:
         conf = Confirmations.empty()
     verdicts = assign_status(polys, conf)
-    conf_delta = sample_at_points(detection.delta_c, grid.transform, conf.xs, conf.ys)
+    conf_delta = (sample_at_points(detection.delta_c, grid.transform, conf.xs, conf.ys) if tiled is None
+                  else tiled.full_rasters.sample(conf.xs, conf.ys))
     if len(conf):
         inside_roof = shapely.covers(outline, shapely.points(conf.xs, conf.ys))
         for i in np.flatnonzero(~inside_roof):
@@ -458,11 +658,11 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None) -> S
     area_range, band = wet_area_range(
         detection.delta_c, check, likely_m2=float(sum(p.area for p in counted_polys)),
         perimeter_m=float(sum(p.length for p in counted_polys)), pixel_m=grid.pixel_m,
-        min_pixels=detection.min_pixels, core_rows=np.floor(core_rows).astype(np.intp),
+        min_pixels=range_min_pixels, core_rows=np.floor(core_rows).astype(np.intp),
         core_cols=np.floor(core_cols).astype(np.intp), core_wet=conf.wet,
         include_unverified=survey.repair.include_unverified)
     suggestions = suggest_cores(polys, verdicts.status, list(range(1, count + 1)), band=band,
-                                transform=grid.transform, pixel_m=grid.pixel_m, min_pixels=detection.min_pixels)
+                                transform=grid.transform, pixel_m=grid.pixel_m, min_pixels=range_min_pixels)
 
     section_of = largest_overlap(polys, [s.geometry for s in sections])
     anomalies = tuple(
@@ -497,17 +697,21 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None) -> S
         threshold=check,
         area_range=area_range,
         suggested_cores=tuple(suggestions),
+        registration=tuple(frame_reports),
+        full_rasters=None if tiled is None else tiled.full_rasters,
     )
 
 
-def write_results(result: SurveyResult, out_dir: Path, *, extra_writers: tuple[Callable[[SurveyResult, Path], None], ...] = ()) -> Path:
+def write_results(result: SurveyResult, out_dir: Path, *, extra_writers: tuple[Callable[[SurveyResult, Path], None], ...] = (),
+                  map_html: bool = True, report_html: bool = True) -> Path:
     """Write every result file into ``out_dir`` atomically.
 
     The files are written to a temporary folder beside ``out_dir``; only when all are
     written is an existing ``out_dir`` replaced. On failure the temporary folder is
-    removed and ``out_dir`` is untouched.
+    removed and ``out_dir`` is untouched. ``map_html`` / ``report_html`` false skip
+    ``map.html`` / ``report.html``.
     """
-    from .export import cad, gis, tables
+    from .export import cad, gis, report, tables, webmap
 
     out_dir = Path(out_dir).resolve()
     out_dir.parent.mkdir(parents=True, exist_ok=True)
@@ -518,10 +722,17 @@ def write_results(result: SurveyResult, out_dir: Path, *, extra_writers: tuple[C
         gis.write_anomalies(result, tmp / "anomalies.gpkg", tmp / "anomalies.geojson")
         gis.write_repair(result, tmp / "repair.gpkg")
         cad.write_dxf(result, tmp / "repair.dxf")
-        gis.write_raster(result.surface_c, result.grid, tmp / "surface_c.tif")
-        gis.write_raster(result.detection.delta_c, result.grid, tmp / "delta_c.tif")
+        if result.full_rasters is not None:  # processed in windows: the full rasters are on disk
+            result.full_rasters.place(tmp)
+        else:
+            gis.write_raster(result.surface_c, result.grid, tmp / "surface_c.tif")
+            gis.write_raster(result.detection.delta_c, result.grid, tmp / "delta_c.tif")
         if result.passes is not None:
             gis.write_raster(result.passes.cooling_c_per_h, result.grid, tmp / "cooling_c_per_h.tif")
+        if map_html:
+            webmap.write_map(result, tmp / "map.html")
+        if report_html:
+            report.write_report(result, tmp / "report.html")
         for name in ("window.json", "window.png"):  # the cool-down plan of `wetmap window` is kept
             if (out_dir / name).is_file() and not (tmp / name).exists():
                 shutil.copy2(out_dir / name, tmp / name)
@@ -545,12 +756,20 @@ def write_results(result: SurveyResult, out_dir: Path, *, extra_writers: tuple[C
 
 
 def run_survey(folder: str | Path, *, out: str | Path | None = None, progress: Progress | None = None,
-               extra_writers: tuple[Callable[[SurveyResult, Path], None], ...] = ()) -> SurveyResult:
-    """Process the survey in ``folder`` and write its results (default ``folder/results``)."""
-    result = process_survey(folder, progress=progress)
+               extra_writers: tuple[Callable[[SurveyResult, Path], None], ...] = (),
+               map_html: bool = True, report_html: bool = True, scheduler: Any = None,
+               tile_px: int | None = None, window_progress: WindowProgress | None = None) -> SurveyResult:
+    """Process the survey in ``folder`` and write its results (default ``folder/results``).
+
+    ``map_html`` / ``report_html`` false skip ``map.html`` / ``report.html``; ``scheduler``,
+    ``tile_px`` and ``window_progress`` as in :func:`process_survey`.
+    """
+    scratch = Path(out).resolve().parent if out is not None else None  # beside the results: moved, not copied
+    result = process_survey(folder, progress=progress, scheduler=scheduler, tile_px=tile_px,
+                            window_progress=window_progress, scratch=scratch)
     out_dir = Path(out) if out is not None else result.survey.folder / "results"
     _emit(progress, f"writing results to {out_dir}")
-    write_results(result, out_dir, extra_writers=extra_writers)
+    write_results(result, out_dir, extra_writers=extra_writers, map_html=map_html, report_html=report_html)
     return result
 
 
@@ -576,6 +795,7 @@ def check_survey(folder: str | Path) -> tuple[Survey, tuple[str, ...]]:
     if survey.cores is not None:
         read_confirmations(survey.cores.path, wet_above=survey.cores.wet_above,
                            wet_above_pct=survey.cores.wet_above_pct)
-    _radiometry(survey, warnings)
+    radiometry = _radiometry(survey, warnings)
+    _register_frames(survey, radiometry, warnings, None)  # frame files readable, control points sound
     warnings[:0] = _condition_warnings(survey, sections)
     return survey, tuple(warnings)

@@ -25,7 +25,7 @@ import math
 import re
 import sys
 from collections.abc import Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from datetime import date as date_type
 from datetime import time as clock_time
 from pathlib import Path
@@ -133,6 +133,9 @@ class Plan:
     outline: Path
     exclusions: Path | None = None
     sections: Path | None = None
+    pixel_m: float | None = None
+    """Plan grid pixel size, metres; ``None``: the finest mosaic's, or chosen from the frames'
+    ground sampling distance (see :mod:`wetmap.register`)."""
 
 
 @dataclass(frozen=True)
@@ -170,6 +173,9 @@ class Detect:
     background_m: float | None = None
     """``None``: chosen from the kind and the plan size at run time."""
     min_area_m2: float = 0.5
+    tile_px: int | None = None
+    """Window side for processing in windows, pixels (rounded to the background block);
+    0: the whole array; ``None``: chosen by the plan grid's size (see :mod:`wetmap.tiles`)."""
 
 
 @dataclass(frozen=True)
@@ -585,9 +591,10 @@ def _read_plan(t: _Table, folder: Path) -> Plan | None:
     outline = t.path("outline", folder, required=True, example='"plan/outline.geojson"')
     exclusions = t.path("exclusions", folder, example='"plan/exclusions.geojson"')
     sections = t.path("sections", folder, example='"plan/sections.geojson"')
+    pixel = t.number("pixel_m", low=0, low_open=True, high=100, example="0.05")
     if outline is None:
         return None
-    return Plan(outline=outline, exclusions=exclusions, sections=sections)
+    return Plan(outline=outline, exclusions=exclusions, sections=sections, pixel_m=pixel)
 
 
 def _scale_offset(t: _Table) -> tuple[float | None, float | None]:
@@ -649,10 +656,15 @@ def _read_detect(t: _Table, kind: str | None) -> Detect:
     delta = t.number("delta_c", low=0, high=50, low_open=True, example="1.0")
     background = t.number("background_m", low=0, low_open=True, high=1000, example="20.0")
     min_area = t.number("min_area_m2", low=0, example="0.5")
+    tile = t.number("tile_px", low=0, high=65536, example="2048")
+    if tile is not None and tile != int(tile):
+        t.problem("tile_px", f"= {tile:g}: expected a whole number of pixels (0 = process the whole array at once)")
+        tile = None
     return Detect(
         delta_c=1.0 if delta is None else delta,
         background_m=background,
         min_area_m2=min_area if min_area is not None else DEFAULT_MIN_AREA_M2.get(kind or "roof", 0.5),
+        tile_px=None if tile is None else int(tile),
     )
 
 
@@ -782,10 +794,10 @@ _KEYS: dict[str, tuple[str, ...]] = {
     "conditions": ("air_c", "humidity_pct", "wind_m_s", "sky", "reflected_c", "sunset", "time",
                    "hours_since_rain", "surface_dry"),
     "camera": ("emissivity", "band_um", "distance_m", "transmittance"),
-    "plan": ("outline", "exclusions", "sections"),
+    "plan": ("outline", "exclusions", "sections", "pixel_m"),
     "mosaic": ("path", "units", "time", "scale", "offset", "origin", "pixel_m"),
     "frame": ("path", "units", "points", "time", "scale", "offset"),
-    "detect": ("delta_c", "background_m", "min_area_m2"),
+    "detect": ("delta_c", "background_m", "min_area_m2", "tile_px"),
     "cores": ("path", "wet_above", "wet_above_pct"),
     "repair": ("margin_m", "board_m", "include_unverified", "board_angle_deg", "board_origin",
                "replace_above_pct", "area_units"),
@@ -903,6 +915,8 @@ def load_survey(folder: str | Path) -> Survey:
     cores = _read_cores(t_cores, folder) if t_cores else None
     t_rep = _table(problems, doc, "repair", required=False)
     repair = _read_repair(t_rep) if t_rep else Repair()
+    if kind == "hull" and (t_rep is None or "board_m" not in t_rep.data):
+        repair = replace(repair, board_m=None)  # a hull is cut back to dry core: no board take-off unless asked
     t_lim = _table(problems, doc, "limits", required=False)
     limits = _read_limits(t_lim) if t_lim else Limits()
     t_cool = _table(problems, doc, "cooldown", required=False)

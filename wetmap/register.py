@@ -1,0 +1,930 @@
+"""Control points -> projective transform; frames -> one mosaic on the plan grid.
+
+Coordinates
+-----------
+Image points are ``(col, row)`` in pixel-index units: whole numbers are pixel
+*centres*, so ``(0, 0)`` is the centre of the top-left pixel and ``(-0.5, -0.5)`` its
+outer corner (numpy's and scikit-image's convention, and what an image viewer that
+shows pixel indices reports). Plan points ``(x, y)`` are plan metres. A roof or a
+developed hull side is taken as a plane, so one projective transform (a homography)
+maps a frame onto the plan.
+
+Fitting (:func:`fit_projective`)
+--------------------------------
+1. The point set is checked first (:func:`check_point_set`): no point given twice, and
+   at least 4 points of which no 3 lie on one line, in the image and on the plan;
+   otherwise the transform is undetermined and a :class:`~wetmap.errors.SurveyError`
+   names the survey.toml entry.
+2. A first estimate by the direct linear transform of
+   :class:`skimage.transform.ProjectiveTransform` on centred, scaled coordinates.
+3. Refined by least squares (:func:`scipy.optimize.least_squares`) on the image
+   residuals in pixels: picking a mark in a frame is where the error lies; plan
+   positions of marks are surveyed. With noiseless points both steps are exact.
+4. Residuals: in pixels, between each image point and where the transform puts its
+   plan point in the image; in plan metres, between each plan point and where the
+   transform puts its image point on the plan.
+
+Leave-one-out (:func:`leave_one_out`, 5 or more points): each point is predicted from a
+fit to the others. From 6 points on, the point whose removal lets the others fit best is
+the *suspect*; it is named when it lies at least :data:`SUSPECT_MIN_PX` pixels and
+:data:`SUSPECT_SIGMAS` standard deviations from where they put it (allowing for their scatter,
+at least :data:`PICK_SIGMA_PX`, and for how well they determine the prediction there: a point
+outside the others' spread is predicted less well), and when leaving it out fits the others
+clearly better (:data:`DISTINCT_RATIO`) than leaving out any other point; otherwise the note
+names the candidates. With exactly
+5 points any 4 fit exactly, so a misplaced point shows as a large residual but cannot be
+told from the others (this is geometry, not a limitation of the method): the note says so
+and asks for a sixth point.
+
+Mosaicking (:func:`resample_frame`, :func:`blend_frames`)
+--------------------------------------------------------
+Each frame (already corrected to surface temperature) is resampled onto the plan grid
+by inverse mapping: every plan pixel centre is taken into the image by the inverse
+transform and the image is sampled bilinearly (:func:`scipy.ndimage.map_coordinates`).
+A plan pixel is covered by a frame when its centre falls on the image (within the outer
+pixel edges), in front of the camera (the same side of the horizon as the control points),
+and the view there is not too oblique: the footprint of an image pixel on the plan is at
+most :data:`MAX_FORESHORTENING` times longer than it is wide (about 70° from square-on at
+the image centre; at grazing views emissivity falls and one pixel smears a long strip).
+Image pixels without data give no data; bilinear sampling next to them gives none either.
+
+Overlaps are blended as a weighted mean with weight ``taper / g**2``: ``g`` is the coarser
+ground sampling distance of the pixel's footprint (metres per image pixel, from the local
+Jacobian of the transform, whose determinant is the footprint's area): small for a sharp,
+near, square-on view, large for a far or oblique one. ``taper`` rises from 0 at the frame's
+edge (or the edge of its nodata) to 1 at :data:`EDGE_TAPER_FRACTION` of the frame's smaller
+side, so seams do not show. Plan pixels no frame covers stay NaN: uncovered, never dry.
+
+Plan pixel size (:func:`choose_pixel_m`): the median over frames of each frame's median
+ground sampling distance (the square root of the Jacobian determinant, over the part of
+the frame that lands within the plan's bounds), rounded down to 1, 1.5, 2, 2.5, 3, 4, 5,
+6 or 8 times a power of ten. ``[plan] pixel_m`` overrides it.
+
+Examples
+--------
+>>> import numpy as np
+>>> cr = np.array([[0, 0], [99, 0], [99, 79], [0, 79], [50, 40]], dtype=float)
+>>> xy = np.column_stack([10 + 0.05 * cr[:, 0], 20 - 0.05 * cr[:, 1]])  # 5 cm pixels, north up
+>>> fit = fit_projective(cr, xy)
+>>> round(fit.rms_px, 9), round(fit.rms_m, 9)
+(0.0, 0.0)
+>>> [round(float(v[0]), 3) for v in project(fit.matrix, np.array([10.0]), np.array([10.0]))]
+[10.5, 19.5]
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+
+from .errors import SurveyError
+
+__all__ = [
+    "ProjectiveFit",
+    "LeaveOneOut",
+    "Registration",
+    "ResampledFrame",
+    "FrameReport",
+    "check_point_set",
+    "fit_projective",
+    "leave_one_out",
+    "register_points",
+    "project",
+    "ground_sampling_m",
+    "frame_gsd_m",
+    "choose_pixel_m",
+    "resample_frame",
+    "blend_frames",
+    "MAX_FORESHORTENING",
+    "EDGE_TAPER_FRACTION",
+    "SUSPECT_MIN_PX",
+    "SUSPECT_SIGMAS",
+    "PICK_SIGMA_PX",
+    "DISTINCT_RATIO",
+]
+
+#: Largest ratio of the long to the short side of a pixel's footprint on the plan that is
+#: used: 1 / cos(70°) = 2.9 (common practice: keep views within about 60-70° of the
+#: surface normal; the emissivity of water falls from 0.99 square-on to 0.90 at 70°,
+#: Fresnel with the Hale & Querry constants).
+MAX_FORESHORTENING = 3.0
+#: The blending weight rises from the frame edge over this fraction of its smaller side.
+EDGE_TAPER_FRACTION = 0.1
+#: A leave-one-out suspect is named only when it is at least this far (image pixels)
+#: from where the other points put it (common practice: a mark picked within a pixel or
+#: two is as good as picking gets).
+SUSPECT_MIN_PX = 2.0
+#: ... and this many standard deviations from it (2-D Mahalanobis distance, allowing for the
+#: scatter of the other points and for how well they determine the prediction there;
+#: chi-squared with 2 degrees of freedom exceeds 4**2 with probability exp(-8) = 3e-4).
+SUSPECT_SIGMAS = 4.0
+#: Smallest picking scatter assumed, image pixels per axis: a mark picked at a whole pixel
+#: is off by up to half a pixel, 1 / sqrt(12) = 0.29 px RMS (uniform rounding).
+PICK_SIGMA_PX = 0.3
+#: The suspect is named only when leaving it out fits the others at least this many times
+#: better (RMS) than leaving out any other point; otherwise the candidates are listed.
+DISTINCT_RATIO = 1.5
+#: Relative tolerance for "the same point" and "on one line": a fraction of the spread
+#: of the points (and at least half a pixel in the image).
+_REL_TOL = 1e-3
+_NICE = (1.0, 1.5, 2.0, 2.5, 3.0, 4.0, 5.0, 6.0, 8.0)
+
+
+# --------------------------------------------------------------------------------------
+# Homogeneous helpers
+# --------------------------------------------------------------------------------------
+
+
+def project(matrix: np.ndarray, us: np.ndarray, vs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Apply a 3 x 3 projective ``matrix`` to points ``(us, vs)``.
+
+    Parameters
+    ----------
+    matrix
+        ``(3, 3)``; maps homogeneous ``(u, v, 1)`` to ``(x w, y w, w)``.
+    us, vs
+        Coordinates of the same shape.
+
+    Returns
+    -------
+    xs, ys
+        Same shape; ``inf`` or ``nan`` where ``w == 0`` (the horizon).
+
+    >>> m = np.array([[2.0, 0, 1], [0, 2, 1], [0, 0, 1]])
+    >>> project(m, np.array([1.0]), np.array([2.0]))
+    (array([3.]), array([5.]))
+    """
+    us, vs = np.asarray(us, dtype=np.float64), np.asarray(vs, dtype=np.float64)
+    w = matrix[2, 0] * us + matrix[2, 1] * vs + matrix[2, 2]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        xs = (matrix[0, 0] * us + matrix[0, 1] * vs + matrix[0, 2]) / w
+        ys = (matrix[1, 0] * us + matrix[1, 1] * vs + matrix[1, 2]) / w
+    return xs, ys
+
+
+def _w(matrix: np.ndarray, us: np.ndarray, vs: np.ndarray) -> np.ndarray:
+    return matrix[2, 0] * us + matrix[2, 1] * vs + matrix[2, 2]
+
+
+def _singular_values(matrix: np.ndarray, us: np.ndarray, vs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Singular values ``(large, small)`` of the local Jacobian of ``matrix`` at ``(us, vs)``.
+
+    Units: output length per input length. Closed form for 2 x 2 matrices.
+    """
+    w = _w(matrix, us, vs)
+    xs, ys = project(matrix, us, vs)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        a = (matrix[0, 0] - xs * matrix[2, 0]) / w
+        b = (matrix[0, 1] - xs * matrix[2, 1]) / w
+        c = (matrix[1, 0] - ys * matrix[2, 0]) / w
+        d = (matrix[1, 1] - ys * matrix[2, 1]) / w
+    s = a * a + b * b + c * c + d * d
+    det = np.abs(a * d - b * c)
+    root = np.sqrt(np.maximum(s * s - 4.0 * det * det, 0.0))
+    large = np.sqrt(0.5 * (s + root))
+    small = np.sqrt(np.maximum(0.5 * (s - root), 0.0))
+    return large, small
+
+
+def ground_sampling_m(matrix: np.ndarray, cols: np.ndarray, rows: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Ground sampling distance of image pixels: ``(fine, coarse)`` metres per pixel.
+
+    Parameters
+    ----------
+    matrix
+        Image ``(col, row)`` -> plan ``(x, y)``.
+    cols, rows
+        Image points.
+
+    Returns
+    -------
+    fine, coarse
+        The short and long side of a pixel's footprint on the plan (singular values of
+        the local Jacobian), m per pixel. ``sqrt(fine * coarse)`` is the square root of
+        the Jacobian determinant (the footprint's area); ``coarse / fine`` is the
+        foreshortening.
+
+    >>> m = np.array([[0.05, 0, 0], [0, -0.02, 0], [0, 0, 1.0]])
+    >>> [round(float(v[0]), 3) for v in ground_sampling_m(m, np.array([3.0]), np.array([4.0]))]
+    [0.02, 0.05]
+    """
+    large, small = _singular_values(matrix, cols, rows)
+    return small, large
+
+
+# --------------------------------------------------------------------------------------
+# Checking the point set
+# --------------------------------------------------------------------------------------
+
+
+def _spread(pts: np.ndarray) -> float:
+    return float(np.max(np.ptp(pts, axis=0))) if len(pts) else 0.0
+
+
+def _collinear3(pts: np.ndarray, tol: float) -> np.ndarray:
+    """``(n, n, n)`` bool: True where points i, j, k lie on one line (within ``tol``)."""
+    p = pts[:, None, :] - pts[None, :, :]  # p[i, j] = pts[i] - pts[j]
+    n = len(pts)
+    # twice the triangle area |(pj - pi) x (pk - pi)|, divided by the longest side
+    vi = -p  # vi[i, j] = pts[j] - pts[i]
+    cross = vi[:, :, None, 0] * vi[:, None, :, 1] - vi[:, :, None, 1] * vi[:, None, :, 0]
+    d = np.sqrt((p ** 2).sum(-1))
+    longest = np.maximum(np.maximum(d[:, :, None], d[:, None, :]), d[None, :, :])
+    with np.errstate(divide="ignore", invalid="ignore"):
+        height = np.abs(cross) / longest
+    out = np.asarray(height <= tol)
+    out |= longest <= tol
+    idx = np.arange(n)
+    out[idx, idx, :] = out[idx, :, idx] = out[:, idx, idx] = True
+    return out
+
+
+def _largest_collinear(pts: np.ndarray, tol: float) -> list[int]:
+    """Indices of the largest set of points on one line (within ``tol``)."""
+    n = len(pts)
+    best: list[int] = []
+    col = _collinear3(pts, tol)
+    for i in range(n):
+        for j in range(i + 1, n):
+            members = [k for k in range(n) if col[i, j, k]]
+            if len(members) > len(best):
+                best = members
+    return best
+
+
+def _has_general_four(pts: np.ndarray, tol: float) -> bool:
+    """True when 4 of the points have no 3 on one line (within ``tol``)."""
+    n = len(pts)
+    if n < 4:
+        return False
+    if n > 12:  # exhaustive search is costly; with 2 points off the largest line, 4 good ones exist
+        return n - len(_largest_collinear(pts, tol)) >= 2
+    col = _collinear3(pts, tol)
+    for a, b, c, d in itertools.combinations(range(n), 4):
+        if not (col[a, b, c] or col[a, b, d] or col[a, c, d] or col[b, c, d]):
+            return True
+    return False
+
+
+def _numbers(idx: Sequence[int]) -> str:
+    return ", ".join(str(i + 1) for i in idx)
+
+
+def check_point_set(image_cr: np.ndarray, plan_xy: np.ndarray, *, where: str = "control points") -> None:
+    """Refuse a control-point set that does not determine a projective transform.
+
+    Parameters
+    ----------
+    image_cr
+        ``(n, 2)`` image ``(col, row)``, pixels.
+    plan_xy
+        ``(n, 2)`` plan ``(x, y)``, metres.
+    where
+        Names the entry in messages, e.g. ``"survey.toml: [[frame]] #2 points"``.
+
+    Raises
+    ------
+    SurveyError
+        Fewer than 4 points, a point given twice (the same image pixel or the same plan
+        mark), all points on one line, or no 4 points with no 3 of them on one line;
+        the message names the points (numbered from 1 as listed) and the fix.
+
+    >>> cr = np.array([[0, 0], [10, 0], [20, 0], [30, 1e-6], [5, 5]], dtype=float)
+    >>> try:
+    ...     check_point_set(cr, cr, where="f")
+    ... except SurveyError as err:
+    ...     print(err.problems[0])  # doctest: +ELLIPSIS
+    f: points 1, 2, 3, 4 lie on one line in the image and only 1 point(s) off it: ...
+    """
+    image_cr = np.asarray(image_cr, dtype=np.float64).reshape(-1, 2)
+    plan_xy = np.asarray(plan_xy, dtype=np.float64).reshape(-1, 2)
+    n = len(image_cr)
+    if n != len(plan_xy):
+        raise ValueError("image_cr and plan_xy hold different numbers of points")
+    if n < 4:
+        raise SurveyError(f"{where}: {n} control points: a projective transform needs at least 4 "
+                          "[col, row, x, y], no 3 of them on one line")
+    if not (np.isfinite(image_cr).all() and np.isfinite(plan_xy).all()):
+        raise SurveyError(f"{where}: a control point is not a finite number")
+    need = ("a projective transform needs 4 points, no 3 of them on one line: add control points off "
+            "that line (e.g. corners and marks spread over the frame)")
+    for space, pts, floor in (("image", image_cr, 0.5), ("plan", plan_xy, 0.0)):
+        tol = max(_REL_TOL * _spread(pts), floor)
+        d = np.sqrt(((pts[:, None, :] - pts[None, :, :]) ** 2).sum(-1))
+        i, j = np.nonzero(np.triu(d <= tol, k=1))
+        if len(i):
+            a, b = int(i[0]), int(j[0])
+            what = "image point" if space == "image" else "plan point"
+            raise SurveyError(
+                f"{where}: points {a + 1} and {b + 1} are the same {what} "
+                f"({_fmt_pt(pts[a])} and {_fmt_pt(pts[b])}): each control point must be a different mark; "
+                "remove the duplicate or correct it"
+            )
+        line = _largest_collinear(pts, tol)
+        if len(line) == n:
+            raise SurveyError(f"{where}: all {n} points lie on one line in the {space}: {need}")
+        if not _has_general_four(pts, tol):
+            raise SurveyError(f"{where}: points {_numbers(line)} lie on one line in the {space} and "
+                              f"only {n - len(line)} point(s) off it: {need}")
+
+
+def _fmt_pt(p: np.ndarray) -> str:
+    return f"[{p[0]:.6g}, {p[1]:.6g}]"
+
+
+# --------------------------------------------------------------------------------------
+# Fitting
+# --------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class ProjectiveFit:
+    """A projective transform fitted to control points, with its residuals.
+
+    Attributes
+    ----------
+    matrix
+        ``(3, 3)``: image ``(col, row, 1)`` -> plan ``(x w, y w, w)``.
+    residuals_px
+        ``(n,)`` distance in the image between each image point and where the transform
+        puts its plan point, pixels.
+    residuals_m
+        ``(n,)`` distance on the plan between each plan point and where the transform
+        puts its image point, metres.
+    """
+
+    matrix: np.ndarray
+    residuals_px: np.ndarray
+    residuals_m: np.ndarray
+
+    @property
+    def inverse(self) -> np.ndarray:
+        """``(3, 3)``: plan ``(x, y, 1)`` -> image ``(col w, row w, w)``."""
+        return np.linalg.inv(self.matrix)
+
+    @property
+    def rms_px(self) -> float:
+        """Root mean square of the image residuals, pixels."""
+        return float(np.sqrt(np.mean(self.residuals_px ** 2)))
+
+    @property
+    def rms_m(self) -> float:
+        """Root mean square of the plan residuals, metres."""
+        return float(np.sqrt(np.mean(self.residuals_m ** 2)))
+
+    @property
+    def mirrored(self) -> bool:
+        """True when the image is a mirror view of the plan (plan y up, image rows down).
+
+        A camera looking down on a roof never gives one: x and y swapped in the points,
+        or a flipped image, do. (On a hull side it depends on the side and the station
+        direction.)
+        """
+        # the local Jacobian determinant is det(matrix) / w**3, and w > 0 over the frame
+        return bool(np.linalg.det(self.matrix) > 0)
+
+
+def _normaliser(pts: np.ndarray) -> np.ndarray:
+    """Similarity taking ``pts`` to centroid 0 and mean distance sqrt(2)."""
+    centre = pts.mean(axis=0)
+    mean_d = float(np.mean(np.sqrt(((pts - centre) ** 2).sum(-1))))
+    s = math.sqrt(2.0) / mean_d if mean_d > 0 else 1.0
+    return np.array([[s, 0.0, -s * centre[0]], [0.0, s, -s * centre[1]], [0.0, 0.0, 1.0]])
+
+
+def _dlt(src: np.ndarray, dst: np.ndarray) -> np.ndarray | None:
+    """scikit-image's direct linear transform ``src -> dst``; None when it fails."""
+    from skimage.transform import ProjectiveTransform
+
+    if hasattr(ProjectiveTransform, "from_estimate"):  # scikit-image >= 0.26
+        tf = ProjectiveTransform.from_estimate(src, dst)
+        return np.asarray(tf.params, dtype=np.float64) if tf else None
+    tf = ProjectiveTransform()  # pragma: no cover - older scikit-image
+    return np.asarray(tf.params, dtype=np.float64) if tf.estimate(src, dst) else None  # pragma: no cover
+
+
+def _fit_plan_to_image(image_cr: np.ndarray, plan_xy: np.ndarray) -> np.ndarray | None:
+    """Plan -> image matrix minimising image residuals (pixels); None when undetermined."""
+    from scipy.optimize import least_squares
+
+    tp, ti = _normaliser(plan_xy), _normaliser(image_cr)
+    q = plan_xy @ tp[:2, :2].T + tp[:2, 2]
+    p = image_cr @ ti[:2, :2].T + ti[:2, 2]
+    g0 = _dlt(q, p)
+    if g0 is None or not np.isfinite(g0).all():
+        return None
+    if abs(g0[2, 2]) < 1e-12:  # the points' centroid would map to the horizon: undetermined
+        return None
+    g0 = g0 / g0[2, 2]
+
+    def residuals(h: np.ndarray) -> np.ndarray:
+        g = np.append(h, 1.0).reshape(3, 3)
+        u, v = project(g, q[:, 0], q[:, 1])
+        return np.concatenate([u - p[:, 0], v - p[:, 1]])
+
+    if len(q) > 4:
+        sol = least_squares(residuals, g0.ravel()[:8], method="lm", xtol=1e-15, ftol=1e-15, gtol=1e-15)
+        if sol.success and np.isfinite(sol.x).all():
+            g0 = np.append(sol.x, 1.0).reshape(3, 3)
+    g = np.linalg.inv(ti) @ g0 @ tp
+    return g / np.linalg.norm(g)
+
+
+def _prediction_spread(image_cr: np.ndarray, plan_xy: np.ndarray, g: np.ndarray, point_xy: np.ndarray) -> np.ndarray:
+    """2 x 2 covariance of the image position a fit ``g`` predicts at ``point_xy``, per unit picking variance.
+
+    Linearised least squares: ``J_s (J^T J)^-1 J_s^T`` with the Jacobians of the image
+    positions (pixels) with respect to the transform's 8 parameters, taken numerically in
+    the normalised coordinates of the fit.
+    """
+    tp, ti = _normaliser(plan_xy), _normaliser(image_cr)
+    gn = ti @ g @ np.linalg.inv(tp)
+    gn = gn / gn[2, 2]
+    q = plan_xy @ tp[:2, :2].T + tp[:2, 2]
+    qs = np.atleast_2d(point_xy) @ tp[:2, :2].T + tp[:2, 2]
+    scale = ti[0, 0]  # normalised image units per pixel
+
+    def pred(h: np.ndarray, pts: np.ndarray) -> np.ndarray:
+        u, v = project(np.append(h, 1.0).reshape(3, 3), pts[:, 0], pts[:, 1])
+        return np.concatenate([u, v]) / scale
+
+    h0 = gn.ravel()[:8]
+    eps = 1e-6
+    j = np.empty((2 * len(q), 8))
+    js = np.empty((2, 8))
+    for k in range(8):
+        d = np.zeros(8)
+        d[k] = eps
+        j[:, k] = (pred(h0 + d, q) - pred(h0 - d, q)) / (2 * eps)
+        js[:, k] = (pred(h0 + d, qs) - pred(h0 - d, qs)) / (2 * eps)
+    return js @ np.linalg.pinv(j.T @ j) @ js.T
+
+
+def fit_projective(image_cr: np.ndarray, plan_xy: np.ndarray, *, where: str = "control points") -> ProjectiveFit:
+    """Fit the projective transform image ``(col, row)`` -> plan ``(x, y)`` to control points.
+
+    Parameters
+    ----------
+    image_cr
+        ``(n, 2)`` image points, pixels (whole numbers are pixel centres), n >= 4.
+    plan_xy
+        ``(n, 2)`` plan points, metres.
+    where
+        Names the entry in messages (e.g. ``"survey.toml: [[frame]] #2 points"``).
+
+    Returns
+    -------
+    ProjectiveFit
+        The matrix and the residuals of every point in pixels and metres.
+
+    Raises
+    ------
+    SurveyError
+        A degenerate point set (see :func:`check_point_set`), or points that are
+        inconsistent with any view of a plane (some fold across the horizon).
+    """
+    image_cr = np.asarray(image_cr, dtype=np.float64).reshape(-1, 2)
+    plan_xy = np.asarray(plan_xy, dtype=np.float64).reshape(-1, 2)
+    check_point_set(image_cr, plan_xy, where=where)
+    g = _fit_plan_to_image(image_cr, plan_xy)
+    if g is None:
+        raise SurveyError(f"{where}: the control points do not determine a projective transform; "
+                          "spread them over the frame (4 or more, no 3 on one line)")
+    h = np.linalg.inv(g)
+    h /= np.linalg.norm(h)
+    w_img = _w(h, image_cr[:, 0], image_cr[:, 1])
+    w_plan = _w(g, plan_xy[:, 0], plan_xy[:, 1])
+    if not ((w_img > 0).all() or (w_img < 0).all()) or not ((w_plan > 0).all() or (w_plan < 0).all()):
+        raise SurveyError(f"{where}: the control points are inconsistent with a view of a plane (the fit folds "
+                          "some of them across the horizon); check that each is [col, row, x, y] and that "
+                          "image and plan positions belong to the same mark")
+    if (w_img < 0).all():
+        h = -h
+    u, v = project(g, plan_xy[:, 0], plan_xy[:, 1])
+    res_px = np.hypot(u - image_cr[:, 0], v - image_cr[:, 1])
+    x, y = project(h, image_cr[:, 0], image_cr[:, 1])
+    res_m = np.hypot(x - plan_xy[:, 0], y - plan_xy[:, 1])
+    return ProjectiveFit(matrix=h, residuals_px=res_px, residuals_m=res_m)
+
+
+@dataclass(frozen=True)
+class LeaveOneOut:
+    """Each point predicted from a fit to the others.
+
+    Attributes
+    ----------
+    error_px
+        ``(n,)`` distance in the image between each point and where the fit to the
+        other points puts it, pixels (NaN where the others do not determine a fit).
+    error_m
+        ``(n,)`` the same on the plan, metres.
+    rest_rms_px
+        ``(n,)`` residual RMS of the other points under that fit, pixels.
+    suspect
+        Index (from 0) of the point that does not fit, or ``None``.
+    note
+        One line saying what was found, or ``None`` when the points agree.
+    """
+
+    error_px: np.ndarray
+    error_m: np.ndarray
+    rest_rms_px: np.ndarray
+    suspect: int | None
+    note: str | None
+
+
+def leave_one_out(image_cr: np.ndarray, plan_xy: np.ndarray, *, min_px: float = SUSPECT_MIN_PX,
+                  sigmas: float = SUSPECT_SIGMAS) -> LeaveOneOut:
+    """Find a control point that does not fit the others (5 or more points).
+
+    Parameters
+    ----------
+    image_cr, plan_xy
+        ``(n, 2)`` image points (pixels) and plan points (metres), n >= 5, already
+        checked by :func:`check_point_set`.
+    min_px
+        A suspect is named only when the others put it at least this far away, pixels.
+    sigmas
+        ... and at least this many standard deviations (see :data:`SUSPECT_SIGMAS`).
+
+    Returns
+    -------
+    LeaveOneOut
+
+    Notes
+    -----
+    From 6 points on, the suspect is the point whose removal leaves the smallest
+    residual RMS among the others. With 5 points any 4 fit exactly, so which point is
+    wrong cannot be decided; the note then reports the disagreement only.
+
+    >>> cr = np.array([[0, 0], [100, 0], [100, 80], [0, 80], [50, 40], [20, 60]], dtype=float)
+    >>> xy = np.column_stack([0.05 * cr[:, 0], -0.05 * cr[:, 1]])
+    >>> xy[4] += [0.5, 0.0]       # a mark 0.5 m (10 px) off
+    >>> loo = leave_one_out(cr, xy)
+    >>> loo.suspect, round(float(loo.error_px[4]), 3)
+    (4, 10.0)
+    """
+    image_cr = np.asarray(image_cr, dtype=np.float64).reshape(-1, 2)
+    plan_xy = np.asarray(plan_xy, dtype=np.float64).reshape(-1, 2)
+    n = len(image_cr)
+    err_px = np.full(n, np.nan)
+    err_m = np.full(n, np.nan)
+    rest = np.full(n, np.nan)
+    if n < 5:
+        return LeaveOneOut(err_px, err_m, rest, None, None)
+    fits: dict[int, np.ndarray] = {}
+    offsets = np.full((n, 2), np.nan)
+    for i in range(n):
+        keep = np.arange(n) != i
+        try:
+            check_point_set(image_cr[keep], plan_xy[keep])
+        except SurveyError:
+            continue
+        g = _fit_plan_to_image(image_cr[keep], plan_xy[keep])
+        if g is None:
+            continue
+        fits[i] = g
+        h = np.linalg.inv(g)
+        u, v = project(g, plan_xy[:, 0], plan_xy[:, 1])
+        offsets[i] = (image_cr[i, 0] - u[i], image_cr[i, 1] - v[i])
+        r = np.hypot(u - image_cr[:, 0], v - image_cr[:, 1])
+        x, y = project(h, image_cr[i:i + 1, 0], image_cr[i:i + 1, 1])
+        err_px[i] = r[i]
+        err_m[i] = float(np.hypot(x[0] - plan_xy[i, 0], y[0] - plan_xy[i, 1]))
+        rest[i] = float(np.sqrt(np.mean(r[keep] ** 2)))
+    if not np.isfinite(rest).any():
+        return LeaveOneOut(err_px, err_m, rest, None, None)
+    if n == 5:
+        worst = int(np.nanargmax(err_px))
+        if err_px[worst] < min_px:
+            return LeaveOneOut(err_px, err_m, rest, None, None)
+        note = (f"the 5 control points disagree (one is off by up to {np.nanmax(err_px):.1f} px) but with 5 points "
+                "the one that does not fit cannot be told (any 4 fit exactly): add a sixth control point")
+        return LeaveOneOut(err_px, err_m, rest, None, note)
+    s = int(np.nanargmin(rest))
+    dof = 2 * (n - 1) - 8
+    sigma = max(rest[s] * math.sqrt(2 * (n - 1) / dof) if dof > 0 else 0.0, PICK_SIGMA_PX)
+    keep = np.arange(n) != s
+    spread = np.eye(2) + _prediction_spread(image_cr[keep], plan_xy[keep], fits[s], plan_xy[s])
+    e = offsets[s]
+    distance = float(np.sqrt(e @ np.linalg.solve(spread, e))) / sigma
+    if err_px[s] >= min_px and distance >= sigmas:
+        order = np.argsort(np.where(np.isfinite(rest), rest, np.inf))
+        t = int(order[1])
+        if rest[t] < DISTINCT_RATIO * max(rest[s], PICK_SIGMA_PX):  # another removal fits almost as well
+            note = (f"the control points disagree: point {s + 1} or point {t + 1} does not fit (up to "
+                    f"{max(err_px[s], err_px[t]):.1f} px), and with {n} points it cannot be told which; "
+                    "check both or add control points")
+            return LeaveOneOut(err_px, err_m, rest, None, note)
+        note = (f"point {s + 1} does not fit: the other {n - 1} put it {err_px[s]:.1f} px ({err_m[s]:.3g} m) away "
+                f"(they fit each other to {rest[s]:.2f} px RMS); check its [col, row, x, y] or remove it")
+        return LeaveOneOut(err_px, err_m, rest, s, note)
+    return LeaveOneOut(err_px, err_m, rest, None, None)
+
+
+@dataclass(frozen=True)
+class Registration:
+    """A frame's fit and its leave-one-out check."""
+
+    fit: ProjectiveFit
+    loo: LeaveOneOut
+
+    @property
+    def matrix(self) -> np.ndarray:
+        """Image ``(col, row)`` -> plan ``(x, y)``, ``(3, 3)``."""
+        return self.fit.matrix
+
+
+def register_points(image_cr: np.ndarray, plan_xy: np.ndarray, *, where: str = "control points") -> Registration:
+    """:func:`fit_projective` and, with 5 or more points, :func:`leave_one_out`."""
+    fit = fit_projective(image_cr, plan_xy, where=where)
+    return Registration(fit=fit, loo=leave_one_out(image_cr, plan_xy))
+
+
+# --------------------------------------------------------------------------------------
+# Pixel size
+# --------------------------------------------------------------------------------------
+
+
+def _lattice(shape: tuple[int, int], step: int) -> tuple[np.ndarray, np.ndarray]:
+    """Image points on a lattice every ``step`` pixels including the outer pixel edges."""
+    rows, cols = shape
+    cs = np.unique(np.concatenate([np.arange(-0.5, cols - 0.5, step), [cols - 0.5]]))
+    rs = np.unique(np.concatenate([np.arange(-0.5, rows - 0.5, step), [rows - 0.5]]))
+    c, r = np.meshgrid(cs, rs)
+    return c.ravel(), r.ravel()
+
+
+def _usable_view(matrix: np.ndarray, cols: np.ndarray, rows: np.ndarray) -> np.ndarray:
+    """In front of the camera and not too oblique (image points)."""
+    w = _w(matrix, cols, rows)
+    fine, coarse = ground_sampling_m(matrix, cols, rows)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return (w > 0) & np.isfinite(coarse) & (coarse <= MAX_FORESHORTENING * fine)
+
+
+def frame_gsd_m(matrix: np.ndarray, shape: tuple[int, int], bounds: tuple[float, float, float, float]) -> float:
+    """Median ground sampling distance of a frame over the part that lands in ``bounds``.
+
+    Parameters
+    ----------
+    matrix
+        Image ``(col, row)`` -> plan ``(x, y)``.
+    shape
+        ``(rows, cols)`` of the image.
+    bounds
+        ``(xmin, ymin, xmax, ymax)`` of the plan, metres.
+
+    Returns
+    -------
+    float
+        Median of ``sqrt(fine * coarse)`` (the square root of the Jacobian determinant),
+        m per pixel; NaN when no usable part of the frame lands in ``bounds``.
+    """
+    cols, rows = _lattice(shape, max(1, min(shape) // 40))
+    ok = _usable_view(matrix, cols, rows)
+    xs, ys = project(matrix, cols, rows)
+    x0, y0, x1, y1 = bounds
+    with np.errstate(invalid="ignore"):
+        ok &= (xs >= x0) & (xs <= x1) & (ys >= y0) & (ys <= y1)
+    if not ok.any():
+        return math.nan
+    fine, coarse = ground_sampling_m(matrix, cols[ok], rows[ok])
+    return float(np.median(np.sqrt(fine * coarse)))
+
+
+def choose_pixel_m(gsds_m: Sequence[float]) -> float:
+    """Plan pixel size from the frames' median ground sampling distances.
+
+    The median over frames, rounded down to 1, 1.5, 2, 2.5, 3, 4, 5, 6 or 8 times a
+    power of ten.
+
+    >>> choose_pixel_m([0.043, 0.051, 0.038])
+    0.04
+    >>> choose_pixel_m([0.0262])
+    0.025
+    """
+    values = [g for g in gsds_m if math.isfinite(g) and g > 0]
+    if not values:
+        raise ValueError("no frame has a usable ground sampling distance")
+    g = float(np.median(values))
+    power = 10.0 ** math.floor(math.log10(g))
+    nice = max(m for m in _NICE if m * power <= g * (1 + 1e-9))
+    return float(f"{nice * power:.12g}")
+
+
+# --------------------------------------------------------------------------------------
+# Resampling and blending
+# --------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class ResampledFrame:
+    """One frame resampled onto a window of the plan grid.
+
+    Attributes
+    ----------
+    window
+        ``(row0, row1, col0, col1)`` of the plan grid (half-open).
+    values
+        ``(row1 - row0, col1 - col0)`` float32 values; NaN where the frame gives none.
+    weights
+        Same shape, float32 blending weights; 0 where ``values`` is NaN.
+    gsd_m
+        Coarser ground sampling distance at each pixel, m per image pixel (NaN where
+        not covered).
+    """
+
+    window: tuple[int, int, int, int]
+    values: np.ndarray
+    weights: np.ndarray
+    gsd_m: np.ndarray
+
+    @property
+    def covered(self) -> int:
+        """Number of plan pixels this frame gives a value."""
+        return int(np.count_nonzero(self.weights > 0))
+
+
+def resample_frame(values: np.ndarray, matrix: np.ndarray, *, grid_transform, grid_shape: tuple[int, int],
+                   max_foreshortening: float = MAX_FORESHORTENING,
+                   taper_fraction: float = EDGE_TAPER_FRACTION) -> ResampledFrame | None:
+    """Resample a frame onto the plan grid by its projective transform.
+
+    Parameters
+    ----------
+    values
+        ``(rows, cols)`` frame values (any units), NaN where no data.
+    matrix
+        Image ``(col, row)`` -> plan ``(x, y)``, ``(3, 3)``.
+    grid_transform
+        Affine of the north-up plan grid (pixel corner ``(col, row)`` -> plan ``(x, y)``).
+    grid_shape
+        ``(rows, cols)`` of the plan grid.
+    max_foreshortening
+        Largest ratio of a pixel footprint's long to short side that is used.
+    taper_fraction
+        The weight rises from the frame (or nodata) edge over this fraction of the
+        frame's smaller side.
+
+    Returns
+    -------
+    ResampledFrame or None
+        ``None`` when the frame gives no value on the grid.
+    """
+    from scipy import ndimage
+
+    values = np.asarray(values, dtype=np.float32)
+    rows, cols = values.shape
+    g_rows, g_cols = grid_shape
+    ga = grid_transform
+    # footprint: usable lattice points of the image, on the plan
+    step = max(1, min(rows, cols) // 40)
+    lc, lr = _lattice((rows, cols), step)
+    ok = _usable_view(matrix, lc, lr)
+    if not ok.any():
+        return None
+    xs, ys = project(matrix, lc[ok], lr[ok])
+    _, coarse = ground_sampling_m(matrix, lc[ok], lr[ok])
+    pad = 2.0 * step * float(np.max(coarse))
+    inv = ~ga
+    cs, rs = inv @ (np.array([xs.min() - pad, xs.max() + pad, xs.min() - pad, xs.max() + pad]),
+                    np.array([ys.min() - pad, ys.min() - pad, ys.max() + pad, ys.max() + pad]))
+    c0, c1 = max(int(math.floor(np.min(cs))), 0), min(int(math.ceil(np.max(cs))), g_cols)
+    r0, r1 = max(int(math.floor(np.min(rs))), 0), min(int(math.ceil(np.max(rs))), g_rows)
+    if c1 <= c0 or r1 <= r0:
+        return None
+    # plan pixel centres of the window, into the image
+    cc, rr = np.meshgrid(np.arange(c0, c1) + 0.5, np.arange(r0, r1) + 0.5)
+    px, py = ga @ (cc, rr)
+    g = np.linalg.inv(matrix)
+    u, v = project(g, px, py)
+    w_img = _w(matrix, u, v)
+    with np.errstate(invalid="ignore"):
+        inside = (u >= -0.5) & (u <= cols - 0.5) & (v >= -0.5) & (v <= rows - 0.5) & (w_img > 0)
+    fine, coarse_px = ground_sampling_m(matrix, np.where(inside, u, 0.0), np.where(inside, v, 0.0))
+    with np.errstate(invalid="ignore"):
+        inside &= np.isfinite(coarse_px) & (coarse_px <= max_foreshortening * fine)
+    if not inside.any():
+        return None
+    uu, vv = np.clip(np.where(inside, u, 0.0), 0, cols - 1), np.clip(np.where(inside, v, 0.0), 0, rows - 1)
+    sampled = ndimage.map_coordinates(values, [vv, uu], order=1, mode="nearest", prefilter=False)
+    # distance (image pixels) from the frame edge or nodata, for the taper
+    valid = np.pad(np.isfinite(values), 1, constant_values=False)
+    dist = ndimage.distance_transform_edt(valid)[1:-1, 1:-1].astype(np.float32)
+    d = ndimage.map_coordinates(dist, [vv, uu], order=1, mode="nearest", prefilter=False)
+    taper_px = max(taper_fraction * min(rows, cols), 1.0)
+    taper = np.clip((d - 0.5) / taper_px, 1e-3, 1.0)
+    good = inside & np.isfinite(sampled)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        weights = np.where(good, taper / np.where(good, coarse_px, 1.0) ** 2, 0.0).astype(np.float32)
+    out = np.where(good, sampled, np.nan).astype(np.float32)
+    gsd = np.where(good, coarse_px, np.nan).astype(np.float32)
+    if not good.any():
+        return None
+    return ResampledFrame(window=(r0, r1, c0, c1), values=out, weights=weights, gsd_m=gsd)
+
+
+def blend_frames(frames: Sequence[ResampledFrame], grid_shape: tuple[int, int]) -> np.ndarray:
+    """Weighted mean of resampled frames on the plan grid.
+
+    Parameters
+    ----------
+    frames
+        From :func:`resample_frame`.
+    grid_shape
+        ``(rows, cols)`` of the plan grid.
+
+    Returns
+    -------
+    numpy.ndarray
+        float32 ``grid_shape``; NaN where no frame gives a value.
+
+    >>> a = ResampledFrame((0, 1, 0, 2), np.array([[1.0, 2.0]], np.float32), np.array([[1.0, 1.0]], np.float32),
+    ...                    np.ones((1, 2), np.float32))
+    >>> b = ResampledFrame((0, 1, 1, 3), np.array([[4.0, 5.0]], np.float32), np.array([[3.0, 1.0]], np.float32),
+    ...                    np.ones((1, 2), np.float32))
+    >>> blend_frames([a, b], (1, 4))
+    array([[1. , 3.5, 5. , nan]], dtype=float32)
+    """
+    total = np.zeros(grid_shape, dtype=np.float64)
+    weight = np.zeros(grid_shape, dtype=np.float64)
+    for f in frames:
+        r0, r1, c0, c1 = f.window
+        w = f.weights.astype(np.float64)
+        total[r0:r1, c0:c1] += np.where(w > 0, f.values, 0.0) * w
+        weight[r0:r1, c0:c1] += w
+    with np.errstate(invalid="ignore", divide="ignore"):
+        out = np.where(weight > 0, total / weight, np.nan)
+    return out.astype(np.float32)
+
+
+# --------------------------------------------------------------------------------------
+# What a run reports per frame
+# --------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class FrameReport:
+    """Registration figures of one frame, as ``summary.json`` reports them.
+
+    Attributes
+    ----------
+    path
+        The frame file as named in survey.toml.
+    points
+        Number of control points.
+    rms_px, rms_m, max_px
+        Residual RMS in image pixels and in plan metres; largest residual, pixels.
+    suspect
+        Number (from 1, as listed in the entry) of the control point that does not fit
+        the others, or ``None``.
+    suspect_px, suspect_m
+        How far the other points put the suspect from where it was given.
+    note
+        The leave-one-out finding in words, or ``None``.
+    gsd_m
+        Median ground sampling distance over its part of the plan, m per image pixel.
+    covered_m2
+        Plan area (on the plan grid) it gives values for.
+    """
+
+    path: str
+    points: int
+    rms_px: float
+    rms_m: float
+    max_px: float
+    suspect: int | None
+    suspect_px: float | None
+    suspect_m: float | None
+    note: str | None
+    gsd_m: float
+    covered_m2: float
+
+    @classmethod
+    def build(cls, path: str, registration: Registration, *, gsd_m: float, covered_m2: float) -> "FrameReport":
+        """From a :class:`Registration` and the frame's resampling figures."""
+        fit, loo = registration.fit, registration.loo
+        s = loo.suspect
+        return cls(path=path, points=len(fit.residuals_px), rms_px=fit.rms_px, rms_m=fit.rms_m,
+                   max_px=float(np.max(fit.residuals_px)), suspect=None if s is None else s + 1,
+                   suspect_px=None if s is None else float(loo.error_px[s]),
+                   suspect_m=None if s is None else float(loo.error_m[s]), note=loo.note, gsd_m=gsd_m,
+                   covered_m2=covered_m2)
+
+    def as_dict(self) -> dict:
+        """JSON-ready, rounded (pixels to 0.001, metres to 0.1 mm)."""
+
+        def r(v: float | None, nd: int) -> float | None:
+            return None if v is None or not math.isfinite(v) else round(float(v), nd)
+
+        return {
+            "path": self.path, "points": self.points, "rms_px": r(self.rms_px, 3), "rms_m": r(self.rms_m, 4),
+            "max_px": r(self.max_px, 3), "suspect_point": self.suspect, "suspect_px": r(self.suspect_px, 3),
+            "suspect_m": r(self.suspect_m, 4), "note": self.note, "gsd_m": r(self.gsd_m, 4),
+            "covered_m2": r(self.covered_m2, 4),
+        }
