@@ -245,7 +245,9 @@ def test_boards_cover_the_repair(x, y, w, h, turn, angle):
     t = board_takeoff(repair, board_m=(1.2, 2.4), roof=BIG, angle_deg=angle)
     boards = np.asarray(t.boards, dtype=object)
     union = shapely.union_all(boards)
-    assert repair.difference(union).area < 1e-9
+    # a board overlapping by less than 1 mm2 (quantities._TOUCH_M2) is a touch and is not
+    # counted; a corner of the outline can touch up to four boards that way
+    assert repair.difference(union).area < 4e-6
     assert (shapely.area(shapely.intersection(boards, repair)) > 0).all()
     assert union.area == pytest.approx(t.count * 2.88, rel=1e-9)
 
