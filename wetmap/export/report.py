@@ -1,0 +1,865 @@
+"""``report.html``: the printable survey report, with its figures inside the file.
+
+One HTML file, no network references: the figures are PNG images drawn with
+matplotlib's Agg renderer and embedded as base64 ``data:`` URIs. It prints on A4 and on
+US Letter: no paper size is forced (the page follows the paper chosen in the print
+dialogue) and the layout fits the smaller printable area of the two (182 x 247 mm with
+the margins set here); headings stay with what follows them, figures, table rows and
+the sign-off block are not split across pages, long tables repeat their header row.
+
+Contents: key figures; site, survey and conditions with every warning of the checks;
+method (band, emissivity, reflected temperature and how it was obtained,
+transmittance, threshold, background scale); figures (thermal view with outlines and
+core labels, delta-T histogram with the threshold and each core's delta-T, repair
+plan); anomaly and quantity tables; cores and readings; any further results of the
+run; limitations, safety cautions and space for the surveyor's name and signature.
+
+Every figure in the key-figures, anomaly and section tables is the value written to
+``summary.json`` (cells carry ``data-key`` naming the summary key they show).
+
+Colours follow :mod:`wetmap.export.webmap`: ``cividis`` for temperatures, Okabe-Ito
+colours plus line patterns for the statuses, fill versus ring for wet and dry cores.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import html
+import io
+import math
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import shapely
+from shapely.geometry.base import BaseGeometry
+
+from .. import __version__
+from .webmap import (
+    CORE_COLOURS,
+    LAYER_COLOURS,
+    STATUS_STYLES,
+    THERMAL_CMAP,
+    decimate,
+    display_range,
+    png_data_uri,
+    remote_references,
+)
+
+if TYPE_CHECKING:
+    from ..pipeline import SurveyResult
+
+__all__ = [
+    "FIGURE_DPI",
+    "thermal_figure",
+    "delta_histogram_figure",
+    "repair_plan_figure",
+    "build_report",
+    "write_report",
+]
+
+#: Resolution of the embedded figures, dots per inch (sizes below are in inches).
+FIGURE_DPI = 150
+_THERMAL_IN = (6.7, 4.9)
+_HISTOGRAM_IN = (6.7, 3.3)
+_PLAN_IN = (6.7, 4.9)
+_MAX_FIGURE_PX = 1400  # the thermal image drawn in a figure is averaged down to this long side
+
+#: summary.json keys this report shows in its own tables; any other key is listed under
+#: "Further results" so that nothing a run computes is left out of the report.
+_SHOWN_KEYS = frozenset({
+    "title", "kind", "crs", "side", "roof_area_m2", "anomaly_count", "wet_area_m2", "confirmed_wet_area_m2",
+    "unverified_area_m2", "confirmed_dry_area_m2", "wet_fraction", "repair_area_m2", "boards", "board_area_m2",
+    "tearoff_area_m2", "warnings", "sections", "coverage", "confirmations", "method", "wetmap_version",
+})
+
+
+# --------------------------------------------------------------------------------------
+# Small helpers
+# --------------------------------------------------------------------------------------
+
+
+def _esc(value: Any) -> str:
+    return html.escape("" if value is None else str(value))
+
+
+def _fmt(value: Any, fmt: str = ",.2f") -> str:
+    if value is None:
+        return "–"
+    if isinstance(value, bool):
+        return "yes" if value else "no"
+    if isinstance(value, (int, np.integer)):
+        return f"{int(value):,d}"
+    if isinstance(value, (float, np.floating)):
+        return f"{float(value):{fmt}}" if math.isfinite(float(value)) else "n/a"
+    return _esc(value)
+
+
+def _cell(value: Any, key: str | None = None, fmt: str = ",.2f", suffix: str = "") -> str:
+    attr = f' data-key="{_esc(key)}"' if key else ""
+    return f'<td class="num"{attr}>{_fmt(value, fmt)}{suffix}</td>'
+
+
+def _axis_labels(result: "SurveyResult") -> tuple[str, str]:
+    s = result.survey.survey
+    if s.kind == "hull":
+        return "station along the hull (m)", "girth from the keel (m)"
+    if s.is_local:
+        return "plan x (m)", "plan y (m)"
+    return f"easting (m, {s.crs})", f"northing (m, {s.crs})"
+
+
+def _kind_words(result: "SurveyResult") -> str:
+    s = result.survey.survey
+    return ("hull side" + (f", {s.side}" if s.side else "")) if s.kind == "hull" else "low-slope roof"
+
+
+# --------------------------------------------------------------------------------------
+# Figures (matplotlib Agg, no global state)
+# --------------------------------------------------------------------------------------
+
+
+def _figure(size_in: tuple[float, float], dpi: int):
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=size_in, dpi=dpi, layout="constrained")
+    FigureCanvasAgg(fig)
+    return fig
+
+
+def _png(fig) -> bytes:
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=fig.dpi)  # no tight bbox: the PNG keeps the stated size
+    return buf.getvalue()
+
+
+def _path(geom: BaseGeometry):
+    """A matplotlib Path of a (multi)polygon, holes included."""
+    from matplotlib.path import Path as MplPath
+
+    verts: list[np.ndarray] = []
+    codes: list[np.ndarray] = []
+    for poly in shapely.get_parts(geom):
+        if poly.geom_type != "Polygon" or poly.is_empty:
+            continue
+        for ring in [poly.exterior, *poly.interiors]:
+            xy = np.asarray(ring.coords)
+            c = np.full(len(xy), MplPath.LINETO, dtype=np.uint8)
+            c[0], c[-1] = MplPath.MOVETO, MplPath.CLOSEPOLY
+            verts.append(xy)
+            codes.append(c)
+    if not verts:
+        return None
+    return MplPath(np.concatenate(verts), np.concatenate(codes))
+
+
+def _draw(ax, geom: BaseGeometry, **style) -> None:
+    from matplotlib.patches import PathPatch
+
+    if geom is None or geom.is_empty:
+        return
+    path = _path(geom)
+    if path is not None:
+        ax.add_patch(PathPatch(path, **style))
+
+
+def _halo(width: float = 3.0):
+    from matplotlib import patheffects
+
+    return [patheffects.withStroke(linewidth=width, foreground="white")]
+
+
+def _plan_axes(ax, result: "SurveyResult") -> None:
+    x0, y0, x1, y1 = result.outline.bounds
+    pad = 0.03 * max(x1 - x0, y1 - y0, 1e-9)
+    ax.set_xlim(x0 - pad, x1 + pad)
+    ax.set_ylim(y0 - pad, y1 + pad)
+    ax.set_aspect("equal")
+    ax.ticklabel_format(useOffset=False, style="plain")
+    xl, yl = _axis_labels(result)
+    ax.set_xlabel(xl, fontsize=8)
+    ax.set_ylabel(yl, fontsize=8)
+    ax.tick_params(labelsize=7)
+
+
+def _draw_anomalies(ax, result: "SurveyResult", *, filled: bool, labels: bool) -> None:
+    for a in result.anomalies:
+        st = STATUS_STYLES.get(a.status)
+        if st is None:
+            continue
+        _draw(ax, a.geometry, fill=False, edgecolor=st.colour, linewidth=2.0, linestyle=st.linestyle,
+              path_effects=_halo(3.4), zorder=4)
+        if filled:  # a translucent fill under the crisp line
+            _draw(ax, a.geometry, facecolor=st.colour, edgecolor="none", alpha=0.3, zorder=3)
+        if labels:  # above the outline, clear of the cores inside it
+            x0, _, x1, y1 = a.geometry.bounds
+            ax.annotate(f"#{a.id}", ((x0 + x1) / 2, y1), xytext=(0, 2.5), textcoords="offset points", fontsize=7,
+                        ha="center", va="bottom", zorder=6, fontweight="bold", path_effects=_halo(2.5))
+
+
+def _draw_cores(ax, result: "SurveyResult", *, labels: bool) -> None:
+    c = result.confirmations
+    if not len(c):
+        return
+    wet = np.asarray(c.wet, dtype=bool)
+    ax.scatter(c.xs[wet], c.ys[wet], s=30, marker="o", facecolor=CORE_COLOURS["wet"], edgecolor="black",
+               linewidth=0.8, zorder=7)
+    ax.scatter(c.xs[~wet], c.ys[~wet], s=30, marker="o", facecolor="white", edgecolor=CORE_COLOURS["dry"],
+               linewidth=1.8, zorder=7)
+    if labels and len(c) <= 150:
+        for cid, x, y in zip(c.ids, c.xs, c.ys):
+            ax.annotate(cid, (x, y), xytext=(4, 3), textcoords="offset points", fontsize=6.5, zorder=8,
+                        path_effects=_halo(2.2))
+
+
+def _legend_handles(result: "SurveyResult", *, plan: bool) -> list:
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+
+    handles: list = [Line2D([], [], color=st.colour, linestyle=st.linestyle, linewidth=1.8, label=status)
+                     for status, st in STATUS_STYLES.items()]
+    if len(result.confirmations):
+        handles.append(Line2D([], [], linestyle="none", marker="o", markerfacecolor=CORE_COLOURS["wet"],
+                              markeredgecolor="black", label="core judged wet"))
+        handles.append(Line2D([], [], linestyle="none", marker="o", markerfacecolor="white",
+                              markeredgecolor=CORE_COLOURS["dry"], markeredgewidth=1.8, label="core judged dry"))
+    if not result.exclusions.is_empty:
+        handles.append(Patch(facecolor=LAYER_COLOURS["exclusions"], edgecolor="#666666", label="exclusion"))
+    if plan:
+        handles.append(Patch(facecolor="none", edgecolor=LAYER_COLOURS["repair"], linestyle="--", hatch="///",
+                             label="repair outline"))
+        if result.takeoff.count:
+            handles.append(Patch(facecolor="none", edgecolor=LAYER_COLOURS["boards"], label="whole boards"))
+    return handles
+
+
+def thermal_figure(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> bytes:
+    """Figure 1: corrected surface temperature with anomaly outlines, ids and labelled cores.
+
+    Returns
+    -------
+    bytes
+        A PNG of ``_THERMAL_IN`` inches at ``dpi`` (6.7 x 4.9 in: 1005 x 735 px at 150 dpi).
+    """
+    from matplotlib.cm import ScalarMappable
+    from matplotlib.colors import Normalize
+
+    fig = _figure(_THERMAL_IN, dpi)
+    ax = fig.add_subplot()
+    rows, cols = result.grid.shape
+    factor = max(1, math.ceil(max(rows, cols) / _MAX_FIGURE_PX))
+    image = decimate(result.surface_c, factor)
+    usable = np.isfinite(decimate(result.detection.delta_c, factor))  # the roof pixels with data
+    lo, hi = display_range(image[usable] if usable.any() else image)
+    gx0, gy0, gx1, gy1 = result.grid.bounds
+    ax.imshow(image, extent=(gx0, gx0 + factor * image.shape[1] * result.grid.pixel_m,
+                             gy1 - factor * image.shape[0] * result.grid.pixel_m, gy1),
+              cmap=THERMAL_CMAP, vmin=lo, vmax=hi, interpolation="nearest", origin="upper", zorder=1)
+    _draw(ax, result.exclusions, facecolor=LAYER_COLOURS["exclusions"], edgecolor="#666666", linewidth=0.6, zorder=2)
+    _draw(ax, result.outline, facecolor="none", edgecolor="black", linewidth=1.0, zorder=2)
+    _draw_anomalies(ax, result, filled=False, labels=True)
+    _draw_cores(ax, result, labels=True)
+    _plan_axes(ax, result)
+    bar = fig.colorbar(ScalarMappable(Normalize(lo, hi), THERMAL_CMAP), ax=ax, shrink=0.85, pad=0.01)
+    bar.set_label("surface temperature (°C)", fontsize=8)
+    bar.ax.tick_params(labelsize=7)
+    fig.legend(handles=_legend_handles(result, plan=False), loc="outside lower center", ncols=4, fontsize=7,
+               frameon=False)
+    return _png(fig)
+
+
+def _histogram(values: np.ndarray, edges: np.ndarray) -> np.ndarray:
+    """Counts of the finite ``values`` in the bins ``edges``; values beyond go to the end bins.
+
+    Works on strips of rows so that memory stays small on very large grids.
+    """
+    counts = np.zeros(len(edges) - 1, dtype=np.int64)
+    rows_per = max(1, 8_000_000 // max(values.shape[-1], 1))
+    for r0 in range(0, values.shape[0], rows_per):
+        strip = values[r0:r0 + rows_per]
+        strip = strip[np.isfinite(strip)]
+        counts += np.histogram(np.clip(strip, edges[0], edges[-1]), bins=edges)[0]
+    return counts
+
+
+def delta_histogram_figure(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> bytes:
+    """Figure 2: area of roof per delta-T bin, the threshold, and each core's delta-T.
+
+    The y axis is the roof area in each 0.05-0.2 degC bin (m2, log scale), so a reader
+    sees how much of the roof lies just below and just above the threshold.
+
+    Returns
+    -------
+    bytes
+        A PNG of ``_HISTOGRAM_IN`` inches at ``dpi`` (1005 x 495 px at 150 dpi).
+    """
+    fig = _figure(_HISTOGRAM_IN, dpi)
+    ax = fig.add_subplot()
+    delta = result.detection.delta_c
+    thr = float(result.detection.threshold_c)
+    core_d = np.asarray(result.confirmation_delta_c, dtype=float)
+    finite_cores = core_d[np.isfinite(core_d)]
+    step = max(1, delta.size // 4_000_000)  # a regular subsample sets the axis range
+    sample = delta.ravel()[::step]
+    sample = sample[np.isfinite(sample)]
+    lo, hi = (float(v) for v in np.percentile(sample, [0.05, 99.95])) if sample.size else (-thr, 2 * thr)
+    lo = min([lo, -thr, *finite_cores.tolist()]) - 0.1
+    hi = max([hi, 2 * thr, *finite_cores.tolist()]) + 0.1
+    edges = np.linspace(lo, hi, 121)
+    counts = _histogram(delta, edges)
+    if counts.sum():
+        ax.stairs(counts * result.grid.pixel_area_m2, edges, fill=True, color="#777777", label="roof area per bin")
+        ax.set_yscale("log")
+    else:
+        ax.text(0.5, 0.5, "no thermal data on the roof", transform=ax.transAxes, ha="center")
+    ax.axvline(thr, color="black", linestyle="--", linewidth=1.4, label=f"threshold {thr:+g} °C")
+    c = result.confirmations
+    last_d, level = -np.inf, 0
+    for i in np.argsort(core_d):  # NaN sort last
+        d = core_d[i]
+        if not np.isfinite(d):
+            continue
+        wet = bool(c.wet[i])
+        colour = CORE_COLOURS["wet" if wet else "dry"]
+        ax.axvline(d, color=colour, linestyle="-" if wet else ":", linewidth=1.3)
+        level = level + 1 if d - last_d < 0.04 * (hi - lo) else 0  # stagger the labels of close cores
+        last_d = d
+        ax.annotate(c.ids[i], (d, 1.0), xycoords=("data", "axes fraction"), xytext=(2, -2 - 11 * (level % 6)),
+                    textcoords="offset points", va="top", fontsize=6.5, color=colour, path_effects=_halo(2.0))
+    from matplotlib.lines import Line2D
+
+    handles, _ = ax.get_legend_handles_labels()
+    if len(finite_cores):
+        handles += [Line2D([], [], color=CORE_COLOURS["wet"], linestyle="-", label="ΔT at a core judged wet"),
+                    Line2D([], [], color=CORE_COLOURS["dry"], linestyle=":", label="ΔT at a core judged dry")]
+    fig.legend(handles=handles, loc="outside lower center", ncols=4, fontsize=7, frameon=False)
+    ax.set_xlim(lo, hi)
+    ax.set_xlabel("ΔT: surface temperature above the dry background (°C)", fontsize=8)
+    ax.set_ylabel("roof area per bin (m²)", fontsize=8)
+    ax.tick_params(labelsize=7)
+    return _png(fig)
+
+
+def repair_plan_figure(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> bytes:
+    """Figure 3: sections, exclusions, anomalies by status, repair outline and whole boards.
+
+    Returns
+    -------
+    bytes
+        A PNG of ``_PLAN_IN`` inches at ``dpi`` (1005 x 735 px at 150 dpi).
+    """
+    fig = _figure(_PLAN_IN, dpi)
+    ax = fig.add_subplot()
+    _draw(ax, result.outline, facecolor="#FAFAFA", edgecolor="black", linewidth=1.2, zorder=1)
+    for sec in result.sections:
+        _draw(ax, sec.geometry, facecolor="none", edgecolor="black", linewidth=0.7, linestyle="-.", zorder=2)
+        p = sec.geometry.representative_point()
+        ax.annotate(sec.name, (p.x, p.y), fontsize=11, color="#555555", ha="center", va="center", zorder=2,
+                    alpha=0.8)
+    _draw(ax, result.exclusions, facecolor=LAYER_COLOURS["exclusions"], edgecolor="#666666", linewidth=0.6, zorder=2)
+    for board in result.takeoff.boards:
+        _draw(ax, board, facecolor="none", edgecolor=LAYER_COLOURS["boards"], linewidth=0.5, zorder=3)
+    _draw_anomalies(ax, result, filled=True, labels=True)
+    _draw(ax, result.repair, facecolor="none", edgecolor=LAYER_COLOURS["repair"], linewidth=1.2, linestyle="--",
+          hatch="///", zorder=5)
+    _draw_cores(ax, result, labels=False)
+    _plan_axes(ax, result)
+    fig.legend(handles=_legend_handles(result, plan=True), loc="outside lower center", ncols=5, fontsize=7,
+               frameon=False)
+    return _png(fig)
+
+
+# --------------------------------------------------------------------------------------
+# Generic rendering of results added by later stages (bill, passes, registration, ...)
+# --------------------------------------------------------------------------------------
+
+
+def _plain(value: Any) -> Any:
+    """Dataclasses, arrays and geometries -> JSON-like data for display."""
+    if hasattr(value, "as_dict") and callable(value.as_dict):
+        return _plain(value.as_dict())
+    if dataclasses.is_dataclass(value) and not isinstance(value, type):
+        return {f.name: _plain(getattr(value, f.name)) for f in dataclasses.fields(value)
+                if not isinstance(getattr(value, f.name), (np.ndarray, BaseGeometry))}
+    if isinstance(value, dict):
+        return {str(k): _plain(v) for k, v in value.items()}
+    if isinstance(value, (list, tuple)):
+        return [_plain(v) for v in value]
+    if isinstance(value, np.ndarray):
+        return f"array {value.shape}"
+    if isinstance(value, BaseGeometry):
+        return f"{value.geom_type}, {value.area:,.2f} m²" if value.area else value.geom_type
+    if isinstance(value, np.generic):
+        return value.item()
+    return value
+
+
+def _generic_html(value: Any, depth: int = 0) -> str:
+    value = _plain(value)
+    if isinstance(value, dict):
+        if not value:
+            return "–"
+        rows = "".join(f"<tr><th>{_esc(k)}</th><td>{_generic_html(v, depth + 1)}</td></tr>" for k, v in value.items())
+        return f'<table class="kv">{rows}</table>'
+    if isinstance(value, list):
+        if not value:
+            return "none"
+        if all(isinstance(v, dict) for v in value):
+            cols: list[str] = []
+            for v in value:
+                cols += [k for k in v if k not in cols]
+            head = "".join(f"<th>{_esc(c)}</th>" for c in cols)
+            body = "".join("<tr>" + "".join(f"<td>{_generic_html(v.get(c), depth + 1)}</td>" for c in cols) + "</tr>"
+                           for v in value[:500])
+            more = f"<p class='small'>… {len(value) - 500} more rows in summary.json</p>" if len(value) > 500 else ""
+            return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>{more}"
+        return ", ".join(_generic_html(v, depth + 1) for v in value)
+    if isinstance(value, float):
+        return _fmt(value, ",.2f" if abs(value) >= 1000 else ".4g")
+    return _fmt(value)
+
+
+# --------------------------------------------------------------------------------------
+# Report sections
+# --------------------------------------------------------------------------------------
+
+
+def _key_figures(s: dict[str, Any]) -> str:
+    rows = [
+        ("Roof area surveyed (outline less exclusions)" if s["kind"] != "hull" else "Hull side area",
+         _cell(s["roof_area_m2"], "roof_area_m2", suffix=" m²")),
+        ("Anomalies found", _cell(s["anomaly_count"], "anomaly_count")),
+        ("Wet, confirmed by cores", _cell(s["confirmed_wet_area_m2"], "confirmed_wet_area_m2", suffix=" m²")),
+        ("Unverified (no core inside)", _cell(s["unverified_area_m2"], "unverified_area_m2", suffix=" m²")),
+        ("Wet area (confirmed + unverified)", _cell(s["wet_area_m2"], "wet_area_m2", suffix=" m²")),
+        ("Refuted: anomalies whose cores are all dry", _cell(s["confirmed_dry_area_m2"], "confirmed_dry_area_m2",
+                                                             suffix=" m²")),
+        ("Wet fraction of the surveyed area", _cell(100 * s["wet_fraction"], "wet_fraction", suffix=" %")),
+        ("Repair outline area", _cell(s["repair_area_m2"], "repair_area_m2", suffix=" m²")),
+        ("Whole boards replaced", _cell(s["boards"], "boards")),
+        ("Tear-off area", _cell(s.get("tearoff_area_m2"), "tearoff_area_m2", suffix=" m²")),
+    ]
+    cov = s.get("coverage") or {}
+    if cov:
+        rows.append(("Roof with no thermal data (not surveyed)",
+                     _cell(cov.get("uncovered_m2"), "coverage.uncovered_m2", suffix=" m²")))
+    body = "".join(f"<tr><th>{k}</th>{v}</tr>" for k, v in rows)
+    return f'<table class="keyfigures" id="key-figures"><tbody>{body}</tbody></table>'
+
+
+def _conditions(result: "SurveyResult") -> str:
+    sv, c, cam = result.survey.survey, result.survey.conditions, result.survey.camera
+    rows: list[tuple[str, str]] = [
+        ("Survey", _esc(sv.title)),
+        ("Kind", _esc(_kind_words(result))),
+        ("Site", _esc(sv.site or "not given")),
+        ("Date", _esc(sv.date or "not given")),
+        ("Surveyor", _esc(sv.surveyor or "not given")),
+        ("Plan coordinates", _esc("local plan metres (no geo-reference)" if sv.is_local else sv.crs)),
+    ]
+    if not sv.is_local:
+        try:
+            from pyproj import Transformer
+
+            pt = result.outline.centroid
+            lon, lat = Transformer.from_crs(sv.crs, "EPSG:4326", always_xy=True).transform(pt.x, pt.y)
+            rows.append(("Centre of the outline", f"{abs(lat):.5f}° {'N' if lat >= 0 else 'S'}, "
+                                                  f"{abs(lon):.5f}° {'E' if lon >= 0 else 'W'} (WGS84)"))
+        except Exception:  # noqa: BLE001 - a display nicety; the CRS was validated when the survey loaded
+            pass
+    rows.append(("Air temperature", f"{c.air_c:g} °C"))
+    rows.append(("Relative humidity", f"{c.humidity_pct:g} %"))
+    try:
+        from ..conditions import dew_point_c
+
+        rows.append(("Dew point (computed, Magnus formula)", f"{dew_point_c(c.air_c, c.humidity_pct):.1f} °C"))
+    except Exception:  # noqa: BLE001 - the same: shown when it can be computed
+        pass
+    rows.append(("Wind", "not given" if c.wind_m_s is None else f"{c.wind_m_s:g} m/s"))
+    rows.append(("Sky", _esc(c.sky or "not given")))
+    rows.append(("Sunset / survey time", f"{c.sunset.strftime('%H:%M') if c.sunset else 'not given'} / "
+                                         f"{c.time.strftime('%H:%M') if c.time else 'not given'}"))
+    rows.append(("Hours since rain", "not given" if c.hours_since_rain is None else f"{c.hours_since_rain:g} h"))
+    rows.append(("Surface dry", "not given" if c.surface_dry is None else ("yes" if c.surface_dry else "no")))
+    mosaics = ", ".join(f"{m.path.name}" + (f" ({m.time.strftime('%H:%M')})" if m.time else "")
+                        for m in result.survey.mosaics)
+    frames = len(getattr(result.survey, "frames", ()) or ())
+    rows.append(("Imagery", _esc((mosaics or "no mosaics") + (f"; {frames} frames" if frames else ""))))
+    rows.append(("Camera band, emissivity", f"{cam.band_um[0]:g}-{cam.band_um[1]:g} µm, ε = {cam.emissivity:g}"))
+    body = "".join(f"<tr><th>{k}</th><td>{v}</td></tr>" for k, v in rows)
+    return f'<table class="kv" id="conditions">{body}</table>'
+
+
+def _warnings(summary: dict[str, Any]) -> str:
+    items = summary.get("warnings") or []
+    if not items:
+        return '<p id="warnings">The checks raised no warnings.</p>'
+    lis = "".join(f"<li>{_esc(w)}</li>" for w in items)
+    return f'<ul class="warnings" id="warnings">{lis}</ul>'
+
+
+def _method(result: "SurveyResult", summary: dict[str, Any]) -> str:
+    r, d, s = result.radiometry, result.detection, result.survey
+    m = summary.get("method", {})
+    estimated = not r.reflected_source.startswith("measured")
+    rows = [
+        ("Camera band", f"{r.band_um[0]:g}-{r.band_um[1]:g} µm (band-integrated Planck radiance)"),
+        ("Emissivity", f"{r.emissivity:g}"),
+        ("Reflected apparent temperature", f"{r.reflected_c:.1f} °C: {_esc(r.reflected_source)}"),
+        ("Atmospheric transmittance", f"{r.transmittance:.4f}: {_esc(r.transmittance_source)}; "
+                                      f"atmosphere taken at {r.atmosphere_c:g} °C"),
+        ("Plan grid", f"{result.grid.pixel_m:g} m pixels, {result.grid.rows:,d} x {result.grid.cols:,d}"),
+        ("Dry background scale", f"{d.background_m:g} m"),
+        ("Threshold", f"ΔT &gt; {d.threshold_c:g} °C above the dry background"),
+        ("Smallest anomaly kept", f"{s.detect.min_area_m2:g} m² (holes smaller than this are filled)"),
+        ("Perimeter", _esc(m.get("perimeter", "length of the outline"))),
+        ("Repair margin", f"{s.repair.margin_m:g} m beyond the anomaly outline"),
+        ("Board size", "not given (no board take-off)" if not s.repair.board_m
+         else f"{s.repair.board_m[0]:g} x {s.repair.board_m[1]:g} m"),
+        ("Counted as wet for the repair", "wet and unverified anomalies" if s.repair.include_unverified
+         else "confirmed wet anomalies only"),
+    ]
+    body = "".join(f"<tr><th>{k}</th><td>{v}</td></tr>" for k, v in rows)
+    text = (
+        "<p>The camera's apparent temperatures were converted to surface temperatures by inverting the "
+        "measurement equation over the camera band (emitted, reflected and atmospheric radiance; ASTM E1862 "
+        "and ASTM E1933 describe how reflected temperature and emissivity are measured). Each pixel was "
+        "compared with a robust estimate of the dry surface around it (block medians over the background "
+        "scale); pixels warmer than the threshold form anomalies, outlined as polygons. Each anomaly's status "
+        "comes from the cores and readings inside it: <b>wet</b> when one says wet, <b>dry</b> when all say "
+        "dry, <b>unverified</b> when there is none.</p>"
+    )
+    if estimated:
+        text += ("<p class='caution'>The reflected temperature was <b>estimated</b>, not measured. In the "
+                 "camera's long-wave band a clear sky is colder than a broadband estimate; a measured value "
+                 "(ASTM E1862) is preferable.</p>")
+    return text + f'<table class="kv" id="method">{body}</table>'
+
+
+def _figures(result: "SurveyResult", dpi: int) -> str:
+    from PIL import Image
+
+    s = result.survey.repair
+    specs = [
+        ("fig-thermal", thermal_figure(result, dpi=dpi),
+         "Corrected surface temperature (cividis scale) with the anomaly outlines (vermillion solid: wet; "
+         "reddish purple dashed: unverified; blue dotted: dry), their numbers, exclusions in grey and the cores "
+         "(filled: judged wet; ring: judged dry)."),
+        ("fig-histogram", delta_histogram_figure(result, dpi=dpi),
+         f"Distribution of ΔT over the surveyed roof (area per bin, log scale), the threshold "
+         f"({result.detection.threshold_c:g} °C, dashed) and the ΔT found at each core."),
+        ("fig-repair", repair_plan_figure(result, dpi=dpi),
+         f"Repair plan: anomalies by status, the repair outline (dashed, hatched; margin {s.margin_m:g} m)"
+         + (f" and the {result.takeoff.count} whole boards it touches" if result.takeoff.count else "")
+         + ", sections and exclusions."),
+    ]
+    out = []
+    for n, (fid, png, caption) in enumerate(specs, start=1):
+        w, h = Image.open(io.BytesIO(png)).size
+        out.append(f'<figure id="{fid}"><img src="{png_data_uri(png)}" width="{w}" height="{h}" '
+                   f'alt="Figure {n}"><figcaption><b>Figure {n}.</b> {_esc(caption)}</figcaption></figure>')
+    return "".join(out)
+
+
+def _anomaly_table(result: "SurveyResult", summary: dict[str, Any]) -> str:
+    counted = {"wet", "unverified"} if result.survey.repair.include_unverified else {"wet"}
+    head = ("<tr><th>No.</th><th>Status</th><th>Section</th><th>Area (m²)</th><th>Perimeter (m)</th>"
+            "<th>Mean ΔT (°C)</th><th>Max ΔT (°C)</th><th>Cores inside</th><th>Counted wet</th></tr>")
+    body = []
+    for a in result.anomalies:
+        body.append(
+            f'<tr class="anomaly" data-status="{_esc(a.status)}"><td class="num">{a.id}</td>'
+            f"<td>{_esc(a.status)}</td><td>{_esc(a.section or '–')}</td>"
+            f'<td class="num area">{a.area_m2:,.2f}</td><td class="num">{a.perimeter_m:,.2f}</td>'
+            f'<td class="num">{_fmt(a.delta_mean_c, "+.2f")}</td><td class="num">{_fmt(a.delta_max_c, "+.2f")}</td>'
+            f"<td>{_esc(', '.join(a.confirmations) or '–')}</td><td>{'yes' if a.status in counted else 'no'}</td></tr>"
+        )
+    if not body:
+        body.append('<tr><td colspan="9">No anomaly above the threshold.</td></tr>')
+    by = {st: sum(1 for a in result.anomalies if a.status == st) for st in ("wet", "unverified", "dry")}
+    foot = (
+        f'<tr class="total"><th colspan="3">Wet, confirmed ({by["wet"]})</th>'
+        f'{_cell(summary["confirmed_wet_area_m2"], "confirmed_wet_area_m2")}<td colspan="5"></td></tr>'
+        f'<tr class="total"><th colspan="3">Unverified ({by["unverified"]})</th>'
+        f'{_cell(summary["unverified_area_m2"], "unverified_area_m2")}<td colspan="5"></td></tr>'
+        f'<tr class="total"><th colspan="3">Dry, refuted ({by["dry"]})</th>'
+        f'{_cell(summary["confirmed_dry_area_m2"], "confirmed_dry_area_m2")}<td colspan="5"></td></tr>'
+        f'<tr class="total"><th colspan="3">Wet area: confirmed + unverified</th>'
+        f'{_cell(summary["wet_area_m2"], "wet_area_m2")}<td colspan="5"></td></tr>'
+        f'<tr class="total"><th colspan="3">All anomalies (<span data-key="anomaly_count">'
+        f'{summary["anomaly_count"]}</span>)</th>'
+        f'<td class="num">{sum(a.area_m2 for a in result.anomalies):,.2f}</td><td colspan="5"></td></tr>'
+    )
+    return (f'<table id="anomalies" class="data"><thead>{head}</thead><tbody>{"".join(body)}</tbody>'
+            f"<tfoot>{foot}</tfoot></table>")
+
+
+def _quantities(result: "SurveyResult", summary: dict[str, Any]) -> str:
+    s = result.survey.repair
+    rows = [
+        ("Repair outline area", _cell(summary["repair_area_m2"], "repair_area_m2", suffix=" m²")),
+        ("Repair outline perimeter (cut edge)", _cell(float(result.repair.length), None, suffix=" m")),
+        ("Margin beyond the anomaly outline", _cell(s.margin_m, None, ",.2f", " m")),
+        ("Whole boards", _cell(summary["boards"], "boards")),
+        ("Board size", f"<td>{'–' if not s.board_m else f'{s.board_m[0]:g} x {s.board_m[1]:g} m'}</td>"),
+        ("Board area", _cell(summary.get("board_area_m2"), "board_area_m2", suffix=" m²")),
+        ("Tear-off area", _cell(summary.get("tearoff_area_m2"), "tearoff_area_m2", suffix=" m²")),
+    ]
+    body = "".join(f"<tr><th>{k}</th>{v}</tr>" for k, v in rows)
+    out = f'<table class="kv" id="quantities">{body}</table>'
+    sections = summary.get("sections") or []
+    if sections:
+        head = ("<tr><th>Section</th><th>Assembly</th><th>Area (m²)</th><th>Wet, confirmed (m²)</th>"
+                "<th>Unverified (m²)</th><th>Dry, refuted (m²)</th><th>Wet area (m²)</th><th>Wet fraction</th>"
+                "<th>Repair (m²)</th><th>Boards</th></tr>")
+        rows_html = []
+        for t in sections:
+            frac = t.get("wet_fraction")
+            rows_html.append(
+                f'<tr data-section="{_esc(t.get("name"))}"><td>{_esc(t.get("name"))}</td>'
+                f"<td>{_esc(t.get('assembly') or '–')}</td>"
+                + _cell(t.get("area_m2"), "area_m2") + _cell(t.get("confirmed_wet_area_m2"), "confirmed_wet_area_m2")
+                + _cell(t.get("unverified_area_m2"), "unverified_area_m2")
+                + _cell(t.get("confirmed_dry_area_m2"), "confirmed_dry_area_m2")
+                + _cell(t.get("wet_area_m2"), "wet_area_m2")
+                + _cell(None if frac is None else 100 * frac, "wet_fraction", suffix=" %")
+                + _cell(t.get("repair_area_m2"), "repair_area_m2") + _cell(t.get("boards"), "boards") + "</tr>")
+        out += (f'<h3>By section</h3><table id="sections" class="data"><thead>{head}</thead>'
+                f'<tbody>{"".join(rows_html)}</tbody></table>'
+                "<p class='small'>Replace-or-repair rules (for example a share of wet area above which a whole "
+                "roof is replaced) differ by jurisdiction: the local code decides.</p>")
+    bill = _bill_of(result, summary)
+    if bill is not None:
+        out += "<h3>Bill of quantities</h3>" + _bill_html(bill)
+    return out
+
+
+def _bill_of(result: "SurveyResult", summary: dict[str, Any]) -> Any:
+    """The run's bill of quantities (a result field, or the summary's ``bill``), or ``None``."""
+    bill = getattr(result, "bill", None)
+    if bill is None:
+        bill = getattr(getattr(result, "quantities", None), "bill", None)
+    if bill is None:
+        bill = summary.get("bill")
+    return bill
+
+
+def _bill_html(bill: Any) -> str:
+    data = _plain(bill)
+    if not isinstance(data, dict) or not isinstance(data.get("lines"), list):
+        return _generic_html(data)
+    cur = data.get("currency")
+    head = (f"<tr><th>Item</th><th>Description</th><th>Quantity</th><th>Unit</th>"
+            f"<th>Rate{f' ({_esc(cur)})' if cur else ''}</th><th>Amount{f' ({_esc(cur)})' if cur else ''}</th></tr>")
+    rows = "".join(
+        f"<tr><td>{_esc(ln.get('item'))}</td><td>{_esc(ln.get('description'))}</td>{_cell(ln.get('quantity'))}"
+        f"<td>{_esc(ln.get('unit'))}</td>{_cell(ln.get('rate'))}{_cell(ln.get('amount'))}</tr>"
+        for ln in data["lines"] if isinstance(ln, dict))
+    total = data.get("total")
+    foot = (f'<tr class="total"><th colspan="5">Total{f" ({_esc(cur)})" if cur else ""}</th>'
+            f'{_cell(total, "bill.total")}</tr>' if total is not None else "")
+    note = f"<p class='small'>{_esc(data['note'])}</p>" if data.get("note") else ""
+    basis = f"<p class='small'>Area basis: {_esc(data['area_basis'])}.</p>" if data.get("area_basis") else ""
+    return (f'<table id="bill" class="data"><thead>{head}</thead><tbody>{rows}</tbody><tfoot>{foot}</tfoot>'
+            f"</table>{basis}{note}")
+
+
+def _confirmations(result: "SurveyResult") -> str:
+    c = result.confirmations
+    if not len(c):
+        return ("<p id='cores'>No cores or readings were given: every anomaly is <b>unverified</b>. Infrared alone "
+                "does not establish wet insulation or wet core.</p>")
+    extra = list(c.extra)
+    head = ("<tr><th>Id</th><th>x (m)</th><th>y (m)</th><th>Judged</th><th>Basis</th><th>ΔT there (°C)</th>"
+            "<th>In anomaly</th>" + "".join(f"<th>{_esc(k)}</th>" for k in extra) + "</tr>")
+    rows = []
+    for i, cid in enumerate(c.ids):
+        basis = c.basis[i]
+        value = c.values[i]
+        shown = "result" if basis == "result" or not np.isfinite(value) else f"{basis} = {value:g}"
+        anomaly = int(result.verdicts.anomaly_of[i])
+        rows.append(
+            f"<tr><td>{_esc(cid)}</td><td class='num'>{c.xs[i]:.2f}</td><td class='num'>{c.ys[i]:.2f}</td>"
+            f"<td>{'wet' if c.wet[i] else 'dry'}</td><td>{_esc(shown)}</td>"
+            f"<td class='num'>{_fmt(float(result.confirmation_delta_c[i]), '+.2f')}</td>"
+            f"<td>{'#' + str(anomaly + 1) if anomaly >= 0 else 'outside'}</td>"
+            + "".join(f"<td>{_esc(c.extra[k][i])}</td>" for k in extra) + "</tr>")
+    return f'<table id="cores" class="data"><thead>{head}</thead><tbody>{"".join(rows)}</tbody></table>'
+
+
+def _further(result: "SurveyResult", summary: dict[str, Any]) -> str:
+    parts = []
+    for key, value in summary.items():
+        if key in _SHOWN_KEYS or key == "bill":  # the bill is shown with the repair quantities
+            continue
+        parts.append(f"<h3>{_esc(key.replace('_', ' '))}</h3><div class='further' data-summary-key='{_esc(key)}'>"
+                     f"{_generic_html(value)}</div>")
+    for attr, title in (("passes", "Passes"), ("registration", "Frame registration")):
+        value = getattr(result, attr, None)
+        if value is None or (hasattr(value, "__len__") and not len(value)) or attr in summary:
+            continue
+        parts.append(f"<h3>{title}</h3><div class='further'>{_generic_html(value)}</div>")
+    return "".join(parts)
+
+
+def _limitations(result: "SurveyResult", summary: dict[str, Any]) -> str:
+    cov = summary.get("coverage") or {}
+    hull = result.survey.survey.kind == "hull"
+    items = [
+        "<b>An infrared survey shows apparent thermal anomalies, not measured moisture.</b> A warm area after "
+        "cool-down is consistent with wet insulation or wet core, but it is not proof of it. Every anomaly "
+        "must be verified invasively (cores, or cores plus probe or meter readings) before a repair decision; "
+        "anomalies without a core inside are reported as <i>unverified</i>.",
+        "False warm areas come from extra plies and old patches, heavy flood coats, gravel or ballast piles, "
+        "heat from below (exhausts, warm rooms, drain pans), structure and metal flashing, ponding and debris, "
+        "and reflections of sky or cloud on shiny surfaces. Wet areas can be missed under dew or frost, when "
+        "cloud arrives during the survey, with deep moisture, with closed-cell boards (faint patterns at the "
+        "joints) and on ballasted, paver, inverted or green roofs.",
+        "The result is only as good as the conditions: a dry surface, a sunny day before, light wind and no "
+        "recent rain. See the warnings above.",
+        f"Areas without thermal data are not surveyed, which does not mean dry "
+        f"({_fmt(cov.get('uncovered_m2'))} m² here). Exclusions are not surveyed.",
+        "The survey does not find where water enters, does not judge the fitness of the roof or hull and is "
+        "no warranty.",
+        "Repair outlines and quantities are measured on the plan with a margin that is a setting, not a "
+        "published value; check them on site during the work before ordering materials or quoting.",
+        "Local building codes, work-safety rules and licensed roofers, engineers or accredited marine "
+        "surveyors decide what is done; rules on replacing rather than repairing (for example above a share "
+        "of wet area) differ by jurisdiction.",
+    ]
+    if hull:
+        items.insert(2, "Moisture-meter readings are relative, not moisture content; antifouling paint, salt, "
+                        "tanks, backing plates and condensation give false high readings, and a high reading may "
+                        "mean a wet outer skin rather than a wet core.")
+    return "<ul>" + "".join(f"<li>{i}</li>" for i in items) + "</ul>"
+
+
+_SAFETY = (
+    "<ul>"
+    "<li><b>Roofs at night.</b> Walk the roof in daylight first and note edges, openings, skylights and soft "
+    "spots. Never work alone on a roof. Use fall protection near unprotected edges (guardrails, travel "
+    "restraint or arrest systems, as your local rules require) and cover or guard skylights and openings. "
+    "The camera screen spoils night vision: stop and let your eyes adapt before moving.</li>"
+    "<li><b>Before coring.</b> Old roofing may contain asbestos: have it checked before cutting. Seal every "
+    "core hole the same day.</li>"
+    "<li><b>Boatyards.</b> Tie ladders and keep three points of contact, never touch or move jack stands, "
+    "stay out of lift and travel-hoist zones, and protect yourself against antifouling and fibreglass dust.</li>"
+    "<li>Follow local codes and work-safety rules, and defer to licensed roofers, engineers or accredited "
+    "marine surveyors.</li>"
+    "</ul>"
+)
+
+_CSS = """
+/* Printable on A4 (210 x 297 mm) and US Letter (215.9 x 279.4 mm): no size is forced, so the
+   page follows the paper chosen when printing; content fits 182 x 247 mm, the smaller of the two. */
+@page { margin: 16mm 14mm 16mm 14mm; }
+@page { @bottom-center { content: "Page " counter(page) " of " counter(pages); font: 8pt sans-serif; color: #555; } }
+html { font: 10pt/1.4 "DejaVu Sans", "Segoe UI", Roboto, Helvetica, Arial, sans-serif; color: #111; }
+body { max-width: 182mm; margin: 10mm auto; padding: 0 4mm; }
+h1 { font-size: 17pt; margin: 0 0 2mm; }
+h2 { font-size: 13pt; margin: 7mm 0 2mm; border-bottom: 1px solid #000; break-after: avoid; page-break-after: avoid; }
+h3 { font-size: 11pt; margin: 4mm 0 1.5mm; break-after: avoid; page-break-after: avoid; }
+p { margin: 1.5mm 0; }
+.subtitle { color: #333; margin-bottom: 3mm; }
+.notice { border: 2px solid #000; padding: 2mm 3mm; margin: 3mm 0; break-inside: avoid; }
+.caution { border-left: 3px solid #D55E00; padding-left: 2mm; }
+table { border-collapse: collapse; width: 100%; margin: 1.5mm 0 3mm; font-size: 9pt; }
+th, td { border: 1px solid #999; padding: 0.8mm 1.5mm; text-align: left; vertical-align: top; }
+table.kv th { width: 38%; font-weight: 600; background: #f2f2f2; }
+table.keyfigures th { width: 62%; font-weight: 600; background: #f2f2f2; }
+table.data thead th { background: #e6e6e6; }
+td.num { text-align: right; font-variant-numeric: tabular-nums; white-space: nowrap; }
+tr.total th, tr.total td { background: #f2f2f2; font-weight: 600; }
+thead { display: table-header-group; }
+tfoot { display: table-row-group; }
+tr, img, figure, .notice, .signature, .keep { break-inside: avoid; page-break-inside: avoid; }
+figure { margin: 3mm 0 5mm; }
+figure img { display: block; width: 100%; max-width: 182mm; height: auto; border: 1px solid #ccc; }
+figcaption { font-size: 8.5pt; margin-top: 1mm; }
+ul.warnings li { margin-bottom: 1mm; }
+.small { font-size: 8.5pt; color: #333; }
+.newpage { break-before: page; page-break-before: always; }
+.signature table { margin-top: 3mm; }
+.signature th { width: 34%; background: #f2f2f2; }
+.signature td { height: 10mm; }
+.signature td.tall { height: 22mm; }
+.further table { font-size: 8.5pt; }
+@media screen { body { background: #fff; } .screen-note { color: #555; font-size: 9pt; } }
+@media print { .screen-note { display: none; } a { color: inherit; text-decoration: none; } }
+"""
+
+
+def build_report(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> str:
+    """The text of ``report.html`` for ``result``.
+
+    Parameters
+    ----------
+    result
+        The run's results.
+    dpi
+        Resolution of the figures, dots per inch (each figure is 6.7 in wide).
+
+    Returns
+    -------
+    str
+        A self-contained HTML page (UTF-8) with no network references.
+    """
+    from ..errors import ProcessingError
+
+    summary = result.summary()
+    sv = result.survey.survey
+    title = f"Thermal survey report: {sv.title}"
+    sub = ", ".join(x for x in (_kind_words(result), sv.site, sv.date) if x)
+    further = _further(result, summary)
+    parts = [
+        "<!DOCTYPE html>",
+        '<html lang="en"><head><meta charset="utf-8">',
+        '<meta name="viewport" content="width=device-width, initial-scale=1">',
+        f"<title>{_esc(title)}</title><style>{_CSS}</style></head><body>",
+        f"<header><h1>{_esc(title)}</h1><div class='subtitle'>{_esc(sub)}</div>",
+        "<p class='screen-note'>Print this page (A4 or Letter) from the browser; the interactive map is in "
+        "map.html beside it.</p></header>",
+        "<div class='notice'><b>Read first.</b> This survey shows <b>apparent thermal anomalies, not measured "
+        "moisture</b>. Confirm every finding by invasive verification (cores) before any repair decision. "
+        "Local codes, work-safety rules and licensed professionals decide; see Limitations and Safety at the "
+        "end.</div>",
+        "<section id='s-key'><h2>1. Key figures</h2>", _key_figures(summary), "</section>",
+        "<section id='s-conditions'><h2>2. Site, survey and conditions</h2>", _conditions(result),
+        "<h3>Warnings from the checks</h3>", _warnings(summary), "</section>",
+        "<section id='s-method'><h2>3. Method</h2>", _method(result, summary), "</section>",
+        "<section id='s-figures' class='newpage'><h2>4. Figures</h2>", _figures(result, dpi), "</section>",
+        "<section id='s-anomalies'><h2>5. Anomalies</h2>", _anomaly_table(result, summary), "</section>",
+        "<section id='s-quantities'><h2>6. Repair quantities</h2>", _quantities(result, summary), "</section>",
+        "<section id='s-cores'><h2>7. Cores and readings</h2>", _confirmations(result), "</section>",
+    ]
+    n = 8
+    if further:
+        parts += [f"<section id='s-further'><h2>{n}. Further results</h2>", further, "</section>"]
+        n += 1
+    parts += [
+        f"<section id='s-limitations' class='newpage'><h2>{n}. Limitations</h2>", _limitations(result, summary),
+        "</section>",
+        f"<section id='s-safety' class='keep'><h2>{n + 1}. Safety</h2>", _SAFETY, "</section>",
+        f"<section id='s-signature' class='signature'><h2>{n + 2}. Sign-off</h2>",
+        "<p>I carried out or supervised this survey and checked the findings above against the cores listed.</p>",
+        "<table><tr><th>Surveyor (name)</th><td>" + _esc(sv.surveyor or "") + "</td></tr>"
+        "<tr><th>Qualification / certification</th><td></td></tr>"
+        "<tr><th>Signature</th><td class='tall'></td></tr>"
+        "<tr><th>Date</th><td></td></tr></table></section>",
+        f"<footer class='small'><p>Prepared with wetmap {_esc(summary.get('wetmap_version', __version__))}. "
+        "Files of this run: summary.json, anomalies.gpkg / .geojson, repair.gpkg, quantities.csv, "
+        "surface_c.tif, delta_c.tif, map.html.</p></footer>",
+        "</body></html>",
+    ]
+    page = "\n".join(parts)
+    remote = remote_references(page)
+    if remote:
+        raise ProcessingError(f"report.html: the page would load {remote[0]} from the network; "
+                              "this is a wetmap bug, please report it")
+    return page
+
+
+def write_report(result: "SurveyResult", path: Path, *, dpi: int = FIGURE_DPI) -> None:
+    """Write ``report.html`` (see :func:`build_report`)."""
+    Path(path).write_text(build_report(result, dpi=dpi), encoding="utf-8")

@@ -1,0 +1,913 @@
+"""``map.html``: an interactive map of the survey that opens with no network connection.
+
+The map is built with folium (Leaflet). Every script and style it needs is written
+*inside* the file: Leaflet 1.9.4 is vendored under ``wetmap/export/assets/leaflet/``
+(BSD 2-Clause, its licence beside it) and inlined, and the images (thermal overlays,
+colour bars) are embedded as base64 ``data:`` URIs. No background tile map is drawn
+unless asked for (``tiles=``), so the file shows the survey from a USB stick on a laptop
+with no network.
+
+Coordinates
+    A georeferenced survey is drawn on real coordinates: vectors are reprojected to
+    WGS84 longitude/latitude and the thermal rasters are warped onto the Web Mercator
+    grid Leaflet draws in, so overlay and outlines line up to a pixel. A ``local`` plan
+    (and a developed hull side) is drawn on a plain metric plane (Leaflet's
+    ``CRS.Simple``: one map unit = one plan metre, ``lat = y``, ``lng = x``).
+
+Colours (our own choice, chosen to read with colour-vision deficiency)
+    - Thermal images: matplotlib's ``cividis`` (a dark-blue-to-yellow map designed to be
+      read the same with red-green colour-vision deficiency: Nuñez, Anderton & Renslow
+      2018, PLOS ONE 13:e0199239), range from robust percentiles of the roof's pixels.
+    - Anomaly status: colours from the Okabe & Ito (2008) colour-universal-design palette,
+      and a line pattern per status so colour is never the only cue: ``wet`` vermillion
+      solid, ``unverified`` reddish purple dashed, ``dry`` blue dotted.
+    - Cores and readings: judged wet = filled vermillion disc; judged dry = white disc
+      with a thick blue ring (fill versus ring, not hue alone).
+    - Repair outline black dashed, whole boards bluish green, exclusions grey, uncovered
+      roof light grey: all from the same palette or neutral greys.
+
+Every layer but the second thermal view and the boards is shown when the page opens;
+all can be toggled in the layer list. A title block names the site, date and
+conditions; a legend carries the colour bars in degC; a metric scale bar sits bottom left.
+"""
+
+from __future__ import annotations
+
+import base64
+import html
+import io
+import json
+import math
+import re
+import warnings
+from collections.abc import Callable
+from dataclasses import dataclass
+from functools import lru_cache
+from importlib import resources
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+import numpy as np
+import shapely
+from shapely.geometry import mapping
+from shapely.geometry.base import BaseGeometry
+
+from ..errors import ProcessingError
+
+if TYPE_CHECKING:
+    from ..pipeline import SurveyResult
+
+__all__ = [
+    "THERMAL_CMAP",
+    "StatusStyle",
+    "STATUS_STYLES",
+    "CORE_COLOURS",
+    "LAYER_COLOURS",
+    "display_range",
+    "decimate",
+    "colourise",
+    "png_bytes",
+    "png_data_uri",
+    "colour_bar_png",
+    "uncovered_area",
+    "remote_references",
+    "build_map",
+    "write_map",
+]
+
+#: Colour map of the thermal images (map and report).
+THERMAL_CMAP = "cividis"
+
+
+@dataclass(frozen=True)
+class StatusStyle:
+    """How one anomaly status is drawn.
+
+    Attributes
+    ----------
+    colour
+        Line colour, ``#rrggbb`` (Okabe & Ito 2008 palette).
+    dash
+        Leaflet ``dashArray`` (SVG stroke pattern in screen pixels); ``None`` = solid.
+    linestyle
+        The same pattern for matplotlib.
+    label
+        Words for the legend.
+    """
+
+    colour: str
+    dash: str | None
+    linestyle: Any
+    label: str
+
+
+STATUS_STYLES: dict[str, StatusStyle] = {
+    "wet": StatusStyle("#D55E00", None, "-", "wet: a core inside says wet"),
+    "unverified": StatusStyle("#CC79A7", "8 5", (0, (5, 3)), "unverified: no core inside"),
+    "dry": StatusStyle("#0072B2", "2 5", (0, (1, 2)), "dry: every core inside says dry"),
+}
+
+#: Fill of a confirmation judged wet / ring of one judged dry.
+CORE_COLOURS = {"wet": "#D55E00", "dry": "#0072B2"}
+
+#: Colours of the other layers.
+LAYER_COLOURS = {
+    "outline": "#000000",
+    "sections": "#000000",
+    "exclusions": "#999999",
+    "repair": "#000000",
+    "boards": "#009E73",
+    "uncovered": "#BBBBBB",
+}
+
+_ASSETS = "assets/leaflet"
+_GEO_DIGITS = 8  # decimal places of longitude/latitude in the file (about 1 mm)
+_PLAN_DIGITS = 3  # decimal places of plan metres
+_RANGE_SAMPLE = 4_000_000  # at most this many values enter a display range's percentiles
+
+
+# --------------------------------------------------------------------------------------
+# Raster helpers (shared with the report)
+# --------------------------------------------------------------------------------------
+
+
+def display_range(values: np.ndarray, *, low_pct: float = 1.0, high_pct: float = 99.0) -> tuple[float, float]:
+    """A robust colour range: the ``low_pct`` and ``high_pct`` percentiles of the finite values.
+
+    A few very hot or cold pixels (a vent, a cold sky reflection) do not stretch the
+    range. Inputs of more than 4 million values are subsampled regularly first. Returns ``(0.0, 1.0)`` when nothing is finite, and widens a constant image by
+    0.5 either way.
+
+    Parameters
+    ----------
+    values
+        Any shape, degC; NaN ignored.
+
+    Examples
+    --------
+    >>> v = np.r_[np.linspace(10.0, 20.0, 1001), 500.0]   # one hot pixel
+    >>> lo, hi = display_range(v)
+    >>> round(lo, 2), round(hi, 2)
+    (10.1, 19.91)
+    >>> display_range(np.full(4, np.nan))
+    (0.0, 1.0)
+    >>> display_range(np.full(4, 3.0))
+    (2.5, 3.5)
+    """
+    v = np.asarray(values).ravel()
+    if v.size > _RANGE_SAMPLE:  # a regular subsample is plenty for percentiles of a display range
+        v = v[:: v.size // _RANGE_SAMPLE]
+    finite = v[np.isfinite(v)]
+    if finite.size == 0:
+        return (0.0, 1.0)
+    lo, hi = (float(x) for x in np.percentile(finite, [low_pct, high_pct]))
+    if not hi > lo:
+        lo, hi = lo - 0.5, hi + 0.5
+    return (lo, hi)
+
+
+def decimate(values: np.ndarray, factor: int) -> np.ndarray:
+    """Block means over ``factor x factor`` pixels, NaN ignored (NaN where a block is all NaN).
+
+    The last row and column of blocks may be partial. Works in strips, so memory stays
+    near the output's size.
+
+    Parameters
+    ----------
+    values
+        ``(rows, cols)`` array.
+    factor
+        Block side in pixels, ``>= 1``.
+
+    Returns
+    -------
+    numpy.ndarray
+        float32, ``(ceil(rows / factor), ceil(cols / factor))``.
+
+    Examples
+    --------
+    >>> a = np.arange(16, dtype=float).reshape(4, 4)
+    >>> a[0, 0] = np.nan
+    >>> decimate(a, 2)
+    array([[ 3.3333333,  4.5      ],
+           [10.5      , 12.5      ]], dtype=float32)
+    >>> decimate(a, 3).shape
+    (2, 2)
+    """
+    if factor <= 1:
+        return np.asarray(values, dtype=np.float32)
+    rows, cols = values.shape
+    out_r, out_c = -(-rows // factor), -(-cols // factor)
+    out = np.full((out_r, out_c), np.nan, dtype=np.float32)
+    strip_blocks = max(1, 4096 // factor)
+    for b0 in range(0, out_r, strip_blocks):
+        b1 = min(out_r, b0 + strip_blocks)
+        strip = np.asarray(values[b0 * factor: b1 * factor], dtype=np.float32)
+        pad_r = (b1 - b0) * factor - strip.shape[0]
+        pad_c = out_c * factor - cols
+        if pad_r or pad_c:
+            strip = np.pad(strip, ((0, pad_r), (0, pad_c)), constant_values=np.nan)
+        blocks = strip.reshape(b1 - b0, factor, out_c, factor)
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore", RuntimeWarning)  # all-NaN blocks give NaN, as documented
+            out[b0:b1] = np.nanmean(blocks, axis=(1, 3))
+    return out
+
+
+def colourise(values: np.ndarray, *, vmin: float, vmax: float, cmap: str = THERMAL_CMAP) -> np.ndarray:
+    """Values -> RGBA bytes through a matplotlib colour map; NaN becomes transparent.
+
+    Parameters
+    ----------
+    values
+        ``(rows, cols)``, degC.
+    vmin, vmax
+        Colour range, degC; values outside are clipped to the ends.
+
+    Returns
+    -------
+    numpy.ndarray
+        uint8 ``(rows, cols, 4)``.
+
+    Examples
+    --------
+    >>> rgba = colourise(np.array([[0.0, 1.0, np.nan]]), vmin=0.0, vmax=1.0)
+    >>> rgba.shape, int(rgba[0, 2, 3]), int(rgba[0, 0, 3])
+    ((1, 3, 4), 0, 255)
+    """
+    import matplotlib
+
+    cm = matplotlib.colormaps[cmap]
+    span = vmax - vmin if vmax > vmin else 1.0
+    norm = np.clip((np.asarray(values, dtype=np.float32) - vmin) / span, 0.0, 1.0)
+    rgba = cm(np.nan_to_num(norm, nan=0.0), bytes=True)
+    rgba[..., 3] = np.where(np.isfinite(values), 255, 0)
+    return rgba
+
+
+def png_bytes(rgba: np.ndarray) -> bytes:
+    """An RGBA or RGB uint8 array as PNG file bytes (Pillow).
+
+    Examples
+    --------
+    >>> png_bytes(np.zeros((2, 3, 4), np.uint8))[:8] == b"\\x89PNG\\r\\n\\x1a\\n"
+    True
+    """
+    from PIL import Image
+
+    buf = io.BytesIO()
+    Image.fromarray(np.ascontiguousarray(rgba)).save(buf, format="PNG")
+    return buf.getvalue()
+
+
+def png_data_uri(png: bytes) -> str:
+    """PNG bytes as a ``data:image/png;base64,...`` URI.
+
+    Examples
+    --------
+    >>> png_data_uri(b"abc")
+    'data:image/png;base64,YWJj'
+    """
+    return "data:image/png;base64," + base64.b64encode(png).decode("ascii")
+
+
+def colour_bar_png(vmin: float, vmax: float, *, label: str, cmap: str = THERMAL_CMAP,
+                   width_in: float = 2.8, height_in: float = 0.62, dpi: int = 100) -> bytes:
+    """A horizontal colour bar with ticks in degC, as PNG bytes (matplotlib Agg).
+
+    Parameters
+    ----------
+    vmin, vmax
+        Range, degC.
+    label
+        Text under the bar (say the unit).
+    width_in, height_in, dpi
+        Size: the PNG is ``round(width_in * dpi) x round(height_in * dpi)`` pixels.
+    """
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.cm import ScalarMappable
+    from matplotlib.colors import Normalize
+    from matplotlib.figure import Figure
+
+    fig = Figure(figsize=(width_in, height_in), dpi=dpi)
+    FigureCanvasAgg(fig)
+    ax = fig.add_axes((0.05, 0.55, 0.9, 0.3))
+    bar = fig.colorbar(ScalarMappable(Normalize(vmin, vmax), cmap), cax=ax, orientation="horizontal")
+    bar.ax.tick_params(labelsize=7, length=2, pad=1)
+    bar.set_label(label, fontsize=7, labelpad=1)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=dpi)
+    return buf.getvalue()
+
+
+def uncovered_area(result: "SurveyResult", *, factor: int = 1) -> BaseGeometry:
+    """The part of the roof with no thermal data (NaN surface pixels inside the roof).
+
+    Parameters
+    ----------
+    result
+        The run's results.
+    factor
+        Work on ``factor x factor`` blocks (a block is uncovered when all its pixels are).
+
+    Returns
+    -------
+    shapely geometry
+        Polygon or MultiPolygon in plan coordinates, clipped to the roof; empty when
+        every roof pixel has data.
+    """
+    from rasterio.features import shapes
+    from affine import Affine
+
+    surface = result.surface_c if factor <= 1 else decimate(result.surface_c, factor)
+    nodata = ~np.isfinite(surface)
+    if not nodata.any() or result.roof.is_empty:
+        return shapely.Polygon()
+    transform = result.grid.transform @ Affine.scale(max(factor, 1))
+    polys = [shapely.geometry.shape(g) for g, _ in
+             shapes(nodata.astype(np.uint8), mask=nodata, transform=transform, connectivity=4)]
+    area = shapely.union_all(np.asarray(polys, dtype=object)).intersection(result.roof)
+    parts = [p for p in shapely.get_parts(area) if isinstance(p, shapely.Polygon) and p.area > 0]
+    return shapely.MultiPolygon(parts) if parts else shapely.Polygon()
+
+
+# --------------------------------------------------------------------------------------
+# Coordinates
+# --------------------------------------------------------------------------------------
+
+
+class _Projection:
+    """Plan coordinates -> what Leaflet takes (lon/lat, or plan metres on CRS.Simple)."""
+
+    def __init__(self, crs: str | None):
+        self.crs = crs
+        if crs is None:
+            self._to_ll = None
+            self.digits = _PLAN_DIGITS
+        else:
+            from pyproj import Transformer
+
+            self._to_ll = Transformer.from_crs(crs, "EPSG:4326", always_xy=True)
+            self.digits = _GEO_DIGITS
+
+    @property
+    def local(self) -> bool:
+        return self._to_ll is None
+
+    def xy(self, xs: np.ndarray, ys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """GeoJSON coordinate order: ``(lon, lat)`` or ``(x, y)``."""
+        xs, ys = np.asarray(xs, dtype=float), np.asarray(ys, dtype=float)
+        if self._to_ll is not None:
+            xs, ys = self._to_ll.transform(xs, ys)
+        return np.round(xs, self.digits), np.round(ys, self.digits)
+
+    def geometry(self, geom: BaseGeometry) -> BaseGeometry:
+        def fn(coords: np.ndarray) -> np.ndarray:
+            x, y = self.xy(coords[:, 0], coords[:, 1])
+            return np.column_stack([x, y])
+
+        return shapely.transform(geom, fn)
+
+    def latlng_bounds(self, bounds: tuple[float, float, float, float]) -> list[list[float]]:
+        """Plan ``(xmin, ymin, xmax, ymax)`` -> ``[[south, west], [north, east]]`` of its corners."""
+        x0, y0, x1, y1 = bounds
+        xs, ys = self.xy(np.array([x0, x1, x1, x0]), np.array([y0, y0, y1, y1]))
+        return [[float(ys.min()), float(xs.min())], [float(ys.max()), float(xs.max())]]
+
+
+def _overlay(values: np.ndarray, result: "SurveyResult", factor: int, proj: _Projection
+             ) -> tuple[np.ndarray, list[list[float]]]:
+    """Decimated values placed for Leaflet: ``(array, [[south, west], [north, east]])``.
+
+    On a georeferenced survey the array is warped (nearest neighbour) onto a north-up
+    Web Mercator grid, the plane Leaflet draws in, so the image lines up with the
+    reprojected outlines; its bounds are given as longitude/latitude.
+    """
+    from affine import Affine
+
+    transform = result.grid.transform @ Affine.scale(factor)
+    rows, cols = values.shape
+    x0, y1 = transform.c, transform.f
+    x1, y0 = x0 + transform.a * cols, y1 + transform.e * rows
+    if proj.local:
+        return values, [[y0, x0], [y1, x1]]
+    from pyproj import Transformer
+    from rasterio.warp import Resampling, calculate_default_transform, reproject
+
+    dst_transform, width, height = calculate_default_transform(
+        result.grid.crs, "EPSG:3857", cols, rows, left=x0, bottom=y0, right=x1, top=y1)
+    out = np.full((height, width), np.nan, dtype=np.float32)
+    reproject(values.astype(np.float32), out, src_transform=transform, src_crs=result.grid.crs,
+              src_nodata=np.nan, dst_transform=dst_transform, dst_crs="EPSG:3857", dst_nodata=np.nan,
+              resampling=Resampling.nearest)
+    mx0, my1 = dst_transform.c, dst_transform.f
+    mx1, my0 = mx0 + dst_transform.a * width, my1 + dst_transform.e * height
+    lons, lats = Transformer.from_crs("EPSG:3857", "EPSG:4326", always_xy=True).transform([mx0, mx1], [my0, my1])
+    return out, [[lats[0], lons[0]], [lats[1], lons[1]]]
+
+
+# --------------------------------------------------------------------------------------
+# Text helpers
+# --------------------------------------------------------------------------------------
+
+
+def _esc(value: Any) -> str:
+    return html.escape("" if value is None else str(value))
+
+
+def _num(value: float | None, fmt: str, unit: str = "") -> str:
+    if value is None or (isinstance(value, float) and not math.isfinite(value)):
+        return "n/a"
+    return f"{value:{fmt}}{unit}"
+
+
+def _sq(value: float) -> str:
+    return f"{value:,.2f} m²"
+
+
+def _status_words(status: str) -> str:
+    return {"wet": "wet (confirmed by a core)", "dry": "dry (refuted: cores inside all dry)",
+            "unverified": "unverified (no core inside)"}.get(status, status)
+
+
+def _counted_statuses(result: "SurveyResult") -> set[str]:
+    return {"wet", "unverified"} if result.survey.repair.include_unverified else {"wet"}
+
+
+def _core_basis(result: "SurveyResult", i: int) -> str:
+    c = result.confirmations
+    basis = c.basis[i]
+    value = c.values[i]
+    if basis == "result" or not np.isfinite(value):
+        return "core result (wet/dry as entered)"
+    if basis == "moisture_pct":
+        limit = result.survey.cores.wet_above_pct if result.survey.cores else None
+        return f"moisture {value:g} % by weight (wet above {_num(limit, 'g', ' %')})"
+    limit = result.survey.cores.wet_above if result.survey.cores else None
+    return f"meter reading {value:g} (wet above {_num(limit, 'g')})"
+
+
+# --------------------------------------------------------------------------------------
+# Leaflet assets and the page furniture
+# --------------------------------------------------------------------------------------
+
+
+@lru_cache(maxsize=1)
+def _leaflet_assets() -> tuple[str, str]:
+    """Leaflet's JS and CSS from the vendored copy, CSS images as data URIs."""
+    base = resources.files("wetmap.export").joinpath(_ASSETS)
+    try:
+        js = base.joinpath("leaflet.js").read_text(encoding="utf-8")
+        css = base.joinpath("leaflet.css").read_text(encoding="utf-8")
+
+        def inline(match: re.Match) -> str:
+            data = base.joinpath(match.group(1)).read_bytes()
+            return f"url({png_data_uri(data)})"
+
+        css = re.sub(r"url\((images/[\w.-]+\.png)\)", inline, css)
+    except (FileNotFoundError, OSError) as err:
+        raise ProcessingError(
+            f"wetmap/export/{_ASSETS}: Leaflet's files are missing from the installation ({err}); "
+            "reinstall wetmap (pip install --force-reinstall wetmap)"
+        ) from err
+    js = re.sub(r"//# sourceMappingURL=\S+\s*$", "", js)  # no map file travels with the page
+    return js.replace("</script", "<\\/script"), css
+
+
+_PAGE_CSS = """
+html, body { display: flex; flex-direction: column; }
+.folium-map { flex: 1 1 auto; height: auto !important; min-height: 0; }
+.wetmap-header { flex: none; padding: 5px 12px 6px; background: #ffffff; border-bottom: 2px solid #000000;
+  font: 13px/1.35 system-ui, -apple-system, "Segoe UI", Roboto, "DejaVu Sans", sans-serif; color: #111; }
+.wetmap-header h1 { font-size: 17px; margin: 0 12px 0 0; display: inline; white-space: nowrap; }
+.wetmap-header .facts span { margin-right: 14px; white-space: nowrap; }
+.wetmap-header .note { font-size: 12px; color: #333; }
+.wetmap-panel { background: #ffffff; padding: 5px 8px; border-radius: 5px;
+  box-shadow: 0 1px 5px rgba(0,0,0,0.4); font: 12px/1.3 system-ui, -apple-system, "Segoe UI", Roboto,
+  "DejaVu Sans", sans-serif; color: #111; max-width: 300px; }
+.wetmap-panel summary { font-weight: bold; cursor: pointer; }
+.wetmap-legend .row { display: flex; align-items: center; gap: 6px; margin: 1px 0; }
+.wetmap-legend svg { flex: none; }
+.wetmap-legend img { display: block; margin: 2px 0; }
+.wetmap-legend .note { margin-top: 3px; font-size: 11px; color: #333; }
+.leaflet-control-layers { font-size: 12px; }
+.wetmap-label { background: rgba(255,255,255,0.88); border: 1px solid #555; padding: 0 3px;
+  font: bold 11px/1.2 system-ui, sans-serif; box-shadow: none; }
+.leaflet-container { background: #f4f4f4; }
+.foliumpopup th { text-align: left; padding-right: 8px; }
+"""
+
+
+def _line_sample(colour: str, dash: str | None, *, width: int = 3, fill: str | None = None) -> str:
+    dash_attr = f' stroke-dasharray="{dash}"' if dash else ""
+    if fill is not None:
+        return (f'<svg width="28" height="14"><rect x="2" y="2" width="24" height="10" fill="{fill}" '
+                f'fill-opacity="0.6" stroke="{colour}" stroke-width="{width}"{dash_attr}/></svg>')
+    return (f'<svg width="28" height="14"><line x1="1" y1="7" x2="27" y2="7" stroke="{colour}" '
+            f'stroke-width="{width}"{dash_attr}/></svg>')
+
+
+def _disc_sample(fill: str, ring: str, ring_px: int) -> str:
+    return (f'<svg width="28" height="14"><circle cx="14" cy="7" r="5" fill="{fill}" stroke="{ring}" '
+            f'stroke-width="{ring_px}"/></svg>')
+
+
+def _header_html(result: "SurveyResult", summary: dict[str, Any]) -> str:
+    """The title block: site, date, survey, conditions, camera, threshold, what was found."""
+    s, c = result.survey.survey, result.survey.conditions
+    facts: list[str] = []
+    if s.site:
+        facts.append(f"<b>Site</b> {_esc(s.site)}")
+    if s.date:
+        facts.append(f"<b>Date</b> {_esc(s.date)}")
+    kind = "hull side" + (f" ({s.side})" if s.side else "") if s.kind == "hull" else "roof"
+    facts.append(f"<b>Survey</b> {_esc(kind)}, plan {_esc('in local metres' if s.is_local else s.crs)}")
+    cond = [f"air {c.air_c:g} °C", f"RH {c.humidity_pct:g} %"]
+    if c.wind_m_s is not None:
+        cond.append(f"wind {c.wind_m_s:g} m/s")
+    if c.sky:
+        cond.append(f"sky {c.sky}")
+    if c.time is not None:
+        cond.append(f"at {c.time.strftime('%H:%M')}" + (f" (sunset {c.sunset.strftime('%H:%M')})" if c.sunset else ""))
+    facts.append(f"<b>Conditions</b> {_esc(', '.join(cond))}")
+    r = result.radiometry
+    how = "measured" if r.reflected_source.startswith("measured") else "estimated"
+    facts.append(f"<b>Camera</b> ε {r.emissivity:g}, reflected {r.reflected_c:.1f} °C ({how})")
+    facts.append(f"<b>Threshold</b> ΔT &gt; {result.detection.threshold_c:g} °C above the dry background")
+    found = (f"<b>Found</b> {summary['anomaly_count']} anomalies: wet {_sq(summary['confirmed_wet_area_m2'])}, "
+             f"unverified {_sq(summary['unverified_area_m2'])}, dry {_sq(summary['confirmed_dry_area_m2'])}; "
+             f"repair outline {_sq(summary['repair_area_m2'])}")
+    n_warn = len(summary.get("warnings", []))
+    warn = f"; <b>{n_warn} warning{'s' if n_warn != 1 else ''}</b> (see report.html)" if n_warn else ""
+    return (f'<div class="wetmap-header"><h1>{_esc(s.title)}</h1><span class="facts">'
+            + " ".join(f"<span>{f}</span>" for f in facts) + "</span>"
+            f"<div>{found}{warn}. <span class=\"note\">Apparent thermal anomalies, not measured moisture: "
+            "verify by coring before any repair decision.</span></div></div>")
+
+
+def _legend_html(bars: list[tuple[str, bytes]], result: "SurveyResult") -> str:
+    parts = ["<details open><summary>Legend</summary><b>Anomalies</b>"]
+    for status, st in STATUS_STYLES.items():
+        parts.append(f'<div class="row">{_line_sample(st.colour, st.dash)}<span>{_esc(st.label)}</span></div>')
+    if len(result.confirmations):
+        parts.append("<b>Cores and readings</b>")
+        parts.append(f'<div class="row">{_disc_sample(CORE_COLOURS["wet"], "#000000", 1)}<span>judged wet</span></div>')
+        parts.append(f'<div class="row">{_disc_sample("#FFFFFF", CORE_COLOURS["dry"], 3)}<span>judged dry</span></div>')
+    if getattr(result, "suggested_cores", ()):
+        if not len(result.confirmations):
+            parts.append("<b>Cores and readings</b>")
+        parts.append(f'<div class="row">{_disc_sample("#F0E442", "#000000", 2)}<span>suggested next core</span></div>')
+    parts.append("<b>Plan</b>")
+    parts.append(f'<div class="row">{_line_sample(LAYER_COLOURS["repair"], "6 4", width=2)}'
+                 f"<span>repair outline (margin {result.survey.repair.margin_m:g} m)</span></div>")
+    if result.takeoff.count:
+        parts.append(f'<div class="row">{_line_sample(LAYER_COLOURS["boards"], None, width=1)}'
+                     "<span>whole boards replaced</span></div>")
+    if not result.exclusions.is_empty:
+        parts.append(f'<div class="row">{_line_sample("#666666", None, width=1, fill=LAYER_COLOURS["exclusions"])}'
+                     "<span>exclusions (not surveyed)</span></div>")
+    if result.coverage.get("uncovered_m2", 0.0) > 0:
+        parts.append(f'<div class="row">{_line_sample("#777777", "3 3", width=1, fill=LAYER_COLOURS["uncovered"])}'
+                     "<span>no thermal data (not surveyed, not dry)</span></div>")
+    for label, png in bars:
+        from PIL import Image
+
+        w, h = Image.open(io.BytesIO(png)).size
+        parts.append(f'<img alt="{_esc(label)}" src="{png_data_uri(png)}" width="{w}" height="{h}">')
+    parts.append('<div class="note">Colours: cividis thermal scale, Okabe-Ito status colours.</div></details>')
+    return "".join(parts)
+
+
+# --------------------------------------------------------------------------------------
+# GeoJSON layers
+# --------------------------------------------------------------------------------------
+
+
+def _feature(geom: BaseGeometry, proj: _Projection, fid: str, props: dict[str, Any]) -> dict[str, Any]:
+    return {"type": "Feature", "id": fid, "geometry": mapping(proj.geometry(geom)), "properties": props}
+
+
+def _collection(features: list[dict[str, Any]]) -> dict[str, Any]:
+    return {"type": "FeatureCollection", "features": features}
+
+
+def _polygon_parts(geom: BaseGeometry) -> list[BaseGeometry]:
+    if geom is None or geom.is_empty:
+        return []
+    return [p for p in shapely.get_parts(geom) if p.geom_type in ("Polygon", "MultiPolygon") and p.area > 0]
+
+
+def _add_geojson(parent, name: str, features: list[dict[str, Any]], style: Callable[[dict], dict], *,
+                 show: bool = True, popup: tuple[list[str], list[str]] | None = None,
+                 tooltip: str | None = None, permanent_tooltip: bool = False, marker=None) -> None:
+    """One toggleable layer (an empty, named group when there is nothing to draw)."""
+    import folium
+
+    if not features:
+        folium.FeatureGroup(name=name, show=show).add_to(parent)
+        return
+    label_each = None
+    if tooltip is not None and permanent_tooltip:  # one label per feature (a group's tooltip is a single one)
+        from folium.utilities import JsCode
+
+        label_each = JsCode("function (feature, layer) { layer.bindTooltip(String(feature.properties["
+                            + json.dumps(tooltip) + "]), {permanent: true, direction: 'right', offset: [7, 0], "
+                            "className: 'wetmap-label'}); }")
+    layer = folium.GeoJson(_collection(features), name=name, show=show, style_function=style, marker=marker,
+                           smooth_factor=0.5, on_each_feature=label_each)
+    if popup is not None:
+        folium.GeoJsonPopup(fields=popup[0], aliases=popup[1], labels=True, localize=False,
+                            max_width=360).add_to(layer)
+    if tooltip is not None and not permanent_tooltip:
+        folium.GeoJsonTooltip(fields=[tooltip], labels=False, localize=False, sticky=True).add_to(layer)
+    layer.add_to(parent)
+
+
+# --------------------------------------------------------------------------------------
+# The map
+# --------------------------------------------------------------------------------------
+
+
+def _furniture_class():
+    from branca.element import MacroElement
+    from jinja2 import Template
+
+    class _Furniture(MacroElement):
+        """The metric scale bar, then Leaflet controls holding our HTML panels.
+
+        In a bottom corner Leaflet stacks each new control above the earlier ones, so a
+        legend placed bottom-left sits above the scale bar.
+        """
+
+        _template = Template("""
+            {% macro script(this, kwargs) %}
+            (function (map) {
+              L.control.scale({metric: true, imperial: false, maxWidth: 220, position: "bottomleft"}).addTo(map);
+              {% for position, cls, content in this.panels %}
+              (function () {
+                var c = L.control({position: {{ position|tojson }}});
+                c.onAdd = function () {
+                  var d = L.DomUtil.create("div", {{ cls|tojson }});
+                  d.innerHTML = {{ content|tojson }};
+                  L.DomEvent.disableClickPropagation(d);
+                  L.DomEvent.disableScrollPropagation(d);
+                  return d;
+                };
+                c.addTo(map);
+              })();
+              {% endfor %}
+            })({{ this._parent.get_name() }});
+            {% endmacro %}
+        """)
+
+        def __init__(self, panels: list[tuple[str, str, str]]):
+            super().__init__()
+            self._name = "WetmapFurniture"
+            self.panels = panels
+
+    return _Furniture
+
+
+def remote_references(page: str) -> list[str]:
+    """``src``/``href`` attributes of script, link, img and iframe tags that load from a network.
+
+    Examples
+    --------
+    >>> remote_references('<script src="https://x.org/a.js"></script><img src="data:image/png;base64,AA">')
+    ['https://x.org/a.js']
+    >>> remote_references('<link rel="stylesheet" href="//cdn.example/a.css">')
+    ['//cdn.example/a.css']
+    """
+    pattern = re.compile(r"<(?:script|link|img|iframe|source|embed)\b[^>]*?\b(?:src|href)\s*=\s*[\"']?"
+                         r"((?:https?:)?//[^\"'\s>]+)", re.IGNORECASE)
+    return pattern.findall(page)
+
+
+def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribution: str | None = None,
+              max_overlay_px: int = 2048) -> str:
+    """The text of ``map.html`` for ``result``.
+
+    Parameters
+    ----------
+    result
+        The run's results.
+    tiles
+        Optional background tile map: a Leaflet URL template (``.../{z}/{x}/{y}.png``).
+        Off by default; with it the background (only) needs a network. Ignored for
+        ``local`` plans, which have no geographic position.
+    tiles_attribution
+        Attribution text the tile provider requires (required with ``tiles``).
+    max_overlay_px
+        Longest side of the embedded thermal images, pixels; larger grids are averaged
+        down by whole-pixel blocks.
+
+    Returns
+    -------
+    str
+        A self-contained HTML page (UTF-8).
+    """
+    import folium
+    from branca.element import Element, Figure
+
+    if tiles is not None and not tiles_attribution:
+        raise ProcessingError(f"map.html: tiles={tiles!r} needs tiles_attribution (the provider's required credit)")
+    if max_overlay_px < 16:
+        raise ProcessingError(f"map.html: max_overlay_px = {max_overlay_px}: expected at least 16 pixels")
+
+    summary = result.summary()
+    survey = result.survey.survey
+    proj = _Projection(None if survey.is_local else result.grid.crs)
+    rows, cols = result.grid.shape
+    factor = max(1, math.ceil(max(rows, cols) / max_overlay_px))
+
+    # Thermal overlays and their colour ranges (robust range over the usable roof pixels).
+    # Thermal overlays (averaged down to max_overlay_px) and their robust colour ranges,
+    # taken over the usable roof pixels (where delta-T is defined).
+    small_surface = decimate(result.surface_c, factor)
+    small_delta = decimate(result.detection.delta_c, factor)
+    usable = np.isfinite(small_delta)
+    s_lo, s_hi = display_range(small_surface[usable] if usable.any() else small_surface)
+    d_lo, d_hi = display_range(small_delta)
+    d_lo = min(d_lo, -result.detection.threshold_c)
+    d_hi = max(d_hi, 2.0 * result.detection.threshold_c)
+
+    fig = Figure(title=html.escape(f"{survey.title}: thermal survey map (wetmap)"))
+    header = Element("{{ this.text }}")
+    header.text = _header_html(result, summary)
+    fig.html.add_child(header, name="wetmap_header")  # before the map, so it sits above it
+    if proj.local:
+        m = folium.Map(location=[0.0, 0.0], tiles=None, crs="Simple", zoom_start=0, control_scale=False,
+                       zoomSnap=0.25, zoomDelta=0.5, minZoom=-8, maxZoom=10)
+    else:
+        m = folium.Map(location=[0.0, 0.0], tiles=None, crs="EPSG3857", zoom_start=2, control_scale=False,
+                       zoomSnap=0.25, zoomDelta=0.5, maxZoom=26)
+        if tiles is not None:
+            folium.TileLayer(tiles=tiles, attr=tiles_attribution, name="Background map", max_zoom=26,
+                             max_native_zoom=19, overlay=False).add_to(m)
+    m.default_js = []  # Leaflet is inlined below; nothing else is loaded
+    m.default_css = []
+    m.add_to(fig)
+
+    bars: list[tuple[str, bytes]] = []
+    for name, values, lo, hi, show, cls in (
+        ("Surface temperature, °C", small_surface, s_lo, s_hi, True, "wetmap-overlay wetmap-surface"),
+        ("ΔT above the dry background, °C", small_delta, d_lo, d_hi, False, "wetmap-overlay wetmap-delta"),
+    ):
+        placed, bounds = _overlay(values, result, factor, proj)
+        uri = png_data_uri(png_bytes(colourise(placed, vmin=lo, vmax=hi)))
+        folium.raster_layers.ImageOverlay(image=uri, bounds=bounds, name=name, show=show, opacity=0.95,
+                                          interactive=False, pixelated=True, className=cls).add_to(m)
+        bars.append((name, colour_bar_png(lo, hi, label=name)))
+
+    # Uncovered roof, exclusions, outline, sections.
+    uncovered = uncovered_area(result, factor=factor) if result.coverage.get("uncovered_m2", 0.0) > 0 else None
+    if uncovered is not None:
+        feats = [_feature(p, proj, f"u{i}", {"label": f"no thermal data: not surveyed, not dry ({p.area:,.1f} m²)"})
+                 for i, p in enumerate(_polygon_parts(uncovered))]
+        _add_geojson(m, "No thermal data (not surveyed)", feats, lambda f: {
+            "color": "#777777", "weight": 1, "dashArray": "3 3", "fillColor": LAYER_COLOURS["uncovered"],
+            "fillOpacity": 0.75, "className": "wetmap-uncovered"}, tooltip="label")
+    feats = [_feature(p, proj, f"x{i}", {"label": f"exclusion ({p.area:,.1f} m²): not surveyed"})
+             for i, p in enumerate(_polygon_parts(result.exclusions))]
+    _add_geojson(m, "Exclusions", feats, lambda f: {
+        "color": "#666666", "weight": 1, "fillColor": LAYER_COLOURS["exclusions"], "fillOpacity": 0.8,
+        "className": "wetmap-exclusion"}, tooltip="label")
+    outline_name = "Hull side outline" if survey.kind == "hull" else "Roof outline"
+    _add_geojson(m, outline_name, [_feature(result.outline, proj, "outline", {})], lambda f: {
+        "color": LAYER_COLOURS["outline"], "weight": 2, "fill": False, "interactive": False,
+        "className": "wetmap-outline"})
+    totals = {t["name"]: t for t in summary.get("sections", [])}
+    feats = []
+    for i, sec in enumerate(result.sections):
+        t = totals.get(sec.name, {})
+        feats.append(_feature(sec.geometry, proj, f"s{i}", {
+            "name": _esc(sec.name), "assembly": _esc(sec.assembly or "not given"),
+            "insulation": _esc(sec.insulation or "not given"),
+            "area": _sq(t["area_m2"]) if "area_m2" in t else "n/a",
+            "wet": _sq(t["wet_area_m2"]) if "wet_area_m2" in t else "n/a",
+            "fraction": _num(100 * t["wet_fraction"], ".1f", " %") if t.get("wet_fraction") is not None else "n/a",
+            "label": _esc(f"section {sec.name}"),
+        }))
+    _add_geojson(m, "Sections", feats, lambda f: {
+        "color": LAYER_COLOURS["sections"], "weight": 1, "dashArray": "10 4 2 4", "fill": True,
+        "fillOpacity": 0.0, "className": "wetmap-section"},
+        popup=(["name", "assembly", "insulation", "area", "wet", "fraction"],
+               ["Section", "Assembly", "Insulation", "Area", "Wet area", "Wet fraction"]))
+
+    # Repair outlines and boards.
+    feats = [_feature(p, proj, f"r{i}", {"label": f"repair outline {i + 1}: {_sq(p.area)}"})
+             for i, p in enumerate(_polygon_parts(result.repair))]
+    _add_geojson(m, f"Repair outline (margin {result.survey.repair.margin_m:g} m)", feats, lambda f: {
+        "color": LAYER_COLOURS["repair"], "weight": 2, "dashArray": "6 4", "fillColor": "#000000",
+        "fillOpacity": 0.05, "className": "wetmap-repair"}, tooltip="label")
+    board_m = result.survey.repair.board_m
+    feats = [_feature(b, proj, f"b{i}", {"label": f"board {i + 1}"}) for i, b in enumerate(result.takeoff.boards)]
+    board_words = f"{board_m[0]:g} x {board_m[1]:g} m" if board_m else ""
+    _add_geojson(m, f"Whole boards ({result.takeoff.count} x {board_words})".replace(" x )", ")"), feats, lambda f: {
+        "color": LAYER_COLOURS["boards"], "weight": 1, "fillOpacity": 0.0, "className": "wetmap-board"},
+        show=False)
+
+    # Anomalies, one layer per status.
+    counted = _counted_statuses(result)
+    fields = ["anomaly", "status", "area", "perimeter", "delta_mean", "delta_max", "confirmations", "section",
+              "counted"]
+    aliases = ["Anomaly", "Status", "Area", "Perimeter", "Mean ΔT", "Max ΔT", "Confirmations", "Section",
+               "Counted in repair"]
+    for status, st in STATUS_STYLES.items():
+        feats = [
+            _feature(a.geometry, proj, f"a{a.id}", {
+                "anomaly": a.id, "status": _esc(_status_words(a.status)), "area": _sq(a.area_m2),
+                "perimeter": f"{a.perimeter_m:,.2f} m", "delta_mean": _num(a.delta_mean_c, "+.2f", " °C"),
+                "delta_max": _num(a.delta_max_c, "+.2f", " °C"),
+                "confirmations": _esc(", ".join(a.confirmations) or "none"), "section": _esc(a.section or "none"),
+                "counted": "yes" if a.status in counted else "no", "label": f"anomaly {a.id} ({a.status})",
+            })
+            for a in result.anomalies if a.status == status
+        ]
+
+        def style(f: dict, st: StatusStyle = st, status: str = status) -> dict:
+            out = {"color": st.colour, "weight": 3, "fillColor": st.colour, "fillOpacity": 0.12,
+                   "className": f"wetmap-anomaly wetmap-{status}"}
+            if st.dash:
+                out["dashArray"] = st.dash
+            return out
+
+        _add_geojson(m, f"Anomalies: {status} ({len(feats)})", feats, style, popup=(fields, aliases),
+                     tooltip="label")
+
+    # Cores and readings.
+    conf = result.confirmations
+    if len(conf):
+        xs, ys = proj.xy(conf.xs, conf.ys)
+        feats = []
+        for i, cid in enumerate(conf.ids):
+            judged = "wet" if conf.wet[i] else "dry"
+            anomaly = int(result.verdicts.anomaly_of[i])
+            props = {
+                "id": _esc(cid), "judged": judged, "basis": _esc(_core_basis(result, i)),
+                "delta": _num(float(result.confirmation_delta_c[i]), "+.2f", " °C"),
+                "anomaly": f"anomaly {anomaly + 1}" if anomaly >= 0 else "outside every anomaly",
+                "label": _esc(cid),
+            }
+            for k, v in conf.extra.items():
+                props[f"extra_{k}"] = _esc(v[i]) if v[i] not in ("", None) else "-"
+            feats.append({"type": "Feature", "id": f"c{i}", "properties": props,
+                          "geometry": {"type": "Point", "coordinates": [float(xs[i]), float(ys[i])]}})
+        extra = list(conf.extra)
+
+        def core_style(f: dict) -> dict:
+            wet = f["properties"]["judged"] == "wet"
+            return {"radius": 6, "weight": 1 if wet else 3, "fill": True, "color": "#000000" if wet else CORE_COLOURS["dry"],
+                    "fillColor": CORE_COLOURS["wet"] if wet else "#FFFFFF", "fillOpacity": 1.0, "opacity": 1.0,
+                    "className": f"wetmap-core wetmap-core-{f['properties']['judged']}"}
+
+        _add_geojson(m, f"Cores and readings ({len(conf)})", feats, core_style,
+                     popup=(["id", "judged", "basis", "delta", "anomaly", *[f"extra_{k}" for k in extra]],
+                            ["Core / reading", "Judged", "Basis", "ΔT there", "Lies in", *extra]),
+                     tooltip="label", permanent_tooltip=len(conf) <= 25, marker=folium.CircleMarker(radius=6))
+
+    # Where a further core would help most (added by the confirmation stage when it has any).
+    suggested = tuple(getattr(result, "suggested_cores", ()) or ())
+    if suggested:
+        xs, ys = proj.xy(np.array([float(getattr(c, "x", np.nan)) for c in suggested]),
+                         np.array([float(getattr(c, "y", np.nan)) for c in suggested]))
+        feats = [{"type": "Feature", "id": f"k{i}", "geometry": {"type": "Point", "coordinates": [float(x), float(y)]},
+                  "properties": {"n": f"suggested core {i + 1}", "why": _esc(getattr(c, "reason", "") or "-"),
+                                 "label": f"suggested core {i + 1}"}}
+                 for i, (c, x, y) in enumerate(zip(suggested, xs, ys)) if np.isfinite(x) and np.isfinite(y)]
+        _add_geojson(m, f"Suggested next cores ({len(feats)})", feats, lambda f: {
+            "radius": 7, "weight": 2, "dashArray": "3 3", "color": "#000000", "fill": True, "fillColor": "#F0E442",
+            "fillOpacity": 0.9, "className": "wetmap-suggested"},
+            popup=(["n", "why"], ["Suggestion", "Why here"]), tooltip="label", marker=folium.CircleMarker(radius=7))
+
+    # Legend, scale bar, layer list; fit to the outline.
+    m.add_child(_furniture_class()([("bottomleft", "wetmap-panel wetmap-legend", _legend_html(bars, result))]))
+    folium.LayerControl(collapsed=False, position="topright").add_to(m)
+    # Room for the legend (left) and the layer list (right) when the page opens.
+    m.fit_bounds(proj.latlng_bounds(result.outline.bounds), padding_top_left=(250, 12),
+                 padding_bottom_right=(250, 12))
+
+    css = Element("{{ this.text }}")
+    css.text = f"<style>{_PAGE_CSS}</style>"
+    fig.header.add_child(css, name="wetmap_css")
+    page = fig.render()
+    js, css = _leaflet_assets()
+    inline = (f"\n<!-- Leaflet 1.9.4, BSD 2-Clause licence (c) 2010-2023 Volodymyr Agafonkin, "
+              f"(c) 2010-2011 CloudMade -->\n<style>{css}</style>\n<script>{js}</script>\n")
+    head = re.search(r"<head[^>]*>", page)
+    if head is None:  # pragma: no cover - folium always writes a head
+        raise ProcessingError("map.html: the page folium rendered has no <head>; this is a wetmap bug, please report it")
+    page = page[: head.end()] + inline + page[head.end():]
+    page = page.replace("<html>", '<html lang="en">', 1)
+    remote = remote_references(page)
+    if remote:
+        raise ProcessingError(f"map.html: the page would load {remote[0]} from the network; "
+                              "this is a wetmap bug, please report it")
+    return page
+
+
+def write_map(result: "SurveyResult", path: Path, *, tiles: str | None = None,
+              tiles_attribution: str | None = None, max_overlay_px: int = 2048) -> None:
+    """Write ``map.html`` (see :func:`build_map` for the options)."""
+    page = build_map(result, tiles=tiles, tiles_attribution=tiles_attribution, max_overlay_px=max_overlay_px)
+    Path(path).write_text(page, encoding="utf-8")
