@@ -375,14 +375,23 @@ def _surface_lookup(*, band_um: tuple[float, float], emissivity: float, reflecte
     Linear interpolation on it adds less than 1e-6 K to the table's own error.
     """
     table = band_table(band_um)
-    lm = table.radiance.copy()
-    lm -= transmittance * (1.0 - emissivity) * float(table.radiance_of(reflected_k))
-    if transmittance != 1.0:
-        lm -= (1.0 - transmittance) * float(table.radiance_of(atmosphere_k))
-    lm /= transmittance * emissivity
-    values = table.temperature_of(np.where(lm > 0.0, lm, np.nan))
+    values = _invert_equation(table, table.temps_k, emissivity=emissivity, reflected_k=reflected_k,
+                              transmittance=transmittance, atmosphere_k=atmosphere_k)
     values.setflags(write=False)
     return values
+
+
+def _invert_equation(table: BandTable, app: np.ndarray, *, emissivity: float | np.ndarray,
+                     reflected_k: float | np.ndarray, transmittance: float | np.ndarray,
+                     atmosphere_k: float | np.ndarray) -> np.ndarray:
+    """Surface temperature (K) from apparent temperature ``app`` (K): the measurement equation
+    solved for ``L(T_s)``, then the table's inverse; NaN where the radiance left is <= 0."""
+    lm = np.asarray(table.radiance_of(app))
+    lm -= transmittance * (1.0 - emissivity) * table.radiance_of(reflected_k)
+    if not (isinstance(transmittance, float) and transmittance == 1.0):
+        lm -= (1.0 - transmittance) * table.radiance_of(atmosphere_k)
+    lm /= transmittance * emissivity
+    return table.temperature_of(np.where(lm > 0.0, lm, np.nan))
 
 
 def _read_uniform(x: np.ndarray, values: np.ndarray) -> np.ndarray:
@@ -466,21 +475,7 @@ def surface_from_apparent(
             out[idx] = _read_uniform(data[idx], lookup)
         return out
 
-    def convert(
-        app: np.ndarray,
-        emissivity: float | np.ndarray,
-        reflected_k: float | np.ndarray,
-        transmittance: float | np.ndarray,
-        atmosphere_k: float | np.ndarray,
-    ) -> np.ndarray:
-        lm = np.asarray(table.radiance_of(app))
-        lm -= transmittance * (1.0 - emissivity) * table.radiance_of(reflected_k)
-        if not (isinstance(transmittance, float) and transmittance == 1.0):
-            lm -= (1.0 - transmittance) * table.radiance_of(atmosphere_k)
-        lm /= transmittance * emissivity
-        return table.temperature_of(np.where(lm > 0.0, lm, np.nan))
-
-    return _run_blocks(convert, data, out, params)
+    return _run_blocks(functools.partial(_invert_equation, table), data, out, params)
 
 
 def apparent_from_surface(
