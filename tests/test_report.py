@@ -230,3 +230,18 @@ def test_report_without_cores(sample_run):
     assert "No cores or readings were given" in page
     assert len(re.findall(r'class="anomaly" data-status="unverified"', page)) == len(result.anomalies)
     assert webmap.remote_references(webmap.build_map(bare)) == []
+
+
+def test_report_shows_threshold_check_range_and_suggested_cores(sample_run):
+    """Issue: the report shows the wet-area range, the threshold check and the suggestions,
+    with the same figures as summary.json."""
+    result, out = sample_run[0], sample_run[1]
+    page = (out / "report.html").read_text(encoding="utf-8")
+    summary = json.loads((out / "summary.json").read_text())
+    assert "id='threshold-check'" in page
+    lo, hi = summary["threshold_check"]["range_c"]
+    assert f"{lo:+.2f} to {hi:+.2f} °C" in page
+    r = summary["wet_area_range"]
+    assert f"{r['low_m2']:,.2f} to {r['high_m2']:,.2f} m²" in page
+    rows = re.findall(r"<tr><td class='num'>\d+</td>", page.split("id='suggested-cores'")[1].split("</table>")[0])
+    assert len(rows) == len(summary["suggested_cores"]) > 0

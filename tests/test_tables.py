@@ -232,3 +232,16 @@ def test_local_geojson_and_gpkg_are_equal(tmp_path):
     assert result.summary()["boards"] == 64
     s = json.loads((tmp_path / "results" / "summary.json").read_text(encoding="utf-8"))
     assert s["outside_sections"]["name"] == OUTSIDE_SECTIONS
+
+
+def test_quantities_carry_the_wet_area_range(plain):
+    """The range rows of quantities.csv equal summary.json's wet_area_range_m2 and bracket the
+    likely (counted) wet area."""
+    _, out = plain
+    rows = read_csv(out / "quantities.csv")
+    summary = json.loads((out / "summary.json").read_text())
+    rng = {r["status"]: float(r["wet_area_m2"]) for r in rows if r["row"] == "range"}
+    low, high = summary["wet_area_range_m2"]
+    assert rng["low end"] == pytest.approx(low, abs=0.001)
+    assert rng["high end"] == pytest.approx(high, abs=0.001)
+    assert low <= summary["wet_area_m2"] <= high

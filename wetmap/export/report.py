@@ -71,6 +71,7 @@ _SHOWN_KEYS = frozenset({
     "title", "kind", "crs", "side", "roof_area_m2", "anomaly_count", "wet_area_m2", "confirmed_wet_area_m2",
     "unverified_area_m2", "confirmed_dry_area_m2", "wet_fraction", "repair_area_m2", "boards", "board_area_m2",
     "tearoff_area_m2", "warnings", "sections", "coverage", "confirmations", "method", "wetmap_version",
+    "wet_area_range_m2", "wet_area_range", "threshold_check", "suggested_cores",
 })
 
 
@@ -433,6 +434,11 @@ def _key_figures(s: dict[str, Any]) -> str:
         ("Wet, confirmed by cores", _cell(s["confirmed_wet_area_m2"], "confirmed_wet_area_m2", suffix=" m²")),
         ("Unverified (no core inside)", _cell(s["unverified_area_m2"], "unverified_area_m2", suffix=" m²")),
         ("Wet area (confirmed + unverified)", _cell(s["wet_area_m2"], "wet_area_m2", suffix=" m²")),
+        *([("Wet area, low end of the range the cores allow",
+             _cell(s["wet_area_range"]["low_m2"], "wet_area_range.low_m2", suffix=" m²")),
+            ("Wet area, high end of the range the cores allow",
+             _cell(s["wet_area_range"]["high_m2"], "wet_area_range.high_m2", suffix=" m²"))]
+          if s.get("wet_area_range") else []),
         ("Refuted: anomalies whose cores are all dry", _cell(s["confirmed_dry_area_m2"], "confirmed_dry_area_m2",
                                                              suffix=" m²")),
         ("Wet fraction of the surveyed area", _cell(100 * s["wet_fraction"], "wet_fraction", suffix=" %")),
@@ -688,6 +694,47 @@ def _confirmations(result: "SurveyResult") -> str:
     return f'<table id="cores" class="data"><thead>{head}</thead><tbody>{"".join(rows)}</tbody></table>'
 
 
+def _calibration(summary: dict[str, Any]) -> str:
+    """The threshold against the cores, the wet-area range and where the next cores are worth most."""
+    parts = []
+    t = summary.get("threshold_check")
+    if t:
+        c = t["confusion"]
+        lo, hi = t["range_c"]
+        by = t["range_bounded_by"]
+        parts.append(
+            "<table id='threshold-check' class='data'><tbody>"
+            f"<tr><th>Threshold used</th><td class='num'>ΔT &gt; {_fmt(t['chosen_c'], 'g')} °C</td></tr>"
+            f"<tr><th>Thresholds that fit the cores best</th><td class='num'>{_fmt(lo, '+.2f')} to "
+            f"{_fmt(hi, '+.2f')} °C (low side: {_esc(by[0])}; high side: {_esc(by[1])})</td></tr>"
+            f"<tr><th>Wet cores above / at or below the threshold</th><td class='num'>{c['wet_above']} / "
+            f"{c['wet_below']}</td></tr>"
+            f"<tr><th>Dry cores at or below / above the threshold</th><td class='num'>{c['dry_below']} / "
+            f"{c['dry_above']}</td></tr>"
+            f"<tr><th>Wet and dry cores separable</th><td>{'yes' if t['separable'] else 'no'}</td></tr>"
+            f"<tr><th>Cores the threshold gets wrong</th><td>{_esc(', '.join(t['misclassified']) or 'none')}"
+            "</td></tr></tbody></table>")
+    r = summary.get("wet_area_range")
+    if r:
+        parts.append(
+            f"<p id='area-range'>Wet area counted: <b>{_fmt(r['likely_m2'])} m²</b> at the threshold used; "
+            f"<b>{_fmt(r['low_m2'])} to {_fmt(r['high_m2'])} m²</b> across the thresholds the cores allow "
+            f"({_fmt(r['threshold_high_c'], '+.2f')} to {_fmt(r['threshold_low_c'], '+.2f')} °C), widened by the "
+            f"outline's own uncertainty of ±{_fmt(r['geometric_m2'])} m² (pixel size times perimeter). Quote the "
+            "range with the quantity: it is what the cores can support.</p>")
+    cores = summary.get("suggested_cores") or []
+    if cores:
+        rows = "".join(
+            f"<tr><td class='num'>{i}</td><td class='num'>{_fmt(c['x'])}</td><td class='num'>{_fmt(c['y'])}</td>"
+            f"<td>{_esc(c['kind'])}</td><td>{_esc(c['reason'])}</td></tr>" for i, c in enumerate(cores, 1))
+        parts.append(
+            "<h3>Where the next cores are worth most</h3><table id='suggested-cores' class='data'><thead><tr>"
+            "<th>No.</th><th>x (m)</th><th>y (m)</th><th>Kind</th><th>Why</th></tr></thead>"
+            f"<tbody>{rows}</tbody></table><p class='small'>Check for asbestos and services before coring; "
+            "seal every core hole the same day.</p>")
+    return "".join(parts)
+
+
 def _further(result: "SurveyResult", summary: dict[str, Any]) -> str:
     parts = []
     for key, value in summary.items():
@@ -832,8 +879,10 @@ def build_report(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> str:
         "<section id='s-anomalies'><h2>5. Anomalies</h2>", _anomaly_table(result, summary), "</section>",
         "<section id='s-quantities'><h2>6. Repair quantities</h2>", _quantities(result, summary), "</section>",
         "<section id='s-cores'><h2>7. Cores and readings</h2>", _confirmations(result), "</section>",
+        "<section id='s-calibration'><h2>8. Threshold check and wet-area range</h2>", _calibration(summary),
+        "</section>",
     ]
-    n = 8
+    n = 9
     if further:
         parts += [f"<section id='s-further'><h2>{n}. Further results</h2>", further, "</section>"]
         n += 1

@@ -7,6 +7,8 @@ what each row is:
 - ``section``: one per roof section, then ``(outside sections)`` for the part of the roof
   in no section (only when sections were given); these rows add up to the total row;
 - ``total``: the whole roof;
+- ``range``: ``low end`` and ``high end`` of the counted wet area (``wet_area_*``) across
+  the thresholds the cores allow, widened by the outline's uncertainty;
 - ``bill``: one per line of the bill of quantities (``bill_item``, ``bill_unit``,
   ``bill_quantity``, ``rate``, ``amount``, ``currency``), then ``bill total``.
 
@@ -143,6 +145,12 @@ def write_quantities(result: "SurveyResult", path: Path) -> None:
     converted(total, area=area, roof_area=roof_area, wet_area=by["wet"] + by["unverified"],
               repair_area=q.repair.area, tearoff_area=q.takeoff.tearoff_area_m2)
     rows.append(total)
+    ar = getattr(result, "area_range", None)
+    if ar is not None:  # the counted wet area's range across the thresholds the cores allow
+        for end, value in (("low end", ar.low_m2), ("high end", ar.high_m2)):
+            row = {"row": "range", "status": end}
+            converted(row, wet_area=value)
+            rows.append(row)
 
     bill = q.bill
     for line in bill.lines:
