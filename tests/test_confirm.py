@@ -112,7 +112,8 @@ def test_counted_mask_statuses_from_cores():
 
 def test_area_range_brackets_the_truth_and_the_band_is_the_rim():
     """Truth: the whole 20 x 20 px square is wet (a wet core at the centre, delta 3.0; a dry
-    core outside at 0). Cores allow t in [0, 3.0): at 2.9 only the 14 x 14 core counts."""
+    core outside at 0). Cores allow t in [0, 3.0), narrowed to the default spread around the
+    chosen 1.0: [0.5, 1.5]. At 1.5 only the 14 x 14 core counts; at 0.5 the whole square."""
     d = _square_field()
     check = threshold_check(("w", "d"), np.array([3.0, 0.0]), np.array([True, False]), chosen_c=1.0)
     px = 0.1

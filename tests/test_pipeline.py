@@ -300,3 +300,12 @@ def test_min_area_drops_small_anomalies(tmp_path):
     assert all(a.area_m2 >= 5.0 - 1e-9 for a in result.anomalies)
     assert not any(a.status == "unverified" for a in result.anomalies)  # the 3 m2 area is dropped
     assert math.isclose(result.survey.detect.min_area_m2, 5.0)
+
+
+def test_wet_area_range_brackets_the_truth(flown):
+    """The invented scenario's true wet area (96 m2) lies inside wet_area_range_m2."""
+    _, truth, result = flown
+    low, high = result.summary()["wet_area_range_m2"]
+    true_area = shapely.union_all(truth.wet).area
+    assert low <= true_area <= high
+    assert high - low < 0.5 * true_area  # and the range is informative, not the whole roof

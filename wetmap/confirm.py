@@ -302,9 +302,9 @@ def counted_wet_mask(delta_c: np.ndarray, threshold_c: float, *, min_pixels: int
 class AreaRange:
     """The counted wet area with its range (m2).
 
-    ``low_m2`` is the area at the high edge of the threshold range less the outline's
-    geometric uncertainty (pixel size times perimeter); ``high_m2`` the area at the low
-    edge plus it. ``likely_m2`` is the area at the chosen threshold.
+    ``low_m2`` is the area at the higher of :func:`area_thresholds` less the outline's
+    geometric uncertainty (pixel size times perimeter); ``high_m2`` the area at the lower
+    one plus it. ``likely_m2`` is the area at the chosen threshold.
     """
 
     likely_m2: float
@@ -315,25 +315,49 @@ class AreaRange:
     geometric_m2: float
 
 
+def area_thresholds(check: ThresholdCheck, *, spread_c: float = DEFAULT_THRESHOLD_SPREAD_C) -> tuple[float, float]:
+    """The thresholds ``(low, high)`` at which the wet-area range is taken.
+
+    The cores narrow the default spread around the chosen threshold, never widen it:
+    ``[max(low_c, chosen - spread), min(high_c, chosen + spread)]``. When the chosen
+    threshold lies farther than the spread outside the range the cores allow, the span
+    runs from the chosen threshold to the nearest threshold they allow.
+
+    >>> c = threshold_check(("w", "d"), np.array([3.0, 0.0]), np.array([True, False]), chosen_c=1.0)
+    >>> area_thresholds(c)
+    (0.5, 1.5)
+    >>> c = threshold_check(("w", "d"), np.array([2.4, 1.7]), np.array([True, False]), chosen_c=1.0)
+    >>> area_thresholds(c)
+    (1.0, 1.7)
+    """
+    chosen = check.chosen_c
+    low, high = max(check.low_c, chosen - spread_c), min(check.high_c, chosen + spread_c)
+    if low <= high:
+        return (low, high)
+    nearest = check.low_c if check.low_c > chosen else check.high_c
+    return (min(chosen, nearest), max(chosen, nearest))
+
+
 def wet_area_range(delta_c: np.ndarray, check: ThresholdCheck, *, likely_m2: float, perimeter_m: float,
                    pixel_m: float, min_pixels: int, core_rows: np.ndarray, core_cols: np.ndarray,
-                   core_wet: np.ndarray, include_unverified: bool = True) -> tuple[AreaRange, np.ndarray]:
-    """Wet area at both edges of the threshold range, widened by the outline's uncertainty.
+                   core_wet: np.ndarray, include_unverified: bool = True,
+                   spread_c: float = DEFAULT_THRESHOLD_SPREAD_C) -> tuple[AreaRange, np.ndarray]:
+    """Wet area at both edges of :func:`area_thresholds`, widened by the outline's uncertainty.
 
-    Returns the range and the *uncertain band*: pixels counted wet at the low edge but
-    not at the high edge (where a boundary core is worth most).
+    Returns the range and the *uncertain band*: pixels counted wet at the low threshold but
+    not at the high one (where a boundary core is worth most).
     """
+    t_low, t_high = area_thresholds(check, spread_c=spread_c)
     kw = dict(min_pixels=min_pixels, core_rows=core_rows, core_cols=core_cols, core_wet=core_wet,
               include_unverified=include_unverified)
-    wide = counted_wet_mask(delta_c, check.low_c, **kw)
-    # t < high_c: just below the lowest wet delta, so that core still counts as found
-    narrow = counted_wet_mask(delta_c, np.nextafter(check.high_c, -np.inf), **kw)
+    wide = counted_wet_mask(delta_c, t_low, **kw)
+    narrow = counted_wet_mask(delta_c, t_high, **kw)
     px = pixel_m * pixel_m
     geometric = pixel_m * perimeter_m
     low = max(0.0, min(float(narrow.sum()) * px, likely_m2) - geometric)
     high = max(float(wide.sum()) * px, likely_m2) + geometric
-    return (AreaRange(likely_m2=likely_m2, low_m2=low, high_m2=high, threshold_low_c=check.low_c,
-                      threshold_high_c=check.high_c, geometric_m2=geometric), wide & ~narrow)
+    return (AreaRange(likely_m2=likely_m2, low_m2=low, high_m2=high, threshold_low_c=t_low,
+                      threshold_high_c=t_high, geometric_m2=geometric), wide & ~narrow)
 
 
 @dataclass(frozen=True)

@@ -72,6 +72,7 @@ _SHOWN_KEYS = frozenset({
     "unverified_area_m2", "confirmed_dry_area_m2", "wet_fraction", "repair_area_m2", "boards", "board_area_m2",
     "tearoff_area_m2", "warnings", "sections", "coverage", "confirmations", "method", "wetmap_version",
     "wet_area_range_m2", "wet_area_range", "threshold_check", "suggested_cores",
+    "imagery", "reflection_suspect",  # shown under "Imagery checks" in the method section
 })
 
 
@@ -253,6 +254,9 @@ def thermal_figure(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> bytes:
     image = decimate(result.surface_c, factor)
     usable = np.isfinite(decimate(result.detection.delta_c, factor))  # the roof pixels with data
     lo, hi = display_range(image[usable] if usable.any() else image)
+    imagery = getattr(result, "imagery", None)
+    if imagery is not None:  # from the roof alone, centred on the dry background (wetmap.imagery)
+        lo, hi = imagery.surface_range.low_c, imagery.surface_range.high_c
     gx0, gy0, gx1, gy1 = result.grid.bounds
     ax.imshow(image, extent=(gx0, gx0 + factor * image.shape[1] * result.grid.pixel_m,
                              gy1 - factor * image.shape[0] * result.grid.pixel_m, gy1),
@@ -446,6 +450,11 @@ def _key_figures(s: dict[str, Any]) -> str:
         ("Whole boards replaced", _cell(s["boards"], "boards")),
         ("Tear-off area", _cell(s.get("tearoff_area_m2"), "tearoff_area_m2", suffix=" m²")),
     ]
+    im = s.get("imagery") or {}
+    if im.get("smallest_reliable_area_m2") is not None:
+        n = im.get("min_pixels_across", 3)
+        rows.append((f"Smallest area measured reliably ({n:g} x {n:g} pixels of the imagery)",
+                     _cell(im["smallest_reliable_area_m2"], "imagery.smallest_reliable_area_m2", ",.3f", " m²")))
     cov = s.get("coverage") or {}
     if cov:
         rows.append(("Roof with no thermal data (not surveyed)",
@@ -540,7 +549,82 @@ def _method(result: "SurveyResult", summary: dict[str, Any]) -> str:
         text += ("<p class='caution'>The reflected temperature was <b>estimated</b>, not measured. In the "
                  "camera's long-wave band a clear sky is colder than a broadband estimate; a measured value "
                  "(ASTM E1862) is preferable.</p>")
-    return text + f'<table class="kv" id="method">{body}</table>'
+    return text + f'<table class="kv" id="method">{body}</table>' + _imagery(result, summary)
+
+
+def _range_words(result: "SurveyResult") -> str:
+    """The thermal figure's colour range and how it was chosen (:mod:`wetmap.imagery`)."""
+    imagery = getattr(result, "imagery", None)
+    if imagery is None:
+        return ""
+    r = imagery.surface_range
+    return (f" Colour range {r.low_c:.1f} to {r.high_c:.1f} °C: the {r.percentile_words} of "
+            f"the roof alone (exclusions and the ground outside left out), centred on the dry background "
+            f"{r.centre_c:.1f} °C.")
+
+
+def _imagery(result: "SurveyResult", summary: dict[str, Any]) -> str:
+    """Method, "Imagery checks": resolution, focus, reflection suspects, display range."""
+    im = summary.get("imagery")
+    if not im:
+        return ""
+    n = im.get("min_pixels_across", 3)
+    out = ["<h3 id='imagery'>Imagery checks</h3>",
+           "<p>Can the pictures carry these conclusions? A feature is measured reliably when it spans at least "
+           f"{n:g} pixels of the imagery across its narrowest width ({n:g} x {n:g} pixels, common practice; "
+           "smaller ones read too cool and their outlines are uncertain). Blur spreads the heat of a warm area "
+           "over its surroundings and so lowers the temperatures reported; a frame much less sharp than the "
+           "others is flagged. A warm patch seen from one viewpoint and not from another, or one on a shiny "
+           "surface, may be a reflection.</p>"]
+    rows = [
+        ("Smallest area measured reliably", f"{_fmt(im.get('smallest_reliable_area_m2'), ',.3f')} m² "
+         f"(pixel {_fmt(im.get('reliable_gsd_m'), '.3f')} m, median over the covered roof; "
+         f"{_fmt(im.get('worst_reliable_area_m2'), ',.3f')} m² where the imagery is coarsest)"),
+        ("Anomalies too small to measure reliably", _esc(", ".join(f"#{i}" for i in im.get("under_resolved", []))
+                                                         or "none")),
+        ("Frames flagged as blurred", _esc(", ".join(im.get("blurred", [])) or "none")),
+        ("Reflection suspects", _esc(", ".join(f"#{i}" for i in im.get("reflection_suspect", [])) or "none")),
+    ]
+    dr = im.get("display_range") or {}
+    if dr:
+        s_lo, s_hi = dr.get("surface_c", [None, None])
+        d_lo, d_hi = dr.get("delta_c", [None, None])
+        rows.append(("Display range", f"{_fmt(s_lo, '.2f')} to {_fmt(s_hi, '.2f')} °C, centred on the dry "
+                                      f"background {_fmt(dr.get('centre_c'), '.2f')} °C; ΔT {_fmt(d_lo, '+.2f')} to "
+                                      f"{_fmt(d_hi, '+.2f')} °C ({_esc(dr.get('basis'))})"))
+    out.append('<table class="kv" id="imagery-summary">'
+               + "".join(f"<tr><th>{k}</th><td>{v}</td></tr>" for k, v in rows) + "</table>")
+    head = ("<tr><th>Imagery</th><th>Kind</th><th>GSD (m)</th><th>GSD range (m)</th><th>Optics GSD (m)</th>"
+            "<th>Sharpness</th><th>vs survey</th><th>Flags</th></tr>")
+    body = []
+    for src in im.get("sources", []):
+        lo, hi = (src.get("gsd_range_m") or [None, None])[:2]
+        flags = ", ".join(src.get("flags") or []) or "–"
+        if src.get("kind") == "mosaic" and src.get("tiles"):
+            flags += f" ({len(src.get('soft_tiles') or [])} soft of {src.get('tiles_judged')} tiles judged)"
+        elif src.get("blending") and src.get("flags"):
+            flags += f" ({src['blending']})"
+        body.append(f"<tr data-path=\"{_esc(src.get('path'))}\"><td>{_esc(src.get('path'))}</td>"
+                    f"<td>{_esc(src.get('kind'))}</td>{_cell(src.get('gsd_m'), None, '.4f')}"
+                    f"<td class='num'>{_fmt(lo, '.4f')}-{_fmt(hi, '.4f')}</td>{_cell(src.get('optics_gsd_m'), None, '.4f')}"
+                    f"{_cell(src.get('sharpness'), None, '.2f')}{_cell(src.get('sharpness_vs_survey'), None, '.2f')}"
+                    f"<td>{_esc(flags)}</td></tr>")
+    out.append(f'<table id="imagery-sources" class="data"><thead>{head}</thead><tbody>{"".join(body)}</tbody></table>')
+    out.append("<p class='small'>GSD: ground sampling distance, plan metres per image pixel (a mosaic's from its "
+               "transform; a frame's from its control-point fit, its range across the image); optics: "
+               "[camera] ifov_mrad x distance_m when given. Sharpness: the share of the image's gradient energy at "
+               "the finest scale, noise taken out (0 = blurred, 1 = sharp); frames are compared with the median of "
+               "the other frames, mosaic tiles with the median tile.</p>")
+    suspects = summary.get("reflection_suspect") or []
+    if suspects:
+        head = "<tr><th>Anomaly</th><th>Rule</th><th>Finding</th></tr>"
+        body = "".join(f"<tr data-anomaly='{s.get('id')}'><td class='num'>#{s.get('id')}</td><td>{_esc(s.get('rule'))}"
+                       f"</td><td>{_esc(s.get('reason'))}</td></tr>" for s in suspects)
+        out.append("<h3>Reflection suspects</h3>"
+                   f'<table id="reflection-suspects" class="data"><thead>{head}</thead><tbody>{body}</tbody></table>'
+                   "<p class='small'>Suspects keep their outlines, statuses and quantities; a core or a second "
+                   "look from another angle decides.</p>")
+    return "".join(out)
 
 
 def _figures(result: "SurveyResult", dpi: int) -> str:
@@ -551,7 +635,7 @@ def _figures(result: "SurveyResult", dpi: int) -> str:
         ("fig-thermal", thermal_figure(result, dpi=dpi),
          "Corrected surface temperature (cividis scale) with the anomaly outlines (vermillion solid: wet; "
          "reddish purple dashed: unverified; blue dotted: dry), their numbers, exclusions in grey and the cores "
-         "(filled: judged wet; ring: judged dry)."),
+         "(filled: judged wet; ring: judged dry)." + _range_words(result)),
         ("fig-histogram", delta_histogram_figure(result, dpi=dpi),
          f"Distribution of ΔT over the surveyed roof (area per bin, log scale), the threshold "
          f"({result.detection.threshold_c:g} °C, dashed) and the ΔT found at each core."),
@@ -597,8 +681,11 @@ def _anomaly_table(result: "SurveyResult", summary: dict[str, Any]) -> str:
         f'{summary["anomaly_count"]}</span>)</th>'
         f'<td class="num">{sum(a.area_m2 for a in result.anomalies):,.2f}</td><td colspan="5"></td></tr>'
     )
+    flagged = [a for a in result.anomalies if getattr(a, "flags", "")]
+    flags = ("<p id='anomaly-flags' class='small'>Imagery flags (see Imagery checks in the method): "
+             + "; ".join(f"#{a.id}: {_esc(a.flags)}" for a in flagged) + ".</p>") if flagged else ""
     return (f'<table id="anomalies" class="data"><thead>{head}</thead><tbody>{"".join(body)}</tbody>'
-            f"<tfoot>{foot}</tfoot></table>")
+            f"<tfoot>{foot}</tfoot></table>{flags}")
 
 
 def _quantities(result: "SurveyResult", summary: dict[str, Any]) -> str:
@@ -718,10 +805,10 @@ def _calibration(summary: dict[str, Any]) -> str:
     if r:
         parts.append(
             f"<p id='area-range'>Wet area counted: <b>{_fmt(r['likely_m2'])} m²</b> at the threshold used; "
-            f"<b>{_fmt(r['low_m2'])} to {_fmt(r['high_m2'])} m²</b> across the thresholds the cores allow "
-            f"({_fmt(r['threshold_high_c'], '+.2f')} to {_fmt(r['threshold_low_c'], '+.2f')} °C), widened by the "
-            f"outline's own uncertainty of ±{_fmt(r['geometric_m2'])} m² (pixel size times perimeter). Quote the "
-            "range with the quantity: it is what the cores can support.</p>")
+            f"<b>{_fmt(r['low_m2'])} to {_fmt(r['high_m2'])} m²</b> across thresholds from "
+            f"{_fmt(r['threshold_high_c'], '+.2f')} down to {_fmt(r['threshold_low_c'], '+.2f')} °C (the chosen "
+            "threshold ±0.5 °C, narrowed by what the cores allow), widened by the outline's own uncertainty of "
+            f"±{_fmt(r['geometric_m2'])} m² (pixel size times perimeter). Quote the range with the quantity.</p>")
     cores = summary.get("suggested_cores") or []
     if cores:
         rows = "".join(

@@ -7,8 +7,8 @@ what each row is:
 - ``section``: one per roof section, then ``(outside sections)`` for the part of the roof
   in no section (only when sections were given); these rows add up to the total row;
 - ``total``: the whole roof;
-- ``range``: ``low end`` and ``high end`` of the counted wet area (``wet_area_*``) across
-  the thresholds the cores allow, widened by the outline's uncertainty;
+- ``range``: ``low end`` and ``high end`` of the counted wet area (``wet_area_*``) at the
+  thresholds of :func:`wetmap.confirm.area_thresholds`, widened by the outline's uncertainty;
 - ``bill``: one per line of the bill of quantities (``bill_item``, ``bill_unit``,
   ``bill_quantity``, ``rate``, ``amount``, ``currency``), then ``bill total``.
 
