@@ -66,6 +66,7 @@ __all__ = [
     "WalkedRoofScene",
     "render_walked_roof",
     "write_walked_roof_survey",
+    "WALKED_IMAGERY_FAULTS",
     "HullScene",
     "HullTruth",
     "DemoReading",
@@ -882,6 +883,18 @@ class WalkedRoofScene:
         ``[detect] min_area_m2`` written to survey.toml (the smallest wet area is 0.48 m2).
     seed
         Seed of the camera noise.
+    blurred_frame
+        Planted fault (off by default): the number (from 1) of a frame rendered out of
+        focus: its image is smoothed by a Gaussian of ``blur_px`` pixels, then fresh
+        camera noise (a separate generator, seed ``seed + 1``) restores its noise level.
+    blur_px
+        Gaussian sigma of the planted blur, image pixels.
+    reflection
+        Planted fault (off by default): ``(frame number, u, v)``: a warm reflection seen
+        by that frame only, a disc of ``reflection_radius_m`` on the roof at roof
+        coordinates ``u, v`` whose apparent temperature is ``reflection_excess_c`` higher.
+    reflection_radius_m, reflection_excess_c
+        Size and strength of the planted reflection.
     """
 
     roof: RoofScene = field(default_factory=_default_walked_roof)
@@ -895,6 +908,11 @@ class WalkedRoofScene:
     points_per_frame: int = 8
     min_area_m2: float = 0.25
     seed: int = 11
+    blurred_frame: int | None = None
+    blur_px: float = 2.5
+    reflection: tuple[int, float, float] | None = None
+    reflection_radius_m: float = 0.45
+    reflection_excess_c: float = 4.0
 
     def cameras(self) -> list[CameraStation]:
         """The camera stations (roof coordinates)."""
@@ -936,9 +954,54 @@ def render_walked_roof(scene: WalkedRoofScene = WalkedRoofScene()) -> tuple[list
                               emissivity=scene.roof.emissivity, reflected_c=scene.roof.reflected_render_c,
                               outside_c=outside_c, noise_c=scene.camera_noise_c, rng=rng)
         pts = _pick_points(g, marks, cam.size_px, count=scene.points_per_frame)
+        if scene.reflection is not None and scene.reflection[0] == k + 1:
+            app = app + _planted_reflection(g, app.shape, scene)
+        if scene.blurred_frame == k + 1:
+            app = _planted_blur(app, scene)
         frames.append(DemoFrame(name=f"f{k + 1:02d}", fmt=scene.formats[k % len(scene.formats)], apparent_c=app,
                                 points=pts, plan_to_image=g))
     return frames, truth
+
+
+def _planted_reflection(plan_to_image: np.ndarray, shape: tuple[int, int], scene: WalkedRoofScene) -> np.ndarray:
+    """The planted reflection of :class:`WalkedRoofScene`: apparent degC to add to one frame (invented).
+
+    A disc on the roof (soft edge one pixel of the true field wide) seen by this frame only.
+    """
+    _, u0, v0 = scene.reflection
+    rows, cols = shape
+    cc, rr = np.meshgrid(np.arange(cols, dtype=float), np.arange(rows, dtype=float))
+    h = np.linalg.inv(plan_to_image)
+    w = h[2, 0] * cc + h[2, 1] * rr + h[2, 2]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        xs = (h[0, 0] * cc + h[0, 1] * rr + h[0, 2]) / w
+        ys = (h[1, 0] * cc + h[1, 1] * rr + h[1, 2]) / w
+    us, vs = ~scene.roof.plan_from_roof @ (xs, ys)
+    dist = np.hypot(np.asarray(us) - u0, np.asarray(vs) - v0)
+    edge = scene.roof.pixel_m
+    disc = np.clip((scene.reflection_radius_m - dist) / edge + 0.5, 0.0, 1.0)
+    return scene.reflection_excess_c * np.where(np.isfinite(disc), disc, 0.0)
+
+
+def _planted_blur(apparent_c: np.ndarray, scene: WalkedRoofScene) -> np.ndarray:
+    """The planted defocus of :class:`WalkedRoofScene`: Gaussian blur, then the noise level restored.
+
+    Blurring white noise of standard deviation ``s`` by a Gaussian of ``b`` pixels leaves
+    ``s / (2 sqrt(pi) b)``; fresh noise of ``s sqrt(1 - 1 / (4 pi b^2))`` (generator seed
+    ``seed + 1``, so the other frames are unchanged) brings it back to ``s``.
+    """
+    from scipy import ndimage
+
+    b = scene.blur_px
+    blurred = ndimage.gaussian_filter(apparent_c, b, mode="nearest")
+    s = scene.camera_noise_c * math.sqrt(max(1.0 - 1.0 / (4.0 * math.pi * b * b), 0.0))
+    return blurred + np.random.default_rng(scene.seed + 1).normal(0.0, s, size=apparent_c.shape)
+
+
+#: The walked roof with planted imagery faults (invented): frame f05 out of focus (Gaussian blur of
+#: 2.5 px) and a warm reflection (+4 °C, 0.45 m radius) at roof (18.0, 14.0) seen by frame f03 only,
+#: where f08 sees the same ground (``python -m wetmap.demo --scene walked --imagery-faults FOLDER``).
+WALKED_IMAGERY_FAULTS = WalkedRoofScene(blurred_frame=5, reflection=(3, 18.0, 14.0))
 
 
 def _frame_entries(folder: Path, frames: list[DemoFrame], *, time: str, decimal_comma: bool = False) -> list[str]:
@@ -1319,9 +1382,16 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("folder", type=Path, help="survey folder to write, e.g. sample_surveys/warehouse_roof")
     parser.add_argument("--scene", choices=("warehouse", "walked", "hull"), default="warehouse",
                         help="which invented scene (default: warehouse)")
+    parser.add_argument("--imagery-faults", action="store_true",
+                        help="walked scene only: plant a blurred frame (f05) and a reflection seen by one frame "
+                             "(f03) for the imagery checks (wetmap.imagery)")
     args = parser.parse_args(argv)
+    if args.imagery_faults and args.scene != "walked":
+        parser.error("--imagery-faults applies to --scene walked only")
     if args.scene == "walked":
-        write_walked_roof_survey(args.folder)
+        write_walked_roof_survey(args.folder, WALKED_IMAGERY_FAULTS if args.imagery_faults else WalkedRoofScene(),
+                                 **({"title": "Invented workshop roof, walked (planted imagery faults)"}
+                                    if args.imagery_faults else {}))
     elif args.scene == "hull":
         write_hull_survey(args.folder)
     else:

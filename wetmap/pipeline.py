@@ -70,6 +70,8 @@ class Anomaly:
     delta_max_c: float
     confirmations: tuple[str, ...]
     section: str | None
+    flags: str = ""
+    """Imagery flags (``"; "``-separated): ``reflection suspect``, ``under-resolved`` (:mod:`wetmap.imagery`)."""
 
 
 @dataclass(frozen=True)
@@ -124,6 +126,8 @@ class SurveyResult:
     ``delta_c.tif`` on disk and the full grid. ``grid``, ``surface_c`` and ``detection``'s
     arrays are then a preview (block means, :data:`wetmap.tiles.PREVIEW_MAX_SIDE`); the
     anomalies and their statistics are exact. ``None``: the whole array is in memory."""
+    imagery: Any = None
+    """Resolution, focus, reflection and display-range findings (:class:`wetmap.imagery.ImageryReport`)."""
 
     def summary(self) -> dict[str, Any]:
         """The ``summary.json`` content (areas in m2)."""
@@ -155,6 +159,9 @@ class SurveyResult:
             "warnings": list(self.warnings),
             **({"passes": self.passes.summary()} if self.passes is not None else {}),
             **self._calibration_entries(),
+            **({"imagery": self.imagery.as_dict(),
+                "reflection_suspect": [r.as_dict() for r in self.imagery.reflections]}
+               if self.imagery is not None else {}),
             "sections": [
                 {k: (round(v, 4) if isinstance(v, float) else v) for k, v in vars(t).items()}
                 for t in self.section_totals
@@ -374,11 +381,19 @@ def _register_frames(survey: Survey, radiometry: Radiometry, warnings: list[str]
 
 
 def _frames_onto_grid(frames: list[_RegisteredFrame], grid: PlanGrid, outline: BaseGeometry,
-                      warnings: list[str]) -> tuple[np.ndarray, list[FrameReport]]:
-    """Resample and blend the frames on the plan grid (surface K, NaN where no frame)."""
-    from .register import blend_frames, frame_gsd_m, resample_frame
+                      warnings: list[str], *, limits=None, views: list | None = None
+                      ) -> tuple[np.ndarray, list[FrameReport]]:
+    """Resample and blend the frames on the plan grid (surface K, NaN where no frame).
 
-    parts, reports = [], []
+    Frames far less sharp than the others are blended only where no sharper frame covers
+    (``[limits] exclude_blurred``; :mod:`wetmap.imagery`); ``views``, when given, receives
+    each placed frame as a :class:`wetmap.imagery.FrameView`.
+    """
+    from .imagery import frame_views
+    from .register import blend_frames, frame_gsd_m, resample_frame
+    from .survey import Limits
+
+    parts, reports, placed = [], [], []
     for fr in frames:
         matrix = fr.registration.matrix
         part = resample_frame(fr.surface_k, matrix, grid_transform=grid.transform, grid_shape=grid.shape)
@@ -387,22 +402,31 @@ def _frames_onto_grid(frames: list[_RegisteredFrame], grid: PlanGrid, outline: B
                             "points' plan x, y")
         else:
             parts.append(part)
+        placed.append(part)
         reports.append(FrameReport.build(
             fr.name, fr.registration, gsd_m=frame_gsd_m(matrix, fr.surface_k.shape, outline.bounds),
             covered_m2=(part.covered if part is not None else 0) * grid.pixel_area_m2))
-    return blend_frames(parts, grid.shape), reports
+    limits = limits or Limits()
+    found = frame_views([fr.name for fr in frames], [fr.surface_k for fr in frames],
+                        [fr.registration.matrix for fr in frames], placed, bounds=outline.bounds,
+                        focus_ratio=limits.focus_ratio, exclude_blurred=limits.exclude_blurred)
+    if views is not None:
+        views.extend(found)
+    return blend_frames(parts, grid.shape, fallback=[v.fallback for v in found]), reports
 
 
 def _surface_on_grid(survey: Survey, outline: BaseGeometry, radiometry: Radiometry,
                      warnings: list[str], progress: Progress | None, *,
-                     registration: list[FrameReport] | None = None) -> tuple[PlanGrid, np.ndarray]:
+                     registration: list[FrameReport] | None = None,
+                     views: list | None = None) -> tuple[PlanGrid, np.ndarray]:
     """Mosaics and frames on one plan grid, as surface temperature in degC (NaN = no data).
 
     The grid's pixel is ``[plan] pixel_m``, else the finest mosaic's, else chosen from the
     frames' ground sampling distance. Mosaics are corrected on the grid; frames are
     corrected per frame, resampled and blended (:mod:`wetmap.register`). Mosaics win where
     they have data (the first one first); the frames fill what no mosaic covers.
-    ``registration``, when given, receives one :class:`FrameReport` per frame.
+    ``registration``, when given, receives one :class:`FrameReport` per frame; ``views`` one
+    :class:`wetmap.imagery.FrameView` per placed frame.
     """
     from .register import choose_pixel_m, frame_gsd_m
 
@@ -447,7 +471,7 @@ def _surface_on_grid(survey: Survey, outline: BaseGeometry, radiometry: Radiomet
             )
     if frames:
         _emit(progress, "resampling and blending the frames on the plan grid")
-        from_frames, reports = _frames_onto_grid(frames, grid, outline, warnings)
+        from_frames, reports = _frames_onto_grid(frames, grid, outline, warnings, limits=survey.limits, views=views)
         if registration is not None:
             registration.extend(reports)
         if surface is None:
@@ -545,6 +569,11 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
     if survey.plan.sections is not None:
         sections, notes = read_sections(survey.plan.sections, survey_crs=crs)
         warnings.extend(notes)
+    specular: BaseGeometry | None = None  # [plan] specular: surfaces that show reflections (wetmap.imagery)
+    if survey.plan.specular is not None:
+        layer = read_layer(survey.plan.specular, survey_crs=crs, what="specular surfaces")
+        warnings.extend(layer.notes)
+        specular = _union(layer.geometries)
     roof = outline.difference(exclusions) if not exclusions.is_empty else outline
     if roof.area <= 0:
         raise InputFileError(f"{survey.plan.exclusions}: the exclusions cover the whole outline; nothing is left to survey")
@@ -556,6 +585,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
     primary = survey if len(pass_groups) == 1 else replace(
         survey, mosaics=pass_groups[-1].mosaics, frames=pass_groups[-1].frames)
     frame_reports: list[FrameReport] = []
+    frame_views: list = []  # the placed frames, for the imagery checks (wetmap.imagery)
     area_word = _area_word(survey)
     sdt = survey.detect
     x0, y0, x1, y1 = outline.bounds
@@ -567,7 +597,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         window_progress=window_progress)
     if tiled is None:
         grid, surface_c = _surface_on_grid(primary, outline, radiometry, warnings, progress,
-                                           registration=frame_reports)
+                                           registration=frame_reports, views=frame_views)
         _emit(progress, "masking the roof")
         in_roof = _mask_of(roof, grid)
         usable = in_roof & np.isfinite(surface_c)
@@ -664,6 +694,15 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
     suggestions = suggest_cores(polys, verdicts.status, list(range(1, count + 1)), band=band,
                                 transform=grid.transform, pixel_m=grid.pixel_m, min_pixels=range_min_pixels)
 
+    _emit(progress, "checking the imagery: resolution, focus, reflections, display range")
+    from .imagery import assess_imagery
+
+    imagery = assess_imagery(
+        primary, grid_transform=grid.transform, grid_shape=grid.shape,
+        grid_pixel_m=(tiled.full_rasters.grid if tiled is not None else grid).pixel_m, surface_c=surface_c,
+        detection=detection, polygons=polys, labels=labels if tiled is None else None, frames=frame_views,
+        sections=sections, specular=specular, outline=outline)
+    warnings.extend(imagery.warnings)
     section_of = largest_overlap(polys, [s.geometry for s in sections])
     anomalies = tuple(
         Anomaly(
@@ -676,6 +715,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
             delta_max_c=float(stats.max[i]),
             confirmations=verdicts.confirmation_ids[i],
             section=sections[section_of[i]].name if section_of[i] >= 0 else None,
+            flags=imagery.flags_text(i),
         )
         for i, p in enumerate(polys)
     )
@@ -699,6 +739,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         suggested_cores=tuple(suggestions),
         registration=tuple(frame_reports),
         full_rasters=None if tiled is None else tiled.full_rasters,
+        imagery=imagery,
     )
 
 

@@ -829,7 +829,8 @@ def resample_frame(values: np.ndarray, matrix: np.ndarray, *, grid_transform, gr
     return ResampledFrame(window=(r0, r1, c0, c1), values=out, weights=weights, gsd_m=gsd)
 
 
-def blend_frames(frames: Sequence[ResampledFrame], grid_shape: tuple[int, int]) -> np.ndarray:
+def blend_frames(frames: Sequence[ResampledFrame], grid_shape: tuple[int, int], *,
+                 fallback: Sequence[bool] | None = None) -> np.ndarray:
     """Weighted mean of resampled frames on the plan grid.
 
     Parameters
@@ -838,6 +839,9 @@ def blend_frames(frames: Sequence[ResampledFrame], grid_shape: tuple[int, int]) 
         From :func:`resample_frame`.
     grid_shape
         ``(rows, cols)`` of the plan grid.
+    fallback
+        One flag per frame: a flagged frame (e.g. one found blurred by
+        :mod:`wetmap.imagery`) gives values only where no unflagged frame does.
 
     Returns
     -------
@@ -850,12 +854,23 @@ def blend_frames(frames: Sequence[ResampledFrame], grid_shape: tuple[int, int]) 
     ...                    np.ones((1, 2), np.float32))
     >>> blend_frames([a, b], (1, 4))
     array([[1. , 3.5, 5. , nan]], dtype=float32)
+    >>> blend_frames([a, b], (1, 4), fallback=[False, True])  # b only where a gives nothing
+    array([[ 1.,  2.,  5., nan]], dtype=float32)
     """
     total = np.zeros(grid_shape, dtype=np.float64)
     weight = np.zeros(grid_shape, dtype=np.float64)
-    for f in frames:
+    flags = [False] * len(frames) if fallback is None else [bool(b) for b in fallback]
+    if len(flags) != len(frames):
+        raise ValueError("fallback needs one flag per frame")
+    for f in [f for f, b in zip(frames, flags) if not b]:
         r0, r1, c0, c1 = f.window
         w = f.weights.astype(np.float64)
+        total[r0:r1, c0:c1] += np.where(w > 0, f.values, 0.0) * w
+        weight[r0:r1, c0:c1] += w
+    main = weight > 0
+    for f in [f for f, b in zip(frames, flags) if b]:  # only where no unflagged frame gives a value
+        r0, r1, c0, c1 = f.window
+        w = np.where(main[r0:r1, c0:c1], 0.0, f.weights.astype(np.float64))
         total[r0:r1, c0:c1] += np.where(w > 0, f.values, 0.0) * w
         weight[r0:r1, c0:c1] += w
     with np.errstate(invalid="ignore", divide="ignore"):

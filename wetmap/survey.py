@@ -124,6 +124,9 @@ class Camera:
     band_um: tuple[float, float] = (7.5, 14.0)
     distance_m: float = 0.0
     transmittance: float | None = None
+    ifov_mrad: float | None = None
+    """Instantaneous field of view of one detector element, milliradians; with ``distance_m``
+    it gives the optics' ground sampling distance (:mod:`wetmap.imagery`)."""
 
 
 @dataclass(frozen=True)
@@ -136,6 +139,9 @@ class Plan:
     pixel_m: float | None = None
     """Plan grid pixel size, metres; ``None``: the finest mosaic's, or chosen from the frames'
     ground sampling distance (see :mod:`wetmap.register`)."""
+    specular: Path | None = None
+    """Optional layer of specular surfaces (metal, glazing, ...): warm patches on them seen
+    from one viewpoint are reflection suspects (:mod:`wetmap.imagery`)."""
 
 
 @dataclass(frozen=True)
@@ -247,6 +253,14 @@ class Limits:
     path_max_m: float = 30.0
     path_humidity_pct: float = 50.0
     emissivity_tolerance: float = 0.02
+    min_pixels_across: float = 3.0
+    """Pixels a feature must span across its smallest width to be measured reliably (common practice)."""
+    focus_ratio: float = 0.5
+    """A frame or mosaic tile is flagged as blurred below this fraction of the survey's median sharpness."""
+    reflection_ratio: float = 0.5
+    """An anomaly is a reflection suspect when its weakest view's delta-T is below this fraction of its strongest's."""
+    exclude_blurred: bool = True
+    """A blurred frame is used only where no sharper frame covers the same ground."""
 
 
 #: Insulation presets of the cool-down planner (``[cooldown] insulation``).
@@ -577,6 +591,7 @@ def _read_camera(t: _Table) -> Camera | None:
         band = None
     distance = t.number("distance_m", low=0, high=10_000, example="35.0")
     tau = t.number("transmittance", low=0, high=1, low_open=True, example="0.97")
+    ifov = t.number("ifov_mrad", low=0, low_open=True, high=100, example="1.1")
     if eps is None:
         return None
     return Camera(
@@ -584,6 +599,7 @@ def _read_camera(t: _Table) -> Camera | None:
         band_um=band or (7.5, 14.0),
         distance_m=distance or 0.0,
         transmittance=tau,
+        ifov_mrad=ifov,
     )
 
 
@@ -592,9 +608,10 @@ def _read_plan(t: _Table, folder: Path) -> Plan | None:
     exclusions = t.path("exclusions", folder, example='"plan/exclusions.geojson"')
     sections = t.path("sections", folder, example='"plan/sections.geojson"')
     pixel = t.number("pixel_m", low=0, low_open=True, high=100, example="0.05")
+    specular = t.path("specular", folder, example='"plan/specular.geojson"')
     if outline is None:
         return None
-    return Plan(outline=outline, exclusions=exclusions, sections=sections, pixel_m=pixel)
+    return Plan(outline=outline, exclusions=exclusions, sections=sections, pixel_m=pixel, specular=specular)
 
 
 def _scale_offset(t: _Table) -> tuple[float | None, float | None]:
@@ -752,12 +769,16 @@ def _read_limits(t: _Table) -> Limits:
         "path_max_m": t.number("path_max_m", low=0, high=10_000, example="30"),
         "path_humidity_pct": t.number("path_humidity_pct", low=0, high=100, example="50"),
         "emissivity_tolerance": t.number("emissivity_tolerance", low=0, high=1, example="0.02"),
+        "min_pixels_across": t.number("min_pixels_across", low=1, high=100, example="3"),
+        "focus_ratio": t.number("focus_ratio", low=0, high=1, example="0.5"),
+        "reflection_ratio": t.number("reflection_ratio", low=0, high=1, example="0.5"),
     }
     values = {k: (getattr(d, k) if v is None else v) for k, v in values.items()}
     if values["after_sunset_min_h"] >= values["after_sunset_max_h"]:
         t.problem("after_sunset_max_h", f"= {values['after_sunset_max_h']:g}: expected more than "
                   f"after_sunset_min_h = {values['after_sunset_min_h']:g} (hours after sunset)")
-    return Limits(**values)
+    exclude = t.boolean("exclude_blurred")
+    return Limits(**values, exclude_blurred=d.exclude_blurred if exclude is None else exclude)
 
 
 def _read_cooldown(t: _Table) -> Cooldown:
@@ -786,15 +807,16 @@ def _read_cooldown(t: _Table) -> Cooldown:
 
 _KEYS: dict[str, tuple[str, ...]] = {
     "limits": ("wind_max_m_s", "rain_free_h", "dew_margin_c", "after_sunset_min_h", "after_sunset_max_h",
-               "path_max_m", "path_humidity_pct", "emissivity_tolerance"),
+               "path_max_m", "path_humidity_pct", "emissivity_tolerance", "min_pixels_across", "focus_ratio",
+               "reflection_ratio", "exclude_blurred"),
     "cooldown": ("insulation", "insulation_m", "water_vol_pct", "insulation_k_w_mk", "insulation_rho_kg_m3",
                  "insulation_c_j_kgk", "moisture_factor", "membrane_m", "deck", "deck_m", "absorptance",
                  "sun_peak_w_m2", "sunrise", "air_range_c", "interior_c", "window_fraction"),
     "survey": ("title", "kind", "crs", "site", "date", "surveyor", "side"),
     "conditions": ("air_c", "humidity_pct", "wind_m_s", "sky", "reflected_c", "sunset", "time",
                    "hours_since_rain", "surface_dry"),
-    "camera": ("emissivity", "band_um", "distance_m", "transmittance"),
-    "plan": ("outline", "exclusions", "sections", "pixel_m"),
+    "camera": ("emissivity", "band_um", "distance_m", "transmittance", "ifov_mrad"),
+    "plan": ("outline", "exclusions", "sections", "pixel_m", "specular"),
     "mosaic": ("path", "units", "time", "scale", "offset", "origin", "pixel_m"),
     "frame": ("path", "units", "points", "time", "scale", "offset"),
     "detect": ("delta_c", "background_m", "min_area_m2", "tile_px"),

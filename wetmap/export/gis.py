@@ -25,7 +25,9 @@ if TYPE_CHECKING:
 
 __all__ = ["anomaly_frame", "write_anomalies", "write_repair", "write_raster", "confirmation_frame"]
 
-ANOMALY_COLUMNS = ("id", "status", "area_m2", "perimeter_m", "delta_mean_c", "delta_max_c", "confirmations", "section")
+ANOMALY_COLUMNS = ("id", "status", "area_m2", "perimeter_m", "delta_mean_c", "delta_max_c", "confirmations", "section",
+                   "flags")
+"""The contract's attributes, then ``flags`` (imagery flags, :mod:`wetmap.imagery`; empty text when none)."""
 
 
 def _crs(result: "SurveyResult") -> str | None:
@@ -45,6 +47,7 @@ def anomaly_frame(result: "SurveyResult"):
         "delta_max_c": [round(a.delta_max_c, 3) for a in result.anomalies],
         "confirmations": [",".join(a.confirmations) for a in result.anomalies],
         "section": [a.section or "" for a in result.anomalies],
+        "flags": [getattr(a, "flags", "") for a in result.anomalies],
     }
     geoms = [a.geometry for a in result.anomalies]
     return gpd.GeoDataFrame(rows, geometry=geoms, crs=_crs(result))

@@ -69,6 +69,8 @@ __all__ = [
     "png_bytes",
     "png_data_uri",
     "colour_bar_png",
+    "data_png",
+    "RECOLOUR_PALETTES",
     "uncovered_area",
     "remote_references",
     "build_map",
@@ -491,6 +493,8 @@ html, body { display: flex; flex-direction: column; }
 .wetmap-legend img { display: block; margin: 2px 0; }
 .wetmap-legend .note { margin-top: 3px; font-size: 11px; color: #333; }
 .leaflet-control-layers { font-size: 12px; }
+.wetmap-display .row { margin: 3px 0 1px; }
+.wetmap-display .note { margin-top: 3px; font-size: 11px; color: #333; max-width: 240px; }
 .wetmap-label { background: rgba(255,255,255,0.88); border: 1px solid #555; padding: 0 3px;
   font: bold 11px/1.2 system-ui, sans-serif; box-shadow: none; }
 .leaflet-container { background: #f4f4f4; }
@@ -574,6 +578,12 @@ def _legend_html(bars: list[tuple[str, bytes]], result: "SurveyResult") -> str:
 
         w, h = Image.open(io.BytesIO(png)).size
         parts.append(f'<img alt="{_esc(label)}" src="{png_data_uri(png)}" width="{w}" height="{h}">')
+    imagery = getattr(result, "imagery", None)
+    if imagery is not None:
+        r, d = imagery.surface_range, imagery.delta_range
+        parts.append(f'<div class="note wetmap-range">Colour range {r.low_c:.1f} to {r.high_c:.1f} °C (ΔT '
+                     f'{d.low_c:+.1f} to {d.high_c:+.1f} °C): {r.percentile_words} of the roof '
+                     f'alone, centred on the dry background {r.centre_c:.1f} °C; change it under "Display range".</div>')
     parts.append('<div class="note">Colours: cividis thermal scale, Okabe-Ito status colours.</div></details>')
     return "".join(parts)
 
@@ -668,6 +678,238 @@ def _furniture_class():
     return _Furniture
 
 
+# --------------------------------------------------------------------------------------
+# Display range and palette, changed in the browser (offline)
+# --------------------------------------------------------------------------------------
+
+#: Palettes offered by the map's display control (matplotlib colour maps, 256 entries each,
+#: embedded in the page): perceptually uniform ones, a grey scale, and a diverging one for ΔT.
+RECOLOUR_PALETTES = ("cividis", "viridis", "magma", "gray", "coolwarm")
+_DATA_MAX_PX = 1024  # longest side of the values embedded for recolouring
+
+
+def data_png(values: np.ndarray, *, max_px: int = _DATA_MAX_PX) -> dict[str, Any]:
+    """Values embedded for recolouring in the browser: 16-bit levels in a PNG's red and green.
+
+    Each finite value becomes ``round((v - vmin) / (vmax - vmin) * 65534)``, stored as red =
+    high byte, green = low byte, alpha 255; no data is alpha 0. Arrays longer than
+    ``max_px`` are block-averaged by a whole factor ``step`` first; the browser draws each
+    embedded value over ``step x step`` overlay pixels, so the image stays aligned.
+
+    Parameters
+    ----------
+    values
+        ``(rows, cols)`` of the overlay as placed on the map, degC.
+
+    Returns
+    -------
+    dict
+        ``data`` (a PNG ``data:`` URI), ``vmin``, ``vmax`` (degC), ``step``, ``width``,
+        ``height`` (of the overlay, pixels).
+
+    Examples
+    --------
+    >>> d = data_png(np.array([[0.0, 1.0], [np.nan, 0.5]]))
+    >>> d["vmin"], d["vmax"], d["step"], d["width"], d["height"]
+    (0.0, 1.0, 1, 2, 2)
+    """
+    v = np.asarray(values, dtype=np.float32)
+    rows, cols = v.shape
+    step = max(1, math.ceil(max(rows, cols) / max_px))
+    small = decimate(v, step) if step > 1 else v
+    finite = np.isfinite(small)
+    vmin = float(np.min(small[finite])) if finite.any() else 0.0
+    vmax = float(np.max(small[finite])) if finite.any() else 1.0
+    span = vmax - vmin if vmax > vmin else 1.0
+    q = np.where(finite, np.rint((np.where(finite, small, vmin) - vmin) / span * 65534.0), 0).astype(np.uint16)
+    rgba = np.zeros((*small.shape, 4), dtype=np.uint8)
+    rgba[..., 0] = q >> 8
+    rgba[..., 1] = q & 0xFF
+    rgba[..., 3] = np.where(finite, 255, 0)
+    return {"data": png_data_uri(png_bytes(rgba)), "vmin": vmin, "vmax": vmax, "step": step, "width": cols,
+            "height": rows}
+
+
+def _palette_hex(name: str) -> str:
+    import matplotlib
+
+    rgb = matplotlib.colormaps[name](np.linspace(0.0, 1.0, 256), bytes=True)[:, :3]
+    return rgb.astype(np.uint8).tobytes().hex()
+
+
+def _range_basis(result: "SurveyResult") -> str:
+    """The words under the display control: how the opening range was chosen."""
+    imagery = getattr(result, "imagery", None)
+    if imagery is None:
+        return "Opening range: 1st-99th percentile of the roof pixels."
+    r = imagery.surface_range
+    return (f"Opening range: {r.percentile_words} of the roof alone (exclusions and ground "
+            f"outside the outline left out), centred on the dry background {r.centre_c:.1f} °C; ΔT centred on 0.")
+
+
+def _recolour_class():
+    from branca.element import MacroElement
+    from jinja2 import Template
+
+    class _Recolour(MacroElement):
+        """A panel to change the thermal overlays' range and palette in the browser.
+
+        The values are embedded (:func:`data_png`); the page decodes them on a canvas,
+        colours them with the chosen palette and range, and swaps the overlay image (and its
+        colour bar in the legend). Nothing is loaded from a network. ``window.wetmapDisplay``
+        exposes ``set(index, low, high[, palette])`` and ``reset()`` (both return a promise).
+        """
+
+        _template = Template("""
+            {% macro script(this, kwargs) %}
+            (function (map) {
+              var cfg = {{ this.config|tojson }};
+              var layers = [{% for name in this.layer_names %}{{ name }}{{ "," if not loop.last }}{% endfor %}];
+              var luts = {};
+              Object.keys(cfg.palettes).forEach(function (k) {
+                var h = cfg.palettes[k], a = new Uint8Array(h.length / 2);
+                for (var i = 0; i < a.length; i++) { a[i] = parseInt(h.substr(2 * i, 2), 16); }
+                luts[k] = a;
+              });
+              var palette = cfg.palette;
+              cfg.layers.forEach(function (c, i) { c.layer = layers[i]; c.lo0 = c.lo; c.hi0 = c.hi; });
+              function decode(c) {
+                if (c.ready) { return c.ready; }
+                c.ready = new Promise(function (resolve, reject) {
+                  var img = new Image();
+                  img.onload = function () {
+                    var cv = document.createElement("canvas"); cv.width = img.width; cv.height = img.height;
+                    var ctx = cv.getContext("2d"); ctx.drawImage(img, 0, 0);
+                    var d = ctx.getImageData(0, 0, cv.width, cv.height).data, n = cv.width * cv.height;
+                    var q = new Float32Array(n), per = (c.vmax - c.vmin) / 65534;
+                    for (var i = 0; i < n; i++) {
+                      q[i] = d[4 * i + 3] < 128 ? NaN : c.vmin + (d[4 * i] * 256 + d[4 * i + 1]) * per;
+                    }
+                    c.q = q; c.qw = cv.width; resolve();
+                  };
+                  img.onerror = reject;
+                  img.src = c.data;
+                });
+                return c.ready;
+              }
+              function paint(c) {
+                var lut = luts[palette], lo = +c.lo, hi = +c.hi, span = hi > lo ? hi - lo : 1;
+                var cv = document.createElement("canvas"); cv.width = c.width; cv.height = c.height;
+                var ctx = cv.getContext("2d"), im = ctx.createImageData(c.width, c.height), o = im.data;
+                for (var r = 0; r < c.height; r++) {
+                  var row = Math.floor(r / c.step) * c.qw;
+                  for (var col = 0; col < c.width; col++) {
+                    var v = c.q[row + Math.floor(col / c.step)], j = 4 * (r * c.width + col);
+                    if (v !== v) { o[j + 3] = 0; continue; }
+                    var k = Math.round(Math.min(Math.max((v - lo) / span, 0), 1) * 255);
+                    o[j] = lut[3 * k]; o[j + 1] = lut[3 * k + 1]; o[j + 2] = lut[3 * k + 2]; o[j + 3] = 255;
+                  }
+                }
+                ctx.putImageData(im, 0, 0);
+                c.layer.setUrl(cv.toDataURL("image/png"));
+                bar(c);
+              }
+              function bar(c) {
+                var img = document.querySelector('.wetmap-legend img[alt="' + c.label + '"]');
+                if (!img) { return; }
+                var w = +img.getAttribute("width") || 280, h = +img.getAttribute("height") || 62;
+                var cv = document.createElement("canvas"); cv.width = w; cv.height = h;
+                var ctx = cv.getContext("2d"), lut = luts[palette];
+                ctx.fillStyle = "#ffffff"; ctx.fillRect(0, 0, w, h);
+                var x0 = Math.round(0.05 * w), x1 = Math.round(0.95 * w), y0 = Math.round(0.15 * h), y1 = Math.round(0.45 * h);
+                for (var x = x0; x < x1; x++) {
+                  var k = Math.round((x - x0) / Math.max(x1 - x0 - 1, 1) * 255);
+                  ctx.fillStyle = "rgb(" + lut[3 * k] + "," + lut[3 * k + 1] + "," + lut[3 * k + 2] + ")";
+                  ctx.fillRect(x, y0, 1, y1 - y0);
+                }
+                ctx.strokeStyle = "#000000"; ctx.strokeRect(x0 + 0.5, y0 + 0.5, x1 - x0 - 1, y1 - y0);
+                ctx.fillStyle = "#000000"; ctx.font = "9px sans-serif"; ctx.textBaseline = "top";
+                [0, 0.5, 1].forEach(function (f) {
+                  var x = x0 + f * (x1 - x0 - 1);
+                  ctx.textAlign = f === 0 ? "left" : (f === 1 ? "right" : "center");
+                  ctx.fillText((+c.lo + f * (c.hi - c.lo)).toFixed(1), x, y1 + 3);
+                  ctx.fillRect(Math.round(x), y1, 1, 3);
+                });
+                ctx.textAlign = "center"; ctx.fillText(c.label, w / 2, y1 + 14);
+                img.src = cv.toDataURL("image/png");
+              }
+              function redraw(list) {
+                return Promise.all(list.map(function (c) { return decode(c).then(function () { paint(c); }); }));
+              }
+              var inputs = [];
+              function sync() {
+                cfg.layers.forEach(function (c, i) { inputs[i][0].value = (+c.lo).toFixed(2); inputs[i][1].value = (+c.hi).toFixed(2); });
+              }
+              var api = {
+                set: function (i, lo, hi, pal) {
+                  var c = cfg.layers[i]; c.lo = +lo; c.hi = +hi;
+                  if (pal) { palette = pal; select.value = pal; }
+                  sync();
+                  return redraw(pal ? cfg.layers : [c]);
+                },
+                reset: function () {
+                  cfg.layers.forEach(function (c) { c.lo = c.lo0; c.hi = c.hi0; });
+                  palette = cfg.palette; select.value = palette; sync();
+                  return redraw(cfg.layers);
+                }
+              };
+              window.wetmapDisplay = api;
+              var select;
+              var ctl = L.control({position: "topleft"});
+              ctl.onAdd = function () {
+                var d = L.DomUtil.create("div", "wetmap-panel wetmap-display");
+                var det = L.DomUtil.create("details", "", d);
+                L.DomUtil.create("summary", "", det).textContent = "Display range";
+                var p = L.DomUtil.create("div", "row", det);
+                p.appendChild(document.createTextNode("Palette "));
+                select = L.DomUtil.create("select", "wetmap-palette", p);
+                Object.keys(cfg.palettes).forEach(function (k) {
+                  var o = document.createElement("option"); o.value = k; o.textContent = k; select.appendChild(o);
+                });
+                select.value = palette;
+                select.addEventListener("change", function () { palette = select.value; redraw(cfg.layers); });
+                cfg.layers.forEach(function (c, i) {
+                  var row = L.DomUtil.create("div", "row", det);
+                  L.DomUtil.create("b", "", row).textContent = c.label;
+                  var line = L.DomUtil.create("div", "", det);
+                  var lo = L.DomUtil.create("input", "wetmap-lo", line), hi;
+                  line.appendChild(document.createTextNode(" to "));
+                  hi = L.DomUtil.create("input", "wetmap-hi", line);
+                  [lo, hi].forEach(function (e) { e.type = "number"; e.step = "0.1"; e.style.width = "5em"; });
+                  inputs.push([lo, hi]);
+                  function changed() {
+                    var a = parseFloat(lo.value), b = parseFloat(hi.value);
+                    if (isFinite(a) && isFinite(b) && b > a) { c.lo = a; c.hi = b; redraw([c]); }
+                  }
+                  lo.addEventListener("change", changed); hi.addEventListener("change", changed);
+                });
+                var btn = L.DomUtil.create("button", "wetmap-reset", det);
+                btn.type = "button"; btn.textContent = "Back to the roof range";
+                btn.addEventListener("click", function () { api.reset(); });
+                L.DomUtil.create("div", "note", det).textContent = cfg.basis;
+                sync();
+                L.DomEvent.disableClickPropagation(d);
+                L.DomEvent.disableScrollPropagation(d);
+                return d;
+              };
+              ctl.addTo(map);
+            })({{ this._parent.get_name() }});
+            {% endmacro %}
+        """)
+
+        def __init__(self, layers: list[tuple[Any, dict[str, Any]]], *, basis: str):
+            super().__init__()
+            self._name = "WetmapDisplay"
+            self.layer_names = [layer.get_name() for layer, _ in layers]
+            self.config = {
+                "palette": THERMAL_CMAP, "basis": basis,
+                "palettes": {name: _palette_hex(name) for name in RECOLOUR_PALETTES},
+                "layers": [data for _, data in layers],
+            }
+
+    return _Recolour
+
+
 def remote_references(page: str) -> list[str]:
     """``src``/``href`` attributes of script, link, img and iframe tags that load from a network.
 
@@ -730,6 +972,10 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
     d_lo, d_hi = display_range(small_delta)
     d_lo = min(d_lo, -result.detection.threshold_c)
     d_hi = max(d_hi, 2.0 * result.detection.threshold_c)
+    imagery = getattr(result, "imagery", None)
+    if imagery is not None:  # from the roof alone, centred on the dry background (wetmap.imagery)
+        s_lo, s_hi = imagery.surface_range.low_c, imagery.surface_range.high_c
+        d_lo, d_hi = imagery.delta_range.low_c, imagery.delta_range.high_c
 
     fig = Figure(title=html.escape(f"{survey.title}: thermal survey map (wetmap)"))
     header = Element("{{ this.text }}")
@@ -749,15 +995,19 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
     m.add_to(fig)
 
     bars: list[tuple[str, bytes]] = []
+    recolour: list[tuple[Any, dict[str, Any]]] = []  # (layer, data) for the in-browser display control
     for name, values, lo, hi, show, cls in (
         ("Surface temperature, °C", small_surface, s_lo, s_hi, True, "wetmap-overlay wetmap-surface"),
         ("ΔT above the dry background, °C", small_delta, d_lo, d_hi, False, "wetmap-overlay wetmap-delta"),
     ):
         placed, bounds = _overlay(values, result, factor, proj)
         uri = png_data_uri(png_bytes(colourise(placed, vmin=lo, vmax=hi)))
-        folium.raster_layers.ImageOverlay(image=uri, bounds=bounds, name=name, show=show, opacity=0.95,
-                                          interactive=False, pixelated=True, className=cls).add_to(m)
+        layer = folium.raster_layers.ImageOverlay(image=uri, bounds=bounds, name=name, show=show, opacity=0.95,
+                                                  interactive=False, pixelated=True, className=cls)
+        layer.add_to(m)
         bars.append((name, colour_bar_png(lo, hi, label=name)))
+        recolour.append((layer, {"label": name, "lo": round(lo, 2), "hi": round(hi, 2), **data_png(placed)}))
+    m.add_child(_recolour_class()(recolour, basis=_range_basis(result)))
 
     # Uncovered roof, exclusions, outline, sections.
     uncovered = uncovered_area(result, factor=factor) if result.coverage.get("uncovered_m2", 0.0) > 0 else None
@@ -810,9 +1060,9 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
     # Anomalies, one layer per status.
     counted = _counted_statuses(result)
     fields = ["anomaly", "status", "area", "perimeter", "delta_mean", "delta_max", "confirmations", "section",
-              "counted"]
+              "counted", "flags"]
     aliases = ["Anomaly", "Status", "Area", "Perimeter", "Mean ΔT", "Max ΔT", "Confirmations", "Section",
-               "Counted in repair"]
+               "Counted in repair", "Imagery flags"]
     for status, st in STATUS_STYLES.items():
         feats = [
             _feature(a.geometry, proj, f"a{a.id}", {
@@ -820,7 +1070,9 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
                 "perimeter": f"{a.perimeter_m:,.2f} m", "delta_mean": _num(a.delta_mean_c, "+.2f", " °C"),
                 "delta_max": _num(a.delta_max_c, "+.2f", " °C"),
                 "confirmations": _esc(", ".join(a.confirmations) or "none"), "section": _esc(a.section or "none"),
-                "counted": "yes" if a.status in counted else "no", "label": f"anomaly {a.id} ({a.status})",
+                "counted": "yes" if a.status in counted else "no", "label": f"anomaly {a.id} ({a.status})"
+                + (f": {a.flags}" if getattr(a, "flags", "") else ""),
+                "flags": _esc(getattr(a, "flags", "") or "none"),
             })
             for a in result.anomalies if a.status == status
         ]
