@@ -127,7 +127,7 @@ def test_results_written_with_the_format_names(tmp_path):
 
     import pyogrio
 
-    frame = pyogrio.read_dataframe(out / "anomalies.gpkg")
+    frame = pyogrio.read_dataframe(out / "anomalies.gpkg", layer="anomalies")
     # the format's attributes, in its order; wetmap may add more after them
     assert list(frame.columns[:8]) == ["id", "status", "area_m2", "perimeter_m", "delta_mean_c", "delta_max_c",
                                        "confirmations", "section"]

@@ -194,7 +194,7 @@ def test_replace_flag_in_the_summary(tmp_path):
 
 def test_gpkg_read_back_equals_the_result(plain):
     result, out = plain
-    anomalies = pyogrio.read_dataframe(out / "anomalies.gpkg")
+    anomalies = pyogrio.read_dataframe(out / "anomalies.gpkg", layer="anomalies")
     assert shapely.equals(anomalies.geometry.values, [a.geometry for a in result.anomalies]).all()
     q = result.quantities
     repair = pyogrio.read_dataframe(out / "repair.gpkg", layer="repair")
@@ -212,7 +212,7 @@ def test_geojson_read_back_equals_the_gpkg(plain):
     (the file keeps 1e-9 degree, about 0.1 mm; pyproj does the projection)."""
     _, out = plain
     gj = pyogrio.read_dataframe(out / "anomalies.geojson")
-    gp = pyogrio.read_dataframe(out / "anomalies.gpkg")
+    gp = pyogrio.read_dataframe(out / "anomalies.gpkg", layer="anomalies")
     to_plan = Transformer.from_crs("EPSG:4326", gp.crs, always_xy=True)
     back = [shapely.transform(g, lambda xy: np.column_stack(to_plan.transform(xy[:, 0], xy[:, 1])))
             for g in gj.geometry.values]
@@ -225,7 +225,7 @@ def test_local_geojson_and_gpkg_are_equal(tmp_path):
     folder = copy_sample(tmp_path / "survey", crs="local")
     result = run_survey(folder, out=tmp_path / "results")
     gj = pyogrio.read_dataframe(tmp_path / "results" / "anomalies.geojson")
-    gp = pyogrio.read_dataframe(tmp_path / "results" / "anomalies.gpkg")
+    gp = pyogrio.read_dataframe(tmp_path / "results" / "anomalies.gpkg", layer="anomalies")
     assert shapely.equals(gj.geometry.values, gp.geometry.values).all()
     assert shapely.equals(gp.geometry.values, [a.geometry for a in result.anomalies]).all()
     # same quantities whatever the CRS label
