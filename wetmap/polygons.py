@@ -93,6 +93,7 @@ __all__ = [
     "fill_small_holes",
     "region_stats",
     "polygonize",
+    "smooth_pixel_polygons",
     "pixel_edge_perimeter",
 ]
 
@@ -618,24 +619,11 @@ def polygonize(
     if count == 0 or labels.size == 0:
         return list(result)
     labels32 = np.ascontiguousarray(labels, dtype=np.int32)  # rasterio rejects bool and int64
-    a, b, c, d, e, f = transform[:6]
-    flip = transform.determinant < 0
     pieces = np.zeros(count + 1, dtype=np.int64)
 
     for feature_labels, rings_per_feature, vertices_per_ring, vertices in _ring_batches(labels32):
         pieces += np.bincount(feature_labels, minlength=count + 1)
-        n_rings = len(vertices_per_ring)
-        points, ring_of_point, scale = _outline_rings(vertices, vertices_per_ring, outline)
-        feature_of_ring = np.repeat(np.arange(len(feature_labels)), rings_per_feature)
-        is_shell = np.zeros(n_rings, dtype=bool)
-        is_shell[np.cumsum(rings_per_feature) - rings_per_feature] = True
-        order = _orient(points, ring_of_point, n_rings, is_shell, flip)
-        cols = points[order, 0] / scale
-        rows = points[order, 1] / scale
-        xy = np.column_stack([a * cols + b * rows + c, d * cols + e * rows + f])
-        rings = shapely.linearrings(xy, indices=ring_of_point)
-        polygons = shapely.polygons(rings, indices=feature_of_ring)
-        result[feature_labels - 1] = polygons
+        result[feature_labels - 1] = _outline_polygons(rings_per_feature, vertices_per_ring, vertices, transform, outline)
 
     split = np.flatnonzero(pieces[1:] > 1) + 1
     if split.size:
@@ -643,7 +631,113 @@ def polygonize(
         raise ValueError(
             f"labels: label(s) {shown} made of several 4-connected pieces: expected one region per label (use label_regions)"
         )
+    _repair_invalid(result, np.arange(1, count + 1))
+    return list(result)
+
+
+def _outline_polygons(rings_per_feature: np.ndarray, vertices_per_ring: np.ndarray, vertices: np.ndarray,
+                      transform: Affine, outline: str) -> np.ndarray:
+    """Pixel-outline rings (integer pixel corners, shell first) -> outline polygons in the plan.
+
+    The one implementation behind :func:`polygonize` and :func:`smooth_pixel_polygons`.
+    Returns an object array of polygons, one per feature (not yet checked for validity).
+    """
+    a, b, c, d, e, f = transform[:6]
+    flip = transform.determinant < 0
+    n_rings = len(vertices_per_ring)
+    points, ring_of_point, scale = _outline_rings(vertices, vertices_per_ring, outline)
+    feature_of_ring = np.repeat(np.arange(len(rings_per_feature)), rings_per_feature)
+    is_shell = np.zeros(n_rings, dtype=bool)
+    is_shell[np.cumsum(rings_per_feature) - rings_per_feature] = True
+    order = _orient(points, ring_of_point, n_rings, is_shell, flip)
+    cols = points[order, 0] / scale
+    rows = points[order, 1] / scale
+    xy = np.column_stack([a * cols + b * rows + c, d * cols + e * rows + f])
+    rings = shapely.linearrings(xy, indices=ring_of_point)
+    return shapely.polygons(rings, indices=feature_of_ring)
+
+
+def _repair_invalid(result: np.ndarray, labels: np.ndarray) -> None:
+    """Repair, in place, any invalid polygon of ``result`` (``labels`` name them in the log)."""
     invalid = np.flatnonzero(~shapely.is_valid(result) & ~shapely.is_empty(result))
     for i in invalid:
-        result[i] = _repair(result[i], int(i) + 1)
+        result[i] = _repair(result[i], int(labels[i]))
+
+
+def smooth_pixel_polygons(pixel_polygons, transform: Affine, *, outline: Outline = "smooth") -> list[shapely.Polygon]:
+    """Outline polygons, in plan coordinates, of regions given as pixel polygons.
+
+    The same outline :func:`polygonize` draws (it uses the same implementation), for a
+    region given as its pixel outline instead of a label image: a polygon whose
+    vertices are integer pixel-corner coordinates ``(col, row)`` of the plan grid, as
+    :func:`polygonize` gives with ``outline="pixel"`` and ``transform=Affine.identity()``,
+    or as the exact union of such polygons (windows of one grid merged across their
+    seams; see :mod:`wetmap.tiles`). Where a hole touches the shell or another hole at
+    a pixel corner the rings must be the valid (OGC) ones, as GDAL's polygonizer and
+    GEOS's overlays give them.
+
+    Parameters
+    ----------
+    pixel_polygons : sequence of shapely.Polygon
+        Pixel outlines in integer pixel-corner coordinates; empty polygons give empty
+        polygons.
+    transform : affine.Affine
+        Pixel-corner ``(col, row)`` -> plan ``(x, y)`` of the grid.
+    outline : {"smooth", "mid-edge", "pixel"}, keyword-only
+        As in :func:`polygonize`.
+
+    Returns
+    -------
+    list of shapely.Polygon
+        One per input, in plan units (shells counter-clockwise, holes clockwise).
+
+    Raises
+    ------
+    ValueError
+        A vertex that is not an integer pixel corner, a geometry that is not a
+        Polygon, or an unknown ``outline``.
+
+    Examples
+    --------
+    >>> labels = np.zeros((5, 6), dtype=np.int32)
+    >>> labels[1:4, 1:5] = 1
+    >>> transform = Affine(0.05, 0.0, 500000.0, 0.0, -0.05, 5500000.0)
+    >>> [pixels] = polygonize(labels, 1, Affine.identity(), outline="pixel")
+    >>> [a] = smooth_pixel_polygons([pixels], transform)
+    >>> a.equals(polygonize(labels, 1, transform)[0]), round(a.area / 0.05**2, 6)
+    (True, 10.5)
+    """
+    if outline not in _OUTLINES:
+        raise ValueError(f"outline: {outline!r}: expected one of {', '.join(map(repr, _OUTLINES))}")
+    transform = _check_transform(transform)
+    polys = np.asarray(list(pixel_polygons), dtype=object).reshape(-1)
+    result = np.full(len(polys), shapely.Polygon(), dtype=object)
+    if not len(polys):
+        return []
+    kinds = shapely.get_type_id(polys)
+    if np.any(kinds != 3):
+        i = int(np.flatnonzero(kinds != 3)[0])
+        raise ValueError(f"pixel_polygons[{i}]: a {getattr(polys[i], 'geom_type', type(polys[i]).__name__)}: "
+                         "expected Polygons")
+    full = np.flatnonzero(~shapely.is_empty(polys))
+    if not full.size:
+        return list(result)
+    # batches of about _BATCH_VERTICES unit edges (the perimeter in pixels) bound peak memory
+    edges = np.cumsum(shapely.length(polys[full]))
+    batch = np.floor(edges / _BATCH_VERTICES).astype(np.int64)
+    for b in np.unique(batch):
+        part = full[batch == b]
+        rings, ring_owner = shapely.get_rings(polys[part], return_index=True)
+        coords, coord_ring = shapely.get_coordinates(rings, return_index=True)
+        vertices = np.rint(coords).astype(np.int64)
+        if np.any(vertices != coords):
+            raise ValueError("pixel_polygons: a vertex is not an integer pixel corner: expected pixel outlines "
+                             "in (col, row) pixel-corner coordinates")
+        per_ring = np.bincount(coord_ring, minlength=len(rings))
+        last = np.cumsum(per_ring) - 1
+        keep = np.ones(len(vertices), dtype=bool)
+        keep[last] = False  # drop each ring's closing repeat
+        rings_per_feature = np.bincount(ring_owner, minlength=len(part))
+        result[part] = _outline_polygons(rings_per_feature, per_ring - 1, vertices[keep], transform, outline)
+    _repair_invalid(result, np.arange(1, len(polys) + 1))
     return list(result)

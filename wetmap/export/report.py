@@ -524,7 +524,12 @@ def _method(result: "SurveyResult", summary: dict[str, Any]) -> str:
         ("Reflected apparent temperature", f"{r.reflected_c:.1f} °C: {_esc(r.reflected_source)}"),
         ("Atmospheric transmittance", f"{r.transmittance:.4f}: {_esc(r.transmittance_source)}; "
                                       f"atmosphere taken at {r.atmosphere_c:g} °C"),
-        ("Plan grid", f"{result.grid.pixel_m:g} m pixels, {result.grid.rows:,d} x {result.grid.cols:,d}"),
+        ("Plan grid", f"{result.grid.pixel_m:g} m pixels, {result.grid.rows:,d} x {result.grid.cols:,d}"
+         if getattr(result, "full_rasters", None) is None else  # in windows: result.grid is the figures' preview
+         f"{result.full_rasters.grid.pixel_m:g} m pixels, {result.full_rasters.grid.rows:,d} x "
+         f"{result.full_rasters.grid.cols:,d}, processed in {result.full_rasters.windows} windows of "
+         f"{result.full_rasters.tile_px} px; figures drawn from {result.full_rasters.preview_factor} x "
+         f"{result.full_rasters.preview_factor} px block means"),
         ("Dry background scale", f"{d.background_m:g} m"),
         ("Threshold", f"ΔT &gt; {d.threshold_c:g} °C above the dry background"),
         ("Smallest anomaly kept", f"{s.detect.min_area_m2:g} m² (holes smaller than this are filled)"),
