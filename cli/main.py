@@ -46,7 +46,7 @@ class _Progress:
         if done == 0 or self.bar is None:
             self._close()
             self.bar = click.progressbar(length=total, label=f"  {label}", show_pos=True, show_eta=False,
-                                         file=click.get_text_stream("stderr"))
+                                         file=sys.stderr)
             self.bar.__enter__()
             self.done = 0
         if done > self.done:

@@ -127,6 +127,6 @@ def test_truncated_mosaic_in_windows_is_a_clean_error(portfolio, tmp_path):
     assert res.exit_code == 1
     assert "Traceback" not in res.output
     errors = [line for line in res.stderr.splitlines() if line.startswith("wetmap: error:")]
-    assert errors and "cannot be read" in errors[0]
+    assert errors and ("cannot be read" in errors[0] or "cannot be opened" in errors[0])  # GDAL builds fail at open or at read
     assert not (tmp_path / "x").exists()
     assert not list(tmp_path.glob(".wetmap-windows-*"))  # the scratch folder is removed
