@@ -108,6 +108,10 @@ _FOUR_CONNECTED = np.array([[0, 1, 0], [1, 1, 1], [0, 1, 0]], dtype=bool)
 #: Pixel-outline vertices handed to numpy per batch (bounds peak memory).
 _BATCH_VERTICES = 1 << 21
 
+#: Unit pixel edges per batch in :func:`smooth_pixel_polygons` (each costs about 160 bytes
+#: of temporaries: about 40 MB a batch).
+_BATCH_UNIT_EDGES = 1 << 18
+
 
 # --------------------------------------------------------------------------- checks
 
@@ -722,9 +726,9 @@ def smooth_pixel_polygons(pixel_polygons, transform: Affine, *, outline: Outline
     full = np.flatnonzero(~shapely.is_empty(polys))
     if not full.size:
         return list(result)
-    # batches of about _BATCH_VERTICES unit edges (the perimeter in pixels) bound peak memory
+    # batches of about _BATCH_UNIT_EDGES unit edges (the perimeter in pixels) bound peak memory
     edges = np.cumsum(shapely.length(polys[full]))
-    batch = np.floor(edges / _BATCH_VERTICES).astype(np.int64)
+    batch = np.floor(edges / _BATCH_UNIT_EDGES).astype(np.int64)
     for b in np.unique(batch):
         part = full[batch == b]
         rings, ring_owner = shapely.get_rings(polys[part], return_index=True)

@@ -934,7 +934,7 @@ def _hole_statistics(holes: np.ndarray, read_delta: Callable[[np.ndarray, np.nda
                      ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
     """Pixels, delta sum and maximum of each hole, and whether all its pixels are fillable (finite delta).
 
-    In batches of about a million pixels, so memory stays bounded however many holes there are.
+    In batches of about 260 000 pixels, so memory stays bounded however many holes there are.
     """
     n = len(holes)
     area = np.rint(shapely.area(holes)).astype(np.int64) if n else np.zeros(0, np.int64)
@@ -942,7 +942,7 @@ def _hole_statistics(holes: np.ndarray, read_delta: Callable[[np.ndarray, np.nda
     total = np.zeros(n)
     largest = np.full(n, -np.inf)
     bad = np.zeros(n, dtype=np.int64)
-    batch = np.cumsum(area) // (1 << 20)
+    batch = np.cumsum(area) // (1 << 18)
     for b in np.unique(batch):
         part = np.flatnonzero(batch == b)
         which, rows, cols = _hole_pixels(holes[part])
