@@ -54,6 +54,7 @@ __all__ = [
     "repair_outline",
     "BoardTakeoff",
     "board_takeoff",
+    "overlap_areas",
     "SectionTotals",
     "section_totals",
     "largest_overlap",
@@ -148,6 +149,25 @@ def dominant_angle_deg(outline: BaseGeometry) -> float:
     return float(round(best, 9) % 90.0)
 
 
+def _buffer_threaded(geoms: np.ndarray, distance: float) -> np.ndarray:
+    """``shapely.buffer(geoms, distance, quad_segs=QUAD_SEGS)`` on every core.
+
+    Buffering outlines with a vertex every few centimetres by a margin of tens of
+    centimetres is the slow step of the take-off; shapely releases the GIL inside its
+    vectorised functions, so slices of the array run in threads (the same result).
+    """
+    import os
+    from concurrent.futures import ThreadPoolExecutor
+
+    workers = min(os.cpu_count() or 1, max(1, len(geoms) // 16))
+    if workers == 1:
+        return shapely.buffer(geoms, distance, quad_segs=QUAD_SEGS)
+    chunks = np.array_split(geoms, workers * 4)  # small slices balance uneven outlines
+    with ThreadPoolExecutor(workers) as pool:
+        done = list(pool.map(lambda c: shapely.buffer(c, distance, quad_segs=QUAD_SEGS), chunks))
+    return np.concatenate(done)
+
+
 def repair_outline(wet: Sequence[BaseGeometry], *, margin_m: float, outline: BaseGeometry,
                    exclusions: BaseGeometry | None = None) -> BaseGeometry:
     """Wet anomalies grown by ``margin_m``, merged, clipped to the roof.
@@ -179,7 +199,7 @@ def repair_outline(wet: Sequence[BaseGeometry], *, margin_m: float, outline: Bas
     if not len(wet):
         return Polygon()
     arr = np.asarray(list(wet), dtype=object)
-    grown = shapely.union_all(shapely.buffer(arr, margin_m, quad_segs=QUAD_SEGS) if margin_m > 0 else arr)
+    grown = shapely.union_all(_buffer_threaded(arr, margin_m) if margin_m > 0 else arr)
     out = grown.intersection(outline)
     if exclusions is not None and not exclusions.is_empty:
         out = out.difference(exclusions)
@@ -220,6 +240,35 @@ class BoardTakeoff:
     origin_xy: tuple[float, float] = (0.0, 0.0)
     board_m: tuple[float, float] | None = None
     tearoff_m2: tuple[float, ...] = ()
+
+
+def overlap_areas(cells: np.ndarray, geom: BaseGeometry) -> np.ndarray:
+    """Area of each of many small ``cells`` inside one large polygonal ``geom``, m2.
+
+    Equal to ``shapely.area(shapely.intersection(cells, geom))`` but it never clips a cell
+    against the whole of ``geom``: its polygons go in an STR-tree, a cell lying wholly
+    inside one counts its own area, and only the cells crossing an edge are clipped, against
+    that polygon alone. (The polygons of a valid polygonal geometry do not overlap, so the
+    pieces add up.)
+
+    >>> from shapely.geometry import MultiPolygon, box
+    >>> cells = shapely.box([0, 5, 20], [0, 0, 0], [1, 6, 21], [1, 1, 1])
+    >>> overlap_areas(cells, MultiPolygon([box(0, 0, 4, 4), box(5.5, 0, 9, 4)])).tolist()
+    [1.0, 0.5, 0.0]
+    """
+    cells = np.asarray(cells, dtype=object)
+    out = np.zeros(len(cells))
+    parts = np.asarray([p for p in shapely.get_parts(geom) if p.geom_type == "Polygon" and not p.is_empty],
+                       dtype=object)
+    if not len(cells) or not len(parts):
+        return out
+    shapely.prepare(parts)
+    cell_i, part_i = shapely.STRtree(parts).query(cells, predicate="intersects")
+    pieces = shapely.area(cells[cell_i])
+    crossing = ~shapely.contains_properly(parts[part_i], cells[cell_i])
+    pieces[crossing] = shapely.area(shapely.intersection(cells[cell_i[crossing]], parts[part_i[crossing]]))
+    np.add.at(out, cell_i, pieces)
+    return out
 
 
 def board_takeoff(repair: BaseGeometry, *, board_m: tuple[float, float], roof: BaseGeometry,
@@ -273,14 +322,9 @@ def board_takeoff(repair: BaseGeometry, *, board_m: tuple[float, float], roof: B
     x0 = ox + ii.ravel() * w
     y0 = oy + jj.ravel() * h
     cells = shapely.box(x0, y0, x0 + w, y0 + h)
-    shapely.prepare(rot_repair)
-    cells = cells[shapely.intersects(rot_repair, cells)]
-    if len(cells):
-        overlap = shapely.area(shapely.intersection(cells, rot_repair))
-        cells = cells[overlap > _TOUCH_M2]
+    cells = cells[overlap_areas(cells, rot_repair) > _TOUCH_M2]
     boards = tuple(affinity.rotate(c, angle_deg, origin=pivot) for c in cells)
-    pieces = shapely.area(shapely.intersection(np.asarray(boards, dtype=object), roof)) if boards else np.zeros(0)
-    tearoff = tuple(float(a) for a in pieces)
+    tearoff = tuple(float(a) for a in overlap_areas(np.asarray(boards, dtype=object), roof))
     return BoardTakeoff(boards, len(boards), len(boards) * w * h, math.fsum(tearoff), float(angle_deg),
                         origin_xy, (float(w), float(h)), tearoff)
 
@@ -647,7 +691,11 @@ def compute_quantities(anomalies: Sequence[BaseGeometry], status: Sequence[Statu
         x0, y0, x1, y1 = shapely.total_bounds(np.asarray(everything, dtype=object))
         rest = box(x0 - 1.0, y0 - 1.0, x1 + 1.0, y1 + 1.0).difference(union)
         if takeoff.count:
-            pieces = shapely.intersection(np.asarray(takeoff.boards, dtype=object), roof)
+            boards = np.asarray(takeoff.boards, dtype=object)
+            shapely.prepare(roof)
+            pieces = boards.copy()  # a board wholly inside the roof is its own piece
+            edge = ~shapely.contains_properly(roof, boards)
+            pieces[edge] = shapely.intersection(boards[edge], roof)
             board_section = np.asarray(largest_overlap(list(pieces), [*zones, rest]), dtype=int)
             board_section[board_section == len(zones)] = -1
         common = dict(roof=roof, anomalies=anomalies, status=status, repair=repair, boards=takeoff.boards,
