@@ -136,34 +136,37 @@ def _png(fig) -> bytes:
     return buf.getvalue()
 
 
-def _path(geom: BaseGeometry):
-    """A matplotlib Path of a (multi)polygon, holes included."""
+def _path(geom):
+    """One matplotlib Path of a (multi)polygon or of a sequence of them, holes included."""
     from matplotlib.path import Path as MplPath
 
-    verts: list[np.ndarray] = []
-    codes: list[np.ndarray] = []
-    for poly in shapely.get_parts(geom):
-        if poly.geom_type != "Polygon" or poly.is_empty:
-            continue
-        for ring in [poly.exterior, *poly.interiors]:
-            xy = np.asarray(ring.coords)
-            c = np.full(len(xy), MplPath.LINETO, dtype=np.uint8)
-            c[0], c[-1] = MplPath.MOVETO, MplPath.CLOSEPOLY
-            verts.append(xy)
-            codes.append(c)
-    if not verts:
+    parts = shapely.get_parts(np.asarray(geom if isinstance(geom, (list, tuple, np.ndarray)) else [geom],
+                                         dtype=object))
+    parts = parts[(shapely.get_type_id(parts) == 3) & ~shapely.is_empty(parts)]  # polygons
+    if not len(parts):
         return None
-    return MplPath(np.concatenate(verts), np.concatenate(codes))
+    rings = shapely.get_rings(parts)  # exteriors and holes
+    verts, index = shapely.get_coordinates(rings, return_index=True)
+    codes = np.full(len(verts), MplPath.LINETO, dtype=np.uint8)
+    starts = np.flatnonzero(np.r_[True, index[1:] != index[:-1]])
+    codes[starts] = MplPath.MOVETO
+    codes[np.r_[starts[1:], len(verts)] - 1] = MplPath.CLOSEPOLY
+    return MplPath(verts, codes)
 
 
-def _draw(ax, geom: BaseGeometry, **style) -> None:
+def _draw(ax, geom, **style) -> None:
+    """Draw a geometry, or many with one style, as one patch.
+
+    The patch is added without autoscaling (``add_artist``): working out the limits walks
+    every vertex in Python, and every plan figure sets its limits from the outline.
+    """
     from matplotlib.patches import PathPatch
 
-    if geom is None or geom.is_empty:
+    if geom is None or (isinstance(geom, BaseGeometry) and geom.is_empty):
         return
     path = _path(geom)
     if path is not None:
-        ax.add_patch(PathPatch(path, **style))
+        ax.add_artist(PathPatch(path, **style))
 
 
 def _halo(width: float = 3.0):
@@ -185,16 +188,23 @@ def _plan_axes(ax, result: "SurveyResult") -> None:
     ax.tick_params(labelsize=7)
 
 
+#: Above this many anomalies a plan figure leaves out their ids (unreadable; the tables list them).
+MAX_FIGURE_LABELS = 150
+
+
 def _draw_anomalies(ax, result: "SurveyResult", *, filled: bool, labels: bool) -> None:
-    for a in result.anomalies:
-        st = STATUS_STYLES.get(a.status)
-        if st is None:
+    for status, st in STATUS_STYLES.items():  # one patch per status and style: fast with thousands
+        geoms = [a.geometry for a in result.anomalies if a.status == status]
+        if not geoms:
             continue
-        _draw(ax, a.geometry, fill=False, edgecolor=st.colour, linewidth=2.0, linestyle=st.linestyle,
+        _draw(ax, geoms, fill=False, edgecolor=st.colour, linewidth=2.0, linestyle=st.linestyle,
               path_effects=_halo(3.4), zorder=4)
         if filled:  # a translucent fill under the crisp line
-            _draw(ax, a.geometry, facecolor=st.colour, edgecolor="none", alpha=0.3, zorder=3)
-        if labels:  # above the outline, clear of the cores inside it
+            _draw(ax, geoms, facecolor=st.colour, edgecolor="none", alpha=0.3, zorder=3)
+    if labels and len(result.anomalies) <= MAX_FIGURE_LABELS:
+        for a in result.anomalies:  # above the outline, clear of the cores inside it
+            if a.status not in STATUS_STYLES:
+                continue
             x0, _, x1, y1 = a.geometry.bounds
             ax.annotate(f"#{a.id}", ((x0 + x1) / 2, y1), xytext=(0, 2.5), textcoords="offset points", fontsize=7,
                         ha="center", va="bottom", zorder=6, fontweight="bold", path_effects=_halo(2.5))
@@ -209,7 +219,7 @@ def _draw_cores(ax, result: "SurveyResult", *, labels: bool) -> None:
                linewidth=0.8, zorder=7)
     ax.scatter(c.xs[~wet], c.ys[~wet], s=30, marker="o", facecolor="white", edgecolor=CORE_COLOURS["dry"],
                linewidth=1.8, zorder=7)
-    if labels and len(c) <= 150:
+    if labels and len(c) <= MAX_FIGURE_LABELS:
         for cid, x, y in zip(c.ids, c.xs, c.ys):
             ax.annotate(cid, (x, y), xytext=(4, 3), textcoords="offset points", fontsize=6.5, zorder=8,
                         path_effects=_halo(2.2))
@@ -363,8 +373,8 @@ def repair_plan_figure(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> byte
         ax.annotate(sec.name, (p.x, p.y), fontsize=11, color="#555555", ha="center", va="center", zorder=2,
                     alpha=0.8)
     _draw(ax, result.exclusions, facecolor=LAYER_COLOURS["exclusions"], edgecolor="#666666", linewidth=0.6, zorder=2)
-    for board in result.takeoff.boards:
-        _draw(ax, board, facecolor="none", edgecolor=LAYER_COLOURS["boards"], linewidth=0.5, zorder=3)
+    _draw(ax, list(result.takeoff.boards), facecolor="none", edgecolor=LAYER_COLOURS["boards"], linewidth=0.5,
+          zorder=3)
     _draw_anomalies(ax, result, filled=True, labels=True)
     _draw(ax, result.repair, facecolor="none", edgecolor=LAYER_COLOURS["repair"], linewidth=1.2, linestyle="--",
           hatch="///", zorder=5)
