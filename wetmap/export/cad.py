@@ -98,7 +98,7 @@ def write_dxf(result: "SurveyResult", path: Path) -> None:
         ezdxf's audit found an error in the drawing (a wetmap bug).
     """
     import ezdxf
-    from ezdxf import appsettings, zoom
+    from ezdxf import bbox, zoom
     from ezdxf.enums import TextEntityAlignment
 
     from .tables import quantities_of
@@ -115,13 +115,17 @@ def write_dxf(result: "SurveyResult", path: Path) -> None:
     msp = doc.modelspace()
     h = _text_height_m(result.outline)
 
+    drawn: list[BaseGeometry] = []  # polygons written, for the extents
+    marks: list = []  # texts and circles, for the extents
+
     def rings(geom: BaseGeometry, layer: str) -> None:
+        drawn.append(geom)
         for xy, _ in polygon_rings(geom):
             msp.add_lwpolyline(xy.tolist(), close=True, dxfattribs={"layer": layer})
 
     def label(text: str, xy: tuple[float, float], *, height: float = h, layer: str = "LABELS") -> None:
-        msp.add_text(text, height=height, dxfattribs={"layer": layer}).set_placement(
-            xy, align=TextEntityAlignment.MIDDLE_CENTER)
+        marks.append(msp.add_text(text, height=height, dxfattribs={"layer": layer}).set_placement(
+            xy, align=TextEntityAlignment.MIDDLE_CENTER))
 
     def inside(geom: BaseGeometry) -> tuple[float, float]:
         p = geom.representative_point()
@@ -153,11 +157,11 @@ def write_dxf(result: "SurveyResult", path: Path) -> None:
     c = result.confirmations
     for i in range(len(c)):
         x, y = float(c.xs[i]), float(c.ys[i])
-        msp.add_circle((x, y), radius=0.4 * h, dxfattribs={"layer": "CORES"})
+        marks.append(msp.add_circle((x, y), radius=0.4 * h, dxfattribs={"layer": "CORES"}))
         msp.add_point((x, y), dxfattribs={"layer": "CORES"})
         judged = "wet" if c.wet[i] else "dry"
-        msp.add_text(f"{c.ids[i]} {judged}", height=0.8 * h, dxfattribs={"layer": "CORES"}).set_placement(
-            (x + 0.6 * h, y), align=TextEntityAlignment.MIDDLE_LEFT)
+        marks.append(msp.add_text(f"{c.ids[i]} {judged}", height=0.8 * h, dxfattribs={"layer": "CORES"}).set_placement(
+            (x + 0.6 * h, y), align=TextEntityAlignment.MIDDLE_LEFT))
 
     # a title block under the outline: what the drawing is, the totals, the caution
     x0, y0, _, _ = result.outline.bounds
@@ -175,11 +179,19 @@ def write_dxf(result: "SurveyResult", path: Path) -> None:
     lines.append("Apparent thermal anomalies, not measured moisture: verify by coring; "
                  "local codes and licensed professionals decide.")
     for n, text in enumerate(lines):
-        msp.add_text(text, height=h, dxfattribs={"layer": "LABELS"}).set_placement(
-            (x0, y0 - (2.0 + 1.6 * n) * h), align=TextEntityAlignment.LEFT)
+        marks.append(msp.add_text(text, height=h, dxfattribs={"layer": "LABELS"}).set_placement(
+            (x0, y0 - (2.0 + 1.6 * n) * h), align=TextEntityAlignment.LEFT))
 
-    extents = appsettings.update_extents(doc)  # header and model-space extents
+    # header and model-space extents: the polygons' bounds from shapely, ezdxf's estimate for
+    # the texts and circles alone (its bounding box of every entity walks each vertex in Python)
+    extents = bbox.extents(marks, fast=True)
+    if drawn:
+        gx0, gy0, gx1, gy1 = shapely.total_bounds(np.asarray(drawn, dtype=object))
+        if np.isfinite(gx0):
+            extents.extend([(gx0, gy0, 0.0), (gx1, gy1, 0.0)])
     if extents.has_data:  # the initial view: CAD opens on the roof
+        msp.dxf.extmin, msp.dxf.extmax = extents.extmin, extents.extmax
+        doc.header["$EXTMIN"], doc.header["$EXTMAX"] = extents.extmin, extents.extmax
         zoom.window(msp, extents.extmin, extents.extmax)
     auditor = doc.audit()
     if auditor.has_errors:
