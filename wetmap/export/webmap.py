@@ -258,7 +258,8 @@ def png_bytes(rgba: np.ndarray) -> bytes:
     from PIL import Image
 
     buf = io.BytesIO()
-    Image.fromarray(np.ascontiguousarray(rgba)).save(buf, format="PNG")
+    # level 1: noisy thermal images gain under 1 % from zlib's default level 6, at 4 x the time
+    Image.fromarray(np.ascontiguousarray(rgba)).save(buf, format="PNG", compress_level=1)
     return buf.getvalue()
 
 
