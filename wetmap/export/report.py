@@ -249,6 +249,9 @@ def _legend_handles(result: "SurveyResult", *, plan: bool) -> list:
 def thermal_figure(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> bytes:
     """Figure 1: corrected surface temperature with anomaly outlines, ids and labelled cores.
 
+    Ids and core labels are left out above :data:`MAX_FIGURE_LABELS` of either (the tables
+    list them).
+
     Returns
     -------
     bytes
