@@ -127,6 +127,9 @@ _TIFF_PROFILE = dict(driver="GTiff", count=1, dtype="float32", nodata=float("nan
                      predictor=3, ZLEVEL=1, tiled=True, blockxsize=256, blockysize=256, BIGTIFF="IF_SAFER",
                      NUM_THREADS="ALL_CPUS")  # GDAL reads this creation option in capitals only
 
+#: Pixels written to a GeoTIFF at a time (whole 256 x 256 blocks; about 4 MB of float32).
+_WRITE_PIECE_PX = 1 << 20
+
 #: GDAL's block cache while windows are read and written, MB (GDAL's default, 5 % of the
 #: memory, would hold decompressed blocks of the mosaic worth hundreds of MB).
 GDAL_CACHE_MB = 64
@@ -1447,11 +1450,13 @@ def _assemble_preview(parts: list[np.ndarray], windows, factor: int, shape: tupl
 
 
 def _write_tiff(store: _Scratch, kind: str, path: Path, grid: "PlanGrid", window_progress: WindowProgress | None) -> None:
-    """Write the windows of ``kind`` as one float32 GeoTIFF in bands of whole 256-row blocks.
+    """Write the windows of ``kind`` as one float32 GeoTIFF in pieces of whole 256 x 256 blocks.
 
-    Bands of whole blocks are compressed once each (on all cores) and never re-read: windows
+    Pieces of whole blocks are compressed once each (on all cores) and never re-read: windows
     that cut blocks would leave partial blocks in GDAL's cache, to be flushed, read back and
-    rewritten (slower, and garbage in the file).
+    rewritten (slower, and garbage in the file). A piece holds about :data:`_WRITE_PIECE_PX`
+    pixels (one row of blocks, cut into runs of columns when the grid is wide), so the
+    memory of the writer does not grow with the mosaic.
     """
     import rasterio
     from rasterio.windows import Window
@@ -1461,17 +1466,18 @@ def _write_tiff(store: _Scratch, kind: str, path: Path, grid: "PlanGrid", window
         profile.update(tiled=False)
         profile.pop("blockxsize")
         profile.pop("blockysize")
-    band = max(256, (4_000_000 // max(grid.cols, 1)) // 256 * 256)
+    band = max(256, (_WRITE_PIECE_PX // max(grid.cols, 1)) // 256 * 256)
+    width = grid.cols if band > 256 or grid.rows < 256 else max(256, _WRITE_PIECE_PX // band // 256 * 256)
     label = f"writing {path.name}"
-    starts = range(0, grid.rows, band)
+    pieces = [(r0, c0) for r0 in range(0, grid.rows, band) for c0 in range(0, grid.cols, width)]
     if window_progress is not None:
-        window_progress(label, 0, len(starts))
+        window_progress(label, 0, len(pieces))
     with rasterio.open(path, "w", **profile) as dst:
-        for k, r0 in enumerate(starts):
-            rows = min(band, grid.rows - r0)
-            dst.write(store.rect(kind, r0, 0, rows, grid.cols), 1, window=Window(0, r0, grid.cols, rows))
+        for k, (r0, c0) in enumerate(pieces):
+            rows, cols = min(band, grid.rows - r0), min(width, grid.cols - c0)
+            dst.write(store.rect(kind, r0, c0, rows, cols), 1, window=Window(c0, r0, cols, rows))
             if window_progress is not None:
-                window_progress(label, k + 1, len(starts))
+                window_progress(label, k + 1, len(pieces))
         dst.update_tags(1, units="degC")
 
 
