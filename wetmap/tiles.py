@@ -472,7 +472,7 @@ class _Scratch:
         if os.getpid() != self.driver_pid and not _CACHE_LIMITED:
             from rasterio.env import set_gdal_config
 
-            set_gdal_config("GDAL_CACHEMAX", GDAL_CACHE_MB)
+            set_gdal_config("GDAL_CACHEMAX", GDAL_CACHE_MB << 20)  # bytes (rasterio passes the number as is)
             _CACHE_LIMITED = True
 
     def path(self, kind: str, i: int) -> Path:
@@ -1315,7 +1315,7 @@ def detect_in_windows(survey: "Survey", *, outline, roof, radiometry: "Radiometr
     min_pixels = max(1, int(math.ceil(sdt.min_area_m2 / (grid.pixel_m * grid.pixel_m) - 1e-9)))
     import rasterio
 
-    env = rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_MB)  # bounds the block cache of every thread's reads
+    env = rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_MB << 20)  # bytes; bounds the block cache of every thread's reads
     env.__enter__()
     writer: _Background | None = None
     try:
@@ -1398,11 +1398,7 @@ def detect_in_windows(survey: "Survey", *, outline, roof, radiometry: "Radiometr
         for p in folder.glob("*.raw"):
             p.unlink(missing_ok=True)
 
-    preview_mask = np.zeros(preview_grid.shape, dtype=bool)
-    if len(merged.polygons):
-        scaled = shapely.transform(merged.polygons, lambda xy: xy / factor)
-        preview_mask = rasterize_window(pixel_edges(shapely.multipolygons(scaled), Affine.identity()), row0=0,
-                                        col0=0, shape=preview_grid.shape)
+    preview_mask = _preview_mask(merged.polygons, factor, preview_grid.shape)
     detection = Detection(background_c=bg_preview, delta_c=delta_preview, mask=preview_mask,
                           background_m=background_m, threshold_c=sdt.delta_c, min_pixels=min_pixels)
     return TiledDetection(
@@ -1440,6 +1436,24 @@ def _emit(progress: Progress | None, message: str) -> None:
     log.info(message)
     if progress is not None:
         progress(message)
+
+
+def _preview_mask(polygons: np.ndarray, factor: int, shape: tuple[int, int]) -> np.ndarray:
+    """The preview cells whose centre lies in a region (pixel polygons scaled by ``1 / factor``).
+
+    In batches of about 260 000 vertices, so memory does not grow with the number of
+    anomalies: the even-odd rule is a parity, so the masks of disjoint batches XOR to
+    the mask of all the polygons at once, bit for bit.
+    """
+    out = np.zeros(shape, dtype=bool)
+    if not len(polygons):
+        return out
+    batch = np.cumsum(shapely.get_num_coordinates(polygons)) // (1 << 18)
+    for b in np.unique(batch):
+        scaled = shapely.transform(polygons[batch == b], lambda xy: xy / factor)
+        out ^= rasterize_window(pixel_edges(shapely.multipolygons(scaled), Affine.identity()), row0=0, col0=0,
+                                shape=shape)
+    return out
 
 
 def _assemble_preview(parts: list[np.ndarray], windows, factor: int, shape: tuple[int, int]) -> np.ndarray:
