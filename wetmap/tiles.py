@@ -6,7 +6,8 @@ square *windows* of ``tile_px`` pixels, a multiple of the background block size
 (:func:`wetmap.detect.background_grid`), anchored at pixel ``(0, 0)``; each window is one
 task. The result is the same as whole-array processing -- same polygons
 (``shapely.equals``), areas and per-anomaly delta-T statistics to rounding, same rasters
-bit for bit -- with peak memory set by the window size, not the mosaic size.
+bit for bit -- with the memory of the raster work set by the window size, not the mosaic
+size (the vector work still grows with the number of anomaly outlines and holes).
 
 Why no halo is needed
 ---------------------
