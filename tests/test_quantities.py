@@ -30,6 +30,7 @@ from wetmap.quantities import (
     compute_quantities,
     convert_area,
     dominant_angle_deg,
+    overlap_areas,
     repair_outline,
 )
 from wetmap.survey import Prices, Repair, load_survey
@@ -500,3 +501,32 @@ def test_bad_quantity_keys(survey_with, extra, words):
     assert "survey.toml" in text
     for w in words:
         assert w in text, text
+
+
+# --------------------------------------------------------------------------------------
+# overlap_areas: the fast clip of many boards, against shapely's direct intersection
+# (reference: shapely.area(shapely.intersection(cells, geom)), a general-purpose library)
+# --------------------------------------------------------------------------------------
+
+
+@settings(max_examples=30, deadline=None)
+@given(seed=st.integers(0, 2**32 - 1), angle=st.floats(0.0, 89.0))
+def test_overlap_areas_equals_direct_intersection(seed, angle):
+    rng = np.random.default_rng(seed)
+    # a roof with holes (exclusions) and several separate wet patches grown by a margin
+    roof = box(0, 0, 40, 30).difference(shapely.union_all(shapely.buffer(
+        shapely.points(rng.uniform(2, 38, 4), rng.uniform(2, 28, 4)), rng.uniform(0.5, 2.0, 4))))
+    patches = shapely.union_all(shapely.buffer(shapely.points(rng.uniform(0, 40, 6), rng.uniform(0, 30, 6)),
+                                               rng.uniform(0.5, 5.0, 6), quad_segs=16))
+    patches = affinity.rotate(patches, angle, origin=(20, 15))
+    x0, y0 = (a.ravel() for a in np.meshgrid(np.arange(-2.0, 42.0, 1.2), np.arange(-2.0, 32.0, 1.25)))
+    cells = shapely.box(x0, y0, x0 + 1.2, y0 + 1.25)  # a board grid over the whole roof and beyond
+    for geom in (roof, patches):
+        direct = shapely.area(shapely.intersection(cells, geom))
+        np.testing.assert_allclose(overlap_areas(cells, geom), direct, rtol=0, atol=1e-9)
+
+
+def test_overlap_areas_empty_inputs():
+    cells = shapely.box([0.0], [0.0], [1.0], [1.0])
+    assert overlap_areas(cells, shapely.Polygon()).tolist() == [0.0]
+    assert overlap_areas(np.asarray([], dtype=object), box(0, 0, 1, 1)).shape == (0,)
