@@ -40,6 +40,7 @@ from .webmap import (
     LAYER_COLOURS,
     STATUS_STYLES,
     THERMAL_CMAP,
+    colourise,
     decimate,
     display_range,
     png_data_uri,
@@ -271,9 +272,11 @@ def thermal_figure(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> bytes:
     if imagery is not None:  # from the roof alone, centred on the dry background (wetmap.imagery)
         lo, hi = imagery.surface_range.low_c, imagery.surface_range.high_c
     gx0, gy0, gx1, gy1 = result.grid.bounds
-    ax.imshow(image, extent=(gx0, gx0 + factor * image.shape[1] * result.grid.pixel_m,
-                             gy1 - factor * image.shape[0] * result.grid.pixel_m, gy1),
-              cmap=THERMAL_CMAP, vmin=lo, vmax=hi, interpolation="nearest", origin="upper", zorder=1)
+    # coloured here as 4 bytes a pixel: matplotlib would resample float64 copies of the image
+    ax.imshow(colourise(image, vmin=lo, vmax=hi, cmap=THERMAL_CMAP),
+              extent=(gx0, gx0 + factor * image.shape[1] * result.grid.pixel_m,
+                      gy1 - factor * image.shape[0] * result.grid.pixel_m, gy1),
+              interpolation="nearest", origin="upper", zorder=1)
     _draw(ax, result.exclusions, facecolor=LAYER_COLOURS["exclusions"], edgecolor="#666666", linewidth=0.6, zorder=2)
     _draw(ax, result.outline, facecolor="none", edgecolor="black", linewidth=1.0, zorder=2)
     _draw_anomalies(ax, result, filled=False, labels=True)
