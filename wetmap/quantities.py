@@ -315,12 +315,17 @@ def board_takeoff(repair: BaseGeometry, *, board_m: tuple[float, float], roof: B
         return BoardTakeoff((), 0, 0.0, 0.0, float(angle_deg), origin_xy, tuple(board_m))
     w, h = board_m
     rot_repair = affinity.rotate(repair, -angle_deg, origin=pivot)
-    xmin, ymin, xmax, ymax = rot_repair.bounds
-    i0, i1 = math.floor((xmin - ox) / w), math.ceil((xmax - ox) / w)
-    j0, j1 = math.floor((ymin - oy) / h), math.ceil((ymax - oy) / h)
-    ii, jj = np.meshgrid(np.arange(i0, i1), np.arange(j0, j1), indexing="ij")
-    x0 = ox + ii.ravel() * w
-    y0 = oy + jj.ravel() * h
+    # candidate boards: those under the bounding box of each repair polygon (not of them all,
+    # which on a big roof with scattered repairs is most of the roof)
+    cand = []
+    for xmin, ymin, xmax, ymax in shapely.bounds(shapely.get_parts(rot_repair)):
+        i0, i1 = math.floor((xmin - ox) / w), math.ceil((xmax - ox) / w)
+        j0, j1 = math.floor((ymin - oy) / h), math.ceil((ymax - oy) / h)
+        ii, jj = np.meshgrid(np.arange(i0, i1), np.arange(j0, j1), indexing="ij")
+        cand.append(np.column_stack([ii.ravel(), jj.ravel()]))
+    ij = np.unique(np.concatenate(cand), axis=0)  # sorted by i, then j: the order of one grid
+    x0 = ox + ij[:, 0] * w
+    y0 = oy + ij[:, 1] * h
     cells = shapely.box(x0, y0, x0 + w, y0 + h)
     cells = cells[overlap_areas(cells, rot_repair) > _TOUCH_M2]
     boards = tuple(affinity.rotate(c, angle_deg, origin=pivot) for c in cells)
