@@ -377,3 +377,22 @@ def test_uncovered_area_is_the_hole(local_run):
     # the nodata block, 6 x 5 m = 30 m2, exactly on pixel edges (common practice: a pixel is its footprint)
     assert hole.area == pytest.approx(30.0, abs=0.01)
     assert shapely.box(512318, 5463125, 512324, 5463130).symmetric_difference(hole).area < 0.01
+
+
+@pytest.mark.parametrize("cmap", ["cividis", "viridis", "inferno", "gray"])
+@pytest.mark.parametrize("vmin, vmax", [(0.0, 10.0), (2.5, 7.25), (3.0, 3.0)])
+def test_colourise_equals_matplotlib_colour_map(cmap, vmin, vmax):
+    """Reference: calling the matplotlib colour map itself (bytes=True) on the clipped values."""
+    import matplotlib
+
+    from wetmap.export.webmap import colourise
+
+    rng = np.random.default_rng(0)
+    v = rng.normal(5, 3, (50, 70)).astype(np.float32)
+    v[rng.random(v.shape) < 0.05] = np.nan
+    v[0, :6] = [0.0, 10.0, -1.0, 11.0, np.inf, -np.inf]
+    cm = matplotlib.colormaps[cmap]
+    norm = np.clip((v - vmin) / (vmax - vmin if vmax > vmin else 1.0), 0.0, 1.0)
+    expected = cm(np.nan_to_num(norm, nan=0.0), bytes=True)
+    expected[..., 3] = np.where(np.isfinite(v), 255, 0)
+    np.testing.assert_array_equal(colourise(v, vmin=vmin, vmax=vmax, cmap=cmap), expected)

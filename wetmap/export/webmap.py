@@ -240,10 +240,21 @@ def colourise(values: np.ndarray, *, vmin: float, vmax: float, cmap: str = THERM
     import matplotlib
 
     cm = matplotlib.colormaps[cmap]
+    lut = cm(np.arange(cm.N), bytes=True)  # (N, 4) uint8: the map's own colours
     span = vmax - vmin if vmax > vmin else 1.0
-    norm = np.clip((np.asarray(values, dtype=np.float32) - vmin) / span, 0.0, 1.0)
-    rgba = cm(np.nan_to_num(norm, nan=0.0), bytes=True)
-    rgba[..., 3] = np.where(np.isfinite(values), 255, 0)
+    # the colour map's own rule (index = floor(x * N), 1.0 -> N - 1) on float32, in place:
+    # a few bytes a pixel instead of the float64 and int64 copies of calling the map
+    x = np.asarray(values, dtype=np.float32) - np.float32(vmin)
+    x /= np.float32(span)
+    finite = np.isfinite(x)
+    np.clip(x, 0.0, 1.0, out=x)
+    x[np.isnan(x)] = 0.0
+    x *= np.float32(cm.N)
+    index = x.astype(np.uint16)
+    del x
+    np.minimum(index, cm.N - 1, out=index)
+    rgba = lut[index]
+    rgba[..., 3] = np.where(finite, 255, 0)
     return rgba
 
 
