@@ -620,14 +620,14 @@ def mosaic_tile_sharpness(path: Path, *, scale: float = 1.0, within: BaseGeometr
     from rasterio.errors import NotGeoreferencedWarning
     from rasterio.windows import Window
 
-    from .tiles import GDAL_CACHE_MB
+    from .tiles import GDAL_CACHE_BYTES
 
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", NotGeoreferencedWarning)
         src = rasterio.open(path)
     # a bounded block cache: GDAL's default (5 % of the memory) would keep every
     # decompressed block the tiles touch, hundreds of MB on a large mosaic
-    with src, rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_MB << 20):
+    with src, rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_BYTES):
         rows, cols = src.height, src.width
         t = transform if transform is not None else src.transform
         starts = [(r0, c0) for r0 in range(0, rows, tile_px) for c0 in range(0, cols, tile_px)]

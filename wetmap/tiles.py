@@ -136,6 +136,8 @@ _WRITE_PIECE_PX = 1 << 20
 #: read once each, so the cache barely helps: on the 32 Mpx benchmark mosaic 0, 16 and
 #: 64 MB gave the same times within the machine's noise (10-11 s).
 GDAL_CACHE_MB = 16
+#: The same in bytes, as GDAL_CACHEMAX takes it from rasterio (a bare 16 would mean 16 bytes).
+GDAL_CACHE_BYTES = GDAL_CACHE_MB << 20
 _CACHE_LIMITED = False
 
 #: How long to try to reach a dask scheduler address, seconds.
@@ -475,7 +477,7 @@ class _Scratch:
         if os.getpid() != self.driver_pid and not _CACHE_LIMITED:
             from rasterio.env import set_gdal_config
 
-            set_gdal_config("GDAL_CACHEMAX", GDAL_CACHE_MB << 20)  # bytes (rasterio passes the number as is)
+            set_gdal_config("GDAL_CACHEMAX", GDAL_CACHE_BYTES)
             _CACHE_LIMITED = True
 
     def path(self, kind: str, i: int) -> Path:
@@ -1318,7 +1320,7 @@ def detect_in_windows(survey: "Survey", *, outline, roof, radiometry: "Radiometr
     min_pixels = max(1, int(math.ceil(sdt.min_area_m2 / (grid.pixel_m * grid.pixel_m) - 1e-9)))
     import rasterio
 
-    env = rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_MB << 20)  # bytes; bounds the block cache of every thread's reads
+    env = rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_BYTES)  # bounds the block cache of every thread's reads
     env.__enter__()
     writer: _Background | None = None
     try:
