@@ -1,9 +1,9 @@
 """Where the time of one ``wetmap run`` goes: each stage's seconds and the peak memory so far.
 
-Runs the same work as ``wetmap run`` in this one process -- imports, ``process_survey``
-(detection and everything before writing), then each result writer in the order
-``write_results`` calls them -- and prints one line per stage. Written files go to a
-temporary folder that is removed at the end. For the ratios against the naive chain use
+Runs ``process_survey`` and then ``write_results`` itself in this one process, with each
+result writer it calls wrapped in a timer (so the stages are the ones ``wetmap run``
+does, in its order), and prints one line per stage. The results go to a temporary folder
+that is removed at the end. For the ratios against the naive chain use
 run_benchmarks.py; this script says which part of wetmap's own time is which.
 
     python benchmarks/stages.py benchmarks/out/roof_256mpx
@@ -11,6 +11,7 @@ run_benchmarks.py; this script says which part of wetmap's own time is which.
 
 from __future__ import annotations
 
+import functools
 import resource
 import shutil
 import sys
@@ -23,46 +24,43 @@ def peak_mb() -> float:
     return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
 
 
+def report(name: str, seconds: float) -> None:
+    print(f"{name:<40} {seconds:7.1f} s   peak {peak_mb():6.0f} MB", flush=True)
+
+
+def timed(name: str, fn):
+    @functools.wraps(fn)
+    def wrapper(*args, **kwargs):
+        t = time.perf_counter()
+        try:
+            return fn(*args, **kwargs)
+        finally:
+            report(name, time.perf_counter() - t)
+
+    return wrapper
+
+
 def main(folder: Path) -> int:
     start = time.perf_counter()
-    rows: list[tuple[str, float, float]] = []
+    import ezdxf  # noqa: F401
+    import folium  # noqa: F401
+    import geopandas  # noqa: F401
+    import matplotlib  # noqa: F401
 
-    def stage(name: str, fn) -> object:
-        t = time.perf_counter()
-        out = fn()
-        rows.append((name, time.perf_counter() - t, peak_mb()))
-        print(f"{name:<40} {rows[-1][1]:7.1f} s   peak {rows[-1][2]:6.0f} MB", flush=True)
-        return out
+    from wetmap.export import cad, gis, report as report_html, tables, webmap
+    from wetmap.pipeline import process_survey, write_results
+    from wetmap.tiles import FullRasters
 
-    def imports() -> None:
-        import ezdxf  # noqa: F401
-        import folium  # noqa: F401
-        import geopandas  # noqa: F401
-        import matplotlib  # noqa: F401
+    report("imports", time.perf_counter() - start)
+    for module, name in [(tables, "write_summary"), (tables, "write_quantities"), (gis, "write_anomalies"),
+                         (gis, "write_repair"), (cad, "write_dxf"), (gis, "write_raster"), (webmap, "write_map"),
+                         (report_html, "write_report"), (FullRasters, "place")]:
+        setattr(module, name, timed(name, getattr(module, name)))
 
-        import wetmap.pipeline  # noqa: F401
-
-    stage("imports", imports)
-    from wetmap.export import cad, gis, report, tables, webmap
-    from wetmap.pipeline import process_survey
-
-    result = stage("process_survey (detection and all)", lambda: process_survey(folder))
+    result = timed("process_survey (detection and all)", process_survey)(folder)
     tmp = Path(tempfile.mkdtemp(prefix="wetmap-stages-"))
     try:
-        stage("summary.json, quantities.csv", lambda: (tables.write_summary(result, tmp / "summary.json"),
-                                                       tables.write_quantities(result, tmp / "quantities.csv")))
-        stage("anomalies.gpkg, .geojson, repair.gpkg",
-              lambda: (gis.write_anomalies(result, tmp / "anomalies.gpkg", tmp / "anomalies.geojson"),
-                       gis.write_repair(result, tmp / "repair.gpkg")))
-        stage("repair.dxf", lambda: cad.write_dxf(result, tmp / "repair.dxf"))
-        if result.full_rasters is not None:
-            stage("surface_c.tif, delta_c.tif (placed)", lambda: result.full_rasters.place(tmp))
-        else:
-            stage("surface_c.tif, delta_c.tif", lambda: (
-                gis.write_raster(result.surface_c, result.grid, tmp / "surface_c.tif"),
-                gis.write_raster(result.detection.delta_c, result.grid, tmp / "delta_c.tif")))
-        stage("map.html", lambda: webmap.write_map(result, tmp / "map.html"))
-        stage("report.html", lambda: report.write_report(result, tmp / "report.html"))
+        write_results(result, tmp / "results")
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
     print(f"{'total':<40} {time.perf_counter() - start:7.1f} s   peak {peak_mb():6.0f} MB "
