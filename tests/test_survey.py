@@ -1,6 +1,6 @@
 """Tests of wetmap.survey.load_survey: survey.toml -> Survey, and every problem it reports.
 
-The contract is /work/shared/SURVEY_FORMAT.md (plus docs/SURVEY_FORMAT.md): every problem
+The contract is docs/SURVEY_FORMAT.md (the survey folder format and wetmap's additions): every problem
 is reported at once, one line each, naming the file, the ``[table] key``, the value and
 what is expected. Each error test checks that content, not only the exception type.
 """
