@@ -384,7 +384,7 @@ class SuggestedCore:
 
 def suggest_cores(anomalies: list[BaseGeometry], status: tuple[Status, ...], ids: list[int], *,
                   band: np.ndarray, transform, pixel_m: float, min_pixels: int,
-                  max_boundary: int = 3) -> list[SuggestedCore]:
+                  max_boundary: int = 3, words: Wording = ROOF) -> list[SuggestedCore]:
     """One point inside each unverified anomaly, then the widest parts of the uncertain band.
 
     The point in an anomaly is its pole of inaccessibility (:func:`shapely.ops.polylabel`):
@@ -392,7 +392,9 @@ def suggest_cores(anomalies: list[BaseGeometry], status: tuple[Status, ...], ids
     boundary. A boundary point is the pixel farthest from the edge of one connected part
     of the uncertain band (largest parts first), leaving out parts that lie within 1 m
     (or two pixels) of an unverified anomaly: that anomaly's own core settles them.
+    ``words`` names the confirmation in the reasons (a core on a roof, a reading on a hull).
     """
+    c1, cn = words.confirmation, words.confirmations
     from scipy import ndimage
     from shapely.ops import polylabel
 
@@ -408,7 +410,7 @@ def suggest_cores(anomalies: list[BaseGeometry], status: tuple[Status, ...], ids
             p = anomalies[i].representative_point()
         out.append(SuggestedCore(
             x=round(p.x, 3), y=round(p.y, 3), kind="unverified", anomaly=ids[i],
-            reason=f"anomaly {ids[i]} ({anomalies[i].area:.1f} m2) has no core: a core here confirms or refutes it",
+            reason=f"anomaly {ids[i]} ({anomalies[i].area:.1f} m2) has no {c1}: a {c1} here confirms or refutes it",
         ))
     labels, count = label_regions(band)
     unverified = [anomalies[i] for i in range(len(anomalies)) if status[i] == "unverified"]
@@ -432,7 +434,7 @@ def suggest_cores(anomalies: list[BaseGeometry], status: tuple[Status, ...], ids
             area = sizes[lab] * pixel_m * pixel_m
             out.append(SuggestedCore(
                 x=round(float(x), 3), y=round(float(y), 3), kind="boundary", anomaly=None,
-                reason=(f"{area:.1f} m2 here is wet or not depending on the threshold the cores allow: "
-                        "a core here fixes the outline"),
+                reason=(f"{area:.1f} m2 here is wet or not depending on the threshold the {cn} allow: "
+                        f"a {c1} here fixes the outline"),
             ))
     return out

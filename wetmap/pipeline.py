@@ -717,7 +717,8 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         core_cols=np.floor(core_cols).astype(np.intp), core_wet=conf.wet[decisive],
         include_unverified=survey.repair.include_unverified)
     suggestions = suggest_cores(polys, verdicts.status, list(range(1, count + 1)), band=band,
-                                transform=grid.transform, pixel_m=grid.pixel_m, min_pixels=range_min_pixels)
+                                transform=grid.transform, pixel_m=grid.pixel_m, min_pixels=range_min_pixels,
+                                words=words)
 
     _emit(progress, "checking the imagery: resolution, focus, reflections, display range")
     from .imagery import assess_imagery

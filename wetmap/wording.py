@@ -54,6 +54,20 @@ class Wording:
         Other causes of a warm patch that a dry confirmation points to.
     sample_both
         The advice when the confirmations cover only wet or only dry ground.
+    invasive_short
+        The same as ``invasive``, in a few words.
+    edge
+        What the repair outline's perimeter is: ``"cut edge"``, ``"scarf edge"``.
+    false_warm
+        The cautions' sentence on false warm areas and missed wet ones.
+    false_readings
+        A caution on the confirmations themselves (``""`` when none).
+    who_decides
+        Who decides what is done, for the cautions.
+    next_sample
+        The note under the suggested next confirmations.
+    safety
+        ``(heading, text)`` items of the safety cautions (heading may be ``""``).
     """
 
     kind: str
@@ -69,6 +83,13 @@ class Wording:
     whole_boards: bool
     other_causes: str
     sample_both: str
+    invasive_short: str
+    edge: str
+    false_warm: str
+    false_readings: str
+    who_decides: str
+    next_sample: str
+    safety: tuple[tuple[str, str], ...]
 
     @property
     def area_title(self) -> str:
@@ -93,6 +114,31 @@ ROOF = Wording(
     invasive="cores, or cores plus probe or meter readings", whole_boards=True,
     other_causes="extra plies, heat from below, ...",
     sample_both="core both suspect-wet and dry areas (common practice)",
+    invasive_short="cores", edge="cut edge",
+    false_warm=(
+        "False warm areas come from extra plies and old patches, heavy flood coats, gravel or ballast piles, "
+        "heat from below (exhausts, warm rooms, drain pans), structure and metal flashing, ponding and debris, "
+        "and reflections of sky or cloud on shiny surfaces. Wet areas can be missed under dew or frost, when "
+        "cloud arrives during the survey, with deep moisture, with closed-cell boards (faint patterns at the "
+        "joints) and on ballasted, paver, inverted or green roofs."),
+    false_readings="",
+    who_decides=(
+        "Local building codes, work-safety rules and licensed roofers, engineers or accredited marine "
+        "surveyors decide what is done; rules on replacing rather than repairing (for example above a share "
+        "of wet area) differ by jurisdiction."),
+    next_sample="Check for asbestos and services before coring; seal every core hole the same day.",
+    safety=(
+        ("Roofs at night.", "Walk the roof in daylight first and note edges, openings, skylights and soft "
+         "spots. Never work alone on a roof. Use fall protection near unprotected edges (guardrails, travel "
+         "restraint or arrest systems, as your local rules require) and cover or guard skylights and openings. "
+         "The camera screen spoils night vision: stop and let your eyes adapt before moving."),
+        ("Before coring.", "Old roofing may contain asbestos: have it checked before cutting. Seal every "
+         "core hole the same day."),
+        ("Boatyards.", "Tie ladders and keep three points of contact, never touch or move jack stands, "
+         "stay out of lift and travel-hoist zones, and protect yourself against antifouling and fibreglass dust."),
+        ("", "Follow local codes and work-safety rules, and defer to licensed roofers, engineers or accredited "
+         "marine surveyors."),
+    ),
 )
 
 _HULL = Wording(
@@ -102,6 +148,30 @@ _HULL = Wording(
              "disagree", whole_boards=False,
     other_causes="a bulkhead, tank, backing plate or thicker laminate behind the skin, ...",
     sample_both="take readings on both suspect-wet and dry areas (common practice)",
+    invasive_short="meter readings, sounding and hole-saw samples", edge="scarf edge",
+    false_warm=(
+        "False warm areas come from bulkheads, stringers, tanks and engine heat behind the skin, thicker "
+        "laminate and old repairs, backing plates and fittings, and reflections of sky or the surroundings on "
+        "glossy gelcoat. Wet core can be missed where the hull was not warmed evenly, under dew, deep behind "
+        "a thick laminate, and where the skin was shaded during the cool-down."),
+    false_readings=(
+        "Moisture-meter readings are relative, not moisture content; antifouling paint, salt, tanks, backing "
+        "plates and condensation give false high readings, and a high reading may mean a wet outer skin rather "
+        "than a wet core. A percussion sounding finds voids and debonded skin, not water: a dull note is "
+        "counted as wet, but a solid note does not prove the core dry."),
+    who_decides=(
+        "Accredited marine surveyors, the builder's repair guidance, class or flag rules where they apply and "
+        "work-safety rules decide what is done; whether to re-core a patch or a whole panel is their call."),
+    next_sample=("Take a meter reading and sound the skin there first; drill a hole-saw sample only where they "
+                 "disagree, and seal every hole the same day."),
+    safety=(
+        ("Boatyards.", "Tie ladders and keep three points of contact, never touch or move jack stands or "
+         "cradles, stay out of lift and travel-hoist zones, and protect yourself against antifouling and "
+         "fibreglass dust (mask, gloves, eye protection) when sounding, drilling or grinding."),
+        ("At dusk.", "The camera screen spoils night vision: stop and let your eyes adapt before moving "
+         "around the stands and the ladder."),
+        ("", "Follow the yard's rules and local work-safety rules, and defer to accredited marine surveyors."),
+    ),
 )
 
 
