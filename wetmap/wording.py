@@ -68,6 +68,10 @@ class Wording:
         The note under the suggested next confirmations.
     safety
         ``(heading, text)`` items of the safety cautions (heading may be ``""``).
+    verify_by
+        How to verify, after "verify by": ``"coring"``, ``"meter readings, sounding ..."``.
+    confirmation_label
+        The heading of a confirmation's id in the map: ``"Core / reading"``, ``"Reading / sounding"``.
     """
 
     kind: str
@@ -90,6 +94,8 @@ class Wording:
     who_decides: str
     next_sample: str
     safety: tuple[tuple[str, str], ...]
+    confirmation_label: str
+    verify_by: str
 
     @property
     def area_title(self) -> str:
@@ -114,7 +120,8 @@ ROOF = Wording(
     invasive="cores, or cores plus probe or meter readings", whole_boards=True,
     other_causes="extra plies, heat from below, ...",
     sample_both="core both suspect-wet and dry areas (common practice)",
-    invasive_short="cores", edge="cut edge",
+    invasive_short="cores", edge="cut edge", confirmation_label="Core / reading",
+    verify_by="coring",
     false_warm=(
         "False warm areas come from extra plies and old patches, heavy flood coats, gravel or ballast piles, "
         "heat from below (exhausts, warm rooms, drain pans), structure and metal flashing, ponding and debris, "
@@ -149,6 +156,8 @@ _HULL = Wording(
     other_causes="a bulkhead, tank, backing plate or thicker laminate behind the skin, ...",
     sample_both="take readings on both suspect-wet and dry areas (common practice)",
     invasive_short="meter readings, sounding and hole-saw samples", edge="scarf edge",
+    confirmation_label="Reading / sounding",
+    verify_by="meter readings, sounding and hole-saw samples",
     false_warm=(
         "False warm areas come from bulkheads, stringers, tanks and engine heat behind the skin, thicker "
         "laminate and old repairs, backing plates and fittings, and reflections of sky or the surroundings on "
