@@ -699,7 +699,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
             )
     words = wording_of(survey)
     if len(conf) == 0 and count:
-        warnings.append(f"no {words.confirmations_all}: every anomaly is unverified; infrared alone does not "
+        warnings.append(f"no {words.confirmations_any}: every anomaly is unverified; infrared alone does not "
                         f"establish {words.wet_words} (invasive verification is required)")
     warnings.extend(_sounding_notes(conf, verdicts))
     decisive = conf.decisive  # solid soundings neither refute an anomaly nor bound the threshold

@@ -46,6 +46,8 @@ class Wording:
         ``"reading"``/``"readings"``.
     confirmations_all
         Every kind of confirmation, for headings: ``"cores and readings"``, ``"readings and soundings"``.
+    confirmations_any
+        The same joined by "or", for "no ... were given": ``"cores or readings"``.
     invasive
         How anomalies are verified, for the cautions.
     whole_boards
@@ -83,6 +85,7 @@ class Wording:
     confirmation: str
     confirmations: str
     confirmations_all: str
+    confirmations_any: str
     invasive: str
     whole_boards: bool
     other_causes: str
@@ -117,6 +120,7 @@ class Wording:
 ROOF = Wording(
     kind="roof", area="roof", area_short="roof", kind_words="low-slope roof", surface="membrane",
     wet_material="insulation", confirmation="core", confirmations="cores", confirmations_all="cores and readings",
+    confirmations_any="cores or readings",
     invasive="cores, or cores plus probe or meter readings", whole_boards=True,
     other_causes="extra plies, heat from below, ...",
     sample_both="core both suspect-wet and dry areas (common practice)",
@@ -151,6 +155,7 @@ ROOF = Wording(
 _HULL = Wording(
     kind="hull", area="hull side", area_short="hull side", kind_words="hull side", surface="laminate",
     wet_material="core", confirmation="reading", confirmations="readings", confirmations_all="readings and soundings",
+    confirmations_any="readings or soundings",
     invasive="moisture-meter readings and percussion sounding, then a hole-saw sample of the core where they "
              "disagree", whole_boards=False,
     other_causes="a bulkhead, tank, backing plate or thicker laminate behind the skin, ...",

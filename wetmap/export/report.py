@@ -809,7 +809,7 @@ def _confirmations(result: "SurveyResult") -> str:
     c = result.confirmations
     w = _words(result)
     if not len(c):
-        return (f"<p id='cores'>No {w.confirmations_all} were given: every anomaly is <b>unverified</b>. Infrared "
+        return (f"<p id='cores'>No {w.confirmations_any} were given: every anomaly is <b>unverified</b>. Infrared "
                 f"alone does not establish {w.wet_words}.</p>")
     extra = list(c.extra)
     head = ("<tr><th>Id</th><th>x (m)</th><th>y (m)</th><th>Judged</th><th>Basis</th><th>ΔT there (°C)</th>"
