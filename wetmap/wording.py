@@ -70,6 +70,8 @@ class Wording:
         The note under the suggested next confirmations.
     safety
         ``(heading, text)`` items of the safety cautions (heading may be ``""``).
+    decides
+        Who decides, in a few words (a drawing's title block).
     verify_by
         How to verify, after "verify by": ``"coring"``, ``"meter readings, sounding ..."``.
     confirmation_label
@@ -99,6 +101,7 @@ class Wording:
     safety: tuple[tuple[str, str], ...]
     confirmation_label: str
     verify_by: str
+    decides: str
 
     @property
     def area_title(self) -> str:
@@ -125,7 +128,7 @@ ROOF = Wording(
     other_causes="extra plies, heat from below, ...",
     sample_both="core both suspect-wet and dry areas (common practice)",
     invasive_short="cores", edge="cut edge", confirmation_label="Core / reading",
-    verify_by="coring",
+    verify_by="coring", decides="local codes and licensed professionals decide",
     false_warm=(
         "False warm areas come from extra plies and old patches, heavy flood coats, gravel or ballast piles, "
         "heat from below (exhausts, warm rooms, drain pans), structure and metal flashing, ponding and debris, "
@@ -162,7 +165,7 @@ _HULL = Wording(
     sample_both="take readings on both suspect-wet and dry areas (common practice)",
     invasive_short="meter readings, sounding and hole-saw samples", edge="scarf edge",
     confirmation_label="Reading / sounding",
-    verify_by="meter readings, sounding and hole-saw samples",
+    verify_by="meter readings, sounding and hole-saw samples", decides="an accredited marine surveyor decides",
     false_warm=(
         "False warm areas come from bulkheads, stringers, tanks and engine heat behind the skin, thicker "
         "laminate and old repairs, backing plates and fittings, and reflections of sky or the surroundings on "
