@@ -70,6 +70,8 @@ class Wording:
         The note under the suggested next confirmations.
     safety
         ``(heading, text)`` items of the safety cautions (heading may be ``""``).
+    status_note
+        Added to the method's status rule (``""`` for roofs).
     decides
         Who decides, in a few words (a drawing's title block).
     verify_by
@@ -102,6 +104,7 @@ class Wording:
     confirmation_label: str
     verify_by: str
     decides: str
+    status_note: str
 
     @property
     def area_title(self) -> str:
@@ -129,6 +132,7 @@ ROOF = Wording(
     sample_both="core both suspect-wet and dry areas (common practice)",
     invasive_short="cores", edge="cut edge", confirmation_label="Core / reading",
     verify_by="coring", decides="local codes and licensed professionals decide",
+    status_note="",
     false_warm=(
         "False warm areas come from extra plies and old patches, heavy flood coats, gravel or ballast piles, "
         "heat from below (exhausts, warm rooms, drain pans), structure and metal flashing, ponding and debris, "
@@ -166,6 +170,7 @@ _HULL = Wording(
     invasive_short="meter readings, sounding and hole-saw samples", edge="scarf edge",
     confirmation_label="Reading / sounding",
     verify_by="meter readings, sounding and hole-saw samples", decides="an accredited marine surveyor decides",
+    status_note=" (a dull sounding says wet; a solid sounding alone neither refutes nor confirms)",
     false_warm=(
         "False warm areas come from bulkheads, stringers, tanks and engine heat behind the skin, thicker "
         "laminate and old repairs, backing plates and fittings, and reflections of sky or the surroundings on "

@@ -581,7 +581,7 @@ def _method(result: "SurveyResult", summary: dict[str, Any]) -> str:
         "scale); pixels warmer than the threshold form anomalies, outlined as polygons. Each anomaly's status "
         f"comes from the {w.confirmations_all} inside it: <b>wet</b> when one says wet, <b>dry</b> when all say "
         "dry, <b>unverified</b> when there is none"
-        + (" (a solid sounding alone neither refutes nor confirms)" if w.kind == "hull" else "") + ".</p>"
+        + w.status_note + ".</p>"
     )
     if estimated:
         text += ("<p class='caution'>The reflected temperature was <b>estimated</b>, not measured. In the "
