@@ -8,6 +8,12 @@
 
 A point on an anomaly's boundary counts as inside. A wet confirmation outside every
 anomaly is a possible missed wet area and is reported as a warning.
+
+Percussion soundings (``sound`` column): a ``dull`` sounding says wet exactly as a wet
+reading does. A ``solid`` sounding is weaker than a core or reading (a well-bonded skin
+over wet core sounds solid too): it is not a confirmation for the status, so an anomaly
+with only solid soundings inside stays ``unverified``, and they are not listed in its
+``confirmations`` (:attr:`wetmap.confirmations.Confirmations.decisive`).
 """
 
 from __future__ import annotations
@@ -20,6 +26,7 @@ import shapely
 from shapely.geometry.base import BaseGeometry
 
 from .confirmations import Confirmations
+from .wording import ROOF, Wording
 
 __all__ = ["Status", "STATUSES", "Verdicts", "assign_status"]
 
@@ -77,6 +84,8 @@ def assign_status(anomalies: list[BaseGeometry], confirmations: Confirmations) -
             if anomaly_of[p] < 0:  # anomalies do not overlap; keep the first if they touch
                 anomaly_of[p] = a
                 inside[a].append(p)
+    decisive = confirmations.decisive
+    inside = [[p for p in members if decisive[p]] for members in inside]  # solid soundings never decide
     status: list[Status] = []
     for members in inside:
         if not members:
@@ -182,7 +191,7 @@ class ThresholdCheck:
 
 
 def threshold_check(ids: tuple[str, ...], delta_c: np.ndarray, wet: np.ndarray, *, chosen_c: float,
-                    spread_c: float = DEFAULT_THRESHOLD_SPREAD_C) -> ThresholdCheck:
+                    spread_c: float = DEFAULT_THRESHOLD_SPREAD_C, words: Wording = ROOF) -> ThresholdCheck:
     """Range of thresholds the confirmations allow, and the chosen one's confusion counts.
 
     Parameters
@@ -197,6 +206,8 @@ def threshold_check(ids: tuple[str, ...], delta_c: np.ndarray, wet: np.ndarray, 
         The threshold in use, degC.
     spread_c
         Half-width used on a side the confirmations do not bound, degC.
+    words
+        The survey's vocabulary for the warnings (:func:`wetmap.wording.wording_for`).
 
     Examples
     --------
@@ -242,8 +253,8 @@ def threshold_check(ids: tuple[str, ...], delta_c: np.ndarray, wet: np.ndarray, 
     if n_wet == 0 or n_dry == 0:
         missing = "wet" if n_wet == 0 else "dry"
         notes.append(
-            f"no {missing} confirmation with thermal data: the cores cannot bound the threshold on that side "
-            f"(range uses the default spread of {spread_c:g} °C); core both suspect-wet and dry areas (common practice)"
+            f"no {missing} confirmation with thermal data: the {words.confirmations} cannot bound the threshold on "
+            f"that side (range uses the default spread of {spread_c:g} °C); {words.sample_both}"
         )
     elif not separable:
         notes.append(
@@ -260,7 +271,7 @@ def threshold_check(ids: tuple[str, ...], delta_c: np.ndarray, wet: np.ndarray, 
     if dry_flagged:
         notes.append(
             f"dry {', '.join(dry_flagged)} lie above the threshold delta_c = {chosen_c:g} °C: the warmth there has "
-            f"another cause (extra plies, heat from below, ...) or the threshold is low; thresholds from "
+            f"another cause ({words.other_causes}) or the threshold is low; thresholds from "
             f"{lo:+.2f} to {hi:+.2f} °C fit the confirmations best"
         )
     return ThresholdCheck(chosen_c=chosen_c, low_c=round(lo, 4), high_c=round(hi, 4), errors=int(best),
@@ -373,7 +384,7 @@ class SuggestedCore:
 
 def suggest_cores(anomalies: list[BaseGeometry], status: tuple[Status, ...], ids: list[int], *,
                   band: np.ndarray, transform, pixel_m: float, min_pixels: int,
-                  max_boundary: int = 3) -> list[SuggestedCore]:
+                  max_boundary: int = 3, words: Wording = ROOF) -> list[SuggestedCore]:
     """One point inside each unverified anomaly, then the widest parts of the uncertain band.
 
     The point in an anomaly is its pole of inaccessibility (:func:`shapely.ops.polylabel`):
@@ -381,7 +392,9 @@ def suggest_cores(anomalies: list[BaseGeometry], status: tuple[Status, ...], ids
     boundary. A boundary point is the pixel farthest from the edge of one connected part
     of the uncertain band (largest parts first), leaving out parts that lie within 1 m
     (or two pixels) of an unverified anomaly: that anomaly's own core settles them.
+    ``words`` names the confirmation in the reasons (a core on a roof, a reading on a hull).
     """
+    c1, cn = words.confirmation, words.confirmations
     from scipy import ndimage
     from shapely.ops import polylabel
 
@@ -397,7 +410,7 @@ def suggest_cores(anomalies: list[BaseGeometry], status: tuple[Status, ...], ids
             p = anomalies[i].representative_point()
         out.append(SuggestedCore(
             x=round(p.x, 3), y=round(p.y, 3), kind="unverified", anomaly=ids[i],
-            reason=f"anomaly {ids[i]} ({anomalies[i].area:.1f} m2) has no core: a core here confirms or refutes it",
+            reason=f"anomaly {ids[i]} ({anomalies[i].area:.1f} m2) has no {c1}: a {c1} here confirms or refutes it",
         ))
     labels, count = label_regions(band)
     unverified = [anomalies[i] for i in range(len(anomalies)) if status[i] == "unverified"]
@@ -421,7 +434,7 @@ def suggest_cores(anomalies: list[BaseGeometry], status: tuple[Status, ...], ids
             area = sizes[lab] * pixel_m * pixel_m
             out.append(SuggestedCore(
                 x=round(float(x), 3), y=round(float(y), 3), kind="boundary", anomaly=None,
-                reason=(f"{area:.1f} m2 here is wet or not depending on the threshold the cores allow: "
-                        "a core here fixes the outline"),
+                reason=(f"{area:.1f} m2 here is wet or not depending on the threshold the {cn} allow: "
+                        f"a {c1} here fixes the outline"),
             ))
     return out

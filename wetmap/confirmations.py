@@ -6,9 +6,15 @@ Columns ``id,x,y`` (plan coordinates) and at least one of
 - ``moisture_pct``: moisture content by weight (ASTM C1616: (wet - dry) / dry x 100 %),
   judged wet above ``[cores] wet_above_pct``;
 - ``reading``: a meter reading on the meter's own scale, judged wet above
-  ``[cores] wet_above``.
+  ``[cores] wet_above``;
+- ``sound``: a percussion sounding (tapping the skin), ``dull`` or ``solid`` (any case).
+  ``dull`` (a void, debonded skin or soft core under the hammer) says wet, like a wet
+  reading. ``solid`` is judged dry but is weaker than a core or reading: a well-bonded
+  skin over wet core still sounds solid, so a solid sounding never refutes an anomaly on
+  its own (see :attr:`Confirmations.decisive` and :func:`wetmap.confirm.assign_status`).
 
-On each row the first of these that holds a value decides. Other columns are kept
+On each row the first of these that holds a value decides (so a sounding decides only a
+row with no core result, moisture content or reading). Other columns are kept
 as text for the map and report. The delimiter may be ``,`` or ``;`` (then a decimal
 comma is accepted too). Messages give the row as a spreadsheet shows it: the line of
 the file, the header being row 1.
@@ -26,11 +32,16 @@ import numpy as np
 
 from .errors import InputFileError
 
-__all__ = ["Confirmations", "read_confirmations", "Basis"]
+__all__ = ["Confirmations", "read_confirmations", "Basis", "JUDGED_COLUMNS"]
 
-Basis = Literal["result", "moisture_pct", "reading"]
+Basis = Literal["result", "moisture_pct", "reading", "sound"]
+
+#: The judgement columns, in the order in which they decide a row.
+JUDGED_COLUMNS: tuple[Basis, ...] = ("result", "moisture_pct", "reading", "sound")
 
 _RESULT_WORDS = {"wet": True, "dry": False}
+#: Percussion soundings: a dull note says wet (void, debonded skin, soft core); solid says dry.
+_SOUND_WORDS = {"dull": True, "solid": False}
 
 
 @dataclass(frozen=True)
@@ -64,6 +75,15 @@ class Confirmations:
     def __len__(self) -> int:
         return len(self.ids)
 
+    @property
+    def decisive(self) -> np.ndarray:
+        """Rows that can decide an anomaly's status, bool ``(n,)``: all but solid soundings.
+
+        A solid sounding is judged dry, but a well-bonded skin over wet core sounds solid
+        too, so it does not refute a warm patch on its own (nor bound the threshold check).
+        """
+        return ~np.asarray([b == "sound" for b in self.basis], dtype=bool) | np.asarray(self.wet, dtype=bool)
+
     @staticmethod
     def empty() -> "Confirmations":
         z = np.zeros(0)
@@ -72,7 +92,7 @@ class Confirmations:
 
 def read_confirmations(path: Path, *, wet_above: float | None = None,
                        wet_above_pct: float | None = None) -> Confirmations:
-    """Read and judge ``cores.csv``.
+    """Read and judge ``cores.csv`` (columns ``result``, ``moisture_pct``, ``reading``, ``sound``).
 
     Parameters
     ----------
@@ -95,7 +115,7 @@ def read_confirmations(path: Path, *, wet_above: float | None = None,
         raise InputFileError(f"{path}: not UTF-8 text; save the cores table as CSV (UTF-8)") from None
     lines = text.splitlines()
     if not lines or not lines[0].strip():
-        raise InputFileError(f"{path}: is empty; expected a header id,x,y,result (or moisture_pct, reading)")
+        raise InputFileError(f"{path}: is empty; expected a header id,x,y,result (or moisture_pct, reading, sound)")
     delimiter = ";" if lines[0].count(";") > lines[0].count(",") else ","
     decimal_comma = delimiter == ";"
     reader = csv.DictReader(lines, delimiter=delimiter)
@@ -107,11 +127,12 @@ def read_confirmations(path: Path, *, wet_above: float | None = None,
                              "expected each column once")
     for col in ("id", "x", "y"):
         if col not in header:
-            raise InputFileError(f"{path}: column '{col}' is missing; expected columns id,x,y and result, moisture_pct or reading")
-    judged = [c for c in ("result", "moisture_pct", "reading") if c in header]
+            raise InputFileError(f"{path}: column '{col}' is missing; expected columns id,x,y and result, "
+                                 "moisture_pct, reading or sound")
+    judged = [c for c in JUDGED_COLUMNS if c in header]
     if not judged:
         raise InputFileError(
-            f"{path}: no judgement column; add 'result' (wet/dry), 'moisture_pct' or 'reading'"
+            f"{path}: no judgement column; add 'result' (wet/dry), 'moisture_pct', 'reading' or 'sound' (dull/solid)"
         )
 
     def number(row_no: int, col: str, value: str) -> float:
@@ -132,7 +153,7 @@ def read_confirmations(path: Path, *, wet_above: float | None = None,
     wet: list[bool] = []
     basis: list[Basis] = []
     values: list[float] = []
-    extra_cols = [c for c in header if c not in ("id", "x", "y", "result", "moisture_pct", "reading")]
+    extra_cols = [c for c in header if c not in ("id", "x", "y", *JUDGED_COLUMNS)]
     extra: dict[str, list[str]] = {c: [] for c in extra_cols}
     for row in reader:
         # the row number a spreadsheet shows: the line in the file (csv skips blank lines itself)
@@ -163,6 +184,13 @@ def read_confirmations(path: Path, *, wet_above: float | None = None,
                     raise InputFileError(f"{path}: row {row_no}, column 'result' = {raw!r}: expected wet or dry")
                 wet.append(_RESULT_WORDS[word])
                 values.append(math.nan)
+            elif col == "sound":
+                word = raw.lower()
+                if word not in _SOUND_WORDS:
+                    raise InputFileError(f"{path}: row {row_no}, column 'sound' = {raw!r}: expected dull or solid "
+                                         "(a percussion sounding)")
+                wet.append(_SOUND_WORDS[word])
+                values.append(math.nan)
             else:
                 value = number(row_no, col, raw)
                 limit = wet_above_pct if col == "moisture_pct" else wet_above
@@ -180,7 +208,7 @@ def read_confirmations(path: Path, *, wet_above: float | None = None,
         if not decided:
             raise InputFileError(
                 f"{path}: row {row_no} (id {ident}) has no value in {', '.join(judged)}; "
-                "give a result (wet/dry) or a number"
+                "give a result (wet/dry), a number or a sounding (dull/solid)"
             )
         ids.append(ident)
         xs.append(x)

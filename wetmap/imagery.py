@@ -110,6 +110,8 @@ import numpy as np
 import shapely
 from shapely.geometry.base import BaseGeometry
 
+from .wording import wording_of
+
 if TYPE_CHECKING:
     from affine import Affine
 
@@ -1203,6 +1205,8 @@ class ImageryReport:
         Lines for ``summary.json`` ``warnings``.
     settings
         The settings used (``[limits]`` keys).
+    area_word
+        What the surveyed area is called (:mod:`wetmap.wording`): ``"roof"``, ``"hull side"``.
     """
 
     sources: tuple[SourceQuality, ...]
@@ -1219,6 +1223,7 @@ class ImageryReport:
     delta_range: DisplayRange
     warnings: tuple[str, ...] = ()
     settings: dict[str, Any] = field(default_factory=dict)
+    area_word: str = "roof"
 
     def flags_text(self, i: int) -> str:
         """The flags of anomaly ``i`` (0-based) as one text, ``"; "``-separated."""
@@ -1246,7 +1251,7 @@ class ImageryReport:
                 "surface_c": self.surface_range.as_list(), "centre_c": round(self.surface_range.centre_c, 2),
                 "delta_c": self.delta_range.as_list(),
                 "percentiles": [self.surface_range.low_pct, self.surface_range.high_pct],
-                "basis": ("roof pixels only (inside the outline, outside the exclusions, with data), centred on "
+                "basis": (f"{self.area_word} pixels only (inside the outline, outside the exclusions, with data), centred on "
                           "the median dry background; delta-T centred on 0"),
             },
             "settings": dict(self.settings),
@@ -1467,7 +1472,7 @@ def assess_imagery(survey: "Survey", *, grid_transform: "Affine", grid_shape: tu
             f"anomal{'y' if len(small) == 1 else 'ies'} {_ids(small)} span{'s' if len(small) == 1 else ''} fewer than "
             f"{n_across:g} pixels of the imagery across {'its' if len(small) == 1 else 'their'} narrowest width "
             "([limits] min_pixels_across): too small to measure reliably; the camera's spot size mixes them with "
-            "the dry roof around, so their delta-T reads low and the outline is uncertain (flag "
+            f"the dry {wording_of(survey).area_short} around, so their delta-T reads low and the outline is uncertain (flag "
             f"\"{UNDER_RESOLVED_FLAG}\")")
 
     suspects: dict[int, ReflectionSuspect] = {}
@@ -1517,6 +1522,7 @@ def assess_imagery(survey: "Survey", *, grid_transform: "Affine", grid_shape: tu
         reflections=tuple(suspects[k] for k in sorted(suspects)),
         compared=tuple(sorted(k for k, v in compared.items() if len(v) >= 2)),
         surface_range=surface_range, delta_range=delta_range, warnings=tuple(warnings),
+        area_word=wording_of(survey).area_short,
         settings={"min_pixels_across": n_across, "focus_ratio": focus_ratio, "reflection_ratio": refl_ratio,
                   "exclude_blurred": exclude, "ifov_mrad": ifov,
                   "distance_m": cam.distance_m if ifov else None},

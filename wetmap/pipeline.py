@@ -37,6 +37,7 @@ from .register import SUSPECT_MIN_PX, FrameReport, Registration
 from .survey import Survey, load_survey
 from .tiles import FullRasters, WindowProgress, detect_in_windows
 from .vectors import Section, read_layer, read_outline, read_sections
+from .wording import wording_of
 
 __all__ = ["Anomaly", "SurveyResult", "process_survey", "write_results", "run_survey", "check_survey", "RESULT_FILES"]
 
@@ -250,11 +251,31 @@ class SurveyResult:
 HULL_AXES = (("x", "station (m along the hull)"), ("y", "girth (m up from the keel)"))
 
 
+def _sounding_notes(conf: Confirmations, verdicts: Verdicts) -> list[str]:
+    """Warnings for anomalies whose status rests on percussion soundings (weaker than a reading)."""
+    notes: list[str] = []
+    by_anomaly: dict[int, list[int]] = {}
+    for i, a in enumerate(verdicts.anomaly_of.tolist()):
+        if a >= 0:
+            by_anomaly.setdefault(a, []).append(i)
+    for a in sorted(by_anomaly):
+        rows = by_anomaly[a]
+        if any(conf.basis[i] != "sound" for i in rows):
+            continue  # a core or reading inside decides
+        dull = [conf.ids[i] for i in rows if conf.wet[i]]
+        solid = [conf.ids[i] for i in rows if not conf.wet[i]]
+        if dull:
+            notes.append(f"anomaly {a + 1} is wet on dull soundings alone ({', '.join(dull)}): a dull note shows a "
+                         "void or debonded skin; confirm wet core with a meter reading or a hole-saw sample")
+        else:
+            notes.append(f"anomaly {a + 1} has only solid soundings inside ({', '.join(solid)}): a well-bonded skin "
+                         "over wet core sounds solid too, so it stays unverified; take a meter reading there")
+    return notes
+
+
 def _area_word(survey: Survey) -> str:
     """``"roof"``, or ``"hull side"`` (with its side when given): the surveyed area in words."""
-    if survey.survey.kind != "hull":
-        return "roof"
-    return f"{survey.survey.side} hull side" if survey.survey.side else "hull side"
+    return wording_of(survey).area
 
 
 def _pixel_source(survey: Survey) -> str:
@@ -676,23 +697,28 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
                 f"{conf.ids[i]} says wet but lies outside every anomaly ({seen}; threshold {sdt.delta_c:g} °C): "
                 f"a possible missed wet area{include}"
             )
+    words = wording_of(survey)
     if len(conf) == 0 and count:
-        warnings.append("no cores or readings: every anomaly is unverified; infrared alone does not "
-                        "establish wet insulation (invasive verification is required)")
-    check = threshold_check(conf.ids, conf_delta, conf.wet, chosen_c=sdt.delta_c)
+        warnings.append(f"no {words.confirmations_any}: every anomaly is unverified; infrared alone does not "
+                        f"establish {words.wet_words} (invasive verification is required)")
+    warnings.extend(_sounding_notes(conf, verdicts))
+    decisive = conf.decisive  # solid soundings neither refute an anomaly nor bound the threshold
+    check = threshold_check(tuple(np.asarray(conf.ids, dtype=object)[decisive].tolist()), conf_delta[decisive],
+                            conf.wet[decisive], chosen_c=sdt.delta_c, words=words)
     if len(conf):
         warnings.extend(check.warnings)
-    core_cols, core_rows = ~grid.transform @ (conf.xs, conf.ys)
+    core_cols, core_rows = ~grid.transform @ (conf.xs[decisive], conf.ys[decisive])
     counted = ("wet", "unverified") if survey.repair.include_unverified else ("wet",)
     counted_polys = [p for p, st in zip(polys, verdicts.status) if st in counted]
     area_range, band = wet_area_range(
         detection.delta_c, check, likely_m2=float(sum(p.area for p in counted_polys)),
         perimeter_m=float(sum(p.length for p in counted_polys)), pixel_m=grid.pixel_m,
         min_pixels=range_min_pixels, core_rows=np.floor(core_rows).astype(np.intp),
-        core_cols=np.floor(core_cols).astype(np.intp), core_wet=conf.wet,
+        core_cols=np.floor(core_cols).astype(np.intp), core_wet=conf.wet[decisive],
         include_unverified=survey.repair.include_unverified)
     suggestions = suggest_cores(polys, verdicts.status, list(range(1, count + 1)), band=band,
-                                transform=grid.transform, pixel_m=grid.pixel_m, min_pixels=range_min_pixels)
+                                transform=grid.transform, pixel_m=grid.pixel_m, min_pixels=range_min_pixels,
+                                words=words)
 
     _emit(progress, "checking the imagery: resolution, focus, reflections, display range")
     from .imagery import assess_imagery

@@ -19,7 +19,9 @@ are metres. Other area units are derived only for display (:func:`convert_area`)
   ``replace_above_pct`` is flagged (default 25 %: some local codes require full
   replacement when more than 25 % of a roof is wet; the local code decides).
 - *Bill of quantities*: tear-off and replacement area, boards, cut edge (the repair
-  outline's perimeter) and mobilisation, priced when unit rates are given.
+  outline's perimeter) and mobilisation, priced when unit rates are given. A hull side
+  (``kind = "hull"``) has its own bill, by area and edge length with no boards: remove
+  skin and core, scarf edge, re-core, re-laminate, fair and finish (:func:`hull_bill`).
 """
 
 from __future__ import annotations
@@ -61,6 +63,8 @@ __all__ = [
     "BillLine",
     "Bill",
     "bill_of_quantities",
+    "HULL_BILL_ITEMS",
+    "hull_bill",
     "Quantities",
     "compute_quantities",
 ]
@@ -580,6 +584,77 @@ def bill_of_quantities(*, tearoff_area_m2: float, cut_edge_m: float, boards: int
     return Bill(currency=p.currency if p else None, lines=tuple(lines), total=total, area_basis=area_basis)
 
 
+#: The hull repair, step by step (common practice for wet cored FRP: cut the outer skin
+#: and the wet core out back to dry core, taper the skin edge so the new laminate bonds,
+#: bond in new core, laminate over it lapping onto the taper, fair and finish).
+HULL_BILL_ITEMS = ("remove skin and core", "scarf edge", "re-core", "re-laminate", "fair and finish")
+
+
+def hull_bill(*, repair_area_m2: float, edge_m: float, prices: "Prices | None" = None,
+              area_units: Sequence["AreaUnit"] = ("m2",),
+              area_basis: str = "repair area: the wet anomalies grown by the margin") -> Bill:
+    """A hull side's repair bill: by area and edge length, priced if asked; no boards.
+
+    Lines (:data:`HULL_BILL_ITEMS`, then ``mobilisation`` when priced): remove the outer
+    skin and wet core (area), scarf the skin edge along the repair outline (length), bond
+    in new core (area), re-laminate over it (area), fair and finish (area). Every area
+    line measures the repair outline (the wet anomalies grown by ``[repair] margin_m``,
+    merged and clipped to the hull side); the edge is its perimeter, holes included.
+    Rounding as :func:`bill_of_quantities`.
+
+    Parameters
+    ----------
+    repair_area_m2
+        Area of the repair outline, m2 (developed skin).
+    edge_m
+        Its perimeter, metres.
+    prices
+        ``[prices]`` rates (``remove_per_m2``, ``recore_per_m2``, ``relaminate_per_m2``,
+        ``fair_per_m2`` or their ``_per_ft2`` forms, ``scarf_per_m``, ``mobilisation``).
+    area_units
+        Units in which the area lines are also given (``"m2"`` always; ``"ft2"``).
+    area_basis
+        Words saying what the area is.
+
+    Examples
+    --------
+    >>> from wetmap.survey import Prices
+    >>> b = hull_bill(repair_area_m2=1.5, edge_m=5.25, prices=Prices(currency="EUR", remove_rate=80.0,
+    ...                                                                scarf_per_m=12.0))
+    >>> [(line.item, line.unit, line.quantity, line.amount) for line in b.lines]  # doctest: +NORMALIZE_WHITESPACE
+    [('remove skin and core', 'm2', 1.5, 120.0), ('scarf edge', 'm', 5.25, 63.0), ('re-core', 'm2', 1.5, None),
+     ('re-laminate', 'm2', 1.5, None), ('fair and finish', 'm2', 1.5, None)]
+    >>> b.total
+    183.0
+    """
+    units = ["m2", *[u for u in area_units if u != "m2"]]
+
+    def area_line(item: str, words: str, rate: float | None, unit: "AreaUnit") -> BillLine:
+        areas = tuple((u, _round2(convert_area(repair_area_m2, u))) for u in units)  # type: ignore[arg-type]
+        qty = dict(areas).get(unit, _round2(convert_area(repair_area_m2, unit)))
+        return _priced(BillLine(item, words, unit, qty, areas=areas), rate)
+
+    p = prices
+    lines = [
+        area_line("remove skin and core", "cut out the outer skin and the wet core back to dry core, dispose",
+                  p.remove_rate if p else None, p.remove_unit if p else "m2"),
+        _priced(BillLine("scarf edge", "outer skin edge cut back and tapered (scarfed) along the repair outline, "
+                         "so the new laminate bonds", "m", _round2(edge_m)), p.scarf_per_m if p else None),
+        area_line("re-core", "new core bonded to the inner skin over the cut-out",
+                  p.recore_rate if p else None, p.recore_unit if p else "m2"),
+        area_line("re-laminate", "new outer laminate over the new core, lapped onto the scarfed edge",
+                  p.relaminate_rate if p else None, p.relaminate_unit if p else "m2"),
+        area_line("fair and finish", "fair, prime and finish (gelcoat or paint) over the repair",
+                  p.fair_rate if p else None, p.fair_unit if p else "m2"),
+    ]
+    if p is not None and p.mobilisation is not None:
+        lines.append(_priced(BillLine("mobilisation", "fixed: access, set-up, removal", "item", 1.0),
+                             p.mobilisation))
+    amounts = [_dec(line.amount) for line in lines if line.amount is not None]
+    total = float(sum(amounts, Decimal(0))) if amounts else None
+    return Bill(currency=p.currency if p else None, lines=tuple(lines), total=total, area_basis=area_basis)
+
+
 def _priced(line: BillLine, rate: float | None) -> BillLine:
     if rate is None:
         return line
@@ -663,19 +738,24 @@ def compute_quantities(anomalies: Sequence[BaseGeometry], status: Sequence[Statu
     prices
         The ``[prices]`` rates, or ``None``.
     kind
-        ``"roof"`` or ``"hull"`` (only the wording of the replace note differs).
+        ``"roof"`` or ``"hull"``: a hull has no board take-off (a ``board_m`` given is noted
+        and not used) and its own bill (:func:`hull_bill`); the replace note's words differ.
     """
     excl = exclusions if exclusions is not None and not exclusions.is_empty else None
     roof = outline.difference(excl) if excl is not None else outline
     counted = {"wet", "unverified"} if settings.include_unverified else {"wet"}
     repair = repair_outline([g for g, s in zip(anomalies, status) if s in counted],
                             margin_m=settings.margin_m, outline=outline, exclusions=excl)
-    if settings.board_m:
+    notes: list[str] = []
+    hull = kind == "hull"
+    if settings.board_m and hull:
+        notes.append(f"[repair] board_m = {list(settings.board_m)} is not used on a hull side: a hull is cut back "
+                     "to dry core and billed by area and edge length")
+    if settings.board_m and not hull:
         takeoff = board_takeoff(repair, board_m=settings.board_m, roof=roof, angle_deg=settings.board_angle_deg,
                                 origin_xy=settings.board_origin, grid_of=outline)
     else:
         takeoff = BoardTakeoff((), 0, 0.0, 0.0, 0.0)
-    notes: list[str] = []
     threshold = settings.replace_above_pct
 
     totals: tuple[SectionTotals, ...] = ()
@@ -715,7 +795,8 @@ def compute_quantities(anomalies: Sequence[BaseGeometry], status: Sequence[Statu
             if t.replace_flag:
                 notes.append(_replace_note(f"section {t.name}", t.wet_fraction, threshold, kind))
         if outside.replace_flag and outside.area_m2 > 0:
-            notes.append(_replace_note("the roof outside every section", outside.wet_fraction, threshold, kind))
+            notes.append(_replace_note(f"the {'hull side' if hull else 'roof'} outside every section",
+                                       outside.wet_fraction, threshold, kind))
 
     wet = math.fsum(g.area for g, s in zip(anomalies, status) if s in ("wet", "unverified"))
     fraction = wet / roof.area if roof.area > 0 else 0.0
@@ -724,13 +805,18 @@ def compute_quantities(anomalies: Sequence[BaseGeometry], status: Sequence[Statu
         notes.append(_replace_note("the whole roof" if kind == "roof" else "the hull side", fraction, threshold, kind))
 
     perimeter = float(repair.length)
-    basis = ("tear-off area: the whole boards clipped to the roof" if settings.board_m
-             else "repair area: the repair outline")
-    bill = bill_of_quantities(
-        tearoff_area_m2=takeoff.tearoff_area_m2 if settings.board_m else repair.area,
-        cut_edge_m=perimeter, boards=takeoff.count if settings.board_m else None, prices=prices,
-        area_units=settings.area_units, area_basis=basis,
-    )
+    if hull:
+        bill = hull_bill(repair_area_m2=repair.area, edge_m=perimeter, prices=prices, area_units=settings.area_units,
+                         area_basis=f"repair area: the wet anomalies grown by the margin ({settings.margin_m:g} m), "
+                                    "merged and clipped to the hull side; edge: its perimeter")
+    else:
+        basis = ("tear-off area: the whole boards clipped to the roof" if settings.board_m
+                 else "repair area: the repair outline")
+        bill = bill_of_quantities(
+            tearoff_area_m2=takeoff.tearoff_area_m2 if settings.board_m else repair.area,
+            cut_edge_m=perimeter, boards=takeoff.count if settings.board_m else None, prices=prices,
+            area_units=settings.area_units, area_basis=basis,
+        )
     return Quantities(repair=repair, repair_perimeter_m=perimeter, takeoff=takeoff, sections=totals,
                       outside=outside, board_section=tuple(int(k) for k in board_section), bill=bill,
                       wet_fraction=fraction, replace_flag=flag, notes=tuple(notes))

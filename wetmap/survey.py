@@ -231,6 +231,17 @@ class Prices:
     board_each: float | None = None
     cut_edge_per_m: float | None = None
     mobilisation: float | None = None
+    #: Hull repair rates (``kind = "hull"``): per area (``*_per_m2`` or ``*_per_ft2``) and per
+    #: metre of scarfed edge.
+    remove_rate: float | None = None
+    remove_unit: AreaUnit = "m2"
+    recore_rate: float | None = None
+    recore_unit: AreaUnit = "m2"
+    relaminate_rate: float | None = None
+    relaminate_unit: AreaUnit = "m2"
+    fair_rate: float | None = None
+    fair_unit: AreaUnit = "m2"
+    scarf_per_m: float | None = None
 
 
 @dataclass(frozen=True)
@@ -732,11 +743,29 @@ def _read_repair(t: _Table) -> Repair:
 _RATE_SUFFIX: dict[str, AreaUnit] = {"_per_m2": "m2", "_per_ft2": "ft2", "_per_square": "squares"}
 
 
-def _read_prices(t: _Table) -> Prices | None:
+#: ``[prices]`` keys of each kind's bill (``currency`` and ``mobilisation`` serve both).
+_ROOF_PRICE_ITEMS = ("tearoff", "replace")
+_ROOF_PRICE_KEYS = ("board_each", "cut_edge_per_m")
+_HULL_PRICE_ITEMS = ("remove", "recore", "relaminate", "fair")
+_HULL_PRICE_KEYS = ("scarf_per_m",)
+
+
+def _read_prices(t: _Table, kind: str | None = None) -> Prices | None:
     currency = t.text("currency", required=True, example='"EUR"')
+    hull = kind == "hull"
+    other_items, other_keys = (_ROOF_PRICE_ITEMS, _ROOF_PRICE_KEYS) if hull else (_HULL_PRICE_ITEMS, _HULL_PRICE_KEYS)
+    own = (", ".join(f"{i}_per_m2" for i in _HULL_PRICE_ITEMS) + ", scarf_per_m" if hull else
+           "tearoff_per_m2, replace_per_m2, board_each, cut_edge_per_m")
+    for key in t.data:
+        if key in other_keys or any(key.startswith(f"{i}_per_") for i in other_items):
+            t.problem(key, f"is a rate of the {'roof' if hull else 'hull'} bill; a {kind or 'roof'} survey's bill "
+                      f"is priced with {own} (and mobilisation)")
     rates: dict[str, tuple[float | None, AreaUnit]] = {}
-    for item in ("tearoff", "replace"):
+    for item in (*_ROOF_PRICE_ITEMS, *_HULL_PRICE_ITEMS):
         given = [f"{item}{suffix}" for suffix in _RATE_SUFFIX if f"{item}{suffix}" in t.data]
+        if item in _HULL_PRICE_ITEMS and f"{item}_per_square" in given:
+            t.problem(f"{item}_per_square", "roofing squares are not a hull unit; give the rate per m2 or per ft2")
+            given.remove(f"{item}_per_square")
         if len(given) > 1:
             t.problem(given[1], f"and {given[0]} are both given: give the {item} rate once, "
                       f"per m2, per ft2 or per square")
@@ -747,6 +776,7 @@ def _read_prices(t: _Table) -> Prices | None:
         rates[item] = (rate, unit)  # type: ignore[assignment]
     board = t.number("board_each", low=0, example="18.00")
     edge = t.number("cut_edge_per_m", low=0, example="4.00")
+    scarf = t.number("scarf_per_m", low=0, example="15.00")
     mobilisation = t.number("mobilisation", low=0, example="350.00")
     if currency is None:
         return None
@@ -755,6 +785,10 @@ def _read_prices(t: _Table) -> Prices | None:
         tearoff_rate=rates["tearoff"][0], tearoff_unit=rates["tearoff"][1],
         replace_rate=rates["replace"][0], replace_unit=rates["replace"][1],
         board_each=board, cut_edge_per_m=edge, mobilisation=mobilisation,
+        remove_rate=rates["remove"][0], remove_unit=rates["remove"][1],
+        recore_rate=rates["recore"][0], recore_unit=rates["recore"][1],
+        relaminate_rate=rates["relaminate"][0], relaminate_unit=rates["relaminate"][1],
+        fair_rate=rates["fair"][0], fair_unit=rates["fair"][1], scarf_per_m=scarf,
     )
 
 
@@ -824,7 +858,10 @@ _KEYS: dict[str, tuple[str, ...]] = {
     "repair": ("margin_m", "board_m", "include_unverified", "board_angle_deg", "board_origin",
                "replace_above_pct", "area_units"),
     "prices": ("currency", "tearoff_per_m2", "tearoff_per_ft2", "tearoff_per_square", "replace_per_m2",
-               "replace_per_ft2", "replace_per_square", "board_each", "cut_edge_per_m", "mobilisation"),
+               "replace_per_ft2", "replace_per_square", "board_each", "cut_edge_per_m", "mobilisation",
+               "remove_per_m2", "remove_per_ft2", "remove_per_square", "recore_per_m2", "recore_per_ft2",
+               "recore_per_square", "relaminate_per_m2", "relaminate_per_ft2", "relaminate_per_square",
+               "fair_per_m2", "fair_per_ft2", "fair_per_square", "scarf_per_m"),
 }
 
 
@@ -939,12 +976,14 @@ def load_survey(folder: str | Path) -> Survey:
     repair = _read_repair(t_rep) if t_rep else Repair()
     if kind == "hull" and (t_rep is None or "board_m" not in t_rep.data):
         repair = replace(repair, board_m=None)  # a hull is cut back to dry core: no board take-off unless asked
+    if kind == "hull" and t_rep is not None and "squares" in repair.area_units:
+        t_rep.problem("area_units", '= ... "squares": roofing squares are not a hull unit; use "m2" and "ft2"')
     t_lim = _table(problems, doc, "limits", required=False)
     limits = _read_limits(t_lim) if t_lim else Limits()
     t_cool = _table(problems, doc, "cooldown", required=False)
     cooldown = _read_cooldown(t_cool) if t_cool else Cooldown()
     t_prices = _table(problems, doc, "prices", required=False)
-    prices = _read_prices(t_prices) if t_prices else None
+    prices = _read_prices(t_prices, kind) if t_prices else None
 
     if problems.items:
         raise SurveyError(problems.items)

@@ -23,6 +23,7 @@ from shapely.geometry.base import BaseGeometry
 
 from ..errors import ProcessingError
 from ..quantities import convert_area
+from ..wording import wording_of
 
 if TYPE_CHECKING:
     from ..pipeline import SurveyResult
@@ -172,12 +173,13 @@ def write_dxf(result: "SurveyResult", path: Path) -> None:
         f"repair outlines {_area_text(q.repair.area, units)}, perimeter {q.repair_perimeter_m:.2f} m, "
         f"margin {s.repair.margin_m:g} m",
     ]
-    if s.repair.board_m:
+    if s.repair.board_m and wording_of(s).whole_boards:
         lines.append(f"{q.takeoff.count} boards of {s.repair.board_m[0]:g} x {s.repair.board_m[1]:g} m, "
                      f"tear-off {_area_text(q.takeoff.tearoff_area_m2, units)}, "
                      f"grid at {q.takeoff.angle_deg:.2f} deg")
-    lines.append("Apparent thermal anomalies, not measured moisture: verify by coring; "
-                 "local codes and licensed professionals decide.")
+    words = wording_of(s)
+    lines.append(f"Apparent thermal anomalies, not measured moisture: verify by {words.verify_by}; "
+                 f"{words.decides}.")
     for n, text in enumerate(lines):
         marks.append(msp.add_text(text, height=h, dxfattribs={"layer": "LABELS"}).set_placement(
             (x0, y0 - (2.0 + 1.6 * n) * h), align=TextEntityAlignment.LEFT))

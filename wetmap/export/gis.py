@@ -3,7 +3,11 @@
 - ``anomalies.gpkg``: the anomaly polygons in the survey CRS (no CRS for ``local``), and a
   ``suggested_cores`` point layer (where one more core is worth most).
 - ``anomalies.geojson``: the same; WGS84 longitude/latitude (RFC 7946) for a
-  georeferenced survey, plan metres for ``local``.
+  georeferenced roof, plan metres for ``local``. A hull side is never geo-referenced: its
+  plan is the developed skin, so both files hold plan metres with no CRS whatever
+  ``[survey] crs`` says, and the GeoJSON carries a top-level ``crs_note`` (a foreign
+  member, RFC 7946 section 6.1) saying so, since RFC 7946 section 4 reads coordinates
+  without such an agreement as WGS84 longitude/latitude.
 - ``repair.gpkg``: layers ``repair`` (outlines), ``boards``, ``anomalies``, ``cores``.
 - ``surface_c.tif`` / ``delta_c.tif``: float32 degC on the plan grid, NaN nodata.
 """
@@ -30,8 +34,23 @@ ANOMALY_COLUMNS = ("id", "status", "area_m2", "perimeter_m", "delta_mean_c", "de
 """The contract's attributes, then ``flags`` (imagery flags, :mod:`wetmap.imagery`; empty text when none)."""
 
 
+#: The top-level note of a hull side's ``anomalies.geojson``.
+HULL_CRS_NOTE = ("local plan, not longitude/latitude: x = station m along the hull, "
+                 "y = girth m from the keel (the developed hull side)")
+
+
 def _crs(result: "SurveyResult") -> str | None:
-    return None if result.survey.survey.is_local else result.survey.survey.crs
+    info = result.survey.survey
+    return None if info.is_local or info.kind == "hull" else info.crs
+
+
+def _add_crs_note(path: Path, note: str) -> None:
+    """Put ``crs_note`` at the top of a written GeoJSON FeatureCollection."""
+    import json
+
+    data = json.loads(path.read_text(encoding="utf-8"))
+    data = {"type": data.pop("type"), "crs_note": note, **data}
+    path.write_text(json.dumps(data, ensure_ascii=False) + "\n", encoding="utf-8")
 
 
 def anomaly_frame(result: "SurveyResult"):
@@ -106,6 +125,8 @@ def write_anomalies(result: "SurveyResult", gpkg: Path, geojson: Path) -> None:
     # RFC 7946 writers round to 7 decimals (about 1 cm); 9 keep about 0.1 mm
     _to_file(out, geojson, driver="GeoJSON", RFC7946="YES" if frame.crs is not None else "NO",
              WRITE_NAME="NO", COORDINATE_PRECISION=9)
+    if result.survey.survey.kind == "hull":
+        _add_crs_note(geojson, HULL_CRS_NOTE)
 
 
 def write_repair(result: "SurveyResult", gpkg: Path) -> None:

@@ -35,6 +35,7 @@ import shapely
 from shapely.geometry.base import BaseGeometry
 
 from .. import __version__
+from ..wording import Wording, wording_of
 from .webmap import (
     CORE_COLOURS,
     LAYER_COLOURS,
@@ -113,8 +114,11 @@ def _axis_labels(result: "SurveyResult") -> tuple[str, str]:
 
 
 def _kind_words(result: "SurveyResult") -> str:
-    s = result.survey.survey
-    return ("hull side" + (f", {s.side}" if s.side else "")) if s.kind == "hull" else "low-slope roof"
+    return wording_of(result.survey).kind_words
+
+
+def _words(result: "SurveyResult") -> Wording:
+    return wording_of(result.survey)
 
 
 # --------------------------------------------------------------------------------------
@@ -230,19 +234,21 @@ def _legend_handles(result: "SurveyResult", *, plan: bool) -> list:
     from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
 
+    w = _words(result)
     handles: list = [Line2D([], [], color=st.colour, linestyle=st.linestyle, linewidth=1.8, label=status)
                      for status, st in STATUS_STYLES.items()]
     if len(result.confirmations):
         handles.append(Line2D([], [], linestyle="none", marker="o", markerfacecolor=CORE_COLOURS["wet"],
-                              markeredgecolor="black", label="core judged wet"))
+                              markeredgecolor="black", label=f"{w.confirmation} judged wet"))
         handles.append(Line2D([], [], linestyle="none", marker="o", markerfacecolor="white",
-                              markeredgecolor=CORE_COLOURS["dry"], markeredgewidth=1.8, label="core judged dry"))
+                              markeredgecolor=CORE_COLOURS["dry"], markeredgewidth=1.8,
+                              label=f"{w.confirmation} judged dry"))
     if not result.exclusions.is_empty:
         handles.append(Patch(facecolor=LAYER_COLOURS["exclusions"], edgecolor="#666666", label="exclusion"))
     if plan:
         handles.append(Patch(facecolor="none", edgecolor=LAYER_COLOURS["repair"], linestyle="--", hatch="///",
                              label="repair outline"))
-        if result.takeoff.count:
+        if result.takeoff.count and w.whole_boards:
             handles.append(Patch(facecolor="none", edgecolor=LAYER_COLOURS["boards"], label="whole boards"))
     return handles
 
@@ -315,6 +321,7 @@ def delta_histogram_figure(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> 
     bytes
         A PNG of ``_HISTOGRAM_IN`` inches at ``dpi`` (1005 x 495 px at 150 dpi).
     """
+    w = _words(result)
     fig = _figure(_HISTOGRAM_IN, dpi)
     ax = fig.add_subplot()
     delta = result.detection.delta_c
@@ -330,10 +337,10 @@ def delta_histogram_figure(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> 
     edges = np.linspace(lo, hi, 121)
     counts = _histogram(delta, edges)
     if counts.sum():
-        ax.stairs(counts * result.grid.pixel_area_m2, edges, fill=True, color="#777777", label="roof area per bin")
+        ax.stairs(counts * result.grid.pixel_area_m2, edges, fill=True, color="#777777", label=f"{w.area_short} area per bin")
         ax.set_yscale("log")
     else:
-        ax.text(0.5, 0.5, "no thermal data on the roof", transform=ax.transAxes, ha="center")
+        ax.text(0.5, 0.5, f"no thermal data on the {w.area_short}", transform=ax.transAxes, ha="center")
     ax.axvline(thr, color="black", linestyle="--", linewidth=1.4, label=f"threshold {thr:+g} °C")
     c = result.confirmations
     last_d, level = -np.inf, 0
@@ -352,12 +359,12 @@ def delta_histogram_figure(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> 
 
     handles, _ = ax.get_legend_handles_labels()
     if len(finite_cores):
-        handles += [Line2D([], [], color=CORE_COLOURS["wet"], linestyle="-", label="ΔT at a core judged wet"),
-                    Line2D([], [], color=CORE_COLOURS["dry"], linestyle=":", label="ΔT at a core judged dry")]
+        handles += [Line2D([], [], color=CORE_COLOURS["wet"], linestyle="-", label=f"ΔT at a {w.confirmation} judged wet"),
+                    Line2D([], [], color=CORE_COLOURS["dry"], linestyle=":", label=f"ΔT at a {w.confirmation} judged dry")]
     fig.legend(handles=handles, loc="outside lower center", ncols=4, fontsize=7, frameon=False)
     ax.set_xlim(lo, hi)
     ax.set_xlabel("ΔT: surface temperature above the dry background (°C)", fontsize=8)
-    ax.set_ylabel("roof area per bin (m²)", fontsize=8)
+    ax.set_ylabel(f"{w.area_short} area per bin (m²)", fontsize=8)
     ax.tick_params(labelsize=7)
     return _png(fig)
 
@@ -446,26 +453,34 @@ def _generic_html(value: Any, depth: int = 0) -> str:
 # --------------------------------------------------------------------------------------
 
 
-def _key_figures(s: dict[str, Any]) -> str:
+def _key_figures(s: dict[str, Any], w: Wording) -> str:
+    c = w.confirmations
     rows = [
-        ("Roof area surveyed (outline less exclusions)" if s["kind"] != "hull" else "Hull side area",
+        ("Roof area surveyed (outline less exclusions)" if w.kind != "hull" else f"{w.area_title} area",
          _cell(s["roof_area_m2"], "roof_area_m2", suffix=" m²")),
         ("Anomalies found", _cell(s["anomaly_count"], "anomaly_count")),
-        ("Wet, confirmed by cores", _cell(s["confirmed_wet_area_m2"], "confirmed_wet_area_m2", suffix=" m²")),
-        ("Unverified (no core inside)", _cell(s["unverified_area_m2"], "unverified_area_m2", suffix=" m²")),
+        (f"Wet, confirmed by {c}", _cell(s["confirmed_wet_area_m2"], "confirmed_wet_area_m2", suffix=" m²")),
+        (f"Unverified (no {w.confirmation} inside)", _cell(s["unverified_area_m2"], "unverified_area_m2",
+                                                          suffix=" m²")),
         ("Wet area (confirmed + unverified)", _cell(s["wet_area_m2"], "wet_area_m2", suffix=" m²")),
-        *([("Wet area, low end of the range the cores allow",
+        *([(f"Wet area, low end of the range the {c} allow",
              _cell(s["wet_area_range"]["low_m2"], "wet_area_range.low_m2", suffix=" m²")),
-            ("Wet area, high end of the range the cores allow",
+            (f"Wet area, high end of the range the {c} allow",
              _cell(s["wet_area_range"]["high_m2"], "wet_area_range.high_m2", suffix=" m²"))]
           if s.get("wet_area_range") else []),
-        ("Refuted: anomalies whose cores are all dry", _cell(s["confirmed_dry_area_m2"], "confirmed_dry_area_m2",
-                                                             suffix=" m²")),
+        (f"Refuted: anomalies whose {c} are all dry", _cell(s["confirmed_dry_area_m2"], "confirmed_dry_area_m2",
+                                                            suffix=" m²")),
         ("Wet fraction of the surveyed area", _cell(100 * s["wet_fraction"], "wet_fraction", suffix=" %")),
         ("Repair outline area", _cell(s["repair_area_m2"], "repair_area_m2", suffix=" m²")),
-        ("Whole boards replaced", _cell(s["boards"], "boards")),
-        ("Tear-off area", _cell(s.get("tearoff_area_m2"), "tearoff_area_m2", suffix=" m²")),
     ]
+    if w.whole_boards:
+        rows += [
+            ("Whole boards replaced", _cell(s["boards"], "boards")),
+            ("Tear-off area", _cell(s.get("tearoff_area_m2"), "tearoff_area_m2", suffix=" m²")),
+        ]
+    else:
+        rows.append((f"Repair outline perimeter ({w.edge})", _cell(s.get("repair_perimeter_m"), "repair_perimeter_m",
+                                                                  suffix=" m")))
     im = s.get("imagery") or {}
     if im.get("smallest_reliable_area_m2") is not None:
         n = im.get("min_pixels_across", 3)
@@ -473,7 +488,7 @@ def _key_figures(s: dict[str, Any]) -> str:
                      _cell(im["smallest_reliable_area_m2"], "imagery.smallest_reliable_area_m2", ",.3f", " m²")))
     cov = s.get("coverage") or {}
     if cov:
-        rows.append(("Roof with no thermal data (not surveyed)",
+        rows.append((f"{w.area_title} with no thermal data (not surveyed)",
                      _cell(cov.get("uncovered_m2"), "coverage.uncovered_m2", suffix=" m²")))
     body = "".join(f"<tr><th>{k}</th>{v}</tr>" for k, v in rows)
     return f'<table class="keyfigures" id="key-figures"><tbody>{body}</tbody></table>'
@@ -532,6 +547,7 @@ def _warnings(summary: dict[str, Any]) -> str:
 
 def _method(result: "SurveyResult", summary: dict[str, Any]) -> str:
     r, d, s = result.radiometry, result.detection, result.survey
+    w = _words(result)
     m = summary.get("method", {})
     estimated = not r.reflected_source.startswith("measured")
     rows = [
@@ -551,8 +567,8 @@ def _method(result: "SurveyResult", summary: dict[str, Any]) -> str:
         ("Smallest anomaly kept", f"{s.detect.min_area_m2:g} m² (holes smaller than this are filled)"),
         ("Perimeter", _esc(m.get("perimeter", "length of the outline"))),
         ("Repair margin", f"{s.repair.margin_m:g} m beyond the anomaly outline"),
-        ("Board size", "not given (no board take-off)" if not s.repair.board_m
-         else f"{s.repair.board_m[0]:g} x {s.repair.board_m[1]:g} m"),
+        *([("Board size", "not given (no board take-off)" if not s.repair.board_m
+            else f"{s.repair.board_m[0]:g} x {s.repair.board_m[1]:g} m")] if w.whole_boards else []),
         ("Counted as wet for the repair", "wet and unverified anomalies" if s.repair.include_unverified
          else "confirmed wet anomalies only"),
     ]
@@ -563,8 +579,9 @@ def _method(result: "SurveyResult", summary: dict[str, Any]) -> str:
         "and ASTM E1933 describe how reflected temperature and emissivity are measured). Each pixel was "
         "compared with a robust estimate of the dry surface around it (block medians over the background "
         "scale); pixels warmer than the threshold form anomalies, outlined as polygons. Each anomaly's status "
-        "comes from the cores and readings inside it: <b>wet</b> when one says wet, <b>dry</b> when all say "
-        "dry, <b>unverified</b> when there is none.</p>"
+        f"comes from the {w.confirmations_all} inside it: <b>wet</b> when one says wet, <b>dry</b> when all say "
+        "dry, <b>unverified</b> when there is none"
+        + w.status_note + ".</p>"
     )
     if estimated:
         text += ("<p class='caution'>The reflected temperature was <b>estimated</b>, not measured. In the "
@@ -580,7 +597,8 @@ def _range_words(result: "SurveyResult") -> str:
         return ""
     r = imagery.surface_range
     return (f" Colour range {r.low_c:.1f} to {r.high_c:.1f} °C: the {r.percentile_words} of "
-            f"the roof alone (exclusions and the ground outside left out), centred on the dry background "
+            f"the {_words(result).area_short} alone (exclusions and the ground outside left out), centred on the "
+            "dry background "
             f"{r.centre_c:.1f} °C.")
 
 
@@ -599,7 +617,7 @@ def _imagery(result: "SurveyResult", summary: dict[str, Any]) -> str:
            "surface, may be a reflection.</p>"]
     rows = [
         ("Smallest area measured reliably", f"{_fmt(im.get('smallest_reliable_area_m2'), ',.3f')} m² "
-         f"(pixel {_fmt(im.get('reliable_gsd_m'), '.3f')} m, median over the covered roof; "
+         f"(pixel {_fmt(im.get('reliable_gsd_m'), '.3f')} m, median over the covered {_words(result).area_short}; "
          f"{_fmt(im.get('worst_reliable_area_m2'), ',.3f')} m² where the imagery is coarsest)"),
         ("Anomalies too small to measure reliably", _esc(", ".join(f"#{i}" for i in im.get("under_resolved", []))
                                                          or "none")),
@@ -652,17 +670,19 @@ def _figures(result: "SurveyResult", dpi: int) -> str:
     from PIL import Image
 
     s = result.survey.repair
+    w = _words(result)
     specs = [
         ("fig-thermal", thermal_figure(result, dpi=dpi),
          "Corrected surface temperature (cividis scale) with the anomaly outlines (vermillion solid: wet; "
-         "reddish purple dashed: unverified; blue dotted: dry), their numbers, exclusions in grey and the cores "
+         f"reddish purple dashed: unverified; blue dotted: dry), their numbers, exclusions in grey and the {w.confirmations} "
          "(filled: judged wet; ring: judged dry)." + _range_words(result)),
         ("fig-histogram", delta_histogram_figure(result, dpi=dpi),
-         f"Distribution of ΔT over the surveyed roof (area per bin, log scale), the threshold "
-         f"({result.detection.threshold_c:g} °C, dashed) and the ΔT found at each core."),
+         f"Distribution of ΔT over the surveyed {w.area_short} (area per bin, log scale), the threshold "
+         f"({result.detection.threshold_c:g} °C, dashed) and the ΔT found at each {w.confirmation}."),
         ("fig-repair", repair_plan_figure(result, dpi=dpi),
          f"Repair plan: anomalies by status, the repair outline (dashed, hatched; margin {s.margin_m:g} m)"
-         + (f" and the {result.takeoff.count} whole boards it touches" if result.takeoff.count else "")
+         + (f" and the {result.takeoff.count} whole boards it touches" if result.takeoff.count and w.whole_boards
+            else "")
          + ", sections and exclusions."),
     ]
     out = []
@@ -675,8 +695,9 @@ def _figures(result: "SurveyResult", dpi: int) -> str:
 
 def _anomaly_table(result: "SurveyResult", summary: dict[str, Any]) -> str:
     counted = {"wet", "unverified"} if result.survey.repair.include_unverified else {"wet"}
+    inside = _words(result).confirmations.capitalize()
     head = ("<tr><th>No.</th><th>Status</th><th>Section</th><th>Area (m²)</th><th>Perimeter (m)</th>"
-            "<th>Mean ΔT (°C)</th><th>Max ΔT (°C)</th><th>Cores inside</th><th>Counted wet</th></tr>")
+            f"<th>Mean ΔT (°C)</th><th>Max ΔT (°C)</th><th>{inside} inside</th><th>Counted wet</th></tr>")
     body = []
     for a in result.anomalies:
         body.append(
@@ -711,22 +732,26 @@ def _anomaly_table(result: "SurveyResult", summary: dict[str, Any]) -> str:
 
 def _quantities(result: "SurveyResult", summary: dict[str, Any]) -> str:
     s = result.survey.repair
+    w = _words(result)
     rows = [
         ("Repair outline area", _cell(summary["repair_area_m2"], "repair_area_m2", suffix=" m²")),
-        ("Repair outline perimeter (cut edge)", _cell(float(result.repair.length), None, suffix=" m")),
+        (f"Repair outline perimeter ({w.edge})", _cell(float(result.repair.length), None, suffix=" m")),
         ("Margin beyond the anomaly outline", _cell(s.margin_m, None, ",.2f", " m")),
-        ("Whole boards", _cell(summary["boards"], "boards")),
-        ("Board size", f"<td>{'–' if not s.board_m else f'{s.board_m[0]:g} x {s.board_m[1]:g} m'}</td>"),
-        ("Board area", _cell(summary.get("board_area_m2"), "board_area_m2", suffix=" m²")),
-        ("Tear-off area", _cell(summary.get("tearoff_area_m2"), "tearoff_area_m2", suffix=" m²")),
     ]
+    if w.whole_boards:
+        rows += [
+            ("Whole boards", _cell(summary["boards"], "boards")),
+            ("Board size", f"<td>{'–' if not s.board_m else f'{s.board_m[0]:g} x {s.board_m[1]:g} m'}</td>"),
+            ("Board area", _cell(summary.get("board_area_m2"), "board_area_m2", suffix=" m²")),
+            ("Tear-off area", _cell(summary.get("tearoff_area_m2"), "tearoff_area_m2", suffix=" m²")),
+        ]
     body = "".join(f"<tr><th>{k}</th>{v}</tr>" for k, v in rows)
     out = f'<table class="kv" id="quantities">{body}</table>'
     sections = summary.get("sections") or []
     if sections:
         head = ("<tr><th>Section</th><th>Assembly</th><th>Area (m²)</th><th>Wet, confirmed (m²)</th>"
                 "<th>Unverified (m²)</th><th>Dry, refuted (m²)</th><th>Wet area (m²)</th><th>Wet fraction</th>"
-                "<th>Repair (m²)</th><th>Boards</th></tr>")
+                "<th>Repair (m²)</th>" + ("<th>Boards</th>" if w.whole_boards else "") + "</tr>")
         rows_html = []
         for t in sections:
             frac = t.get("wet_fraction")
@@ -738,11 +763,12 @@ def _quantities(result: "SurveyResult", summary: dict[str, Any]) -> str:
                 + _cell(t.get("confirmed_dry_area_m2"), "confirmed_dry_area_m2")
                 + _cell(t.get("wet_area_m2"), "wet_area_m2")
                 + _cell(None if frac is None else 100 * frac, "wet_fraction", suffix=" %")
-                + _cell(t.get("repair_area_m2"), "repair_area_m2") + _cell(t.get("boards"), "boards") + "</tr>")
+                + _cell(t.get("repair_area_m2"), "repair_area_m2")
+                + (_cell(t.get("boards"), "boards") if w.whole_boards else "") + "</tr>")
         out += (f'<h3>By section</h3><table id="sections" class="data"><thead>{head}</thead>'
                 f'<tbody>{"".join(rows_html)}</tbody></table>'
                 "<p class='small'>Replace-or-repair rules (for example a share of wet area above which a whole "
-                "roof is replaced) differ by jurisdiction: the local code decides.</p>")
+                f"{w.area_short} is replaced) differ by jurisdiction: the local code decides.</p>")
     bill = _bill_of(result, summary)
     if bill is not None:
         out += "<h3>Bill of quantities</h3>" + _bill_html(bill)
@@ -781,9 +807,10 @@ def _bill_html(bill: Any) -> str:
 
 def _confirmations(result: "SurveyResult") -> str:
     c = result.confirmations
+    w = _words(result)
     if not len(c):
-        return ("<p id='cores'>No cores or readings were given: every anomaly is <b>unverified</b>. Infrared alone "
-                "does not establish wet insulation or wet core.</p>")
+        return (f"<p id='cores'>No {w.confirmations_any} were given: every anomaly is <b>unverified</b>. Infrared "
+                f"alone does not establish {w.wet_words}.</p>")
     extra = list(c.extra)
     head = ("<tr><th>Id</th><th>x (m)</th><th>y (m)</th><th>Judged</th><th>Basis</th><th>ΔT there (°C)</th>"
             "<th>In anomaly</th>" + "".join(f"<th>{_esc(k)}</th>" for k in extra) + "</tr>")
@@ -791,7 +818,10 @@ def _confirmations(result: "SurveyResult") -> str:
     for i, cid in enumerate(c.ids):
         basis = c.basis[i]
         value = c.values[i]
-        shown = "result" if basis == "result" or not np.isfinite(value) else f"{basis} = {value:g}"
+        if basis == "sound":
+            shown = "sounding: dull" if c.wet[i] else "sounding: solid (does not refute alone)"
+        else:
+            shown = "result" if basis == "result" or not np.isfinite(value) else f"{basis} = {value:g}"
         anomaly = int(result.verdicts.anomaly_of[i])
         rows.append(
             f"<tr><td>{_esc(cid)}</td><td class='num'>{c.xs[i]:.2f}</td><td class='num'>{c.ys[i]:.2f}</td>"
@@ -802,25 +832,26 @@ def _confirmations(result: "SurveyResult") -> str:
     return f'<table id="cores" class="data"><thead>{head}</thead><tbody>{"".join(rows)}</tbody></table>'
 
 
-def _calibration(summary: dict[str, Any]) -> str:
+def _calibration(summary: dict[str, Any], w: Wording) -> str:
     """The threshold against the cores, the wet-area range and where the next cores are worth most."""
     parts = []
+    n = w.confirmations
     t = summary.get("threshold_check")
     if t:
         c = t["confusion"]
         lo, hi = t["range_c"]
-        by = t["range_bounded_by"]
+        by = [n if b == "cores" else b for b in t["range_bounded_by"]]
         parts.append(
             "<table id='threshold-check' class='data'><tbody>"
             f"<tr><th>Threshold used</th><td class='num'>ΔT &gt; {_fmt(t['chosen_c'], 'g')} °C</td></tr>"
-            f"<tr><th>Thresholds that fit the cores best</th><td class='num'>{_fmt(lo, '+.2f')} to "
+            f"<tr><th>Thresholds that fit the {n} best</th><td class='num'>{_fmt(lo, '+.2f')} to "
             f"{_fmt(hi, '+.2f')} °C (low side: {_esc(by[0])}; high side: {_esc(by[1])})</td></tr>"
-            f"<tr><th>Wet cores above / at or below the threshold</th><td class='num'>{c['wet_above']} / "
+            f"<tr><th>Wet {n} above / at or below the threshold</th><td class='num'>{c['wet_above']} / "
             f"{c['wet_below']}</td></tr>"
-            f"<tr><th>Dry cores at or below / above the threshold</th><td class='num'>{c['dry_below']} / "
+            f"<tr><th>Dry {n} at or below / above the threshold</th><td class='num'>{c['dry_below']} / "
             f"{c['dry_above']}</td></tr>"
-            f"<tr><th>Wet and dry cores separable</th><td>{'yes' if t['separable'] else 'no'}</td></tr>"
-            f"<tr><th>Cores the threshold gets wrong</th><td>{_esc(', '.join(t['misclassified']) or 'none')}"
+            f"<tr><th>Wet and dry {n} separable</th><td>{'yes' if t['separable'] else 'no'}</td></tr>"
+            f"<tr><th>{n.capitalize()} the threshold gets wrong</th><td>{_esc(', '.join(t['misclassified']) or 'none')}"
             "</td></tr></tbody></table>")
     r = summary.get("wet_area_range")
     if r:
@@ -828,7 +859,7 @@ def _calibration(summary: dict[str, Any]) -> str:
             f"<p id='area-range'>Wet area counted: <b>{_fmt(r['likely_m2'])} m²</b> at the threshold used; "
             f"<b>{_fmt(r['low_m2'])} to {_fmt(r['high_m2'])} m²</b> across thresholds from "
             f"{_fmt(r['threshold_high_c'], '+.2f')} down to {_fmt(r['threshold_low_c'], '+.2f')} °C (the chosen "
-            "threshold ±0.5 °C, narrowed by what the cores allow), widened by the outline's own uncertainty of "
+            f"threshold ±0.5 °C, narrowed by what the {n} allow), widened by the outline's own uncertainty of "
             f"±{_fmt(r['geometric_m2'])} m² (pixel size times perimeter). Quote the range with the quantity.</p>")
     cores = summary.get("suggested_cores") or []
     if cores:
@@ -836,10 +867,9 @@ def _calibration(summary: dict[str, Any]) -> str:
             f"<tr><td class='num'>{i}</td><td class='num'>{_fmt(c['x'])}</td><td class='num'>{_fmt(c['y'])}</td>"
             f"<td>{_esc(c['kind'])}</td><td>{_esc(c['reason'])}</td></tr>" for i, c in enumerate(cores, 1))
         parts.append(
-            "<h3>Where the next cores are worth most</h3><table id='suggested-cores' class='data'><thead><tr>"
+            f"<h3>Where the next {n} are worth most</h3><table id='suggested-cores' class='data'><thead><tr>"
             "<th>No.</th><th>x (m)</th><th>y (m)</th><th>Kind</th><th>Why</th></tr></thead>"
-            f"<tbody>{rows}</tbody></table><p class='small'>Check for asbestos and services before coring; "
-            "seal every core hole the same day.</p>")
+            f"<tbody>{rows}</tbody></table><p class='small'>{_esc(w.next_sample)}</p>")
     return "".join(parts)
 
 
@@ -860,50 +890,32 @@ def _further(result: "SurveyResult", summary: dict[str, Any]) -> str:
 
 def _limitations(result: "SurveyResult", summary: dict[str, Any]) -> str:
     cov = summary.get("coverage") or {}
-    hull = result.survey.survey.kind == "hull"
+    w = _words(result)
     items = [
         "<b>An infrared survey shows apparent thermal anomalies, not measured moisture.</b> A warm area after "
-        "cool-down is consistent with wet insulation or wet core, but it is not proof of it. Every anomaly "
-        "must be verified invasively (cores, or cores plus probe or meter readings) before a repair decision; "
-        "anomalies without a core inside are reported as <i>unverified</i>.",
-        "False warm areas come from extra plies and old patches, heavy flood coats, gravel or ballast piles, "
-        "heat from below (exhausts, warm rooms, drain pans), structure and metal flashing, ponding and debris, "
-        "and reflections of sky or cloud on shiny surfaces. Wet areas can be missed under dew or frost, when "
-        "cloud arrives during the survey, with deep moisture, with closed-cell boards (faint patterns at the "
-        "joints) and on ballasted, paver, inverted or green roofs.",
+        f"cool-down is consistent with {_esc(w.wet_words)}, but it is not proof of it. Every anomaly "
+        f"must be verified invasively ({_esc(w.invasive)}) before a repair decision; "
+        f"anomalies without a {w.confirmation} inside are reported as <i>unverified</i>.",
+        _esc(w.false_warm),
         "The result is only as good as the conditions: a dry surface, a sunny day before, light wind and no "
         "recent rain. See the warnings above.",
         f"Areas without thermal data are not surveyed, which does not mean dry "
         f"({_fmt(cov.get('uncovered_m2'))} m² here). Exclusions are not surveyed.",
-        "The survey does not find where water enters, does not judge the fitness of the roof or hull and is "
+        f"The survey does not find where water enters, does not judge the fitness of the {w.area_short} and is "
         "no warranty.",
         "Repair outlines and quantities are measured on the plan with a margin that is a setting, not a "
         "published value; check them on site during the work before ordering materials or quoting.",
-        "Local building codes, work-safety rules and licensed roofers, engineers or accredited marine "
-        "surveyors decide what is done; rules on replacing rather than repairing (for example above a share "
-        "of wet area) differ by jurisdiction.",
+        _esc(w.who_decides),
     ]
-    if hull:
-        items.insert(2, "Moisture-meter readings are relative, not moisture content; antifouling paint, salt, "
-                        "tanks, backing plates and condensation give false high readings, and a high reading may "
-                        "mean a wet outer skin rather than a wet core.")
+    if w.false_readings:
+        items.insert(2, _esc(w.false_readings))
     return "<ul>" + "".join(f"<li>{i}</li>" for i in items) + "</ul>"
 
 
-_SAFETY = (
-    "<ul>"
-    "<li><b>Roofs at night.</b> Walk the roof in daylight first and note edges, openings, skylights and soft "
-    "spots. Never work alone on a roof. Use fall protection near unprotected edges (guardrails, travel "
-    "restraint or arrest systems, as your local rules require) and cover or guard skylights and openings. "
-    "The camera screen spoils night vision: stop and let your eyes adapt before moving.</li>"
-    "<li><b>Before coring.</b> Old roofing may contain asbestos: have it checked before cutting. Seal every "
-    "core hole the same day.</li>"
-    "<li><b>Boatyards.</b> Tie ladders and keep three points of contact, never touch or move jack stands, "
-    "stay out of lift and travel-hoist zones, and protect yourself against antifouling and fibreglass dust.</li>"
-    "<li>Follow local codes and work-safety rules, and defer to licensed roofers, engineers or accredited "
-    "marine surveyors.</li>"
-    "</ul>"
-)
+def _safety(w: Wording) -> str:
+    """The safety cautions of the survey's kind (:attr:`wetmap.wording.Wording.safety`)."""
+    return "<ul>" + "".join(f"<li>{f'<b>{_esc(head)}</b> ' if head else ''}{_esc(text)}</li>"
+                            for head, text in w.safety) + "</ul>"
 
 _CSS = """
 /* Printable on A4 (210 x 297 mm) and US Letter (215.9 x 279.4 mm): no size is forced, so the
@@ -964,6 +976,7 @@ def build_report(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> str:
 
     summary = result.summary()
     sv = result.survey.survey
+    w = _words(result)
     title = f"Thermal survey report: {sv.title}"
     sub = ", ".join(x for x in (_kind_words(result), sv.site, sv.date) if x)
     further = _further(result, summary)
@@ -976,18 +989,19 @@ def build_report(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> str:
         "<p class='screen-note'>Print this page (A4 or Letter) from the browser; the interactive map is in "
         "map.html beside it.</p></header>",
         "<div class='notice'><b>Read first.</b> This survey shows <b>apparent thermal anomalies, not measured "
-        "moisture</b>. Confirm every finding by invasive verification (cores) before any repair decision. "
+        f"moisture</b>. Confirm every finding by invasive verification ({_esc(w.invasive_short)}) before any "
+        "repair decision. "
         "Local codes, work-safety rules and licensed professionals decide; see Limitations and Safety at the "
         "end.</div>",
-        "<section id='s-key'><h2>1. Key figures</h2>", _key_figures(summary), "</section>",
+        "<section id='s-key'><h2>1. Key figures</h2>", _key_figures(summary, w), "</section>",
         "<section id='s-conditions'><h2>2. Site, survey and conditions</h2>", _conditions(result),
         "<h3>Warnings from the checks</h3>", _warnings(summary), "</section>",
         "<section id='s-method'><h2>3. Method</h2>", _method(result, summary), "</section>",
         "<section id='s-figures' class='newpage'><h2>4. Figures</h2>", _figures(result, dpi), "</section>",
         "<section id='s-anomalies'><h2>5. Anomalies</h2>", _anomaly_table(result, summary), "</section>",
         "<section id='s-quantities'><h2>6. Repair quantities</h2>", _quantities(result, summary), "</section>",
-        "<section id='s-cores'><h2>7. Cores and readings</h2>", _confirmations(result), "</section>",
-        "<section id='s-calibration'><h2>8. Threshold check and wet-area range</h2>", _calibration(summary),
+        f"<section id='s-cores'><h2>7. {_esc(w.confirmations_title)}</h2>", _confirmations(result), "</section>",
+        "<section id='s-calibration'><h2>8. Threshold check and wet-area range</h2>", _calibration(summary, w),
         "</section>",
     ]
     n = 9
@@ -997,9 +1011,10 @@ def build_report(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> str:
     parts += [
         f"<section id='s-limitations' class='newpage'><h2>{n}. Limitations</h2>", _limitations(result, summary),
         "</section>",
-        f"<section id='s-safety' class='keep'><h2>{n + 1}. Safety</h2>", _SAFETY, "</section>",
+        f"<section id='s-safety' class='keep'><h2>{n + 1}. Safety</h2>", _safety(w), "</section>",
         f"<section id='s-signature' class='signature'><h2>{n + 2}. Sign-off</h2>",
-        "<p>I carried out or supervised this survey and checked the findings above against the cores listed.</p>",
+        f"<p>I carried out or supervised this survey and checked the findings above against the {w.confirmations} "
+        "listed.</p>",
         "<table><tr><th>Surveyor (name)</th><td>" + _esc(sv.surveyor or "") + "</td></tr>"
         "<tr><th>Qualification / certification</th><td></td></tr>"
         "<tr><th>Signature</th><td class='tall'></td></tr>"

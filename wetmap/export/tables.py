@@ -14,6 +14,10 @@ what each row is:
 
 Column names carry their units (``_m2``, ``_m``, ``_c``, ``_ft2``, ``_squares``); the
 ``_ft2`` and ``_squares`` columns appear when ``[repair] area_units`` asks for them.
+
+A hull side (``kind = "hull"``) speaks hull: ``side_area_*`` instead of ``roof_area_*``,
+no board or tear-off columns (a hull is billed by area and edge length), and the bill's
+area lines give their areas in ``repair_area_*``.
 """
 
 from __future__ import annotations
@@ -66,14 +70,30 @@ def quantities_of(result: "SurveyResult") -> Quantities:
                               settings=s.repair, prices=s.prices, kind=s.survey.kind)
 
 
-def quantity_columns(area_units: tuple[str, ...]) -> tuple[str, ...]:
-    """The quantities.csv header for the given area units.
+#: Hull columns: roof names renamed, board and tear-off columns dropped (``None``).
+_HULL_NAMES = {"roof_area": "side_area", "boards": None, "board_area": None, "tearoff_area": None}
+
+
+def _hull_name(column: str) -> str | None:
+    for roof, hull in _HULL_NAMES.items():
+        if column == roof or column.startswith(roof + "_"):
+            return None if hull is None else hull + column[len(roof):]
+    return column
+
+
+def quantity_columns(area_units: tuple[str, ...], *, kind: str = "roof") -> tuple[str, ...]:
+    """The quantities.csv header for the given area units and kind of survey.
 
     >>> quantity_columns(("m2", "ft2"))[-11:-6]
     ('area_ft2', 'roof_area_ft2', 'wet_area_ft2', 'repair_area_ft2', 'tearoff_area_ft2')
+    >>> quantity_columns(("m2", "ft2"), kind="hull")[-10:-6]
+    ('area_ft2', 'side_area_ft2', 'wet_area_ft2', 'repair_area_ft2')
     """
     extra = tuple(f"{name}_{u}" for u in area_units if u != "m2" for name in _CONVERTED)
-    return QUANTITY_COLUMNS + extra + _BILL_COLUMNS
+    columns = QUANTITY_COLUMNS + extra + _BILL_COLUMNS
+    if kind == "hull":
+        columns = tuple(c for c in (_hull_name(c) for c in columns) if c is not None)
+    return columns
 
 
 def write_summary(result: "SurveyResult", path: Path) -> None:
@@ -89,7 +109,8 @@ def write_quantities(result: "SurveyResult", path: Path) -> None:
     """Anomaly, section, total and bill rows (areas m2, lengths m, deltas degC; see the module)."""
     q = quantities_of(result)
     units = tuple(u for u in result.survey.repair.area_units if u != "m2")
-    columns = quantity_columns(("m2", *units))
+    hull = result.survey.survey.kind == "hull"
+    columns = quantity_columns(("m2", *units), kind=result.survey.survey.kind)
     counted = {"wet", "unverified"} if result.survey.repair.include_unverified else {"wet"}
 
     def converted(row: dict[str, Any], **areas_m2: float | None) -> None:
@@ -158,11 +179,14 @@ def write_quantities(result: "SurveyResult", path: Path) -> None:
                "bill_quantity": _f(line.quantity, 0 if line.unit in ("board", "item") else 2),
                "rate": _f(line.rate, 2), "amount": _f(line.amount, 2), "currency": bill.currency or ""}
         for u, value in line.areas:
-            row[f"tearoff_area_{u}"] = _f(value, 2)
+            row[f"{'repair_area' if hull else 'tearoff_area'}_{u}"] = _f(value, 2)
         rows.append(row)
     rows.append({"row": "bill", "bill_item": "bill total", "amount": _f(bill.total, 2),
                  "currency": bill.currency or ""})
 
+    if hull:  # hull names; no board or tear-off columns
+        rows = [{name: v for name, v in ((_hull_name(k), v) for k, v in r.items()) if name is not None}
+                for r in rows]
     with path.open("w", newline="", encoding="utf-8") as fh:
         w = csv.DictWriter(fh, fieldnames=list(columns), restval="")
         w.writeheader()

@@ -53,6 +53,7 @@ from shapely.geometry import mapping
 from shapely.geometry.base import BaseGeometry
 
 from ..errors import ProcessingError
+from ..wording import Wording, wording_of
 
 if TYPE_CHECKING:
     from ..pipeline import SurveyResult
@@ -439,9 +440,18 @@ def _sq(value: float) -> str:
     return f"{value:,.2f} m²"
 
 
-def _status_words(status: str) -> str:
-    return {"wet": "wet (confirmed by a core)", "dry": "dry (refuted: cores inside all dry)",
-            "unverified": "unverified (no core inside)"}.get(status, status)
+def _status_words(status: str, w: Wording | None = None) -> str:
+    c1, cn = (w.confirmation, w.confirmations) if w is not None else ("core", "cores")
+    return {"wet": f"wet (confirmed by a {c1})", "dry": f"dry (refuted: {cn} inside all dry)",
+            "unverified": f"unverified (no {c1} inside)"}.get(status, status)
+
+
+def _status_legend(status: str, w: Wording) -> str:
+    """The legend's words for a status, in the survey's vocabulary."""
+    c1, cn = w.confirmation, w.confirmations
+    return {"wet": f"wet: a {c1} inside says wet", "unverified": f"unverified: no {c1} inside",
+            "dry": f"dry: every {c1} inside says dry"}.get(status, STATUS_STYLES[status].label if status in
+                                                        STATUS_STYLES else status)
 
 
 def _counted_statuses(result: "SurveyResult") -> set[str]:
@@ -452,6 +462,9 @@ def _core_basis(result: "SurveyResult", i: int) -> str:
     c = result.confirmations
     basis = c.basis[i]
     value = c.values[i]
+    if basis == "sound":
+        return ("percussion sounding: dull (counted as wet)" if c.wet[i]
+                else "percussion sounding: solid (does not refute an anomaly alone)")
     if basis == "result" or not np.isfinite(value):
         return "core result (wet/dry as entered)"
     if basis == "moisture_pct":
@@ -536,7 +549,8 @@ def _header_html(result: "SurveyResult", summary: dict[str, Any]) -> str:
         facts.append(f"<b>Site</b> {_esc(s.site)}")
     if s.date:
         facts.append(f"<b>Date</b> {_esc(s.date)}")
-    kind = "hull side" + (f" ({s.side})" if s.side else "") if s.kind == "hull" else "roof"
+    w = wording_of(result.survey)
+    kind = w.area
     facts.append(f"<b>Survey</b> {_esc(kind)}, plan {_esc('in local metres' if s.is_local else s.crs)}")
     cond = [f"air {c.air_c:g} °C", f"RH {c.humidity_pct:g} %"]
     if c.wind_m_s is not None:
@@ -558,25 +572,29 @@ def _header_html(result: "SurveyResult", summary: dict[str, Any]) -> str:
     return (f'<div class="wetmap-header"><h1>{_esc(s.title)}</h1><span class="facts">'
             + " ".join(f"<span>{f}</span>" for f in facts) + "</span>"
             f"<div>{found}{warn}. <span class=\"note\">Apparent thermal anomalies, not measured moisture: "
-            "verify by coring before any repair decision.</span></div></div>")
+            f"verify by {_esc(w.verify_by)} before any repair decision."
+            "</span></div></div>")
 
 
 def _legend_html(bars: list[tuple[str, bytes]], result: "SurveyResult") -> str:
+    vocab = wording_of(result.survey)
     parts = ["<details open><summary>Legend</summary><b>Anomalies</b>"]
     for status, st in STATUS_STYLES.items():
-        parts.append(f'<div class="row">{_line_sample(st.colour, st.dash)}<span>{_esc(st.label)}</span></div>')
+        parts.append(f'<div class="row">{_line_sample(st.colour, st.dash)}<span>{_esc(_status_legend(status, vocab))}'
+                     "</span></div>")
     if len(result.confirmations):
-        parts.append("<b>Cores and readings</b>")
+        parts.append(f"<b>{_esc(vocab.confirmations_title)}</b>")
         parts.append(f'<div class="row">{_disc_sample(CORE_COLOURS["wet"], "#000000", 1)}<span>judged wet</span></div>')
         parts.append(f'<div class="row">{_disc_sample("#FFFFFF", CORE_COLOURS["dry"], 3)}<span>judged dry</span></div>')
     if getattr(result, "suggested_cores", ()):
         if not len(result.confirmations):
-            parts.append("<b>Cores and readings</b>")
-        parts.append(f'<div class="row">{_disc_sample("#F0E442", "#000000", 2)}<span>suggested next core</span></div>')
+            parts.append(f"<b>{_esc(vocab.confirmations_title)}</b>")
+        parts.append(f'<div class="row">{_disc_sample("#F0E442", "#000000", 2)}<span>suggested next '
+                     f"{_esc(vocab.confirmation)}</span></div>")
     parts.append("<b>Plan</b>")
     parts.append(f'<div class="row">{_line_sample(LAYER_COLOURS["repair"], "6 4", width=2)}'
                  f"<span>repair outline (margin {result.survey.repair.margin_m:g} m)</span></div>")
-    if result.takeoff.count:
+    if result.takeoff.count and vocab.whole_boards:
         parts.append(f'<div class="row">{_line_sample(LAYER_COLOURS["boards"], None, width=1)}'
                      "<span>whole boards replaced</span></div>")
     if not result.exclusions.is_empty:
@@ -594,7 +612,7 @@ def _legend_html(bars: list[tuple[str, bytes]], result: "SurveyResult") -> str:
     if imagery is not None:
         r, d = imagery.surface_range, imagery.delta_range
         parts.append(f'<div class="note wetmap-range">Colour range {r.low_c:.1f} to {r.high_c:.1f} °C (ΔT '
-                     f'{d.low_c:+.1f} to {d.high_c:+.1f} °C): {r.percentile_words} of the roof '
+                     f'{d.low_c:+.1f} to {d.high_c:+.1f} °C): {r.percentile_words} of the {vocab.area_short} '
                      f'alone, centred on the dry background {r.centre_c:.1f} °C; change it under "Display range".</div>')
     parts.append('<div class="note">Colours: cividis thermal scale, Okabe-Ito status colours.</div></details>')
     return "".join(parts)
@@ -752,10 +770,11 @@ def _palette_hex(name: str) -> str:
 def _range_basis(result: "SurveyResult") -> str:
     """The words under the display control: how the opening range was chosen."""
     imagery = getattr(result, "imagery", None)
+    area = wording_of(result.survey).area_short
     if imagery is None:
-        return "Opening range: 1st-99th percentile of the roof pixels."
+        return f"Opening range: 1st-99th percentile of the {area} pixels."
     r = imagery.surface_range
-    return (f"Opening range: {r.percentile_words} of the roof alone (exclusions and ground "
+    return (f"Opening range: {r.percentile_words} of the {area} alone (exclusions and ground "
             f"outside the outline left out), centred on the dry background {r.centre_c:.1f} °C; ΔT centred on 0.")
 
 
@@ -896,7 +915,7 @@ def _recolour_class():
                   lo.addEventListener("change", changed); hi.addEventListener("change", changed);
                 });
                 var btn = L.DomUtil.create("button", "wetmap-reset", det);
-                btn.type = "button"; btn.textContent = "Back to the roof range";
+                btn.type = "button"; btn.textContent = cfg.reset_label;
                 btn.addEventListener("click", function () { api.reset(); });
                 L.DomUtil.create("div", "note", det).textContent = cfg.basis;
                 sync();
@@ -909,12 +928,12 @@ def _recolour_class():
             {% endmacro %}
         """)
 
-        def __init__(self, layers: list[tuple[Any, dict[str, Any]]], *, basis: str):
+        def __init__(self, layers: list[tuple[Any, dict[str, Any]]], *, basis: str, area: str = "roof"):
             super().__init__()
             self._name = "WetmapDisplay"
             self.layer_names = [layer.get_name() for layer, _ in layers]
             self.config = {
-                "palette": THERMAL_CMAP, "basis": basis,
+                "palette": THERMAL_CMAP, "basis": basis, "reset_label": f"Back to the {area} range",
                 "palettes": {name: _palette_hex(name) for name in RECOLOUR_PALETTES},
                 "layers": [data for _, data in layers],
             }
@@ -1019,7 +1038,8 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
         layer.add_to(m)
         bars.append((name, colour_bar_png(lo, hi, label=name)))
         recolour.append((layer, {"label": name, "lo": round(lo, 2), "hi": round(hi, 2), **data_png(placed)}))
-    m.add_child(_recolour_class()(recolour, basis=_range_basis(result)))
+    words = wording_of(result.survey)
+    m.add_child(_recolour_class()(recolour, basis=_range_basis(result), area=words.area_short))
 
     # Uncovered roof, exclusions, outline, sections.
     uncovered = uncovered_area(result, factor=factor) if result.coverage.get("uncovered_m2", 0.0) > 0 else None
@@ -1034,7 +1054,7 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
     _add_geojson(m, "Exclusions", feats, lambda f: {
         "color": "#666666", "weight": 1, "fillColor": LAYER_COLOURS["exclusions"], "fillOpacity": 0.8,
         "className": "wetmap-exclusion"}, tooltip="label")
-    outline_name = "Hull side outline" if survey.kind == "hull" else "Roof outline"
+    outline_name = f"{words.area_title} outline"
     _add_geojson(m, outline_name, [_feature(result.outline, proj, "outline", {})], lambda f: {
         "color": LAYER_COLOURS["outline"], "weight": 2, "fill": False, "interactive": False,
         "className": "wetmap-outline"})
@@ -1054,7 +1074,7 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
         "color": LAYER_COLOURS["sections"], "weight": 1, "dashArray": "10 4 2 4", "fill": True,
         "fillOpacity": 0.0, "className": "wetmap-section"},
         popup=(["name", "assembly", "insulation", "area", "wet", "fraction"],
-               ["Section", "Assembly", "Insulation", "Area", "Wet area", "Wet fraction"]))
+               ["Section", "Assembly", words.wet_material.capitalize(), "Area", "Wet area", "Wet fraction"]))
 
     # Repair outlines and boards.
     feats = [_feature(p, proj, f"r{i}", {"label": f"repair outline {i + 1}: {_sq(p.area)}"})
@@ -1065,9 +1085,10 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
     board_m = result.survey.repair.board_m
     feats = [_feature(b, proj, f"b{i}", {"label": f"board {i + 1}"}) for i, b in enumerate(result.takeoff.boards)]
     board_words = f"{board_m[0]:g} x {board_m[1]:g} m" if board_m else ""
-    _add_geojson(m, f"Whole boards ({result.takeoff.count} x {board_words})".replace(" x )", ")"), feats, lambda f: {
-        "color": LAYER_COLOURS["boards"], "weight": 1, "fillOpacity": 0.0, "className": "wetmap-board"},
-        show=False)
+    if words.whole_boards:  # a hull is cut back to dry core: no board layer
+        _add_geojson(m, f"Whole boards ({result.takeoff.count} x {board_words})".replace(" x )", ")"), feats,
+                     lambda f: {"color": LAYER_COLOURS["boards"], "weight": 1, "fillOpacity": 0.0,
+                                "className": "wetmap-board"}, show=False)
 
     # Anomalies, one layer per status.
     counted = _counted_statuses(result)
@@ -1078,7 +1099,7 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
     for status, st in STATUS_STYLES.items():
         feats = [
             _feature(a.geometry, proj, f"a{a.id}", {
-                "anomaly": a.id, "status": _esc(_status_words(a.status)), "area": _sq(a.area_m2),
+                "anomaly": a.id, "status": _esc(_status_words(a.status, words)), "area": _sq(a.area_m2),
                 "perimeter": f"{a.perimeter_m:,.2f} m", "delta_mean": _num(a.delta_mean_c, "+.2f", " °C"),
                 "delta_max": _num(a.delta_max_c, "+.2f", " °C"),
                 "confirmations": _esc(", ".join(a.confirmations) or "none"), "section": _esc(a.section or "none"),
@@ -1125,9 +1146,9 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
                     "fillColor": CORE_COLOURS["wet"] if wet else "#FFFFFF", "fillOpacity": 1.0, "opacity": 1.0,
                     "className": f"wetmap-core wetmap-core-{f['properties']['judged']}"}
 
-        _add_geojson(m, f"Cores and readings ({len(conf)})", feats, core_style,
+        _add_geojson(m, f"{words.confirmations_title} ({len(conf)})", feats, core_style,
                      popup=(["id", "judged", "basis", "delta", "anomaly", *[f"extra_{k}" for k in extra]],
-                            ["Core / reading", "Judged", "Basis", "ΔT there", "Lies in", *extra]),
+                            [words.confirmation_label, "Judged", "Basis", "ΔT there", "Lies in", *extra]),
                      tooltip="label", permanent_tooltip=len(conf) <= 25, marker=folium.CircleMarker(radius=6))
 
     # Where a further core would help most (added by the confirmation stage when it has any).
@@ -1136,10 +1157,11 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
         xs, ys = proj.xy(np.array([float(getattr(c, "x", np.nan)) for c in suggested]),
                          np.array([float(getattr(c, "y", np.nan)) for c in suggested]))
         feats = [{"type": "Feature", "id": f"k{i}", "geometry": {"type": "Point", "coordinates": [float(x), float(y)]},
-                  "properties": {"n": f"suggested core {i + 1}", "why": _esc(getattr(c, "reason", "") or "-"),
-                                 "label": f"suggested core {i + 1}"}}
+                  "properties": {"n": f"suggested {words.confirmation} {i + 1}",
+                                 "why": _esc(getattr(c, "reason", "") or "-"),
+                                 "label": f"suggested {words.confirmation} {i + 1}"}}
                  for i, (c, x, y) in enumerate(zip(suggested, xs, ys)) if np.isfinite(x) and np.isfinite(y)]
-        _add_geojson(m, f"Suggested next cores ({len(feats)})", feats, lambda f: {
+        _add_geojson(m, f"Suggested next {words.confirmations} ({len(feats)})", feats, lambda f: {
             "radius": 7, "weight": 2, "dashArray": "3 3", "color": "#000000", "fill": True, "fillColor": "#F0E442",
             "fillOpacity": 0.9, "className": "wetmap-suggested"},
             popup=(["n", "why"], ["Suggestion", "Why here"]), tooltip="label", marker=folium.CircleMarker(radius=7))
