@@ -800,6 +800,7 @@ def write_results(result: SurveyResult, out_dir: Path, *, extra_writers: tuple[C
             webmap.write_map(result, tmp / "map.html")
         if report_html:
             report.write_report(result, tmp / "report.html")
+            report.write_pdf(result, tmp / "report.pdf", html_text=(tmp / "report.html").read_text(encoding="utf-8"))
         for name in ("window.json", "window.png"):  # the cool-down plan of `wetmap window` is kept
             if (out_dir / name).is_file() and not (tmp / name).exists():
                 shutil.copy2(out_dir / name, tmp / name)

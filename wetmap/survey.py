@@ -52,6 +52,7 @@ __all__ = [
     "Detect",
     "Cores",
     "Repair",
+    "ReportInfo",
     "AreaUnit",
     "Prices",
     "Survey",
@@ -214,6 +215,31 @@ class Repair:
 
 
 AreaUnit = Literal["m2", "ft2", "squares"]
+UnitSystem = Literal["metric", "imperial"]
+Paper = Literal["A4", "Letter"]
+
+
+@dataclass(frozen=True)
+class ReportInfo:
+    """The ``[report]`` table: the client block of the report's cover, its paper and units.
+
+    ``units`` is the unit system of every figure in ``report.html`` / ``report.pdf``;
+    it and ``[repair] area_units`` are one setting seen from two sides (see
+    :func:`load_survey`): ``"imperial"`` adds ft2 (and squares on a roof) to the area
+    units, and ``area_units`` naming ft2 or squares makes the report imperial unless
+    ``units`` says otherwise.
+    """
+
+    client: str | None = None
+    address: str | None = None
+    job_number: str | None = None
+    company: str | None = None
+    logo: Path | None = None
+    revision: str | None = None
+    issue_date: str | None = None
+    """ISO date ``YYYY-MM-DD``."""
+    paper: Paper = "A4"
+    units: UnitSystem = "metric"
 
 
 @dataclass(frozen=True)
@@ -324,6 +350,7 @@ class Survey:
     prices: Prices | None = None
     limits: Limits = field(default_factory=Limits)
     cooldown: Cooldown = field(default_factory=Cooldown)
+    report: ReportInfo = field(default_factory=ReportInfo)
 
 
 # --------------------------------------------------------------------------------------
@@ -558,7 +585,7 @@ def _check_crs(table: _Table, value: str | None) -> str | None:
 # --------------------------------------------------------------------------------------
 
 _TOP = ("survey", "conditions", "camera", "plan", "mosaic", "frame", "detect", "cores", "repair", "prices",
-        "limits", "cooldown")
+        "limits", "cooldown", "report")
 
 
 def _read_survey_info(t: _Table) -> SurveyInfo | None:
@@ -839,7 +866,35 @@ def _read_cooldown(t: _Table) -> Cooldown:
     return Cooldown(insulation=insulation, deck=deck or d.deck, sunrise=t.clock("sunrise"), **keep)
 
 
+_LOGO_SUFFIXES = (".png", ".jpg", ".jpeg", ".svg")
+
+
+def _read_report(t: _Table, folder: Path) -> tuple[ReportInfo, bool]:
+    """The ``[report]`` table and whether ``units`` was written in it."""
+    texts = {k: t.text(k) for k in ("client", "address", "job_number", "company", "revision")}
+    logo = t.path("logo", folder, example='"plan/logo.png"')
+    if logo is not None and logo.suffix.lower() not in _LOGO_SUFFIXES:
+        t.problem("logo", f'= "{logo.name}": expected a {", ".join(_LOGO_SUFFIXES)} image')
+        logo = None
+    raw = t.data.get("issue_date")
+    issue: str | None = None
+    if isinstance(raw, date_type):  # an unquoted TOML date
+        issue = raw.isoformat()
+    elif raw is not None:
+        try:
+            issue = date_type.fromisoformat(raw).isoformat() if isinstance(raw, str) and len(raw) == 10 else None
+        except ValueError:
+            issue = None
+        if issue is None:
+            t.problem("issue_date", f'= {_short(raw)}: expected an ISO date "YYYY-MM-DD", e.g. issue_date = "2024-11-20"')
+    paper = t.choice("paper", get_args(Paper))
+    units = t.choice("units", get_args(UnitSystem))
+    info = ReportInfo(**texts, logo=logo, issue_date=issue, paper=paper or "A4", units=units or "metric")
+    return info, units is not None
+
+
 _KEYS: dict[str, tuple[str, ...]] = {
+    "report": ("client", "address", "job_number", "company", "logo", "revision", "issue_date", "paper", "units"),
     "limits": ("wind_max_m_s", "rain_free_h", "dew_margin_c", "after_sunset_min_h", "after_sunset_max_h",
                "path_max_m", "path_humidity_pct", "emissivity_tolerance", "min_pixels_across", "focus_ratio",
                "reflection_ratio", "exclude_blurred"),
@@ -985,6 +1040,18 @@ def load_survey(folder: str | Path) -> Survey:
     t_prices = _table(problems, doc, "prices", required=False)
     prices = _read_prices(t_prices, kind) if t_prices else None
 
+    t_report = _table(problems, doc, "report", required=False)
+    report, units_given = _read_report(t_report, folder) if t_report else (ReportInfo(), False)
+    # one unit setting: an imperial report lists ft2 (and squares on a roof) wherever areas are listed,
+    # and area units beyond m2 make the report imperial unless [report] units says otherwise
+    if report.units == "imperial" and (t_rep is None or "area_units" not in t_rep.data):
+        repair = replace(repair, area_units=("m2", "ft2") if kind == "hull" else ("m2", "ft2", "squares"))
+    elif not units_given and len(repair.area_units) > 1:
+        report = replace(report, units="imperial")
+    elif report.units == "imperial" and "ft2" not in repair.area_units and t_rep is not None:
+        t_rep.problem("area_units", f'= {_short(list(repair.area_units))}: [report] units = "imperial" reports '
+                      'areas in ft2; add "ft2" to area_units or remove area_units')
+
     if problems.items:
         raise SurveyError(problems.items)
     assert info and conditions and camera and plan  # guaranteed when no problem was recorded
@@ -1003,5 +1070,6 @@ def load_survey(folder: str | Path) -> Survey:
         limits=limits,
         cooldown=cooldown,
         prices=prices,
+        report=report,
     )
 

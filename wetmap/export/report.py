@@ -58,6 +58,9 @@ __all__ = [
     "repair_plan_figure",
     "build_report",
     "write_report",
+    "write_pdf",
+    "DisplayUnits",
+    "display_units",
 ]
 
 #: Resolution of the embedded figures, dots per inch (sizes below are in inches).
@@ -102,6 +105,95 @@ def _fmt(value: Any, fmt: str = ",.2f") -> str:
 def _cell(value: Any, key: str | None = None, fmt: str = ",.2f", suffix: str = "") -> str:
     attr = f' data-key="{_esc(key)}"' if key else ""
     return f'<td class="num"{attr}>{_fmt(value, fmt)}{suffix}</td>'
+
+
+#: One mile per hour in metres per second, exactly (NIST SP 811, appendix B: 0.44704).
+M_S_PER_MPH = 0.44704
+
+
+@dataclasses.dataclass(frozen=True)
+class DisplayUnits:
+    """How the report shows areas, lengths, temperatures and wind: ``[report] units``.
+
+    Metric: m², m, °C, m/s. Imperial: ft² (and roofing squares of 100 ft² on a roof), ft,
+    °F, mph, with the exact factors of NIST SP 811 (1 ft = 0.3048 m; 1 mph = 0.44704 m/s;
+    °F = 1.8 °C + 32). Each converted cell carries its metric value in ``data-metric``.
+    """
+
+    system: str = "metric"
+    squares: bool = False
+
+    @property
+    def imperial(self) -> bool:
+        return self.system == "imperial"
+
+    @property
+    def area_unit(self) -> str:
+        return "ft²" if self.imperial else "m²"
+
+    @property
+    def length_unit(self) -> str:
+        return "ft" if self.imperial else "m"
+
+    @property
+    def temp_unit(self) -> str:
+        return "°F" if self.imperial else "°C"
+
+    def area(self, area_m2: Any) -> Any:
+        from ..quantities import M2_PER_FT2
+
+        return area_m2 / M2_PER_FT2 if self.imperial and isinstance(area_m2, (int, float)) else area_m2
+
+    def length(self, length_m: Any) -> Any:
+        from ..quantities import M_PER_FT
+
+        return length_m / M_PER_FT if self.imperial and isinstance(length_m, (int, float)) else length_m
+
+    def temp(self, temp_c: float) -> float:
+        return temp_c * 1.8 + 32.0 if self.imperial else temp_c
+
+    def delta(self, delta_c: float) -> float:
+        """A temperature difference (1 K = 1.8 °F)."""
+        return delta_c * 1.8 if self.imperial else delta_c
+
+    def wind(self, wind_m_s: float) -> str:
+        return f"{wind_m_s / M_S_PER_MPH:.1f} mph" if self.imperial else f"{wind_m_s:g} m/s"
+
+    def area_text(self, area_m2: Any, fmt: str = ",.2f") -> str:
+        """``area_m2`` as text with its unit(s)."""
+        if not isinstance(area_m2, (int, float)) or isinstance(area_m2, bool):
+            return _fmt(area_m2, fmt)
+        text = f"{_fmt(self.area(area_m2), fmt)} {self.area_unit}"
+        if self.imperial and self.squares:
+            from ..quantities import M2_PER_SQUARE
+
+            text += f" ({area_m2 / M2_PER_SQUARE:,.2f} squares)"
+        return text
+
+    def area_cell(self, area_m2: Any, key: str | None = None, fmt: str = ",.2f", *, unit: bool = True) -> str:
+        """A table cell of an area: the value in the report's unit, the metric one in ``data-metric``."""
+        attr = f' data-key="{_esc(key)}"' if key else ""
+        if self.imperial and isinstance(area_m2, (int, float)) and not isinstance(area_m2, bool):
+            attr += f' data-metric="{float(area_m2)!r}"'
+        text = self.area_text(area_m2, fmt) if unit else _fmt(self.area(area_m2), fmt)
+        return f'<td class="num"{attr}>{text}</td>'
+
+    def length_cell(self, length_m: Any, key: str | None = None, fmt: str = ",.2f") -> str:
+        attr = f' data-key="{_esc(key)}"' if key else ""
+        if self.imperial and isinstance(length_m, (int, float)) and not isinstance(length_m, bool):
+            attr += f' data-metric="{float(length_m)!r}"'
+        value = self.length(length_m)
+        suffix = f" {self.length_unit}" if isinstance(value, (int, float)) else ""
+        return f'<td class="num"{attr}>{_fmt(value, fmt)}{suffix}</td>'
+
+
+def display_units(result: "SurveyResult") -> DisplayUnits:
+    """The report's units: ``[report] units`` (squares shown on a roof when asked for)."""
+    survey = result.survey
+    info = getattr(survey, "report", None)
+    system = getattr(info, "units", "metric")
+    return DisplayUnits(system=system, squares=survey.survey.kind != "hull"
+                        and "squares" in survey.repair.area_units)
 
 
 def _axis_labels(result: "SurveyResult") -> tuple[str, str]:
@@ -453,49 +545,59 @@ def _generic_html(value: Any, depth: int = 0) -> str:
 # --------------------------------------------------------------------------------------
 
 
-def _key_figures(s: dict[str, Any], w: Wording) -> str:
+def _key_figures(s: dict[str, Any], w: Wording, u: DisplayUnits = DisplayUnits()) -> str:
     c = w.confirmations
+
+    def _c(value: Any, key: str | None = None, fmt: str = ",.2f", suffix: str = "") -> str:
+        """An area or length cell in the report's units; any other figure as it is."""
+        if suffix == " m²":
+            return u.area_cell(value, key, fmt)
+        if suffix == " m":
+            return u.length_cell(value, key, fmt)
+        return _cell(value, key, fmt, suffix)
+
     rows = [
         ("Roof area surveyed (outline less exclusions)" if w.kind != "hull" else f"{w.area_title} area",
-         _cell(s["roof_area_m2"], "roof_area_m2", suffix=" m²")),
-        ("Anomalies found", _cell(s["anomaly_count"], "anomaly_count")),
-        (f"Wet, confirmed by {c}", _cell(s["confirmed_wet_area_m2"], "confirmed_wet_area_m2", suffix=" m²")),
-        (f"Unverified (no {w.confirmation} inside)", _cell(s["unverified_area_m2"], "unverified_area_m2",
+         _c(s["roof_area_m2"], "roof_area_m2", suffix=" m²")),
+        ("Anomalies found", _c(s["anomaly_count"], "anomaly_count")),
+        (f"Wet, confirmed by {c}", _c(s["confirmed_wet_area_m2"], "confirmed_wet_area_m2", suffix=" m²")),
+        (f"Unverified (no {w.confirmation} inside)", _c(s["unverified_area_m2"], "unverified_area_m2",
                                                           suffix=" m²")),
-        ("Wet area (confirmed + unverified)", _cell(s["wet_area_m2"], "wet_area_m2", suffix=" m²")),
+        ("Wet area (confirmed + unverified)", _c(s["wet_area_m2"], "wet_area_m2", suffix=" m²")),
         *([(f"Wet area, low end of the range the {c} allow",
-             _cell(s["wet_area_range"]["low_m2"], "wet_area_range.low_m2", suffix=" m²")),
+             _c(s["wet_area_range"]["low_m2"], "wet_area_range.low_m2", suffix=" m²")),
             (f"Wet area, high end of the range the {c} allow",
-             _cell(s["wet_area_range"]["high_m2"], "wet_area_range.high_m2", suffix=" m²"))]
+             _c(s["wet_area_range"]["high_m2"], "wet_area_range.high_m2", suffix=" m²"))]
           if s.get("wet_area_range") else []),
-        (f"Refuted: anomalies whose {c} are all dry", _cell(s["confirmed_dry_area_m2"], "confirmed_dry_area_m2",
+        (f"Refuted: anomalies whose {c} are all dry", _c(s["confirmed_dry_area_m2"], "confirmed_dry_area_m2",
                                                             suffix=" m²")),
-        ("Wet fraction of the surveyed area", _cell(100 * s["wet_fraction"], "wet_fraction", suffix=" %")),
-        ("Repair outline area", _cell(s["repair_area_m2"], "repair_area_m2", suffix=" m²")),
+        ("Wet fraction of the surveyed area", _c(100 * s["wet_fraction"], "wet_fraction", suffix=" %")),
+        ("Repair outline area", _c(s["repair_area_m2"], "repair_area_m2", suffix=" m²")),
     ]
     if w.whole_boards:
         rows += [
-            ("Whole boards replaced", _cell(s["boards"], "boards")),
-            ("Tear-off area", _cell(s.get("tearoff_area_m2"), "tearoff_area_m2", suffix=" m²")),
+            ("Whole boards replaced", _c(s["boards"], "boards")),
+            ("Tear-off area", _c(s.get("tearoff_area_m2"), "tearoff_area_m2", suffix=" m²")),
         ]
     else:
-        rows.append((f"Repair outline perimeter ({w.edge})", _cell(s.get("repair_perimeter_m"), "repair_perimeter_m",
+        rows.append((f"Repair outline perimeter ({w.edge})", _c(s.get("repair_perimeter_m"), "repair_perimeter_m",
                                                                   suffix=" m")))
     im = s.get("imagery") or {}
     if im.get("smallest_reliable_area_m2") is not None:
         n = im.get("min_pixels_across", 3)
         rows.append((f"Smallest area measured reliably ({n:g} x {n:g} pixels of the imagery)",
-                     _cell(im["smallest_reliable_area_m2"], "imagery.smallest_reliable_area_m2", ",.3f", " m²")))
+                     _c(im["smallest_reliable_area_m2"], "imagery.smallest_reliable_area_m2", ",.3f", " m²")))
     cov = s.get("coverage") or {}
     if cov:
         rows.append((f"{w.area_title} with no thermal data (not surveyed)",
-                     _cell(cov.get("uncovered_m2"), "coverage.uncovered_m2", suffix=" m²")))
+                     _c(cov.get("uncovered_m2"), "coverage.uncovered_m2", suffix=" m²")))
     body = "".join(f"<tr><th>{k}</th>{v}</tr>" for k, v in rows)
     return f'<table class="keyfigures" id="key-figures"><tbody>{body}</tbody></table>'
 
 
 def _conditions(result: "SurveyResult") -> str:
     sv, c, cam = result.survey.survey, result.survey.conditions, result.survey.camera
+    u = display_units(result)
     rows: list[tuple[str, str]] = [
         ("Survey", _esc(sv.title)),
         ("Kind", _esc(_kind_words(result))),
@@ -514,15 +616,15 @@ def _conditions(result: "SurveyResult") -> str:
                                                   f"{abs(lon):.5f}° {'E' if lon >= 0 else 'W'} (WGS84)"))
         except Exception:  # noqa: BLE001 - a display nicety; the CRS was validated when the survey loaded
             pass
-    rows.append(("Air temperature", f"{c.air_c:g} °C"))
+    rows.append(("Air temperature", f"{u.temp(c.air_c):.1f} {u.temp_unit}" if u.imperial else f"{c.air_c:g} °C"))
     rows.append(("Relative humidity", f"{c.humidity_pct:g} %"))
     try:
         from ..conditions import dew_point_c
 
-        rows.append(("Dew point (computed, Magnus formula)", f"{dew_point_c(c.air_c, c.humidity_pct):.1f} °C"))
+        rows.append(("Dew point (computed, Magnus formula)", f"{u.temp(dew_point_c(c.air_c, c.humidity_pct)):.1f} {u.temp_unit}"))
     except Exception:  # noqa: BLE001 - the same: shown when it can be computed
         pass
-    rows.append(("Wind", "not given" if c.wind_m_s is None else f"{c.wind_m_s:g} m/s"))
+    rows.append(("Wind", "not given" if c.wind_m_s is None else u.wind(c.wind_m_s)))
     rows.append(("Sky", _esc(c.sky or "not given")))
     rows.append(("Sunset / survey time", f"{c.sunset.strftime('%H:%M') if c.sunset else 'not given'} / "
                                          f"{c.time.strftime('%H:%M') if c.time else 'not given'}"))
@@ -696,15 +798,19 @@ def _figures(result: "SurveyResult", dpi: int) -> str:
 def _anomaly_table(result: "SurveyResult", summary: dict[str, Any]) -> str:
     counted = {"wet", "unverified"} if result.survey.repair.include_unverified else {"wet"}
     inside = _words(result).confirmations.capitalize()
-    head = ("<tr><th>No.</th><th>Status</th><th>Section</th><th>Area (m²)</th><th>Perimeter (m)</th>"
-            f"<th>Mean ΔT (°C)</th><th>Max ΔT (°C)</th><th>{inside} inside</th><th>Counted wet</th></tr>")
+    u = display_units(result)
+    head = (f"<tr><th>No.</th><th>Status</th><th>Section</th><th>Area ({u.area_unit})</th>"
+            f"<th>Perimeter ({u.length_unit})</th>"
+            f"<th>Mean ΔT ({u.temp_unit})</th><th>Max ΔT ({u.temp_unit})</th><th>{inside} inside</th>"
+            "<th>Counted wet</th></tr>")
     body = []
     for a in result.anomalies:
         body.append(
             f'<tr class="anomaly" data-status="{_esc(a.status)}"><td class="num">{a.id}</td>'
             f"<td>{_esc(a.status)}</td><td>{_esc(a.section or '–')}</td>"
-            f'<td class="num area">{a.area_m2:,.2f}</td><td class="num">{a.perimeter_m:,.2f}</td>'
-            f'<td class="num">{_fmt(a.delta_mean_c, "+.2f")}</td><td class="num">{_fmt(a.delta_max_c, "+.2f")}</td>'
+            f'<td class="num area">{u.area(a.area_m2):,.2f}</td><td class="num">{u.length(a.perimeter_m):,.2f}</td>'
+            f'<td class="num">{_fmt(u.delta(a.delta_mean_c), "+.2f")}</td>'
+            f'<td class="num">{_fmt(u.delta(a.delta_max_c), "+.2f")}</td>'
             f"<td>{_esc(', '.join(a.confirmations) or '–')}</td><td>{'yes' if a.status in counted else 'no'}</td></tr>"
         )
     if not body:
@@ -712,16 +818,16 @@ def _anomaly_table(result: "SurveyResult", summary: dict[str, Any]) -> str:
     by = {st: sum(1 for a in result.anomalies if a.status == st) for st in ("wet", "unverified", "dry")}
     foot = (
         f'<tr class="total"><th colspan="3">Wet, confirmed ({by["wet"]})</th>'
-        f'{_cell(summary["confirmed_wet_area_m2"], "confirmed_wet_area_m2")}<td colspan="5"></td></tr>'
+        f'{u.area_cell(summary["confirmed_wet_area_m2"], "confirmed_wet_area_m2", unit=False)}<td colspan="5"></td></tr>'
         f'<tr class="total"><th colspan="3">Unverified ({by["unverified"]})</th>'
-        f'{_cell(summary["unverified_area_m2"], "unverified_area_m2")}<td colspan="5"></td></tr>'
+        f'{u.area_cell(summary["unverified_area_m2"], "unverified_area_m2", unit=False)}<td colspan="5"></td></tr>'
         f'<tr class="total"><th colspan="3">Dry, refuted ({by["dry"]})</th>'
-        f'{_cell(summary["confirmed_dry_area_m2"], "confirmed_dry_area_m2")}<td colspan="5"></td></tr>'
+        f'{u.area_cell(summary["confirmed_dry_area_m2"], "confirmed_dry_area_m2", unit=False)}<td colspan="5"></td></tr>'
         f'<tr class="total"><th colspan="3">Wet area: confirmed + unverified</th>'
-        f'{_cell(summary["wet_area_m2"], "wet_area_m2")}<td colspan="5"></td></tr>'
+        f'{u.area_cell(summary["wet_area_m2"], "wet_area_m2", unit=False)}<td colspan="5"></td></tr>'
         f'<tr class="total"><th colspan="3">All anomalies (<span data-key="anomaly_count">'
         f'{summary["anomaly_count"]}</span>)</th>'
-        f'<td class="num">{sum(a.area_m2 for a in result.anomalies):,.2f}</td><td colspan="5"></td></tr>'
+        f'{u.area_cell(sum(a.area_m2 for a in result.anomalies), unit=False)}<td colspan="5"></td></tr>'
     )
     flagged = [a for a in result.anomalies if getattr(a, "flags", "")]
     flags = ("<p id='anomaly-flags' class='small'>Imagery flags (see Imagery checks in the method): "
@@ -733,37 +839,42 @@ def _anomaly_table(result: "SurveyResult", summary: dict[str, Any]) -> str:
 def _quantities(result: "SurveyResult", summary: dict[str, Any]) -> str:
     s = result.survey.repair
     w = _words(result)
+    u = display_units(result)
     rows = [
-        ("Repair outline area", _cell(summary["repair_area_m2"], "repair_area_m2", suffix=" m²")),
-        (f"Repair outline perimeter ({w.edge})", _cell(float(result.repair.length), None, suffix=" m")),
-        ("Margin beyond the anomaly outline", _cell(s.margin_m, None, ",.2f", " m")),
+        ("Repair outline area", u.area_cell(summary["repair_area_m2"], "repair_area_m2")),
+        (f"Repair outline perimeter ({w.edge})", u.length_cell(float(result.repair.length))),
+        ("Margin beyond the anomaly outline", u.length_cell(s.margin_m)),
     ]
     if w.whole_boards:
         rows += [
             ("Whole boards", _cell(summary["boards"], "boards")),
-            ("Board size", f"<td>{'–' if not s.board_m else f'{s.board_m[0]:g} x {s.board_m[1]:g} m'}</td>"),
-            ("Board area", _cell(summary.get("board_area_m2"), "board_area_m2", suffix=" m²")),
-            ("Tear-off area", _cell(summary.get("tearoff_area_m2"), "tearoff_area_m2", suffix=" m²")),
+            ("Board size", "<td>–</td>" if not s.board_m else
+             f"<td>{u.length(s.board_m[0]):.2f} x {u.length(s.board_m[1]):.2f} {u.length_unit}</td>" if u.imperial
+             else f"<td>{s.board_m[0]:g} x {s.board_m[1]:g} m</td>"),
+            ("Board area", u.area_cell(summary.get("board_area_m2"), "board_area_m2")),
+            ("Tear-off area", u.area_cell(summary.get("tearoff_area_m2"), "tearoff_area_m2")),
         ]
     body = "".join(f"<tr><th>{k}</th>{v}</tr>" for k, v in rows)
     out = f'<table class="kv" id="quantities">{body}</table>'
     sections = summary.get("sections") or []
     if sections:
-        head = ("<tr><th>Section</th><th>Assembly</th><th>Area (m²)</th><th>Wet, confirmed (m²)</th>"
-                "<th>Unverified (m²)</th><th>Dry, refuted (m²)</th><th>Wet area (m²)</th><th>Wet fraction</th>"
-                "<th>Repair (m²)</th>" + ("<th>Boards</th>" if w.whole_boards else "") + "</tr>")
+        a_u = u.area_unit
+        head = (f"<tr><th>Section</th><th>Assembly</th><th>Area ({a_u})</th><th>Wet, confirmed ({a_u})</th>"
+                f"<th>Unverified ({a_u})</th><th>Dry, refuted ({a_u})</th><th>Wet area ({a_u})</th>"
+                f"<th>Wet fraction</th><th>Repair ({a_u})</th>" + ("<th>Boards</th>" if w.whole_boards else "")
+                + "</tr>")
         rows_html = []
         for t in sections:
             frac = t.get("wet_fraction")
             rows_html.append(
                 f'<tr data-section="{_esc(t.get("name"))}"><td>{_esc(t.get("name"))}</td>'
                 f"<td>{_esc(t.get('assembly') or '–')}</td>"
-                + _cell(t.get("area_m2"), "area_m2") + _cell(t.get("confirmed_wet_area_m2"), "confirmed_wet_area_m2")
-                + _cell(t.get("unverified_area_m2"), "unverified_area_m2")
-                + _cell(t.get("confirmed_dry_area_m2"), "confirmed_dry_area_m2")
-                + _cell(t.get("wet_area_m2"), "wet_area_m2")
+                + u.area_cell(t.get("area_m2"), "area_m2", unit=False) + u.area_cell(t.get("confirmed_wet_area_m2"), "confirmed_wet_area_m2", unit=False)
+                + u.area_cell(t.get("unverified_area_m2"), "unverified_area_m2", unit=False)
+                + u.area_cell(t.get("confirmed_dry_area_m2"), "confirmed_dry_area_m2", unit=False)
+                + u.area_cell(t.get("wet_area_m2"), "wet_area_m2", unit=False)
                 + _cell(None if frac is None else 100 * frac, "wet_fraction", suffix=" %")
-                + _cell(t.get("repair_area_m2"), "repair_area_m2")
+                + u.area_cell(t.get("repair_area_m2"), "repair_area_m2", unit=False)
                 + (_cell(t.get("boards"), "boards") if w.whole_boards else "") + "</tr>")
         out += (f'<h3>By section</h3><table id="sections" class="data"><thead>{head}</thead>'
                 f'<tbody>{"".join(rows_html)}</tbody></table>'
@@ -952,9 +1063,36 @@ ul.warnings li { margin-bottom: 1mm; }
 .signature td { height: 10mm; }
 .signature td.tall { height: 22mm; }
 .further table { font-size: 8.5pt; }
+.cover img.logo { display: block; max-height: 22mm; max-width: 70mm; margin-bottom: 4mm; }
+table.client { width: auto; min-width: 60%; }
+table.client th { width: auto; min-width: 35mm; }
 @media screen { body { background: #fff; } .screen-note { color: #555; font-size: 9pt; } }
 @media print { .screen-note { display: none; } a { color: inherit; text-decoration: none; } }
 """
+
+
+_LOGO_TYPES = {".png": "image/png", ".jpg": "image/jpeg", ".jpeg": "image/jpeg", ".svg": "image/svg+xml"}
+
+
+def _cover(result: "SurveyResult", title: str, sub: str) -> str:
+    """The cover: logo, title and the client block of ``[report]`` (rows not given are left out)."""
+    import base64
+
+    info = getattr(result.survey, "report", None)
+    sv = result.survey.survey
+    logo = ""
+    path = getattr(info, "logo", None)
+    if path is not None:
+        uri = f"data:{_LOGO_TYPES.get(Path(path).suffix.lower(), 'image/png')};base64," + base64.b64encode(
+            Path(path).read_bytes()).decode("ascii")
+        logo = f'<img class="logo" src="{uri}" alt="logo">'
+    rows = [("Client", getattr(info, "client", None)), ("Property", getattr(info, "address", None)),
+            ("Job number", getattr(info, "job_number", None)), ("Prepared by", getattr(info, "company", None)),
+            ("Surveyor", sv.surveyor), ("Survey date", sv.date), ("Report revision", getattr(info, "revision", None)),
+            ("Date of issue", getattr(info, "issue_date", None))]
+    body = "".join(f'<tr data-field="{_esc(k)}"><th>{_esc(k)}</th><td>{_esc(v)}</td></tr>' for k, v in rows if v)
+    return (f"<header class='cover' id='cover'>{logo}<h1>{_esc(title)}</h1><div class='subtitle'>{_esc(sub)}</div>"
+            f"<table class='kv client' id='client'>{body}</table>")
 
 
 def build_report(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> str:
@@ -985,7 +1123,7 @@ def build_report(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> str:
         '<html lang="en"><head><meta charset="utf-8">',
         '<meta name="viewport" content="width=device-width, initial-scale=1">',
         f"<title>{_esc(title)}</title><style>{_CSS}</style></head><body>",
-        f"<header><h1>{_esc(title)}</h1><div class='subtitle'>{_esc(sub)}</div>",
+        _cover(result, title, sub),
         "<p class='screen-note'>Print this page (A4 or Letter) from the browser; the interactive map is in "
         "map.html beside it.</p></header>",
         "<div class='notice'><b>Read first.</b> This survey shows <b>apparent thermal anomalies, not measured "
@@ -993,7 +1131,7 @@ def build_report(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> str:
         "repair decision. "
         "Local codes, work-safety rules and licensed professionals decide; see Limitations and Safety at the "
         "end.</div>",
-        "<section id='s-key'><h2>1. Key figures</h2>", _key_figures(summary, w), "</section>",
+        "<section id='s-key'><h2>1. Key figures</h2>", _key_figures(summary, w, display_units(result)), "</section>",
         "<section id='s-conditions'><h2>2. Site, survey and conditions</h2>", _conditions(result),
         "<h3>Warnings from the checks</h3>", _warnings(summary), "</section>",
         "<section id='s-method'><h2>3. Method</h2>", _method(result, summary), "</section>",
@@ -1020,7 +1158,7 @@ def build_report(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> str:
         "<tr><th>Signature</th><td class='tall'></td></tr>"
         "<tr><th>Date</th><td></td></tr></table></section>",
         f"<footer class='small'><p>Prepared with wetmap {_esc(summary.get('wetmap_version', __version__))}. "
-        "Files of this run: summary.json, anomalies.gpkg / .geojson, repair.gpkg, quantities.csv, "
+        "Files of this run: summary.json, anomalies.gpkg / .geojson, repair.gpkg, quantities.csv, report.pdf, "
         "surface_c.tif, delta_c.tif, map.html.</p></footer>",
         "</body></html>",
     ]
@@ -1035,3 +1173,65 @@ def build_report(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> str:
 def write_report(result: "SurveyResult", path: Path, *, dpi: int = FIGURE_DPI) -> None:
     """Write ``report.html`` (see :func:`build_report`)."""
     Path(path).write_text(build_report(result, dpi=dpi), encoding="utf-8")
+
+
+def _pdf_css(result: "SurveyResult") -> str:
+    """Print rules of the PDF beside the report's own: paper size, a cover page, a running head."""
+    info = getattr(result.survey, "report", None)
+    paper = getattr(info, "paper", "A4")
+    head = " · ".join(x for x in (
+        result.survey.survey.title,
+        f"Job {info.job_number}" if getattr(info, "job_number", None) else None,
+        f"Rev. {info.revision}" if getattr(info, "revision", None) else None,
+        getattr(info, "issue_date", None)) if x)
+    head = head.replace("\\", "\\\\").replace('"', '\\"')
+    return (f"@page {{ size: {'A4' if paper == 'A4' else 'letter'}; "
+            f'@top-right {{ content: "{head}"; font: 7.5pt sans-serif; color: #555; }} }}\n'
+            "@page :first { @top-right { content: none; } }\n"
+            "body { margin: 0; max-width: none; padding: 0; }\n"
+            "header.cover { break-after: page; padding-top: 30mm; }\n"
+            "header.cover h1 { font-size: 22pt; }\n"
+            ".screen-note { display: none; }\n"
+            "table.data { break-inside: auto; } table.data tr, figure, .keyfigures, table.kv { break-inside: avoid; }\n"
+            "#bill, #sections, #client { break-inside: avoid; }\n")
+
+
+def write_pdf(result: "SurveyResult", path: Path, *, dpi: int = FIGURE_DPI, html_text: str | None = None) -> bool:
+    """Write ``report.pdf``: the content of ``report.html`` laid out on ``[report] paper``.
+
+    Rendered by WeasyPrint (HTML and CSS to PDF; it needs the Pango system library).
+    Figures, table rows, key figures and the sign-off are kept whole on a page; long
+    tables repeat their header row; the client block stands alone on the cover.
+
+    Parameters
+    ----------
+    result
+        The run's results.
+    path
+        Where to write the PDF.
+    dpi
+        Resolution of the figures (ignored when ``html_text`` is given).
+    html_text
+        The text of ``report.html`` when already built.
+
+    Returns
+    -------
+    bool
+        False when WeasyPrint or its system libraries are missing (a warning is logged and
+        no PDF is written); True when written.
+    """
+    import logging
+
+    log = logging.getLogger(__name__)
+    try:
+        from weasyprint import CSS, HTML
+    except (ImportError, OSError) as err:  # OSError: Pango / GObject not installed
+        log.warning("report.pdf not written: WeasyPrint cannot start (%s); install the Pango library "
+                    "(Debian: apt-get install libpango-1.0-0 libpangoft2-1.0-0) and `pip install weasyprint`",
+                    str(err).splitlines()[0] if str(err) else type(err).__name__)
+        return False
+    text = html_text if html_text is not None else build_report(result, dpi=dpi)
+    logging.getLogger("weasyprint").setLevel(logging.ERROR)  # its CSS notes about screen-only rules
+    logging.getLogger("fontTools").setLevel(logging.ERROR)
+    HTML(string=text).write_pdf(Path(path), stylesheets=[CSS(string=_pdf_css(result))])
+    return True
