@@ -1,0 +1,275 @@
+"""The practitioner's deliverables: report.pdf, the [report] client block, imperial units.
+
+The bundled sample (an invented warehouse roof) is copied with an invented client block
+and run into pytest's tmp folders. The PDF is read back with ``pypdf``; report.html is
+parsed with the standard library's ``html.parser``.
+"""
+
+from __future__ import annotations
+
+import io
+import json
+import re
+import shutil
+from html.parser import HTMLParser
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from wetmap.errors import SurveyError
+from wetmap.pipeline import run_survey
+from wetmap.survey import load_survey
+
+pypdf = pytest.importorskip("pypdf")
+
+SAMPLE = Path(__file__).resolve().parents[1] / "sample_surveys" / "warehouse_roof"
+
+#: Exact conversion factors (NIST SP 811, appendix B): 1 ft = 0.3048 m, 1 mph = 0.44704 m/s.
+M_PER_FT = 0.3048
+M2_PER_FT2 = 0.09290304
+M_S_PER_MPH = 0.44704
+
+CLIENT = """
+[report]
+client = "Invented Holdings Ltd (invented)"
+address = "1 Invented Way, Nowhere (invented)"
+job_number = "J-0042"
+company = "Invented Roof Consultants (invented)"
+logo = "plan/logo.png"
+revision = "B"
+issue_date = 2024-11-20
+paper = "Letter"
+units = "imperial"
+"""
+
+
+def _weasyprint_works() -> bool:
+    try:
+        import weasyprint  # noqa: F401
+    except (ImportError, OSError):
+        return False
+    return True
+
+
+needs_pdf = pytest.mark.skipif(not _weasyprint_works(), reason="WeasyPrint or the Pango library is not installed")
+
+
+def copy_sample(dest: Path, extra: str = "", repair_extra: str = "") -> Path:
+    """The sample's inputs copied to ``dest`` with ``extra`` appended to survey.toml."""
+    dest.mkdir(parents=True, exist_ok=True)
+    for name in ("plan", "thermal"):
+        shutil.copytree(SAMPLE / name, dest / name)
+    shutil.copy(SAMPLE / "cores.csv", dest / "cores.csv")
+    text = (SAMPLE / "survey.toml").read_text(encoding="utf-8")
+    if repair_extra:
+        text = text.replace("[repair]\n", "[repair]\n" + repair_extra)
+    (dest / "survey.toml").write_text(text + extra, encoding="utf-8")
+    return dest
+
+
+def _logo(path: Path) -> None:
+    from PIL import Image
+
+    Image.new("RGB", (120, 40), (0, 114, 178)).save(path)
+
+
+@pytest.fixture(scope="module")
+def imperial_run(tmp_path_factory):
+    folder = copy_sample(tmp_path_factory.mktemp("deliver") / "survey", CLIENT)
+    _logo(folder / "plan" / "logo.png")
+    out = folder / "results"
+    return run_survey(folder, out=out), out
+
+
+@pytest.fixture(scope="module")
+def metric_run(tmp_path_factory):
+    out = tmp_path_factory.mktemp("deliver_metric") / "results"
+    return run_survey(SAMPLE, out=out), out
+
+
+def _pdf(path: Path):
+    data = path.read_bytes()
+    assert data.startswith(b"%PDF-")
+    return pypdf.PdfReader(io.BytesIO(data))
+
+
+def _text(reader) -> str:
+    return "\n".join(p.extract_text() for p in reader.pages)
+
+
+# --------------------------------------------------------------------------------------
+# report.pdf
+# --------------------------------------------------------------------------------------
+
+
+@needs_pdf
+def test_pdf_metric_sample_key_figures_and_pages(metric_run):
+    _, out = metric_run
+    reader = _pdf(out / "report.pdf")
+    assert 6 <= len(reader.pages) <= 20
+    box = reader.pages[0].mediabox  # A4 by default: 210 x 297 mm = 595.3 x 841.9 pt (ISO 216)
+    assert float(box.width) == pytest.approx(210 / 25.4 * 72, abs=1) and float(box.height) == pytest.approx(
+        297 / 25.4 * 72, abs=1)
+    text = _text(reader)
+    s = json.loads((out / "summary.json").read_text())
+    html_text = (out / "report.html").read_text(encoding="utf-8")
+    for key in ("roof_area_m2", "wet_area_m2", "confirmed_wet_area_m2", "unverified_area_m2", "repair_area_m2",
+                "tearoff_area_m2"):
+        shown = f"{s[key]:,.2f} m²"
+        assert shown in text, key  # the same figure as report.html and summary.json
+        assert f'data-key="{key}">{shown}' in html_text
+    assert f"Anomalies found {s['anomaly_count']}" in text
+    assert "Thermal survey report: Invented warehouse roof" in reader.pages[0].extract_text()
+    # the figures are images in the PDF (three figures at least, all drawn by matplotlib)
+    assert any(len(p.images) >= 3 for p in reader.pages)
+
+
+@needs_pdf
+def test_pdf_cover_holds_client_block_letter_paper(imperial_run):
+    _, out = imperial_run
+    reader = _pdf(out / "report.pdf")
+    assert 6 <= len(reader.pages) <= 20
+    box = reader.pages[0].mediabox  # US Letter: 8.5 x 11 in = 612 x 792 pt (ANSI/ASME Y14.1)
+    assert float(box.width) == pytest.approx(612, abs=1) and float(box.height) == pytest.approx(792, abs=1)
+    cover = reader.pages[0].extract_text()
+    for text in ("Invented Holdings Ltd (invented)", "1 Invented Way, Nowhere (invented)", "J-0042",
+                 "Invented Roof Consultants (invented)", "2024-11-20", "Report revision"):
+        assert text in cover
+    assert "Key figures" not in cover  # the cover stands alone
+    # the running head on later pages names the job and revision
+    assert "Job J-0042 · Rev. B" in reader.pages[2].extract_text()
+
+
+def test_report_html_cover_and_logo(imperial_run):
+    _, out = imperial_run
+    page = (out / "report.html").read_text(encoding="utf-8")
+    cover = page[page.index("id='cover'"):page.index("id='s-key'")]
+    assert "Invented Holdings Ltd (invented)" in cover and "J-0042" in cover
+    assert 'class="logo" src="data:image/png;base64,' in cover  # embedded: the file works offline
+    assert "src=\"http" not in page
+
+
+# --------------------------------------------------------------------------------------
+# Imperial units
+# --------------------------------------------------------------------------------------
+
+
+class _Converted(HTMLParser):
+    """Every cell with ``data-metric``: (table id, unit header or suffix, shown text, metric value)."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.tables: list[str | None] = []
+        self.cells: list[dict] = []
+        self._cell: dict | None = None
+
+    def handle_starttag(self, tag, attrs):
+        a = dict(attrs)
+        if tag == "table":
+            self.tables.append(a.get("id"))
+        if tag == "td" and "data-metric" in a:
+            self._cell = {"table": self.tables[-1] if self.tables else None, "metric": float(a["data-metric"]),
+                          "key": a.get("data-key"), "text": ""}
+
+    def handle_endtag(self, tag):
+        if tag == "table" and self.tables:
+            self.tables.pop()
+        if tag == "td" and self._cell is not None:
+            self.cells.append(self._cell)
+            self._cell = None
+
+    def handle_data(self, data):
+        if self._cell is not None:
+            self._cell["text"] += data
+
+
+def _number(text: str) -> float:
+    return float(re.match(r"\s*([-+]?[\d,]*\.?\d+)", text).group(1).replace(",", ""))
+
+
+def test_imperial_figures_convert_back_to_metric(imperial_run):
+    result, out = imperial_run
+    page = (out / "report.html").read_text(encoding="utf-8")
+    parser = _Converted()
+    parser.feed(page)
+    s = json.loads((out / "summary.json").read_text())
+    cells = parser.cells
+    assert len(cells) > 20
+    tables = {c["table"] for c in cells}
+    assert {"key-figures", "anomalies", "quantities", "sections"} <= tables
+    for c in cells:
+        shown = _number(c["text"])
+        if "ft²" in c["text"] or c["table"] in ("anomalies", "sections"):  # an area (sq ft, NIST SP 811)
+            assert shown * M2_PER_FT2 == pytest.approx(c["metric"], abs=0.005 * M2_PER_FT2 + 1e-9), c
+            m = re.search(r"\(([\d,.]+) squares\)", c["text"])
+            if m:  # a roofing square is 100 ft2 (common practice)
+                assert _number(m.group(1)) * 100 * M2_PER_FT2 == pytest.approx(c["metric"], abs=0.005 * 100 * M2_PER_FT2)
+        else:  # a length in ft
+            assert c["text"].strip().endswith("ft"), c
+            assert shown * M_PER_FT == pytest.approx(c["metric"], abs=0.005 * M_PER_FT), c
+        if c["key"] and c["table"] == "key-figures" and "." not in c["key"]:
+            assert c["metric"] == pytest.approx(s[c["key"]])
+    # no metric-only area or length left in the key figures, anomaly, quantity and section tables
+    for tid in ("key-figures", "anomalies", "quantities", "sections"):
+        table = page[page.index(f'id="{tid}"'):]
+        table = table[:table.index("</table>")]
+        assert "m²" not in table and "(m)" not in table and not re.search(r"\d m<", table), tid
+    # conditions: air 6.0 °C = 42.8 °F; wind 2.0 m/s = 4.47 mph (NIST SP 811 factors)
+    cond = page[page.index('id="conditions"'):]
+    cond = cond[:cond.index("</table>")]
+    assert f"{6.0 * 1.8 + 32:.1f} °F" in cond and f"{2.0 / M_S_PER_MPH:.1f} mph" in cond and "°C" not in cond
+    # the anomaly table's delta-T is in °F degrees (1 K = 1.8 °F)
+    a = result.anomalies[0]
+    assert f"{a.delta_mean_c * 1.8:+.2f}" in page
+    # one unit setting: the CSV follows the same imperial choice
+    head = (out / "quantities.csv").read_text(encoding="utf-8").splitlines()[0]
+    assert "area_ft2" in head and "area_squares" in head
+
+
+# --------------------------------------------------------------------------------------
+# [report] validation
+# --------------------------------------------------------------------------------------
+
+
+def _survey(tmp_path: Path, extra: str, repair_extra: str = "") -> Path:
+    return copy_sample(tmp_path / "s", extra, repair_extra)
+
+
+def test_report_table_read(tmp_path):
+    folder = _survey(tmp_path, CLIENT.replace('logo = "plan/logo.png"\n', ""))
+    s = load_survey(folder)
+    r = s.report
+    assert (r.client, r.job_number, r.revision, r.issue_date, r.paper, r.units) == (
+        "Invented Holdings Ltd (invented)", "J-0042", "B", "2024-11-20", "Letter", "imperial")
+    assert s.repair.area_units == ("m2", "ft2", "squares")  # imperial adds ft2 and squares on a roof
+
+
+def test_report_defaults_and_area_units_make_imperial(tmp_path):
+    s = load_survey(SAMPLE)
+    assert s.report.units == "metric" and s.report.paper == "A4" and s.report.client is None
+    s2 = load_survey(_survey(tmp_path, "", repair_extra='area_units = ["m2", "ft2"]\n'))
+    assert s2.report.units == "imperial"
+    s3 = load_survey(copy_sample(tmp_path / "t", '\n[report]\nunits = "metric"\n',
+                                 repair_extra='area_units = ["m2", "ft2"]\n'))
+    assert s3.report.units == "metric" and s3.repair.area_units == ("m2", "ft2")
+
+
+@pytest.mark.parametrize("extra, repair_extra, words", [
+    ('\n[report]\nissue_date = "20 Nov 2024"\n', "", ["[report] issue_date", "20 Nov 2024", "YYYY-MM-DD"]),
+    ('\n[report]\npaper = "A3"\n', "", ["[report] paper", '"A3"', '"A4"', '"Letter"']),
+    ('\n[report]\nunits = "US"\n', "", ["[report] units", '"metric"', '"imperial"']),
+    ('\n[report]\nlogo = "plan/nothere.png"\n', "", ["[report] logo", "nothere.png", "not found"]),
+    ('\n[report]\nlogo = "cores.csv"\n', "", ["[report] logo", "cores.csv", ".png"]),
+    ('\n[report]\nclient = 12\n', "", ["[report] client", "12", "text"]),
+    ('\n[report]\nclinet = "x"\n', "", ["[report] clinet", 'did you mean "client"']),
+    ('\n[report]\nunits = "imperial"\n', 'area_units = ["m2"]\n', ["[repair] area_units", "ft2"]),
+])
+def test_report_table_refusals(tmp_path, extra, repair_extra, words):
+    folder = _survey(tmp_path, extra, repair_extra)
+    with pytest.raises(SurveyError) as err:
+        load_survey(folder)
+    text = str(err.value)
+    for w in words:
+        assert w in text, (w, text)
+    assert np.all([ln.startswith(str(folder / "survey.toml")) for ln in text.splitlines() if "[report]" in ln])
