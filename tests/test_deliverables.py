@@ -273,3 +273,89 @@ def test_report_table_refusals(tmp_path, extra, repair_extra, words):
     for w in words:
         assert w in text, (w, text)
     assert np.all([ln.startswith(str(folder / "survey.toml")) for ln in text.splitlines() if "[report]" in ln])
+
+
+# --------------------------------------------------------------------------------------
+# The take-off: one row kind per CSV, and takeoff.xlsx with formulas
+# --------------------------------------------------------------------------------------
+
+
+def _sum_formula(ws, formula: str) -> float:
+    """The value of ``=SUM(A2:A9)`` from the sheet's own cells (openpyxl does not calculate)."""
+    from openpyxl.utils.cell import range_boundaries
+
+    m = re.fullmatch(r"=SUM\(([A-Z]+\d+:[A-Z]+\d+)\)", formula)
+    assert m, formula
+    c0, r0, c1, r1 = range_boundaries(m.group(1))
+    return sum(float(ws.cell(row=r, column=c).value or 0) for r in range(r0, r1 + 1) for c in range(c0, c1 + 1))
+
+
+def test_takeoff_workbook_totals_equal_the_summary(metric_run):
+    openpyxl = pytest.importorskip("openpyxl")
+    result, out = metric_run
+    s = json.loads((out / "summary.json").read_text())
+    wb = openpyxl.load_workbook(out / "takeoff.xlsx")
+    assert wb.sheetnames == ["anomalies", "sections", "wet area range", "bill"]
+    ws = wb["anomalies"]
+    head = [c.value for c in ws[1]]
+    assert head[:5] == ["row", "id", "status", "section", "area_m2"]  # units in the headers
+    n = ws.max_row
+    assert [ws.cell(row=r, column=1).value for r in range(2, n + 1)] == ["anomaly"] * len(result.anomalies) + ["total"]
+    area = ws.cell(row=n, column=head.index("area_m2") + 1).value
+    assert isinstance(area, str) and area.startswith("=SUM(")  # an auditable formula
+    anomaly_area = sum(a.area_m2 for a in result.anomalies)
+    assert _sum_formula(ws, area) == pytest.approx(anomaly_area, abs=0.005)
+    assert anomaly_area == pytest.approx(s["wet_area_m2"] + s["confirmed_dry_area_m2"], abs=0.005)
+    # numbers are numbers, yes/no is text
+    assert isinstance(ws.cell(row=2, column=head.index("area_m2") + 1).value, float)
+    assert ws.cell(row=2, column=head.index("counted_wet") + 1).value in ("yes", "no")
+    # the sections sheet sums to the summary's totals
+    ws = wb["sections"]
+    head = [c.value for c in ws[1]]
+    last = ws.max_row
+    assert ws.cell(row=last, column=1).value == "total of the sections"
+    for key, summary_key in (("roof_area_m2", "roof_area_m2"), ("wet_area_m2", "wet_area_m2"),
+                             ("repair_area_m2", "repair_area_m2"), ("tearoff_area_m2", "tearoff_area_m2"),
+                             ("boards", "boards")):
+        formula = ws.cell(row=last, column=head.index(key) + 1).value
+        assert _sum_formula(ws, formula) == pytest.approx(s[summary_key], abs=0.01), key
+    ws = wb["bill"]
+    items = [ws.cell(row=r, column=1).value for r in range(2, ws.max_row + 1)]
+    assert items == [ln["item"] for ln in s["bill"]["lines"]] + ["bill total"]
+    ws = wb["wet area range"]
+    assert [ws.cell(row=r, column=2).value for r in (2, 3)] == pytest.approx(s["wet_area_range_m2"], abs=0.001)
+
+
+def test_takeoff_bill_amounts_are_formulas(tmp_path):
+    openpyxl = pytest.importorskip("openpyxl")
+    prices = '\n[prices]\ncurrency = "EUR"\ntearoff_per_m2 = 12.50\nboard_each = 18.40\n'
+    folder = copy_sample(tmp_path / "priced", prices)
+    out = tmp_path / "results"
+    run_survey(folder, out=out, map_html=False, report_html=False)
+    s = json.loads((out / "summary.json").read_text())
+    ws = openpyxl.load_workbook(out / "takeoff.xlsx")["bill"]
+    head = [c.value for c in ws[1]]
+    q, rate, amount = (head.index(k) + 1 for k in ("bill_quantity", "rate", "amount"))
+    total = 0.0
+    for r, line in enumerate(s["bill"]["lines"], start=2):
+        f = ws.cell(row=r, column=amount).value
+        if line["rate"] is None:
+            continue
+        assert re.fullmatch(r"=ROUND\([A-Z]+\d+\*[A-Z]+\d+,2\)", f), f
+        # ROUND(quantity x rate, 2): positive amounts, so half away from zero = half up
+        value = round(ws.cell(row=r, column=q).value * ws.cell(row=r, column=rate).value + 1e-9, 2)
+        assert value == pytest.approx(line["amount"])
+        total += value
+    assert ws.cell(row=ws.max_row, column=amount).value.startswith("=SUM(")
+    assert total == pytest.approx(s["bill"]["total"])  # 184.32 x 12.50 + 64 x 18.40 = 3481.60 by hand
+    assert s["bill"]["total"] == pytest.approx(184.32 * 12.50 + 64 * 18.40)
+
+
+def test_sheet_text_quotes_formula_like_text():
+    from wetmap.export.tables import _number, sheet_text
+
+    # OWASP "CSV injection": a text starting with = + - @ is read as a formula by spreadsheets
+    for text in ("=1+2", "+A1", "-cmd", "@SUM(A1)"):
+        assert sheet_text(text) == "'" + text
+        assert _number(text) == "'" + text
+    assert sheet_text("-1.500") == "-1.500" and _number("-1.500") == -1.5 and _number("64") == 64

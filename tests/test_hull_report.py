@@ -216,8 +216,8 @@ def test_hull_bill_equals_buffered_anomalies(hull_run):
     assert lines["scarf edge"]["quantity"] == pytest.approx(ref.length, abs=0.006)
     assert summary["repair_area_m2"] == pytest.approx(ref.area, rel=1e-4)
     assert summary["boards"] == 0 and summary["tearoff_area_m2"] == 0
-    rows = [r for r in csv.DictReader((folder / "results" / "quantities.csv").open(encoding="utf-8"))
-            if r["row"] == "bill" and r["bill_item"] != "bill total"]
+    rows = [r for r in csv.DictReader((folder / "results" / "bill.csv").open(encoding="utf-8"))
+            if r["bill_item"] != "bill total"]
     assert [r["bill_item"] for r in rows] == list(lines)
     assert float(rows[0]["repair_area_m2"]) == pytest.approx(ref.area, abs=0.006)
 

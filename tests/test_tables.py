@@ -115,10 +115,15 @@ def test_quantities_csv_rows_and_columns(plain):
     assert tuple(rows[0].keys())[: len(QUANTITY_COLUMNS)] == QUANTITY_COLUMNS
     kinds = [r["row"] for r in rows]
     assert kinds.count("anomaly") == len(result.anomalies)
-    sections = [r for r in rows if r["row"] == "section"]
+    assert kinds == ["anomaly"] * len(result.anomalies) + ["total"]  # one row kind, then the total
+    assert {r["counted_wet"] for r in rows if r["row"] == "anomaly"} <= {"yes", "no"}
+    # a plain SUM of area_m2 over the anomaly rows is the total (not three times it)
+    assert sum(float(r["area_m2"]) for r in rows[:-1]) == pytest.approx(float(rows[-1]["area_m2"]), abs=2e-3)
+    sections = read_csv(out / "sections.csv")
     assert [r["section"] for r in sections] == ["A", "B"]  # nothing outside the sample's sections
     total = next(r for r in rows if r["row"] == "total")
-    for key in ("area_m2", "roof_area_m2", "wet_area_m2", "repair_area_m2", "tearoff_area_m2", "counted_wet"):
+    for key in ("area_m2", "roof_area_m2", "wet_area_m2", "repair_area_m2", "tearoff_area_m2",
+                "counted_wet_area_m2"):
         assert sum(float(r[key]) for r in sections) == pytest.approx(float(total[key]), abs=2e-3), key
     assert sum(int(r["boards"]) for r in sections) == int(total["boards"]) == result.takeoff.count
     # anomaly rows hold the anomalies' own figures (mm-level rounding in the file)
@@ -159,18 +164,17 @@ def test_priced_csv_matches_the_summary(priced):
     s = json.loads((out / "summary.json").read_text(encoding="utf-8"))
     rows = read_csv(out / "quantities.csv")
     assert tuple(rows[0].keys()) == quantity_columns(("m2", "ft2", "squares"))
-    bill_rows = [r for r in rows if r["row"] == "bill"]
+    bill_rows = read_csv(out / "bill.csv")
     assert [r["bill_item"] for r in bill_rows] == [line["item"] for line in s["bill"]["lines"]] + ["bill total"]
     for r, line in zip(bill_rows, s["bill"]["lines"]):
         assert float(r["bill_quantity"]) == pytest.approx(line["quantity"])
         assert float(r["amount"]) == pytest.approx(line["amount"]) and r["currency"] == "EUR"
     assert float(bill_rows[-1]["amount"]) == pytest.approx(s["bill"]["total"])
     # ft2 and squares columns: 1 ft = 0.3048 m exactly (NIST SP 811), a square is 100 ft2
-    for r in rows:
-        if r["row"] in ("anomaly", "section", "total"):
-            m2 = float(r["area_m2"])
-            assert float(r["area_ft2"]) == pytest.approx(m2 / M2_PER_FT2, abs=5e-3 / M2_PER_FT2)
-            assert float(r["area_squares"]) == pytest.approx(m2 / M2_PER_SQUARE, abs=1e-3)
+    for r in rows + read_csv(out / "sections.csv"):  # anomaly, total and section rows
+        m2 = float(r["area_m2"])
+        assert float(r["area_ft2"]) == pytest.approx(m2 / M2_PER_FT2, abs=5e-3 / M2_PER_FT2)
+        assert float(r["area_squares"]) == pytest.approx(m2 / M2_PER_SQUARE, abs=1e-3)
     total = next(r for r in rows if r["row"] == "total")
     assert float(total["tearoff_area_ft2"]) == pytest.approx(184.32 / 0.09290304, abs=1e-3)
 
@@ -238,9 +242,9 @@ def test_quantities_carry_the_wet_area_range(plain):
     """The range rows of quantities.csv equal summary.json's wet_area_range_m2 and bracket the
     likely (counted) wet area."""
     _, out = plain
-    rows = read_csv(out / "quantities.csv")
+    rows = read_csv(out / "wet_area_range.csv")
     summary = json.loads((out / "summary.json").read_text())
-    rng = {r["status"]: float(r["wet_area_m2"]) for r in rows if r["row"] == "range"}
+    rng = {r["end"]: float(r["wet_area_m2"]) for r in rows}
     low, high = summary["wet_area_range_m2"]
     assert rng["low end"] == pytest.approx(low, abs=0.001)
     assert rng["high end"] == pytest.approx(high, abs=0.001)

@@ -53,6 +53,8 @@ RESULT_FILES = (
     "repair.gpkg",
     "repair.dxf",
     "quantities.csv",
+    "bill.csv",
+    "takeoff.xlsx",
     "surface_c.tif",
     "delta_c.tif",
 )
@@ -786,6 +788,7 @@ def write_results(result: SurveyResult, out_dir: Path, *, extra_writers: tuple[C
     try:
         tables.write_summary(result, tmp / "summary.json")
         tables.write_quantities(result, tmp / "quantities.csv")
+        tables.write_takeoff(result, tmp / "takeoff.xlsx")
         gis.write_anomalies(result, tmp / "anomalies.gpkg", tmp / "anomalies.geojson")
         gis.write_repair(result, tmp / "repair.gpkg")
         cad.write_dxf(result, tmp / "repair.dxf")

@@ -1,16 +1,18 @@
-"""``summary.json`` and ``quantities.csv``.
+"""``summary.json``, the take-off CSV files and ``takeoff.xlsx``.
 
-``quantities.csv`` is one table a spreadsheet opens as it is. The ``row`` column says
-what each row is:
+Each CSV holds one kind of row, so that a plain SUM of a column is meaningful:
 
-- ``anomaly``: one per anomaly, with its attributes;
-- ``section``: one per roof section, then ``(outside sections)`` for the part of the roof
-  in no section (only when sections were given); these rows add up to the total row;
-- ``total``: the whole roof;
-- ``range``: ``low end`` and ``high end`` of the counted wet area (``wet_area_*``) at the
-  thresholds of :func:`wetmap.confirm.area_thresholds`, widened by the outline's uncertainty;
-- ``bill``: one per line of the bill of quantities (``bill_item``, ``bill_unit``,
-  ``bill_quantity``, ``rate``, ``amount``, ``currency``), then ``bill total``.
+- ``quantities.csv``: one row per anomaly (``row`` = ``anomaly``), then the ``total`` row;
+  ``counted_wet`` is ``yes``/``no`` on anomaly rows, the area counted as wet is
+  ``counted_wet_area_m2`` on the total row;
+- ``sections.csv``: one row per roof section, then ``(outside sections)`` for the part of
+  the roof in no section (only when sections were given); these rows add up to the total;
+- ``wet_area_range.csv``: ``low end`` and ``high end`` of the counted wet area
+  (``wet_area_*``) at the thresholds of :func:`wetmap.confirm.area_thresholds`, widened by
+  the outline's uncertainty (written when the cores give a range);
+- ``bill.csv``: one row per line of the bill of quantities, then ``bill total``.
+
+``takeoff.xlsx`` holds the same tables, one sheet each, with totals as formulas.
 
 Column names carry their units (``_m2``, ``_m``, ``_c``, ``_ft2``, ``_squares``); the
 ``_ft2`` and ``_squares`` columns appear when ``[repair] area_units`` asks for them.
@@ -33,7 +35,8 @@ from ..quantities import OUTSIDE_SECTIONS, Quantities, SectionTotals, compute_qu
 if TYPE_CHECKING:
     from ..pipeline import SurveyResult
 
-__all__ = ["write_summary", "write_quantities", "quantity_columns", "quantities_of", "QUANTITY_COLUMNS"]
+__all__ = ["write_summary", "write_quantities", "write_takeoff", "quantity_tables", "quantity_columns",
+           "quantities_of", "sheet_text", "QUANTITY_COLUMNS", "SECTION_COLUMNS", "BILL_COLUMNS", "TAKEOFF_FILES"]
 
 #: The columns every quantities.csv has, in order (unit columns and the bill's follow).
 QUANTITY_COLUMNS = (
@@ -41,13 +44,11 @@ QUANTITY_COLUMNS = (
     "confirmations", "counted_wet",
     "roof_area_m2", "confirmed_wet_area_m2", "unverified_area_m2", "confirmed_dry_area_m2", "wet_area_m2",
     "wet_fraction", "replace_flag", "repair_area_m2", "repair_perimeter_m", "boards", "board_area_m2",
-    "tearoff_area_m2",
+    "tearoff_area_m2", "counted_wet_area_m2",
 )
 
 #: Area columns also given in each extra unit (``area_ft2``, ...).
 _CONVERTED = ("area", "roof_area", "wet_area", "repair_area", "tearoff_area")
-
-_BILL_COLUMNS = ("bill_item", "bill_unit", "bill_quantity", "rate", "amount", "currency")
 
 
 def _clean(value):
@@ -84,13 +85,13 @@ def _hull_name(column: str) -> str | None:
 def quantity_columns(area_units: tuple[str, ...], *, kind: str = "roof") -> tuple[str, ...]:
     """The quantities.csv header for the given area units and kind of survey.
 
-    >>> quantity_columns(("m2", "ft2"))[-11:-6]
+    >>> quantity_columns(("m2", "ft2"))[-5:]
     ('area_ft2', 'roof_area_ft2', 'wet_area_ft2', 'repair_area_ft2', 'tearoff_area_ft2')
-    >>> quantity_columns(("m2", "ft2"), kind="hull")[-10:-6]
+    >>> quantity_columns(("m2", "ft2"), kind="hull")[-4:]
     ('area_ft2', 'side_area_ft2', 'wet_area_ft2', 'repair_area_ft2')
     """
     extra = tuple(f"{name}_{u}" for u in area_units if u != "m2" for name in _CONVERTED)
-    columns = QUANTITY_COLUMNS + extra + _BILL_COLUMNS
+    columns = QUANTITY_COLUMNS + extra
     if kind == "hull":
         columns = tuple(c for c in (_hull_name(c) for c in columns) if c is not None)
     return columns
@@ -105,12 +106,58 @@ def _f(value: float | None, digits: int = 3) -> str:
     return "" if value is None or not math.isfinite(value) else f"{value:.{digits}f}"
 
 
-def write_quantities(result: "SurveyResult", path: Path) -> None:
-    """Anomaly, section, total and bill rows (areas m2, lengths m, deltas degC; see the module)."""
+#: Characters that make a spreadsheet read a text cell as a formula (OWASP "CSV injection").
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+
+
+def sheet_text(value: Any) -> Any:
+    """A text cell made safe for spreadsheets: text starting like a formula gets a leading ``'``.
+
+    Numbers (and text that is a number, as written by :func:`_f`) pass unchanged.
+
+    >>> sheet_text("=HYPERLINK(1)"), sheet_text("-1.250"), sheet_text("A"), sheet_text(3)
+    ("'=HYPERLINK(1)", '-1.250', 'A', 3)
+    """
+    if not isinstance(value, str) or not value.startswith(_FORMULA_START):
+        return value
+    try:
+        float(value)
+        return value
+    except ValueError:
+        return "'" + value
+
+
+#: Columns of sections.csv (areas per section; unit columns follow), of wet_area_range.csv and of bill.csv.
+SECTION_COLUMNS = (
+    "section", "area_m2", "counted_wet_area_m2", "roof_area_m2", "confirmed_wet_area_m2", "unverified_area_m2",
+    "confirmed_dry_area_m2", "wet_area_m2", "wet_fraction", "replace_flag", "repair_area_m2", "boards",
+    "board_area_m2", "tearoff_area_m2",
+)
+RANGE_COLUMNS = ("end", "wet_area_m2")
+BILL_COLUMNS = ("bill_item", "description", "bill_unit", "bill_quantity", "rate", "amount", "currency")
+
+
+def _with_units(columns: tuple[str, ...], units: tuple[str, ...], kind: str) -> tuple[str, ...]:
+    extra = tuple(f"{name}_{u}" for u in units if u != "m2" for name in _CONVERTED if f"{name}_m2" in columns)
+    out = columns + extra
+    if kind == "hull":
+        out = tuple(c for c in (_hull_name(c) for c in out) if c is not None)
+    return out
+
+
+def quantity_tables(result: "SurveyResult") -> dict[str, tuple[tuple[str, ...], list[dict[str, Any]]]]:
+    """The take-off as separate tables, each ``name -> (columns, rows)``; every value a text.
+
+    ``quantities``: one row per anomaly, then a total row; ``sections``: one row per
+    section (then ``(outside sections)``), adding up to the total; ``wet_area_range``: the
+    low and high end of the counted wet area; ``bill``: the bill of quantities, then its
+    total. ``counted_wet`` is ``yes``/``no`` on anomaly rows; the area counted as wet is
+    ``counted_wet_area_m2`` (total and section rows).
+    """
     q = quantities_of(result)
     units = tuple(u for u in result.survey.repair.area_units if u != "m2")
-    hull = result.survey.survey.kind == "hull"
-    columns = quantity_columns(("m2", *units), kind=result.survey.survey.kind)
+    kind = result.survey.survey.kind
+    hull = kind == "hull"
     counted = {"wet", "unverified"} if result.survey.repair.include_unverified else {"wet"}
 
     def converted(row: dict[str, Any], **areas_m2: float | None) -> None:
@@ -133,32 +180,30 @@ def write_quantities(result: "SurveyResult", path: Path) -> None:
         perim += a.perimeter_m
         counted_area += a.area_m2 if is_counted else 0.0
 
-    def totals_row(kind: str, t: SectionTotals | None, **fields: Any) -> dict[str, Any]:
-        row = {"row": kind, **fields}
-        if t is not None:
-            anomaly_area = t.confirmed_wet_area_m2 + t.unverified_area_m2 + t.confirmed_dry_area_m2
-            counted_here = t.confirmed_wet_area_m2 + (t.unverified_area_m2 if "unverified" in counted else 0.0)
-            row.update(counted_wet=_f(counted_here), confirmed_wet_area_m2=_f(t.confirmed_wet_area_m2),
-                       unverified_area_m2=_f(t.unverified_area_m2), confirmed_dry_area_m2=_f(t.confirmed_dry_area_m2),
-                       wet_fraction=_f(t.wet_fraction, 6), replace_flag="yes" if t.replace_flag else "no",
-                       boards=t.boards, board_area_m2=_f(t.board_area_m2))
-            converted(row, area=anomaly_area, roof_area=t.area_m2, wet_area=t.wet_area_m2,
-                      repair_area=t.repair_area_m2, tearoff_area=t.tearoff_area_m2)
+    def totals_row(t: SectionTotals, name: str) -> dict[str, Any]:
+        anomaly_area = t.confirmed_wet_area_m2 + t.unverified_area_m2 + t.confirmed_dry_area_m2
+        counted_here = t.confirmed_wet_area_m2 + (t.unverified_area_m2 if "unverified" in counted else 0.0)
+        row = {"section": name, "counted_wet_area_m2": _f(counted_here),
+               "confirmed_wet_area_m2": _f(t.confirmed_wet_area_m2), "unverified_area_m2": _f(t.unverified_area_m2),
+               "confirmed_dry_area_m2": _f(t.confirmed_dry_area_m2), "wet_fraction": _f(t.wet_fraction, 6),
+               "replace_flag": "yes" if t.replace_flag else "no", "boards": t.boards,
+               "board_area_m2": _f(t.board_area_m2)}
+        converted(row, area=anomaly_area, roof_area=t.area_m2, wet_area=t.wet_area_m2,
+                  repair_area=t.repair_area_m2, tearoff_area=t.tearoff_area_m2)
         return row
 
-    for t in q.sections:
-        rows.append(totals_row("section", t, section=t.name))
+    sections = [totals_row(t, t.name) for t in q.sections]
     o = q.outside
     if o is not None and (o.area_m2 > 0 or o.boards or o.repair_area_m2 > 0
                           or o.wet_area_m2 + o.confirmed_dry_area_m2 > 0):
-        rows.append(totals_row("section", o, section=OUTSIDE_SECTIONS))
+        sections.append(totals_row(o, OUTSIDE_SECTIONS))
 
     by = {s: 0.0 for s in ("wet", "dry", "unverified")}
     for a in result.anomalies:
         by[a.status] += a.area_m2
     roof_area = result.roof.area
     total = {"row": "total", "status": f"{len(result.anomalies)} anomalies", "perimeter_m": _f(perim),
-             "counted_wet": _f(counted_area), "confirmed_wet_area_m2": _f(by["wet"]),
+             "counted_wet_area_m2": _f(counted_area), "confirmed_wet_area_m2": _f(by["wet"]),
              "unverified_area_m2": _f(by["unverified"]), "confirmed_dry_area_m2": _f(by["dry"]),
              "wet_fraction": _f(q.wet_fraction, 6), "replace_flag": "yes" if q.replace_flag else "no",
              "repair_perimeter_m": _f(q.repair_perimeter_m), "boards": q.takeoff.count,
@@ -166,28 +211,130 @@ def write_quantities(result: "SurveyResult", path: Path) -> None:
     converted(total, area=area, roof_area=roof_area, wet_area=by["wet"] + by["unverified"],
               repair_area=q.repair.area, tearoff_area=q.takeoff.tearoff_area_m2)
     rows.append(total)
+
+    ranges: list[dict[str, Any]] = []
     ar = getattr(result, "area_range", None)
     if ar is not None:  # the counted wet area's range across the thresholds the cores allow
         for end, value in (("low end", ar.low_m2), ("high end", ar.high_m2)):
-            row = {"row": "range", "status": end}
+            row = {"end": end}
             converted(row, wet_area=value)
-            rows.append(row)
+            ranges.append(row)
 
     bill = q.bill
+    bill_rows: list[dict[str, Any]] = []
     for line in bill.lines:
-        row = {"row": "bill", "bill_item": line.item, "bill_unit": line.unit,
+        row = {"bill_item": line.item, "description": line.description, "bill_unit": line.unit,
                "bill_quantity": _f(line.quantity, 0 if line.unit in ("board", "item") else 2),
                "rate": _f(line.rate, 2), "amount": _f(line.amount, 2), "currency": bill.currency or ""}
         for u, value in line.areas:
             row[f"{'repair_area' if hull else 'tearoff_area'}_{u}"] = _f(value, 2)
-        rows.append(row)
-    rows.append({"row": "bill", "bill_item": "bill total", "amount": _f(bill.total, 2),
-                 "currency": bill.currency or ""})
+        bill_rows.append(row)
+    bill_rows.append({"bill_item": "bill total", "amount": _f(bill.total, 2), "currency": bill.currency or ""})
+    area_name = "repair_area" if hull else "tearoff_area"
+    bill_columns = BILL_COLUMNS + tuple(f"{area_name}_{u}" for u in ("m2", *units))
 
-    if hull:  # hull names; no board or tear-off columns
-        rows = [{name: v for name, v in ((_hull_name(k), v) for k, v in r.items()) if name is not None}
-                for r in rows]
+    def renamed(table: list[dict[str, Any]]) -> list[dict[str, Any]]:
+        if not hull:
+            return table
+        return [{name: v for name, v in ((_hull_name(k), v) for k, v in r.items()) if name is not None}
+                for r in table]
+
+    return {
+        "quantities": (quantity_columns(("m2", *units), kind=kind), renamed(rows)),
+        "sections": (_with_units(SECTION_COLUMNS, ("m2", *units), kind), renamed(sections)),
+        "wet_area_range": (_with_units(RANGE_COLUMNS, ("m2", *units), kind), ranges),
+        "bill": (bill_columns, bill_rows),
+    }
+
+
+#: The files of :func:`write_quantities`, beside quantities.csv.
+TAKEOFF_FILES = {"sections": "sections.csv", "wet_area_range": "wet_area_range.csv", "bill": "bill.csv"}
+
+
+def _write_csv(path: Path, columns: tuple[str, ...], rows: list[dict[str, Any]]) -> None:
     with path.open("w", newline="", encoding="utf-8") as fh:
-        w = csv.DictWriter(fh, fieldnames=list(columns), restval="")
+        w = csv.DictWriter(fh, fieldnames=list(columns), restval="", extrasaction="ignore")
         w.writeheader()
-        w.writerows(rows)
+        w.writerows({k: sheet_text(v) for k, v in r.items()} for r in rows)
+
+
+def write_quantities(result: "SurveyResult", path: Path) -> None:
+    """quantities.csv (anomaly rows, then the total row) and beside it sections.csv,
+    wet_area_range.csv (when the cores give a range) and bill.csv (areas m2, lengths m,
+    deltas degC; see :func:`quantity_tables`)."""
+    path = Path(path)
+    tables = quantity_tables(result)
+    _write_csv(path, *tables["quantities"])
+    for name, file in TAKEOFF_FILES.items():
+        columns, rows = tables[name]
+        if rows:
+            _write_csv(path.parent / file, columns, rows)
+
+
+def _number(text: Any) -> Any:
+    """A CSV text as a number when it is one (spreadsheets sum numbers, not texts)."""
+    if isinstance(text, (int, float)) or not isinstance(text, str) or not text:
+        return text if text != "" else None
+    try:
+        return int(text) if text.lstrip("-").isdigit() else float(text)
+    except ValueError:
+        return sheet_text(text)
+
+
+def write_takeoff(result: "SurveyResult", path: Path) -> None:
+    """``takeoff.xlsx``: one sheet per table of :func:`quantity_tables` (openpyxl).
+
+    Numbers are stored as numbers and texts as texts (a text that looks like a formula is
+    quoted). Totals a contractor can audit are formulas: on the anomalies sheet the total
+    row sums the anomaly rows' areas and perimeters; on the sections sheet a last row sums
+    the sections; on the bill sheet each priced amount is ``ROUND(quantity * rate, 2)`` and
+    the total sums the amounts. Header cells name the unit (``area_m2``, ``perimeter_m``).
+    """
+    from openpyxl import Workbook
+    from openpyxl.styles import Font
+    from openpyxl.utils import get_column_letter
+
+    tables = quantity_tables(result)
+    wb = Workbook()
+    wb.remove(wb.active)
+    bold = Font(bold=True)
+    sheet_names = {"quantities": "anomalies", "sections": "sections", "wet_area_range": "wet area range",
+                   "bill": "bill"}
+    for name, (columns, rows) in tables.items():
+        if not rows and name != "quantities":
+            continue
+        ws = wb.create_sheet(sheet_names[name])
+        ws.append(list(columns))
+        for cell in ws[1]:
+            cell.font = bold
+        col = {c: get_column_letter(i + 1) for i, c in enumerate(columns)}
+        for r in rows:
+            ws.append([_number(r.get(c, "")) for c in columns])
+        n = len(rows) + 1  # last data row
+        if name == "quantities" and rows and rows[-1].get("row") == "total":
+            first, last = 2, n - 1  # anomaly rows
+            if last >= first:
+                sums = [c for c in columns if c.startswith("area_") or c == "perimeter_m"]
+                for c in sums:
+                    ws[f"{col[c]}{n}"] = f"=SUM({col[c]}{first}:{col[c]}{last})"
+            for cell in ws[n]:
+                cell.font = bold
+        elif name == "sections" and rows:
+            ws.append(["total of the sections"])
+            for c in columns:
+                if c != "section" and c not in ("wet_fraction", "replace_flag"):
+                    ws[f"{col[c]}{n + 1}"] = f"=SUM({col[c]}2:{col[c]}{n})"
+            for cell in ws[n + 1]:
+                cell.font = bold
+        elif name == "bill":
+            for i, r in enumerate(rows[:-1], start=2):
+                if r.get("rate") and r.get("bill_quantity"):
+                    ws[f"{col['amount']}{i}"] = f"=ROUND({col['bill_quantity']}{i}*{col['rate']}{i},2)"
+            if any(r.get("amount") for r in rows[:-1]):
+                ws[f"{col['amount']}{n}"] = f"=SUM({col['amount']}2:{col['amount']}{n - 1})"
+            for cell in ws[n]:
+                cell.font = bold
+        for c, letter in col.items():
+            ws.column_dimensions[letter].width = max(10, min(40, len(c) + 2))
+        ws.freeze_panes = "A2"
+    wb.save(Path(path))
