@@ -359,3 +359,76 @@ def test_sheet_text_quotes_formula_like_text():
         assert sheet_text(text) == "'" + text
         assert _number(text) == "'" + text
     assert sheet_text("-1.500") == "-1.500" and _number("-1.500") == -1.5 and _number("64") == 64
+
+
+# --------------------------------------------------------------------------------------
+# Plan basics: north arrow, section labels, figure axes from the plan's corner
+# --------------------------------------------------------------------------------------
+
+HULL = Path(__file__).resolve().parents[1] / "sample_surveys" / "yacht_hull"
+
+
+def test_map_north_arrow_and_section_labels(metric_run):
+    from wetmap.export.webmap import NORTH_ARROW_SVG
+
+    _, out = metric_run
+    page = (out / "map.html").read_text(encoding="utf-8")
+    assert "wetmap-north-arrow" in page and "north arrow" in page  # drawn inline, no image file
+    assert "http" not in NORTH_ARROW_SVG.replace("http://www.w3.org", "")
+    # each section named on the plan by a permanent label
+    assert '"label": "section A"' in page and '"label": "section B"' in page
+    assert page.count("permanent: true") >= 2
+
+
+def test_hull_map_and_figures_have_no_north(tmp_path):
+    from wetmap.export import report
+
+    out = tmp_path / "results"
+    result = run_survey(HULL, out=out, report_html=False)
+    assert "wetmap-north-arrow" not in (out / "map.html").read_text(encoding="utf-8")
+    assert report.grid_convergence_deg(result) is None
+    assert report._axis_labels(result) == ("station along the hull (m)", "girth from the keel (m)")
+
+
+def test_figure_axes_in_metres_from_the_corner(metric_run):
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+
+    from wetmap.export import report
+
+    result, _ = metric_run
+    fig = Figure(figsize=(6, 4))
+    FigureCanvasAgg(fig)
+    ax = fig.add_subplot()
+    report._plan_axes(ax, result)
+    fig.canvas.draw()
+    x0, y0, x1, y1 = result.outline.bounds  # the sample: 60 x 40 m from (512300, 5463100)
+    for labels, ticks, corner in ((ax.get_xticklabels(), ax.get_xticks(), 512300.0),
+                                  (ax.get_yticklabels(), ax.get_yticks(), 5463100.0)):
+        shown = [float(t.get_text().replace("\u2212", "-")) for t in labels]
+        assert shown == pytest.approx([v - corner for v in ticks])  # each tick: metres from the corner
+        assert 0.0 in shown
+    assert (x0, y0) == (512300.0, 5463100.0)
+    assert "512,300.0" in ax.get_xlabel() and "EPSG:32633" in ax.get_xlabel()
+
+
+def test_grid_convergence_matches_a_meridian_traced_with_pyproj(metric_run):
+    """The north arrow's angle equals the bearing of a meridian drawn in the plan's CRS
+    (two points 0.01° of latitude apart projected with pyproj.Transformer)."""
+    import math
+
+    from pyproj import Transformer
+
+    from wetmap.export import report
+
+    result, _ = metric_run
+    conv = report.grid_convergence_deg(result)
+    pt = result.outline.centroid
+    back = Transformer.from_crs("EPSG:32633", "EPSG:4326", always_xy=True)
+    fwd = Transformer.from_crs("EPSG:4326", "EPSG:32633", always_xy=True)
+    lon, lat = back.transform(pt.x, pt.y)
+    xa, ya = fwd.transform(lon, lat)
+    xb, yb = fwd.transform(lon, lat + 0.01)
+    bearing = math.degrees(math.atan2(xb - xa, yb - ya))  # clockwise from grid north
+    assert conv == pytest.approx(-bearing, abs=1e-3)
+    assert conv > 0  # the sample lies east of zone 33's central meridian (15° E): true north is west of grid north

@@ -202,7 +202,50 @@ def _axis_labels(result: "SurveyResult") -> tuple[str, str]:
         return "station along the hull (m)", "girth from the keel (m)"
     if s.is_local:
         return "plan x (m)", "plan y (m)"
-    return f"easting (m, {s.crs})", f"northing (m, {s.crs})"
+    x0, y0 = _corner(result)
+    return (f"m east of the lower-left corner (easting {x0:,.1f}, {s.crs})",
+            f"m north of the corner (northing {y0:,.1f})")
+
+
+def _corner(result: "SurveyResult") -> tuple[float, float]:
+    """The origin of a georeferenced plan figure's axes: the outline's lower-left corner, whole metres."""
+    x0, y0, _, _ = result.outline.bounds
+    return float(math.floor(x0)), float(math.floor(y0))
+
+
+def grid_convergence_deg(result: "SurveyResult") -> float | None:
+    """Angle from grid north to true north at the outline's centre, degrees (``None`` off a map CRS).
+
+    pyproj's ``Proj.get_factors(...).meridian_convergence``: positive where true north lies
+    west of grid north (east of a UTM zone's central meridian).
+    """
+    s = result.survey.survey
+    if s.is_local or s.kind == "hull":
+        return None
+    try:
+        from pyproj import CRS, Proj, Transformer
+
+        pt = result.outline.centroid
+        lon, lat = Transformer.from_crs(s.crs, "EPSG:4326", always_xy=True).transform(pt.x, pt.y)
+        return float(Proj(CRS.from_user_input(s.crs)).get_factors(lon, lat).meridian_convergence)
+    except Exception:  # noqa: BLE001 - a figure nicety; the CRS was validated when the survey loaded
+        return None
+
+
+def _north_handle(result: "SurveyResult"):
+    """The north arrow, as a legend entry beside the plan (never over it): an arrow turned from
+    grid north (up the figure) to true north, or ``None`` when the plan has no north."""
+    conv = grid_convergence_deg(result)
+    if conv is None:
+        return None
+    from matplotlib.lines import Line2D
+    from matplotlib.markers import MarkerStyle
+    from matplotlib.transforms import Affine2D
+
+    side = "W" if conv >= 0 else "E"
+    arrow = MarkerStyle("$\\Uparrow$", transform=Affine2D().rotate_deg(conv))  # true north, anticlockwise
+    return Line2D([], [], linestyle="none", marker=arrow, markersize=11, color="black",
+                  label=f"north ({abs(conv):.2f}° {side} of grid north)")
 
 
 def _kind_words(result: "SurveyResult") -> str:
@@ -279,6 +322,13 @@ def _plan_axes(ax, result: "SurveyResult") -> None:
     ax.set_ylim(y0 - pad, y1 + pad)
     ax.set_aspect("equal")
     ax.ticklabel_format(useOffset=False, style="plain")
+    s = result.survey.survey
+    if not s.is_local and s.kind != "hull":  # metres from the corner, not full projected coordinates
+        from matplotlib.ticker import FuncFormatter
+
+        cx, cy = _corner(result)
+        ax.xaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v - cx:g}"))
+        ax.yaxis.set_major_formatter(FuncFormatter(lambda v, _: f"{v - cy:g}"))
     xl, yl = _axis_labels(result)
     ax.set_xlabel(xl, fontsize=8)
     ax.set_ylabel(yl, fontsize=8)
@@ -337,6 +387,9 @@ def _legend_handles(result: "SurveyResult", *, plan: bool) -> list:
                               label=f"{w.confirmation} judged dry"))
     if not result.exclusions.is_empty:
         handles.append(Patch(facecolor=LAYER_COLOURS["exclusions"], edgecolor="#666666", label="exclusion"))
+    north = _north_handle(result)
+    if north is not None:
+        handles.insert(0, north)
     if plan:
         handles.append(Patch(facecolor="none", edgecolor=LAYER_COLOURS["repair"], linestyle="--", hatch="///",
                              label="repair outline"))
@@ -1158,7 +1211,8 @@ def build_report(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> str:
         "<tr><th>Signature</th><td class='tall'></td></tr>"
         "<tr><th>Date</th><td></td></tr></table></section>",
         f"<footer class='small'><p>Prepared with wetmap {_esc(summary.get('wetmap_version', __version__))}. "
-        "Files of this run: summary.json, anomalies.gpkg / .geojson, repair.gpkg, quantities.csv, report.pdf, "
+        "Files of this run: summary.json, anomalies.gpkg / .geojson, repair.gpkg, quantities.csv, sections.csv, "
+        "bill.csv, takeoff.xlsx, report.pdf, "
         "surface_c.tif, delta_c.tif, map.html.</p></footer>",
         "</body></html>",
     ]

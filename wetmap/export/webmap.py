@@ -501,6 +501,17 @@ def _leaflet_assets() -> tuple[str, str]:
     return js.replace("</script", "<\\/script"), css
 
 
+#: The map's north arrow: drawn inline (no image file, no network), pointing up the page.
+NORTH_ARROW_SVG = (
+    '<svg class="wetmap-north-arrow" width="26" height="40" viewBox="0 0 26 40" role="img" '
+    'aria-label="north arrow: north is up"><title>North</title>'
+    '<polygon points="13,2 22,30 13,24 4,30" fill="#000000"/>'
+    '<polygon points="13,2 13,24 4,30" fill="#ffffff" stroke="#000000" stroke-width="1"/>'
+    '<text x="13" y="39" text-anchor="middle" font-size="11" font-weight="bold" '
+    'font-family="DejaVu Sans, sans-serif">N</text></svg>'
+)
+
+
 _PAGE_CSS = """
 html, body { display: flex; flex-direction: column; }
 .folium-map { flex: 1 1 auto; height: auto !important; min-height: 0; }
@@ -518,6 +529,7 @@ html, body { display: flex; flex-direction: column; }
 .wetmap-legend img { display: block; margin: 2px 0; }
 .wetmap-legend .note { margin-top: 3px; font-size: 11px; color: #333; }
 .leaflet-control-layers { font-size: 12px; }
+.wetmap-north { padding: 3px 5px 1px; line-height: 0; }
 .wetmap-display .row { margin: 3px 0 1px; }
 .wetmap-display .note { margin-top: 3px; font-size: 11px; color: #333; max-width: 240px; }
 .wetmap-label { background: rgba(255,255,255,0.88); border: 1px solid #555; padding: 0 3px;
@@ -1074,7 +1086,8 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
         "color": LAYER_COLOURS["sections"], "weight": 1, "dashArray": "10 4 2 4", "fill": True,
         "fillOpacity": 0.0, "className": "wetmap-section"},
         popup=(["name", "assembly", "insulation", "area", "wet", "fraction"],
-               ["Section", "Assembly", words.wet_material.capitalize(), "Area", "Wet area", "Wet fraction"]))
+               ["Section", "Assembly", words.wet_material.capitalize(), "Area", "Wet area", "Wet fraction"]),
+        tooltip="label", permanent_tooltip=len(feats) <= 40)  # each section named on the plan
 
     # Repair outlines and boards.
     feats = [_feature(p, proj, f"r{i}", {"label": f"repair outline {i + 1}: {_sq(p.area)}"})
@@ -1167,10 +1180,14 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
             popup=(["n", "why"], ["Suggestion", "Why here"]), tooltip="label", marker=folium.CircleMarker(radius=7))
 
     # Legend, scale bar, layer list; fit to the outline.
-    m.add_child(_furniture_class()([("bottomleft", "wetmap-panel wetmap-legend", _legend_html(bars, result))]))
+    panels = [("bottomleft", "wetmap-panel wetmap-legend", _legend_html(bars, result))]
+    if not survey.is_local and survey.kind != "hull":  # the page is drawn north-up (Web Mercator)
+        panels.insert(0, ("topleft", "wetmap-panel wetmap-north", NORTH_ARROW_SVG))
+    m.add_child(_furniture_class()(panels))
     folium.LayerControl(collapsed=False, position="topright").add_to(m)
-    # Room for the legend (left) and the layer list (right) when the page opens.
-    m.fit_bounds(proj.latlng_bounds(result.outline.bounds), padding_top_left=(250, 12),
+    # Room for the legend (left, at most 300 px wide plus its margin) and the layer list (right)
+    # when the page opens, so neither covers the plan; the legend also folds away (<details>).
+    m.fit_bounds(proj.latlng_bounds(result.outline.bounds), padding_top_left=(320, 12),
                  padding_bottom_right=(250, 12))
 
     css = Element("{{ this.text }}")
