@@ -7,6 +7,7 @@ parsed with the standard library's ``html.parser``.
 
 from __future__ import annotations
 
+import dataclasses
 import io
 import json
 import re
@@ -432,3 +433,88 @@ def test_grid_convergence_matches_a_meridian_traced_with_pyproj(metric_run):
     bearing = math.degrees(math.atan2(xb - xa, yb - ya))  # clockwise from grid north
     assert conv == pytest.approx(-bearing, abs=1e-3)
     assert conv > 0  # the sample lies east of zone 33's central meridian (15° E): true north is west of grid north
+
+
+# --------------------------------------------------------------------------------------
+# GIS and CAD: GeoPackage styles, colour-blind-safe DXF layers, hatches with islands
+# --------------------------------------------------------------------------------------
+
+#: Okabe-Ito palette (Okabe & Ito 2008, "Color Universal Design"): vermillion, reddish purple, blue.
+OKABE_ITO = {"wet": (213, 94, 0), "unverified": (204, 121, 167), "dry": (0, 114, 178)}
+
+
+def test_geopackages_carry_qgis_styles(metric_run):
+    import sqlite3
+    import xml.etree.ElementTree as ET
+
+    import pyogrio
+
+    _, out = metric_run
+    for name, layers in (("anomalies.gpkg", {"anomalies", "suggested_cores"}),
+                         ("repair.gpkg", {"repair", "boards", "anomalies", "cores"})):
+        with sqlite3.connect(out / name) as db:
+            rows = db.execute("SELECT f_table_name, f_geometry_column, styleQML, styleSLD, useAsDefault "
+                              "FROM layer_styles").fetchall()
+            geom_cols = dict(db.execute("SELECT table_name, column_name FROM gpkg_geometry_columns").fetchall())
+        assert {r[0] for r in rows} == layers
+        for table, column, qml, sld, default in rows:
+            assert column == geom_cols[table] and default == 1
+            ET.fromstring(qml)
+            ET.fromstring(sld)  # both parse as XML
+        qml = next(r[2] for r in rows if r[0] == "anomalies")
+        root = ET.fromstring(qml)
+        renderer = root.find("renderer-v2")
+        assert renderer.get("type") == "categorizedSymbol" and renderer.get("attr") == "status"
+        cats = {c.get("value"): c.get("symbol") for c in renderer.iter("category")}
+        assert set(cats) == {"wet", "unverified", "dry"}
+        colours = {}
+        for sym in renderer.iter("symbol"):
+            opts = {o.get("name"): o.get("value") for o in sym.iter("Option") if o.get("name")}
+            colours[sym.get("name")] = tuple(int(v) for v in opts["outline_color"].split(",")[:3])
+        for status, rgb in OKABE_ITO.items():
+            assert colours[cats[status]] == rgb, status
+        assert len(set(colours.values())) == 3  # distinct colours
+        # the layers still read as before
+        assert layers <= {n for n, _ in pyogrio.list_layers(out / name)}
+
+
+def _signed_area(xy) -> float:
+    x, y = np.asarray(xy, dtype=float).T
+    return 0.5 * float(np.dot(x, np.roll(y, -1)) - np.dot(y, np.roll(x, -1)))
+
+
+def test_dxf_colours_and_hatch_with_islands(tmp_path, metric_run):
+    """A patch with a hole is one hatch whose area (outer path less inner paths, shoelace
+    formula) equals the anomaly's; wet and dry layers carry the Okabe-Ito orange/blue pair."""
+    import types
+
+    import ezdxf
+    from shapely.geometry import Polygon
+
+    from wetmap.export import cad
+
+    result, _ = metric_run
+    ring = Polygon([(512310, 5463110), (512320, 5463110), (512320, 5463120), (512310, 5463120)],
+                   [[(512313, 5463113), (512313, 5463116), (512316, 5463116), (512316, 5463113)]])
+    a0 = result.anomalies[0]
+    holed = dataclasses.replace(a0, geometry=ring)
+    fake = types.SimpleNamespace(**{k: getattr(result, k) for k in dir(result) if not k.startswith("_")})
+    fake.anomalies = [holed, *result.anomalies[1:]]
+    path = tmp_path / "repair.dxf"
+    cad.write_dxf(fake, path)
+    doc = ezdxf.readfile(path)
+    layers = {layer.dxf.name: layer for layer in doc.layers}
+    assert layers["ANOMALY-WET"].rgb == OKABE_ITO["wet"] and layers["ANOMALY-DRY"].rgb == OKABE_ITO["dry"]
+    assert layers["ANOMALY-UNVERIFIED"].rgb == OKABE_ITO["unverified"]
+    hatches = list(doc.modelspace().query('HATCH[layer=="ANOMALY-HATCH"]'))
+    assert len(hatches) == len(fake.anomalies)
+    first = hatches[0]
+    assert len(first.paths) == 2  # the exterior and its island, in one hatch
+    area = 0.0
+    for p in first.paths:
+        xy = [(v[0], v[1]) for v in p.vertices]
+        sign = 1.0 if p.path_type_flags & ezdxf.const.BOUNDARY_PATH_EXTERNAL else -1.0
+        area += sign * abs(_signed_area(xy))
+    assert area == pytest.approx(ring.area, abs=1e-6) and ring.area == pytest.approx(100 - 9)
+    assert first.rgb == OKABE_ITO[a0.status]
+

@@ -4,11 +4,18 @@ Plan coordinates (the survey CRS, or plan metres for ``local``), drawing units m
 Every polygon ring is a closed ``LWPOLYLINE``: exteriors anticlockwise, holes clockwise
 as separate polylines on the same layer, so a CAD area command on an exterior less its
 holes gives the polygon's area, and the signed areas of a layer's rings add up to it.
-Repair outlines are also filled with a hatch (holes left open) on their own layer.
+Repair outlines are also filled with a hatch (holes left open) on their own layer, and
+each anomaly is also one hatch on ``ANOMALY-HATCH`` (its colour) with the exterior as the
+outer path and each hole as an inner path: one object whose CAD area is the anomaly's.
+
+Colours are the Okabe-Ito colour-blind-safe palette (Okabe & Ito 2008, "Color Universal
+Design"), as true colours on the layers with the nearest AutoCAD colour index beside:
+wet vermillion, unverified reddish purple, dry blue (the map's and report's colours), so
+wet and dry differ in hue and lightness for every common colour-vision deficiency.
 
 Layers (names of wetmap's own; see :data:`LAYERS`): ``OUTLINE``, ``EXCLUSIONS``,
 ``SECTIONS``, ``ANOMALY-WET``, ``ANOMALY-UNVERIFIED``, ``ANOMALY-DRY``, ``REPAIR``,
-``REPAIR-HATCH``, ``BOARDS``, ``CORES``, ``LABELS``.
+``REPAIR-HATCH``, ``ANOMALY-HATCH``, ``BOARDS``, ``CORES``, ``LABELS``.
 """
 
 from __future__ import annotations
@@ -28,21 +35,33 @@ from ..wording import wording_of
 if TYPE_CHECKING:
     from ..pipeline import SurveyResult
 
-__all__ = ["LAYERS", "STATUS_LAYER", "write_dxf", "polygon_rings"]
+__all__ = ["LAYERS", "LAYER_RGB", "STATUS_LAYER", "write_dxf", "polygon_rings"]
 
 #: Layer name -> (AutoCAD colour index, description).
 LAYERS: dict[str, tuple[int, str]] = {
     "OUTLINE": (7, "roof outline (or developed hull side), plan coordinates"),
     "EXCLUSIONS": (8, "curbs, rooftop units, skylights and other areas left out"),
     "SECTIONS": (9, "roof sections"),
-    "ANOMALY-WET": (1, "apparent thermal anomalies confirmed wet by a core or reading"),
-    "ANOMALY-UNVERIFIED": (30, "apparent thermal anomalies with no confirmation inside"),
-    "ANOMALY-DRY": (3, "apparent thermal anomalies refuted: confirmations inside all dry"),
-    "REPAIR": (5, "repair outlines: counted anomalies plus the margin, clipped to the roof"),
-    "REPAIR-HATCH": (5, "fill of the repair outlines"),
+    "ANOMALY-WET": (30, "apparent thermal anomalies confirmed wet by a core or reading"),
+    "ANOMALY-UNVERIFIED": (221, "apparent thermal anomalies with no confirmation inside"),
+    "ANOMALY-DRY": (150, "apparent thermal anomalies refuted: confirmations inside all dry"),
+    "ANOMALY-HATCH": (7, "one hatch per anomaly, holes as inner paths, in its status colour"),
+    "REPAIR": (40, "repair outlines: counted anomalies plus the margin, clipped to the roof"),
+    "REPAIR-HATCH": (40, "fill of the repair outlines"),
     "BOARDS": (4, "whole insulation boards to replace"),
-    "CORES": (6, "cores and readings with their judgement"),
+    "CORES": (7, "cores and readings with their judgement"),
     "LABELS": (7, "ids and areas"),
+}
+
+#: Layer -> true colour (Okabe-Ito palette, Okabe & Ito 2008): vermillion, reddish purple,
+#: blue for the statuses (as on the map), orange for the repair, bluish green for boards.
+LAYER_RGB: dict[str, tuple[int, int, int]] = {
+    "ANOMALY-WET": (213, 94, 0),
+    "ANOMALY-UNVERIFIED": (204, 121, 167),
+    "ANOMALY-DRY": (0, 114, 178),
+    "REPAIR": (230, 159, 0),
+    "REPAIR-HATCH": (230, 159, 0),
+    "BOARDS": (0, 158, 115),
 }
 
 #: Anomaly status -> layer.
@@ -113,6 +132,8 @@ def write_dxf(result: "SurveyResult", path: Path) -> None:
     for name, (colour, description) in LAYERS.items():
         layer = doc.layers.add(name, color=colour)
         layer.description = description
+        if name in LAYER_RGB:
+            layer.rgb = LAYER_RGB[name]
     msp = doc.modelspace()
     h = _text_height_m(result.outline)
 
@@ -141,6 +162,14 @@ def write_dxf(result: "SurveyResult", path: Path) -> None:
             label(f"section {s.name}", inside(part), height=1.5 * h)
     for a in result.anomalies:
         rings(a.geometry, STATUS_LAYER[a.status])
+        layer = STATUS_LAYER[a.status]
+        fill = msp.add_hatch(color=LAYERS[layer][0], dxfattribs={"layer": "ANOMALY-HATCH"})
+        fill.rgb = LAYER_RGB[layer]
+        fill.set_pattern_fill("ANSI37", scale=h / 4.0)  # cross-hatch, the plan stays readable under it
+        for xy, hole in polygon_rings(a.geometry):  # one hatch: the exterior and its islands
+            fill.paths.add_polyline_path(
+                xy.tolist(), is_closed=True,
+                flags=ezdxf.const.BOUNDARY_PATH_DEFAULT if hole else ezdxf.const.BOUNDARY_PATH_EXTERNAL)
         label(f"A{a.id} {a.status} {_area_text(a.area_m2, units)}", inside(a.geometry))
     parts = list(shapely.get_parts(q.repair)) if not q.repair.is_empty else []
     for k, part in enumerate(parts, start=1):
