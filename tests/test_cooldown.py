@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import json
 import math
+import re
 
 import numpy as np
 import pytest
@@ -298,7 +299,10 @@ def test_bad_cooldown_value_is_one_clear_line(roof_survey):
 
 
 def test_window_needs_a_sunset(roof_survey):
+    """No sunset typed and none computable (no survey date): refused, naming the key."""
     toml = roof_survey / "survey.toml"
-    toml.write_text(toml.read_text(encoding="utf-8").replace('sunset = "16:40"\n', ""), encoding="utf-8")
+    text = toml.read_text(encoding="utf-8").replace('sunset = "16:40"\n', "")
+    text = re.sub(r'(?m)^date = .*\n', "", text)
+    toml.write_text(text, encoding="utf-8")
     with pytest.raises(SurveyError, match="sunset"):
         run_window(roof_survey)

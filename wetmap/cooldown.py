@@ -942,7 +942,8 @@ def plan_survey_window(survey: Survey, *, sections: Sequence[Any] = (), step_s: 
     cond, cool = survey.conditions, survey.cooldown
     if cond.sunset is None:
         raise SurveyError(f"{file}: [conditions] sunset: is missing: the cool-down planner needs the local sunset "
-                          'time, e.g. sunset = "16:40"')
+                          'time, e.g. sunset = "16:40" (computed when a georeferenced roof has [survey] date '
+                          '= "YYYY-MM-DD")')
     notes: list[str] = []
     insulation = cool.insulation
     if insulation is None:
@@ -962,6 +963,9 @@ def plan_survey_window(survey: Survey, *, sections: Sequence[Any] = (), step_s: 
         raise SurveyError(f"{file}: [cooldown] water_vol_pct = {water_pct:g}: expected more than 0 "
                           "(the wet board's water content, % by volume)")
     sunset_h = _clock_h(cond.sunset)
+    if getattr(cond, "sunset_source", None):
+        notes.append(f"sunset {cond.sunset.strftime('%H:%M')} {cond.sunset_source}; type [conditions] sunset "
+                     "to override")
     if cool.sunrise is not None:
         sunrise_h = _clock_h(cool.sunrise)
     else:
@@ -1085,10 +1089,11 @@ def run_window(folder: str | Path, *, out: str | Path | None = None) -> tuple[Wi
     -------
     (WindowPlan, Path, Path)
     """
+    from .sun import with_sun_times
     from .survey import load_survey
     from .vectors import read_sections
 
-    survey = load_survey(folder)
+    survey = with_sun_times(load_survey(folder))  # sunset and sunrise from place and date when not typed in
     sections: list = []
     if survey.cooldown.insulation is None and survey.plan.sections is not None:
         crs = None if survey.survey.is_local else survey.survey.crs

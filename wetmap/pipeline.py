@@ -34,6 +34,7 @@ from .polygons import RegionStats, label_regions, polygonize, region_stats
 from .quantities import BoardTakeoff, Quantities, SectionTotals, compute_quantities, largest_overlap
 from .rasters import PlanGrid, inspect_raster, plan_grid_for, read_onto_grid
 from .register import SUSPECT_MIN_PX, FrameReport, Registration
+from .sun import with_sun_times
 from .survey import Survey, load_survey
 from .tiles import FullRasters, WindowProgress, detect_in_windows
 from .vectors import Section, read_layer, read_outline, read_sections
@@ -576,7 +577,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
     WetmapError
         On any invalid input; the message names the file, key or row and the fix.
     """
-    survey = load_survey(folder)
+    survey = with_sun_times(load_survey(folder))  # sunset from place and date when not typed in
     crs = None if survey.survey.is_local else survey.survey.crs
     warnings: list[str] = []
 
@@ -850,7 +851,7 @@ def check_survey(folder: str | Path) -> tuple[Survey, tuple[str, ...]]:
     Returns the survey and the warnings found; raises :class:`WetmapError` on the first
     file that cannot be used (every survey.toml problem at once).
     """
-    survey = load_survey(folder)
+    survey = with_sun_times(load_survey(folder))  # sunset from place and date when not typed in
     crs = None if survey.survey.is_local else survey.survey.crs
     warnings: list[str] = []
     _, notes = read_outline(survey.plan.outline, survey_crs=crs)

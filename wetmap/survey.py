@@ -115,6 +115,8 @@ class Conditions:
     time: clock_time | None = None
     hours_since_rain: float | None = None
     surface_dry: bool | None = None
+    sunset_source: str | None = None
+    """``None``: typed in; else how :func:`wetmap.sun.with_sun_times` computed ``sunset``."""
 
 
 @dataclass(frozen=True)

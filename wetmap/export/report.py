@@ -680,7 +680,8 @@ def _conditions(result: "SurveyResult") -> str:
     rows.append(("Wind", "not given" if c.wind_m_s is None else u.wind(c.wind_m_s)))
     rows.append(("Sky", _esc(c.sky or "not given")))
     rows.append(("Sunset / survey time", f"{c.sunset.strftime('%H:%M') if c.sunset else 'not given'} / "
-                                         f"{c.time.strftime('%H:%M') if c.time else 'not given'}"))
+                                         f"{c.time.strftime('%H:%M') if c.time else 'not given'}"
+                 + (f" (sunset {_esc(c.sunset_source)})" if getattr(c, "sunset_source", None) else "")))
     rows.append(("Hours since rain", "not given" if c.hours_since_rain is None else f"{c.hours_since_rain:g} h"))
     rows.append(("Surface dry", "not given" if c.surface_dry is None else ("yes" if c.surface_dry else "no")))
     mosaics = ", ".join(f"{m.path.name}" + (f" ({m.time.strftime('%H:%M')})" if m.time else "")
