@@ -179,6 +179,7 @@ class SurveyResult:
                 "emissivity": self.radiometry.emissivity,
                 "reflected_c": round(self.radiometry.reflected_c, 3),
                 "reflected_source": self.radiometry.reflected_source,
+                "reflected_estimated": not self.radiometry.reflected_source.startswith("measured"),
                 "transmittance": round(self.radiometry.transmittance, 5),
                 "transmittance_source": self.radiometry.transmittance_source,
                 "delta_c": d.threshold_c,
@@ -284,7 +285,8 @@ def _radiometry(survey: Survey, warnings: list[str]) -> Radiometry:
         reflected, source = cond.reflected_c, "measured (as entered in [conditions] reflected_c)"
     else:
         sky_view = 1.0 if survey.survey.kind == "roof" else 0.5
-        est = estimate_reflected_c(cond.air_c, cond.humidity_pct, cond.sky or "clear", sky_view=sky_view)
+        est = estimate_reflected_c(cond.air_c, cond.humidity_pct, cond.sky or "clear", sky_view=sky_view,
+                                   band_um=cam.band_um)
         reflected, source = est.reflected_c, f"estimated: {est.model}"
         # the caution about the estimate is one of the condition warnings (wetmap.conditions)
     if cam.transmittance is not None:

@@ -567,9 +567,10 @@ def _method(result: "SurveyResult", summary: dict[str, Any]) -> str:
         "dry, <b>unverified</b> when there is none.</p>"
     )
     if estimated:
-        text += ("<p class='caution'>The reflected temperature was <b>estimated</b>, not measured. In the "
-                 "camera's long-wave band a clear sky is colder than a broadband estimate; a measured value "
-                 "(ASTM E1862) is preferable.</p>")
+        text += ("<p class='caution'>The reflected temperature was <b>estimated</b>, not measured: from the "
+                 "sky's emission in the camera's 8-14 µm window (Idso 1981) for the recorded air temperature, "
+                 "humidity and cloud. The real sky varies; a measured reflected apparent temperature (ASTM E1862) "
+                 "is preferable.</p>")
     return text + f'<table class="kv" id="method">{body}</table>' + _imagery(result, summary)
 
 
