@@ -153,6 +153,7 @@ class SurveyResult:
             "wet_fraction": round(wet / roof_area, 6) if roof_area > 0 else 0.0,
             "repair_area_m2": round(self.repair.area, 4),
             "boards": self.takeoff.count,
+            "boards_range": list(self.takeoff.count_range) if self.takeoff.count_range is not None else None,
             "board_area_m2": round(self.takeoff.board_area_m2, 4),
             "tearoff_area_m2": round(self.takeoff.tearoff_area_m2, 4),
             **self._quantity_entries(),
@@ -193,6 +194,7 @@ class SurveyResult:
                 "include_unverified": s.repair.include_unverified,
                 "board_angle_deg": round(self.takeoff.angle_deg, 6) if s.repair.board_m else None,
                 "board_origin": [round(v, 4) for v in self.takeoff.origin_xy] if s.repair.board_m else None,
+                "board_origin_rule": self.takeoff.origin_rule if s.repair.board_m else None,
                 "replace_above_pct": s.repair.replace_above_pct,
                 "area_units": list(s.repair.area_units),
                 "processing": self._processing(),
@@ -728,6 +730,8 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         sections=sections, settings=survey.repair, prices=survey.prices, kind=survey.survey.kind,
     )
     warnings.extend(quantities.notes)
+    if quantities.takeoff.range_note:
+        warnings.append(quantities.takeoff.range_note)
     repair, takeoff, totals = quantities.repair, quantities.takeoff, quantities.sections
     return SurveyResult(
         survey=survey, grid=grid, surface_c=surface_c, detection=detection, outline=outline,

@@ -717,6 +717,11 @@ def _quantities(result: "SurveyResult", summary: dict[str, Any]) -> str:
         ("Repair outline perimeter (cut edge)", _cell(float(result.repair.length), None, suffix=" m")),
         ("Margin beyond the anomaly outline", _cell(s.margin_m, None, ",.2f", " m")),
         ("Whole boards", _cell(summary["boards"], "boards")),
+        *([("Whole boards, fewest to most with where the joints lie",
+            f"<td class='num' data-key='boards_range'>{summary['boards_range'][0]}–{summary['boards_range'][1]}</td>")]
+          if summary.get("boards_range") else []),
+        *([("Board grid origin", f"<td>{_esc(result.takeoff.origin_rule)}</td>")]
+          if s.board_m and result.takeoff.origin_rule else []),
         ("Board size", f"<td>{'–' if not s.board_m else f'{s.board_m[0]:g} x {s.board_m[1]:g} m'}</td>"),
         ("Board area", _cell(summary.get("board_area_m2"), "board_area_m2", suffix=" m²")),
         ("Tear-off area", _cell(summary.get("tearoff_area_m2"), "tearoff_area_m2", suffix=" m²")),
