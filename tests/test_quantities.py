@@ -609,6 +609,7 @@ def test_board_range_in_outputs(tmp_path):
     assert [int(r["boards"]) for r in ends] == [low, high]
     assert "board_range" not in s and result.takeoff.count == s["boards"]
     html = (out / "report.html").read_text(encoding="utf-8")
-    assert "data-key='boards_range'" in html and "Board grid origin" in html
+    assert f"fewest to most with where the joints lie</th><td class='num'>{low} to {high}</td>" in html
+    assert "Board grid origin" in html
     if low < high:
         assert any("whole boards:" in w and "board_origin" in w for w in s["warnings"])

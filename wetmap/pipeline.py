@@ -561,8 +561,9 @@ def _fade_models(survey: Survey, sections, polys, hours: list[float],
     """The cool-down model's wet-dry contrast (K) for each anomaly's assembly at each pass.
 
     The insulation is ``[cooldown] insulation`` when given, else the one the section holding
-    most of the anomaly names; anomalies in no section use the largest section naming one. ``None`` (fading then judged on raw deltas, with a
-    note) when the model cannot run: a hull, no sunset, no insulation named.
+    most of the anomaly names; anomalies in no section use the largest section naming one.
+    ``None`` (fading then judged on raw deltas, with a note) when the model cannot run: a
+    hull, no sunset, no insulation named.
     """
     from .cooldown import plan_survey_window
     from .errors import WetmapError

@@ -719,7 +719,7 @@ def _quantities(result: "SurveyResult", summary: dict[str, Any]) -> str:
         ("Margin beyond the anomaly outline", _cell(s.margin_m, None, ",.2f", " m")),
         ("Whole boards", _cell(summary["boards"], "boards")),
         *([("Whole boards, fewest to most with where the joints lie",
-            f"<td class='num' data-key='boards_range'>{summary['boards_range'][0]}–{summary['boards_range'][1]}</td>")]
+            f"<td class='num'>{summary['boards_range'][0]} to {summary['boards_range'][1]}</td>")]
           if summary.get("boards_range") else []),
         *([("Board grid origin", f"<td>{_esc(result.takeoff.origin_rule)}</td>")]
           if s.board_m and result.takeoff.origin_rule else []),
