@@ -136,6 +136,50 @@ def test_fading_flag_on_a_primary_anomaly():
     assert any("anomaly 1 is fading" in w for w in result.warnings())
 
 
+def test_fading_judged_against_the_model_on_arrays():
+    # the same 4.0 -> 1.5 K decay as above is kept when the cool-down model predicts the
+    # contrast of that assembly to fall from 0.8 to 0.35 K (1.5 / 0.35 is 0.94 of 4.0 / 0.8),
+    # and still flagged when the model predicts a flat contrast (values invented)
+    t = Affine(1.0, 0, 0, 0, -1.0, 10.0)
+    d1 = np.zeros((10, 10)); d1[2:6, 2:6] = 4.0
+    d2 = np.zeros((10, 10)); d2[2:6, 2:6] = 1.5
+    lab1, n1 = label_regions(d1 > 1.0)
+    lab2, n2 = label_regions(d2 > 1.0)
+    kept = compare_passes([d1, d2], [d1, d2], [lab1, lab2], [n1, n2], hours=[0.0, 2.0], pass_labels=["a", "b"],
+                          transform=t, model_delta_c=np.array([[0.8, 0.35]]))
+    assert not kept.anomalies[0].fading and kept.anomalies[0].model_delta_by_pass_c == (0.8, 0.35)
+    assert not any("is fading" in w for w in kept.warnings())
+    flat = compare_passes([d1, d2], [d1, d2], [lab1, lab2], [n1, n2], hours=[0.0, 2.0], pass_labels=["a", "b"],
+                          transform=t, model_delta_c=np.array([[0.8, 0.8]]))
+    assert flat.anomalies[0].fading and "cool-down model" in flat.anomalies[0].fade_basis
+    # a model predicting no contrast at a pass says nothing there: the raw rule is not used either
+    from wetmap.passes import MODEL_MIN_C, judge_fading
+
+    assert judge_fading([4.0, 1.5], model_c=[0.8, MODEL_MIN_C / 2]) == (False, judge_fading([4.0, 1.5],
+                                                                                           model_c=[0.8, 0.8])[1])
+    with pytest.raises(ValueError, match="model_delta_c"):
+        compare_passes([d1, d2], [d1, d2], [lab1, lab2], [n1, n2], hours=[0.0, 2.0], pass_labels=["a", "b"],
+                       transform=t, model_delta_c=np.array([0.8, 0.35]))
+
+
+def test_choose_primary_by_contrast_and_ties():
+    from wetmap.passes import choose_primary, pass_contrast_c
+
+    assert choose_primary([0.9, 1.7, 1.2])[0] == 1  # the greatest
+    assert choose_primary([1.70, 1.68, 0.5])[0] == 1  # within 0.085 K (5 %) of it: the later one
+    assert choose_primary([1.70, 1.50, 0.5])[0] == 0  # 0.2 K lower: the earlier pass wins
+    assert choose_primary([np.nan, np.nan, np.nan])[0] == 2  # nothing to compare: the last
+    # contrast on the same pixels in every pass: a patch seen once does not count when one
+    # is seen twice (slow reference: the mean over the persistent patch's union by hand)
+    lab_a = np.zeros((10, 10), int); lab_a[1:4, 1:4] = 1; lab_a[6:9, 6:9] = 2
+    lab_b = np.zeros((10, 10), int); lab_b[1:5, 1:4] = 1
+    d_a = np.where(lab_a > 0, 2.0, 0.0)
+    d_b = np.where(lab_b > 0, 1.0, 0.0)
+    union = (lab_a == 1) | (lab_b == 1)
+    got = pass_contrast_c([d_a, d_b], [lab_a, lab_b], [2, 1])
+    assert got.tolist() == pytest.approx([d_a[union].mean(), d_b[union].mean()])
+
+
 def test_align_to_grid_same_and_finer():
     v = np.arange(12, dtype=np.float32).reshape(3, 4)
     t = Affine(1.0, 0, 100.0, 0, -1.0, 50.0)
@@ -418,3 +462,16 @@ def test_perlite_wet_area_kept_and_surface_water_fades(three_pass):
     s, water = _track_at(result, WATER)
     assert water.fading  # 0.2 K in the last pass where wet perlite would still show most of its contrast
     assert any(f"anomaly {s.id} is fading" in w for w in result.warnings)
+
+
+def test_without_a_cool_down_model_fading_uses_raw_deltas_and_says_so(tmp_path):
+    # no [conditions] sunset: the cool-down model cannot run; the raw deltas are compared
+    # (a fixed ratio) and a warning says that closed-cell wet areas may then be flagged
+    folder = tmp_path / "survey"
+    _write_three_pass_survey(folder)
+    toml = folder / "survey.toml"
+    toml.write_text(toml.read_text(encoding="utf-8").replace('sunset = "17:30"\n', ""), encoding="utf-8")
+    result = process_survey(folder)
+    assert any("judged on the raw deltas" in w and "sunset" in w for w in result.warnings)
+    _, track = _track_at(result, W_A)
+    assert track.fading and "no cool-down model" in track.fade_basis
