@@ -501,11 +501,14 @@ def _conditions(result: "SurveyResult") -> str:
         except Exception:  # noqa: BLE001 - a display nicety; the CRS was validated when the survey loaded
             pass
     rows.append(("Air temperature", f"{c.air_c:g} °C"))
-    rows.append(("Relative humidity", f"{c.humidity_pct:g} %"))
+    rows.append(("Relative humidity", f"{c.humidity_pct:g} % (over water)"))
     try:
-        from ..conditions import dew_point_c
+        from ..conditions import dew_point_c, frost_point_c
 
         rows.append(("Dew point (computed, Magnus formula)", f"{dew_point_c(c.air_c, c.humidity_pct):.1f} °C"))
+        frost = frost_point_c(c.air_c, c.humidity_pct)
+        if frost < 0.0:
+            rows.append(("Frost point (computed, Magnus over ice)", f"{frost:.1f} °C"))
     except Exception:  # noqa: BLE001 - the same: shown when it can be computed
         pass
     rows.append(("Wind", "not given" if c.wind_m_s is None else f"{c.wind_m_s:g} m/s"))
