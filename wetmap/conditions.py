@@ -500,7 +500,9 @@ def estimate_reflected_c(
       surroundings at air temperature over the rest, mixed as band radiance.
 
     Idso's emissivity is a hemispherical (flux) value, which is what a diffusely
-    reflecting surface returns. A measured reflected apparent temperature (ASTM E1862)
+    reflecting surface returns. The model is for long-wave cameras: a band outside
+    8-14 um (a 3-5 um camera looks through another window) is taken as opaque sky at air
+    temperature, which is wrong there; measure the reflected temperature for such a camera. A measured reflected apparent temperature (ASTM E1862)
     is always preferred; the estimate is a documented default that ``[conditions]
     reflected_c`` overrides.
 
