@@ -29,7 +29,7 @@ from .confirm import (AreaRange, Status, SuggestedCore, ThresholdCheck, Verdicts
 from .confirmations import Confirmations, read_confirmations
 from .detect import Detection, default_background_m, detect_anomalies
 from .errors import InputFileError, ProcessingError
-from .passes import PassComparison, align_to_grid, compare_passes, group_passes
+from .passes import PassComparison, align_to_grid, choose_primary, compare_passes, group_passes, pass_contrast_c
 from .polygons import RegionStats, label_regions, polygonize, region_stats
 from .quantities import BoardTakeoff, Quantities, SectionTotals, compute_quantities, largest_overlap
 from .rasters import PlanGrid, inspect_raster, plan_grid_for, read_onto_grid
@@ -154,6 +154,7 @@ class SurveyResult:
             "wet_fraction": round(wet / roof_area, 6) if roof_area > 0 else 0.0,
             "repair_area_m2": round(self.repair.area, 4),
             "boards": self.takeoff.count,
+            "boards_range": list(self.takeoff.count_range) if self.takeoff.count_range is not None else None,
             "board_area_m2": round(self.takeoff.board_area_m2, 4),
             "tearoff_area_m2": round(self.takeoff.tearoff_area_m2, 4),
             **self._quantity_entries(),
@@ -180,6 +181,7 @@ class SurveyResult:
                 "emissivity": self.radiometry.emissivity,
                 "reflected_c": round(self.radiometry.reflected_c, 3),
                 "reflected_source": self.radiometry.reflected_source,
+                "reflected_estimated": not self.radiometry.reflected_source.startswith("measured"),
                 "transmittance": round(self.radiometry.transmittance, 5),
                 "transmittance_source": self.radiometry.transmittance_source,
                 "delta_c": d.threshold_c,
@@ -193,6 +195,7 @@ class SurveyResult:
                 "include_unverified": s.repair.include_unverified,
                 "board_angle_deg": round(self.takeoff.angle_deg, 6) if s.repair.board_m else None,
                 "board_origin": [round(v, 4) for v in self.takeoff.origin_xy] if s.repair.board_m else None,
+                "board_origin_rule": self.takeoff.origin_rule if s.repair.board_m else None,
                 "replace_above_pct": s.repair.replace_above_pct,
                 "area_units": list(s.repair.area_units),
                 "processing": self._processing(),
@@ -305,7 +308,8 @@ def _radiometry(survey: Survey, warnings: list[str]) -> Radiometry:
         reflected, source = cond.reflected_c, "measured (as entered in [conditions] reflected_c)"
     else:
         sky_view = 1.0 if survey.survey.kind == "roof" else 0.5
-        est = estimate_reflected_c(cond.air_c, cond.humidity_pct, cond.sky or "clear", sky_view=sky_view)
+        est = estimate_reflected_c(cond.air_c, cond.humidity_pct, cond.sky or "clear", sky_view=sky_view,
+                                   band_um=cam.band_um)
         reflected, source = est.reflected_c, f"estimated: {est.model}"
         # the caution about the estimate is one of the condition warnings (wetmap.conditions)
     if cam.transmittance is not None:
@@ -517,32 +521,124 @@ def _condition_warnings(survey: Survey, sections, *, surface_c: float | None = N
     return [w.text for w in found]
 
 
-def _compare_passes(survey: Survey, groups, outline: BaseGeometry, radiometry: Radiometry, warnings: list[str],
-                    progress: Progress | None, *, grid: PlanGrid, surface_c: np.ndarray, in_roof: np.ndarray,
-                    detection: Detection, labels: np.ndarray, count: int, background_m: float) -> PassComparison:
-    """Detect anomalies in each earlier pass and compare them with the primary (last) pass."""
-    sdt = survey.detect
-    surfaces, deltas, label_list, counts = [], [], [], []
-    for g in groups[:-1]:
-        _emit(progress, f"pass {g.label}: surface temperature and detection")
+@dataclass(frozen=True)
+class _PassImage:
+    """One pass on its own plan grid: surface temperature (°C) and what reading it said."""
+
+    grid: PlanGrid
+    surface_c: np.ndarray
+    warnings: tuple[str, ...]
+    registration: tuple[FrameReport, ...]
+    views: tuple[Any, ...]
+
+
+def _pass_images(survey: Survey, groups, outline: BaseGeometry, radiometry: Radiometry,
+                 progress: Progress | None) -> list[_PassImage]:
+    """Every pass's surface temperature on its own plan grid (each read once)."""
+    out = []
+    for g in groups:
+        _emit(progress, f"pass {g.label}: surface temperature")
         sub = replace(survey, mosaics=g.mosaics, frames=g.frames)
-        g_grid, g_surface = _surface_on_grid(sub, outline, radiometry, warnings, progress)
-        g_surface = align_to_grid(g_surface, g_grid.transform, grid.transform, grid.shape)
-        g_usable = in_roof & np.isfinite(g_surface)
-        det = detect_anomalies(g_surface, g_usable, pixel_m=grid.pixel_m, delta_c=sdt.delta_c,
-                               background_m=background_m, min_area_m2=sdt.min_area_m2)
-        lab, n = label_regions(det.mask)
-        surfaces.append(np.where(g_usable, g_surface, np.nan))
-        deltas.append(det.delta_c)
+        notes: list[str] = []
+        reports: list[FrameReport] = []
+        views: list = []
+        g_grid, g_surface = _surface_on_grid(sub, outline, radiometry, notes, progress, registration=reports,
+                                             views=views)
+        out.append(_PassImage(g_grid, g_surface, tuple(notes), tuple(reports), tuple(views)))
+    return out
+
+
+def _detect_pass(image: _PassImage, grid: PlanGrid, in_roof: np.ndarray, survey: Survey,
+                 background_m: float) -> tuple[np.ndarray, np.ndarray, np.ndarray, int]:
+    """One pass on ``grid``: its surface (NaN off the roof), delta-T, labels and count."""
+    sdt = survey.detect
+    g_surface = align_to_grid(image.surface_c, image.grid.transform, grid.transform, grid.shape)
+    g_usable = in_roof & np.isfinite(g_surface)
+    det = detect_anomalies(g_surface, g_usable, pixel_m=grid.pixel_m, delta_c=sdt.delta_c,
+                           background_m=background_m, min_area_m2=sdt.min_area_m2)
+    lab, n = label_regions(det.mask)
+    return np.where(g_usable, g_surface, np.nan), det.delta_c, lab, n
+
+
+def _choose_primary_pass(survey: Survey, images: list[_PassImage], roof: BaseGeometry, background_m: float,
+                         progress: Progress | None) -> tuple[int, str, tuple[float, ...], dict]:
+    """The pass with the greatest wet-dry contrast (:func:`wetmap.passes.choose_primary`).
+
+    The passes are compared on the last pass's grid; their detections there are returned
+    (pass index -> surface, delta, labels, count) for reuse when the primary pass has that grid.
+    """
+    _emit(progress, "comparing the passes' wet-dry contrast")
+    grid = images[-1].grid
+    in_roof = _mask_of(roof, grid)
+    found = {k: _detect_pass(im, grid, in_roof, survey, background_m) for k, im in enumerate(images)}
+    contrast = pass_contrast_c([found[k][1] for k in found], [found[k][2] for k in found],
+                               [found[k][3] for k in found])
+    index, rule = choose_primary(contrast)
+    return index, rule, tuple(float(c) for c in contrast), {"grid": grid, "found": found}
+
+
+def _fade_models(survey: Survey, sections, polys, hours: list[float],
+                 warnings: list[str]) -> np.ndarray | None:
+    """The cool-down model's wet-dry contrast (K) for each anomaly's assembly at each pass.
+
+    The insulation is ``[cooldown] insulation`` when given, else the one the section holding
+    most of the anomaly names; anomalies in no section use the largest section naming one.
+    ``None`` (fading then judged on raw deltas, with a note) when the model cannot run: a
+    hull, no sunset, no insulation named.
+    """
+    from .cooldown import plan_survey_window
+    from .errors import WetmapError
+
+    if not polys:
+        return None
+    section_of = largest_overlap(polys, [s.geometry for s in sections])
+    plans: dict[int, np.ndarray | None] = {}
+    reasons: list[str] = []
+    out = np.full((len(polys), len(hours)), np.nan)
+    for i, k in enumerate(section_of):
+        if k not in plans:
+            try:
+                plan = plan_survey_window(survey, sections=[sections[k]] if k >= 0 else sections, step_s=300.0)
+                plans[k] = np.interp(hours, plan.hours_after_sunset, plan.delta_c, left=np.nan, right=np.nan)
+            except (WetmapError, ValueError) as err:
+                plans[k] = None
+                reasons.append(str(err).split(": ", 1)[-1])
+        if plans[k] is not None:
+            out[i] = plans[k]
+    if reasons:
+        warnings.append("fading between passes judged on the raw deltas for some anomalies (no cool-down model: "
+                        f"{reasons[0]}); a closed-cell wet area whose contrast decays may then be flagged fading")
+    return out if np.isfinite(out).any() else None
+
+
+def _compare_passes(survey: Survey, groups, images: list[_PassImage], choice: tuple, warnings: list[str],
+                    progress: Progress | None, *, grid: PlanGrid, surface_c: np.ndarray, in_roof: np.ndarray,
+                    detection: Detection, labels: np.ndarray, count: int, background_m: float,
+                    sections=(), polys=()) -> PassComparison:
+    """Detect anomalies in the other passes and compare them with the primary pass."""
+    primary, rule, contrast, cache = choice
+    same_grid = (cache["grid"].shape == grid.shape and cache["grid"].transform.almost_equals(grid.transform))
+    surfaces, deltas, label_list, counts = [], [], [], []
+    for k, image in enumerate(images):
+        if k == primary:
+            surfaces.append(np.where(in_roof & np.isfinite(surface_c), surface_c, np.nan))
+            deltas.append(detection.delta_c)
+            label_list.append(labels)
+            counts.append(count)
+            continue
+        _emit(progress, f"pass {groups[k].label}: detection")
+        g_surface, g_delta, lab, n = (cache["found"][k] if same_grid
+                                      else _detect_pass(image, grid, in_roof, survey, background_m))
+        surfaces.append(g_surface)
+        deltas.append(g_delta)
         label_list.append(lab)
         counts.append(n)
-    surfaces.append(np.where(in_roof & np.isfinite(surface_c), surface_c, np.nan))
-    deltas.append(detection.delta_c)
-    label_list.append(labels)
-    counts.append(count)
+    hours = [g.hours for g in groups]
+    model = _fade_models(survey, list(sections), list(polys), hours, warnings) if count else None
     _emit(progress, "matching anomalies across passes")
-    result = compare_passes(surfaces, deltas, label_list, counts, hours=[g.hours for g in groups],
-                            pass_labels=[g.label for g in groups], transform=grid.transform)
+    result = compare_passes(surfaces, deltas, label_list, counts, hours=hours,
+                            pass_labels=[g.label for g in groups], transform=grid.transform, primary=primary,
+                            model_delta_c=model, contrast_c=contrast, primary_rule=rule)
     warnings.extend(result.warnings())
     return result
 
@@ -600,25 +696,41 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         raise InputFileError(f"{survey.plan.exclusions}: the exclusions cover the whole outline; nothing is left to survey")
 
     radiometry = _radiometry(survey, warnings)
-    # several passes (imagery with different times): the last pass is the primary detection
+    # several passes (imagery with different times): the pass with the greatest wet-dry
+    # contrast is the primary detection (wetmap.passes.choose_primary)
     pass_groups, notes = group_passes(survey.mosaics, survey.frames, sunset=survey.conditions.sunset)
     warnings.extend(notes)
-    primary = survey if len(pass_groups) == 1 else replace(
-        survey, mosaics=pass_groups[-1].mosaics, frames=pass_groups[-1].frames)
     frame_reports: list[FrameReport] = []
     frame_views: list = []  # the placed frames, for the imagery checks (wetmap.imagery)
     area_word = _area_word(survey)
     sdt = survey.detect
     x0, y0, x1, y1 = outline.bounds
     background_m = sdt.background_m or default_background_m(survey.survey.kind, max(x1 - x0, y1 - y0))
+    pass_images: list[_PassImage] | None = None
+    choice = None
+    if len(pass_groups) > 1:
+        pass_images = _pass_images(survey, pass_groups, outline, radiometry, progress)
+        choice = _choose_primary_pass(survey, pass_images, roof, background_m, progress)
+        for k, image in enumerate(pass_images):
+            if k != choice[0]:
+                warnings.extend(image.warnings)
+    primary = survey if choice is None else replace(
+        survey, mosaics=pass_groups[choice[0]].mosaics, frames=pass_groups[choice[0]].frames)
     # one pass of large mosaics on the plan grid's lattice: in windows, same result (wetmap.tiles)
     tiled = None if len(pass_groups) > 1 else detect_in_windows(
         primary, outline=outline, roof=roof, radiometry=radiometry, background_m=background_m, tile_px=tile_px,
         scheduler=scheduler, scratch=None if scratch is None else Path(scratch), progress=progress,
         window_progress=window_progress)
     if tiled is None:
-        grid, surface_c = _surface_on_grid(primary, outline, radiometry, warnings, progress,
-                                           registration=frame_reports, views=frame_views)
+        if pass_images is not None and choice is not None:  # several passes: the chosen one, already read
+            chosen = pass_images[choice[0]]
+            grid, surface_c = chosen.grid, chosen.surface_c
+            warnings.extend(chosen.warnings)
+            frame_reports.extend(chosen.registration)
+            frame_views.extend(chosen.views)
+        else:
+            grid, surface_c = _surface_on_grid(primary, outline, radiometry, warnings, progress,
+                                               registration=frame_reports, views=frame_views)
         _emit(progress, "masking the roof")
         in_roof = _mask_of(roof, grid)
         usable = in_roof & np.isfinite(surface_c)
@@ -669,9 +781,10 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         polys = list(tiled.polygons)
         dry_c = detection.background_c[np.isfinite(detection.background_c)]
         range_min_pixels = tiled.preview_min_pixels  # the wet-area range is computed on the preview
-    passes = None if len(pass_groups) == 1 else _compare_passes(
-        survey, pass_groups, outline, radiometry, warnings, progress, grid=grid, surface_c=surface_c,
-        in_roof=in_roof, detection=detection, labels=labels, count=count, background_m=background_m)
+    passes = None if pass_images is None else _compare_passes(
+        survey, pass_groups, pass_images, choice, warnings, progress, grid=grid, surface_c=surface_c,
+        in_roof=in_roof, detection=detection, labels=labels, count=count, background_m=background_m,
+        sections=sections, polys=polys)
     warnings[:0] = _condition_warnings(survey, sections, surface_c=float(np.nanmedian(dry_c))
                                        if np.isfinite(dry_c).any() else None)
 
@@ -752,6 +865,8 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         sections=sections, settings=survey.repair, prices=survey.prices, kind=survey.survey.kind,
     )
     warnings.extend(quantities.notes)
+    if quantities.takeoff.range_note:
+        warnings.append(quantities.takeoff.range_note)
     repair, takeoff, totals = quantities.repair, quantities.takeoff, quantities.sections
     return SurveyResult(
         survey=survey, grid=grid, surface_c=surface_c, detection=detection, outline=outline,

@@ -75,6 +75,7 @@ _SHOWN_KEYS = frozenset({
     "tearoff_area_m2", "warnings", "sections", "coverage", "confirmations", "method", "wetmap_version",
     "wet_area_range_m2", "wet_area_range", "threshold_check", "suggested_cores",
     "imagery", "reflection_suspect",  # shown under "Imagery checks" in the method section
+    "boards_range",  # shown with the repair quantities
 })
 
 
@@ -515,11 +516,14 @@ def _conditions(result: "SurveyResult") -> str:
         except Exception:  # noqa: BLE001 - a display nicety; the CRS was validated when the survey loaded
             pass
     rows.append(("Air temperature", f"{c.air_c:g} °C"))
-    rows.append(("Relative humidity", f"{c.humidity_pct:g} %"))
+    rows.append(("Relative humidity", f"{c.humidity_pct:g} % (over water)"))
     try:
-        from ..conditions import dew_point_c
+        from ..conditions import dew_point_c, frost_point_c
 
         rows.append(("Dew point (computed, Magnus formula)", f"{dew_point_c(c.air_c, c.humidity_pct):.1f} °C"))
+        frost = frost_point_c(c.air_c, c.humidity_pct)
+        if frost < 0.0:
+            rows.append(("Frost point (computed, Magnus over ice)", f"{frost:.1f} °C"))
     except Exception:  # noqa: BLE001 - the same: shown when it can be computed
         pass
     rows.append(("Wind", "not given" if c.wind_m_s is None else f"{c.wind_m_s:g} m/s"))
@@ -584,9 +588,10 @@ def _method(result: "SurveyResult", summary: dict[str, Any]) -> str:
         + w.status_note + ".</p>"
     )
     if estimated:
-        text += ("<p class='caution'>The reflected temperature was <b>estimated</b>, not measured. In the "
-                 "camera's long-wave band a clear sky is colder than a broadband estimate; a measured value "
-                 "(ASTM E1862) is preferable.</p>")
+        text += ("<p class='caution'>The reflected temperature was <b>estimated</b>, not measured: from the "
+                 "sky's emission in the camera's 8-14 µm window (Idso 1981) for the recorded air temperature, "
+                 "humidity and cloud. The real sky varies; a measured reflected apparent temperature (ASTM E1862) "
+                 "is preferable.</p>")
     return text + f'<table class="kv" id="method">{body}</table>' + _imagery(result, summary)
 
 
@@ -741,6 +746,11 @@ def _quantities(result: "SurveyResult", summary: dict[str, Any]) -> str:
     if w.whole_boards:
         rows += [
             ("Whole boards", _cell(summary["boards"], "boards")),
+            *([("Whole boards, fewest to most with where the joints lie",
+                f"<td class='num'>{summary['boards_range'][0]} to {summary['boards_range'][1]}</td>")]
+              if summary.get("boards_range") else []),
+            *([("Board grid origin", f"<td>{_esc(result.takeoff.origin_rule)}</td>")]
+              if s.board_m and result.takeoff.origin_rule else []),
             ("Board size", f"<td>{'–' if not s.board_m else f'{s.board_m[0]:g} x {s.board_m[1]:g} m'}</td>"),
             ("Board area", _cell(summary.get("board_area_m2"), "board_area_m2", suffix=" m²")),
             ("Tear-off area", _cell(summary.get("tearoff_area_m2"), "tearoff_area_m2", suffix=" m²")),

@@ -9,6 +9,9 @@ what each row is:
 - ``total``: the whole roof;
 - ``range``: ``low end`` and ``high end`` of the counted wet area (``wet_area_*``) at the
   thresholds of :func:`wetmap.confirm.area_thresholds`, widened by the outline's uncertainty;
+- ``board range``: without ``[repair] board_origin``, the ``fewest`` and ``most`` whole
+  ``boards`` over the board-grid origins tried; the total row gives the median
+  (:func:`wetmap.quantities.board_takeoff_over_origins`);
 - ``bill``: one per line of the bill of quantities (``bill_item``, ``bill_unit``,
   ``bill_quantity``, ``rate``, ``amount``, ``currency``), then ``bill total``.
 
@@ -172,6 +175,11 @@ def write_quantities(result: "SurveyResult", path: Path) -> None:
             row = {"row": "range", "status": end}
             converted(row, wet_area=value)
             rows.append(row)
+
+    if q.takeoff.count_range is not None:  # no board origin given: the count over grid origins
+        for end, value in zip(("fewest", "most"), q.takeoff.count_range):
+            rows.append({"row": "board range", "status": f"{end} over {q.takeoff.origins_tried} grid origins",
+                         "boards": value})
 
     bill = q.bill
     for line in bill.lines:
