@@ -381,6 +381,17 @@ def _register_frames(survey: Survey, radiometry: Radiometry, warnings: list[str]
         elif fit.rms_px > SUSPECT_MIN_PX:
             warnings.append(f"{name} ([[frame]] #{i + 1}): the control points fit to {fit.rms_px:.1f} px RMS "
                             f"({fit.rms_m:.3g} m): placement is uncertain; check them")
+        if survey.survey.kind == "hull":
+            from .register import GIRTH_STRETCH_MAX, girth_stretch
+
+            stretch = girth_stretch(pts[:, :2], pts[:, 2:])
+            if stretch is not None and stretch.ratio > GIRTH_STRETCH_MAX:
+                warnings.append(
+                    f"{name} ([[frame]] #{i + 1}): between y = {stretch.ys[0]:g} and {stretch.ys[1]:g} m at stations "
+                    f"{stretch.xs[0]:g}-{stretch.xs[1]:g} m the tape marks lie {stretch.ratio:.2f} times farther apart "
+                    "in the image per metre of y than per metre of station, which marks measured along the skin do "
+                    "not show: the y values look like heights, not girths; give each mark's girth measured along "
+                    "the skin from the keel (heights make areas small where the skin flares)")
         if fit.mirrored and survey.survey.kind == "roof":
             warnings.append(f"{name} ([[frame]] #{i + 1}): the frame is a mirror image of the plan; check that each "
                             "point is [col, row, x, y] (not x and y swapped) and that the image is not flipped")

@@ -100,6 +100,9 @@ __all__ = [
     "resample_frame",
     "blend_frames",
     "placement_ranks",
+    "girth_stretch",
+    "GirthStretch",
+    "GIRTH_STRETCH_MAX",
     "SkinMap",
     "choose_model",
     "SKIN_MODELS",
@@ -1346,3 +1349,82 @@ class FrameReport:
             "view_angle_deg": {"median": r(self.view_angle_deg[0], 1), "max": r(self.view_angle_deg[1], 1)},
             "used_m2": r(self.used_m2, 4), "extrapolated_m2": r(self.extrapolated_m2, 4),
         }
+
+
+# --------------------------------------------------------------------------------------
+# Girth or height?
+# --------------------------------------------------------------------------------------
+
+#: A cell of tape marks whose image is this many times longer per plan metre along y than
+#: along x looks taped by height, not girth (1 / cos 40 degrees: see :func:`girth_stretch`).
+GIRTH_STRETCH_MAX = 1.3
+
+
+@dataclass(frozen=True)
+class GirthStretch:
+    """The most stretched cell of a hull frame's tape grid (:func:`girth_stretch`).
+
+    Attributes
+    ----------
+    ratio
+        Image length per plan metre along y over image length per plan metre along x.
+    xs, ys
+        ``(x0, x1)`` stations and ``(y0, y1)`` plan y of the cell, metres.
+    """
+
+    ratio: float
+    xs: tuple[float, float]
+    ys: tuple[float, float]
+
+
+def girth_stretch(image_cr: np.ndarray, plan_xy: np.ndarray) -> GirthStretch | None:
+    """How much a hull frame's tape grid looks stretched along plan y, per cell of 4 marks.
+
+    For each cell of marks at two stations ``x0, x1`` and two plan ``y0, y1`` (all four
+    given), the mean image length of its two y-sides per metre of ``y1 - y0`` over the mean
+    image length of its two x-sides per metre of ``x1 - x0``.
+
+    Why it tells girths from heights: the developed plan is the skin unrolled, lengths kept.
+    A camera shortens a skin cell along the direction in which the skin turns away from it and
+    keeps its length across that direction; facing a hull side, the skin turns away across the
+    hull (around the bilge), not along it, so per metre of girth a cell never looks longer than
+    per metre of station, except by ``1 / cos`` of the angle at which the camera looks along the
+    hull (1.3 at 40 degrees, :data:`GIRTH_STRETCH_MAX`). A height is shorter than the girth it
+    spans by ``cos`` of the skin's angle from vertical, so at the bilge and bottom seen from
+    level or from below, height steps look stretched in the image by up to ``1 / cos`` of that
+    angle. A view from above the bilge shortens both alike: the test cannot then tell, and a
+    stretch below the limit proves nothing.
+
+    Returns
+    -------
+    GirthStretch or None
+        The cell with the largest ratio; ``None`` when the marks form no complete cell.
+
+    >>> xy = np.array([[0, 0], [1, 0], [0, 1], [1, 1]], dtype=float)
+    >>> cr = np.array([[0, 0], [50, 0], [0, 80], [50, 80]], dtype=float)  # 80 px per metre of y, 50 of x
+    >>> girth_stretch(cr, xy).ratio
+    1.6
+    """
+    image_cr = np.asarray(image_cr, dtype=np.float64).reshape(-1, 2)
+    plan_xy = np.asarray(plan_xy, dtype=np.float64).reshape(-1, 2)
+    tol = _REL_TOL * max(_spread(plan_xy), 1e-12)
+    keys = {(round(x / tol), round(y / tol)): i for i, (x, y) in enumerate(plan_xy)}
+    xs = np.unique(np.round(plan_xy[:, 0] / tol))
+    ys = np.unique(np.round(plan_xy[:, 1] / tol))
+    best: GirthStretch | None = None
+    for a, b in zip(xs[:-1], xs[1:]):
+        for c, d in zip(ys[:-1], ys[1:]):
+            k = [keys.get(key) for key in ((a, c), (a, d), (b, c), (b, d))]
+            if None in k:
+                continue
+            p = image_cr[k]
+            x0, y0 = plan_xy[k[0]]
+            x1, y1 = plan_xy[k[3]]
+            along_y = 0.5 * (np.hypot(*(p[1] - p[0])) + np.hypot(*(p[3] - p[2]))) / (y1 - y0)
+            along_x = 0.5 * (np.hypot(*(p[2] - p[0])) + np.hypot(*(p[3] - p[1]))) / (x1 - x0)
+            if along_x <= 0:
+                continue
+            ratio = float(along_y / along_x)
+            if best is None or ratio > best.ratio:
+                best = GirthStretch(ratio=round(ratio, 6), xs=(float(x0), float(x1)), ys=(float(y0), float(y1)))
+    return best
