@@ -498,3 +498,67 @@ def test_flat_samples_are_unchanged(name, tmp_path):
     assert s["anomaly_count"] == before["anomaly_count"]
     assert abs(s["wet_area_m2"] / before["wet_area_m2"] - 1) <= 0.01
     assert all(r["model"] == "homography" for r in s["registration"])
+
+
+def test_heights_instead_of_girths_are_warned(tmp_path):
+    """The same frames with each mark's height above the keel given as y: warned (the two low
+    views see the bottom and bilge stretched along y); the girths of the fixture are not."""
+    from wetmap.pipeline import check_survey
+
+    write_survey(tmp_path / "heights", heights=True)
+    _, found = check_survey(tmp_path / "heights")
+    stretched = [w for w in found if "look like heights, not girths" in w]
+    assert len(stretched) == 2 and all("bilge1" in w or "bilge3" in w for w in stretched)
+    write_survey(tmp_path / "girths")
+    _, found = check_survey(tmp_path / "girths")
+    assert not [w for w in found if "look like heights" in w]
+
+
+def test_heights_give_a_small_area_girths_do_not(bilge, tmp_path):
+    """Why the warning matters: taped by height, the wet area on the bilge comes out small."""
+    from wetmap.pipeline import process_survey
+
+    write_survey(tmp_path / "heights", heights=True)
+    small = sum(a.area_m2 for a in process_survey(tmp_path / "heights").anomalies)
+    _, result, _ = bilge
+    right = sum(a.area_m2 for a in result.anomalies)
+    assert small < 0.85 * right
+
+
+def test_the_better_view_wins_where_frames_overlap():
+    """Two frames of one plan pixel row: one square-on, one at 65 degrees. Only the square-on
+    one is used where both cover; the oblique one fills where it is alone. With both beyond
+    the limit and within the tolerance of each other, both are averaged."""
+    from wetmap.register import ResampledFrame, blend_frames, placement_ranks
+
+    one = np.ones((1, 3), np.float32)
+    good = ResampledFrame((0, 1, 0, 3), one * 10, one, one, view_angle_deg=np.array([[10, 10, 10]], np.float32))
+    oblique = ResampledFrame((0, 1, 1, 4), one * 20, one * 5, one, view_angle_deg=np.array([[65, 65, 65]], np.float32))
+    out = blend_frames([good, oblique], (1, 4))
+    assert out.tolist() == [[10.0, 10.0, 10.0, 20.0]]
+    ranks = placement_ranks([good, oblique], (1, 4))
+    assert ranks[1].tolist() == [[1, 1, 0]]
+    a = ResampledFrame((0, 1, 0, 3), one * 10, one, one, view_angle_deg=np.array([[64, 64, 64]], np.float32))
+    b = ResampledFrame((0, 1, 0, 3), one * 20, one, one, view_angle_deg=np.array([[66, 66, 66]], np.float32))
+    assert blend_frames([a, b], (1, 3)).tolist() == [[15.0, 15.0, 15.0]]
+    assert blend_frames([a, b], (1, 3), max_view_angle_deg=70).tolist() == [[15.0, 15.0, 15.0]]
+    c = ResampledFrame((0, 1, 0, 3), one * 20, one, one, view_angle_deg=np.array([[80, 80, 80]], np.float32))
+    assert blend_frames([a, c], (1, 3)).tolist() == [[10.0, 10.0, 10.0]]
+
+
+def test_max_view_angle_key(tmp_path):
+    """``[camera] max_view_angle_deg``: read, defaulted to 60 and range-checked."""
+    from wetmap.errors import SurveyError
+    from wetmap.survey import load_survey
+
+    folder = tmp_path / "angle"
+    write_survey(folder)
+    assert load_survey(folder).camera.max_view_angle_deg == 60.0
+    text = (folder / "survey.toml").read_text(encoding="utf-8")
+    (folder / "survey.toml").write_text(text.replace("[camera]\n", "[camera]\nmax_view_angle_deg = 45\n"),
+                                        encoding="utf-8")
+    assert load_survey(folder).camera.max_view_angle_deg == 45.0
+    (folder / "survey.toml").write_text(text.replace("[camera]\n", "[camera]\nmax_view_angle_deg = 95\n"),
+                                        encoding="utf-8")
+    with pytest.raises(SurveyError, match="max_view_angle_deg"):
+        load_survey(folder)

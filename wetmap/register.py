@@ -6,8 +6,12 @@ Image points are ``(col, row)`` in pixel-index units: whole numbers are pixel
 *centres*, so ``(0, 0)`` is the centre of the top-left pixel and ``(-0.5, -0.5)`` its
 outer corner (numpy's and scikit-image's convention, and what an image viewer that
 shows pixel indices reports). Plan points ``(x, y)`` are plan metres. A roof or a
-developed hull side is taken as a plane, so one projective transform (a homography)
-maps a frame onto the plan.
+flat panel of a hull side is a plane, so one projective transform (a homography)
+maps a frame onto the plan. A curved hull skin is not: with a dense tape grid (6 marks or
+more) a frame may be placed by a piecewise map, plan -> image (:class:`SkinMap`,
+:func:`choose_model`): piecewise-affine over the marks' Delaunay triangles, or a thin-plate
+spline (Bookstein 1989, IEEE PAMI 11(6)), whichever predicts left-out marks best, and only
+when clearly better than the homography.
 
 Fitting (:func:`fit_projective`)
 --------------------------------
@@ -47,6 +51,14 @@ and the view there is not too oblique: the footprint of an image pixel on the pl
 most :data:`MAX_FORESHORTENING` times longer than it is wide (about 70° from square-on at
 the image centre; at grazing views emissivity falls and one pixel smears a long strip).
 Image pixels without data give no data; bilinear sampling next to them gives none either.
+
+Each covered plan pixel also gets an estimated viewing angle: ``cos(angle) = small / large``
+singular value of the local plan -> image Jacobian (a square-on skin element images
+undistorted; tilted by ``a`` it is shortened by ``cos a`` across its tilt).
+:func:`placement_ranks` ranks every frame's pixels (outside a piecewise frame's marks, a
+blurred frame, a view beyond ``[camera] max_view_angle_deg`` where another is at least
+:data:`VIEW_ANGLE_TOLERANCE_DEG` better) and only the best-ranked frames of a plan pixel
+are blended.
 
 Overlaps are blended as a weighted mean with weight ``taper / g**2``: ``g`` is the coarser
 ground sampling distance of the pixel's footprint (metres per image pixel, from the local
