@@ -203,9 +203,29 @@ class Camera:
         return d / np.linalg.norm(d, axis=1, keepdims=True)
 
 
+def fresnel_emissivity_snell(theta_rad: np.ndarray, n: float) -> np.ndarray:
+    """Emissivity ``1 - (R_s + R_p) / 2`` of a smooth dielectric, from Snell's law and the Fresnel
+    equations in their angle form (Born & Wolf, Principles of Optics, section 1.5.2)."""
+    ti = np.clip(np.asarray(theta_rad, float), 1e-6, math.pi / 2 - 1e-9)
+    tt = np.arcsin(np.sin(ti) / n)
+    r_s = (np.sin(ti - tt) / np.sin(ti + tt)) ** 2
+    r_p = (np.tan(ti - tt) / np.tan(ti + tt)) ** 2
+    return 1 - 0.5 * (r_s + r_p)
+
+
+def skin_normal(girth_m: np.ndarray) -> np.ndarray:
+    """``(n, 3)`` outward unit normal of the skin at a girth."""
+    s = np.asarray(girth_m, float)
+    phi = np.where(s <= BOTTOM_M, _B, np.where(s <= BILGE_END_M, _B + (s - BOTTOM_M) / BILGE_R_M, math.pi / 2))
+    return np.column_stack([np.zeros_like(phi), np.sin(phi), -np.cos(phi)])
+
+
 def render(cam: Camera, *, emissivity: float, reflected_c: float, noise_c: float, rng: np.random.Generator,
-           sub: int = 3) -> np.ndarray:
-    """Apparent temperature image (degC), each pixel the mean radiance of ``sub x sub`` rays."""
+           sub: int = 3, refractive_index: float | None = None) -> np.ndarray:
+    """Apparent temperature image (degC), each pixel the mean radiance of ``sub x sub`` rays.
+
+    ``refractive_index``: the skin's emissivity falls off with the viewing angle as a smooth
+    dielectric's does, ``emissivity`` being its value square-on."""
     w, h = cam.size_px
     off = (np.arange(sub) + 0.5) / sub - 0.5
     cc, rr = np.meshgrid(np.arange(w, dtype=float), np.arange(h, dtype=float))
@@ -226,7 +246,12 @@ def render(cam: Camera, *, emissivity: float, reflected_c: float, noise_c: float
                 t_ground = (GROUND_Z_M - o[2]) / d[:, 2]
             ground = (t_ground > 0) & ~hull & ~stbd
             app = np.full(len(d), SKY_APPARENT_C)
-            app[hull] = apparent_c(surface_c(x_hit[hull], s[hull]), emissivity=emissivity, reflected_c=reflected_c)
+            eps = emissivity
+            if refractive_index is not None:
+                cos_view = np.abs((skin_normal(s[hull]) * d[hull]).sum(axis=1))
+                eps = emissivity * fresnel_emissivity_snell(np.arccos(np.clip(cos_view, 0, 1)), refractive_index) / (
+                    1 - ((refractive_index - 1) / (refractive_index + 1)) ** 2)
+            app[hull] = apparent_c(surface_c(x_hit[hull], s[hull]), emissivity=eps, reflected_c=reflected_c)
             app[stbd] = apparent_c(np.full(int(stbd.sum()), STARBOARD_C), emissivity=emissivity,
                                    reflected_c=reflected_c)
             app[ground] = apparent_c(np.full(int(ground.sum()), GROUND_C), emissivity=emissivity,
@@ -271,7 +296,8 @@ def marks_of(first_station: int, *, girths=MARK_GIRTHS_M, as_heights: bool = Fal
     return xy
 
 
-def write_survey(folder: Path, *, seed: int = 7, heights: bool = False, extra_toml: str = "") -> Written:
+def write_survey(folder: Path, *, seed: int = 7, heights: bool = False, extra_toml: str = "",
+                 refractive_index: float | None = None) -> Written:
     """Render the three frames and write a survey folder (``kind = "hull"``)."""
     rng = np.random.default_rng(seed)
     (folder / "frames").mkdir(parents=True, exist_ok=True)
@@ -284,7 +310,8 @@ def write_survey(folder: Path, *, seed: int = 7, heights: bool = False, extra_to
     blocks, cams, marks = [], [], []
     for k, (first, centre) in enumerate(FRAMES):
         cam = Camera(centre, tuple(float(v) for v in hull_point(first + 1.5, 1.15)), focal_px=FOCAL_PX)
-        img = render(cam, emissivity=EMISSIVITY, reflected_c=REFLECTED_C, noise_c=0.1, rng=rng)
+        img = render(cam, emissivity=EMISSIVITY, reflected_c=REFLECTED_C, noise_c=0.1, rng=rng,
+                     refractive_index=refractive_index)
         name = f"frames/bilge{k + 1}.npy"
         np.save(folder / name, img.astype(np.float32))
         xy = marks_of(first)
@@ -562,3 +589,42 @@ def test_max_view_angle_key(tmp_path):
                                         encoding="utf-8")
     with pytest.raises(SurveyError, match="max_view_angle_deg"):
         load_survey(folder)
+
+
+def test_fresnel_emissivity_matches_the_angle_form_of_the_equations():
+    """wetmap's Fresnel emissivity against the renderer's own (Snell's law and the angle form of
+    the Fresnel equations, Born & Wolf 1.5.2): normal incidence ((n-1)/(n+1))**2 reflectance,
+    Brewster's angle (R_p = 0) and grazing (emissivity -> 0)."""
+    from wetmap.register import fresnel_emissivity
+
+    angles = np.linspace(1.0, 89.0, 89)
+    for n in (1.3, 1.5, 2.4):
+        assert np.allclose(fresnel_emissivity(angles, n), fresnel_emissivity_snell(np.radians(angles), n), atol=1e-9)
+        assert float(fresnel_emissivity(np.array(0.0), n)) == pytest.approx(1 - ((n - 1) / (n + 1)) ** 2)
+    assert float(fresnel_emissivity(np.array(90.0), 1.5)) == pytest.approx(0.0, abs=1e-9)
+
+
+def test_emissivity_by_angle_recovers_the_skin_temperature(tmp_path):
+    """Frames rendered with an emissivity that falls with the viewing angle (a dielectric of
+    index 1.5): with ``[camera] refractive_index = 1.5`` the dry skin's surface temperature is
+    recovered more closely than without."""
+    from wetmap.pipeline import process_survey
+
+    errors = {}
+    for key in ("", "refractive_index = 1.5\n"):
+        folder = tmp_path / ("fresnel" if key else "plain")
+        write_survey(folder, refractive_index=1.5)
+        text = (folder / "survey.toml").read_text(encoding="utf-8")
+        (folder / "survey.toml").write_text(text.replace("[camera]\n", "[camera]\n" + key), encoding="utf-8")
+        result = process_survey(folder)
+        rows, cols = np.indices(result.surface_c.shape)
+        xs, ys = result.grid.transform * (cols + 0.5, rows + 0.5)
+        truth = surface_c(xs, ys)
+        dry = np.isfinite(result.surface_c) & ~shapely.contains_xy(
+            shapely.union_all(true_patches()).buffer(0.1), xs, ys)
+        err = result.surface_c - truth
+        bottom = dry & (ys < BOTTOM_M)  # seen at 70 degrees and more
+        errors[bool(key)] = (float(np.percentile(np.abs(err[dry]), 90)), float(abs(np.median(err[bottom]))))
+    assert errors[False][0] > 0.5  # without: the oblique skin reads cold (p90 of |error| about 1 K)
+    assert errors[True][0] < 0.5 * errors[False][0]
+    assert errors[True][1] < 0.5 * errors[False][1]

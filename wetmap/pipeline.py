@@ -401,7 +401,8 @@ def _register_frames(survey: Survey, radiometry: Radiometry, warnings: list[str]
 
 def _frames_onto_grid(frames: list[_RegisteredFrame], grid: PlanGrid, outline: BaseGeometry,
                       warnings: list[str], *, limits=None, views: list | None = None,
-                      max_view_angle_deg: float | None = None, kind: str = "roof"
+                      max_view_angle_deg: float | None = None, kind: str = "roof",
+                      radiometry: Radiometry | None = None, refractive_index: float | None = None
                       ) -> tuple[np.ndarray, list[FrameReport]]:
     """Resample and blend the frames on the plan grid (surface K, NaN where no frame).
 
@@ -421,6 +422,8 @@ def _frames_onto_grid(frames: list[_RegisteredFrame], grid: PlanGrid, outline: B
             warnings.append(f"{fr.name}: lands nowhere on the plan grid (the outline's bounds): check its control "
                             "points' plan x, y")
         else:
+            if radiometry is not None and refractive_index is not None and part.view_angle_deg is not None:
+                part = _emissivity_by_angle(part, radiometry, refractive_index)
             parts.append(part)
         placed.append(part)
     limits = limits or Limits()
@@ -462,6 +465,28 @@ def _frames_onto_grid(frames: list[_RegisteredFrame], grid: PlanGrid, outline: B
             fr.name, fr.registration, gsd_m=frame_gsd_m(fr.registration.matrix, fr.surface_k.shape, outline.bounds),
             covered_m2=(part.covered if part is not None else 0) * grid.pixel_area_m2, **figures))
     return blend_frames(parts, grid.shape, ranks=ranks), reports
+
+
+def _emissivity_by_angle(part, radiometry: Radiometry, refractive_index: float):
+    """A resampled frame's surface temperature redone with the emissivity of each pixel's viewing
+    angle (Fresnel, :func:`wetmap.register.fresnel_emissivity`, scaled to ``[camera] emissivity``
+    square-on): its apparent temperature is recovered with the square-on emissivity, then
+    corrected again with the pixel's own."""
+    from .radiometry import apparent_from_surface, surface_from_apparent
+    from .register import fresnel_emissivity
+
+    common = dict(reflected_k=radiometry.reflected_c + 273.15, transmittance=radiometry.transmittance,
+                  atmosphere_k=radiometry.atmosphere_c + 273.15, band_um=radiometry.band_um)
+    good = np.isfinite(part.values) & np.isfinite(part.view_angle_deg)
+    if not good.any():
+        return part
+    ratio = fresnel_emissivity(part.view_angle_deg[good], refractive_index) / fresnel_emissivity(
+        np.array(0.0), refractive_index)
+    apparent = apparent_from_surface(part.values[good].astype(np.float64), emissivity=radiometry.emissivity, **common)
+    values = part.values.copy()
+    values[good] = surface_from_apparent(apparent, emissivity=np.clip(radiometry.emissivity * ratio, 1e-3, 1.0),
+                                         **common)
+    return replace(part, values=values)
 
 
 def _area_word_kind(kind: str) -> str:
@@ -526,7 +551,8 @@ def _surface_on_grid(survey: Survey, outline: BaseGeometry, radiometry: Radiomet
         _emit(progress, "resampling and blending the frames on the plan grid")
         from_frames, reports = _frames_onto_grid(frames, grid, outline, warnings, limits=survey.limits, views=views,
                                                  max_view_angle_deg=survey.camera.max_view_angle_deg,
-                                                 kind=survey.survey.kind)
+                                                 kind=survey.survey.kind, radiometry=radiometry,
+                                                 refractive_index=survey.camera.refractive_index)
         if registration is not None:
             registration.extend(reports)
         if surface is None:

@@ -112,6 +112,7 @@ __all__ = [
     "resample_frame",
     "blend_frames",
     "placement_ranks",
+    "fresnel_emissivity",
     "girth_stretch",
     "GirthStretch",
     "GIRTH_STRETCH_MAX",
@@ -1440,3 +1441,27 @@ def girth_stretch(image_cr: np.ndarray, plan_xy: np.ndarray) -> GirthStretch | N
             if best is None or ratio > best.ratio:
                 best = GirthStretch(ratio=round(ratio, 6), xs=(float(x0), float(x1)), ys=(float(y0), float(y1)))
     return best
+
+
+# --------------------------------------------------------------------------------------
+# Emissivity by viewing angle
+# --------------------------------------------------------------------------------------
+
+
+def fresnel_emissivity(angle_deg: np.ndarray, refractive_index: float) -> np.ndarray:
+    """Directional emissivity of a smooth, non-absorbing dielectric: ``1 - (R_s + R_p) / 2``.
+
+    Fresnel reflectances for unpolarised light leaving a medium of real refractive index
+    ``n`` into air (Born & Wolf, *Principles of Optics*, section 1.5.2), at the angle
+    from the surface normal.
+
+    >>> round(float(fresnel_emissivity(np.array(0.0), 1.5)), 6)   # 1 - ((n - 1) / (n + 1))**2
+    0.96
+    """
+    theta = np.radians(np.clip(np.asarray(angle_deg, dtype=np.float64), 0.0, 90.0))
+    n2 = float(refractive_index) ** 2
+    c = np.cos(theta)
+    root = np.sqrt(n2 - np.sin(theta) ** 2)
+    r_s = ((c - root) / (c + root)) ** 2
+    r_p = ((n2 * c - root) / (n2 * c + root)) ** 2
+    return 1.0 - 0.5 * (r_s + r_p)
