@@ -9,6 +9,16 @@ and its own band radiance (Planck's law integrated with ``scipy.integrate.quad``
 Hull coordinates (metres): ``X`` station along the hull, ``Y`` outboard from the centre
 line (this side positive), ``Z`` up from the keel. The developed plan is ``(station, girth)``
 with the girth ``s`` measured along the skin from the keel.
+
+What is checked, and against what: the wet area and outline against the patches drawn on the
+developed plan (acceptance figures of the project: area within 10 %, IoU >= 0.8, each patch
+found once); placement against the renderer's own projection of the skin (pinhole model,
+Hartley & Zisserman); viewing angles against the renderer's vector geometry; Fresnel
+emissivity against Snell's law and the angle form of the Fresnel equations (Born & Wolf,
+Principles of Optics, 1.5.2); the band integration against the Stefan-Boltzmann law
+(scipy.constants). Piecewise models: piecewise-affine on a Delaunay triangulation, thin-plate
+spline (Bookstein 1989, IEEE PAMI 11(6)). The bundled flat samples against their figures before
+this registration (1 %).
 """
 
 from __future__ import annotations
@@ -628,3 +638,16 @@ def test_emissivity_by_angle_recovers_the_skin_temperature(tmp_path):
     assert errors[False][0] > 0.5  # without: the oblique skin reads cold (p90 of |error| about 1 K)
     assert errors[True][0] < 0.5 * errors[False][0]
     assert errors[True][1] < 0.5 * errors[False][1]
+
+
+def test_outside_the_marks_only_where_nothing_else_covers():
+    """A piecewise frame's pixels outside its marks' hull fill only plan pixels no frame covers
+    from within its marks, even when their view is better."""
+    from wetmap.register import ResampledFrame, blend_frames
+
+    one = np.ones((1, 3), np.float32)
+    inside = ResampledFrame((0, 1, 0, 3), one * 10, one, one, view_angle_deg=one * 50,
+                            outside_marks=np.zeros((1, 3), bool))
+    beyond = ResampledFrame((0, 1, 1, 4), one * 20, one * 9, one, view_angle_deg=one * 5,
+                            outside_marks=np.ones((1, 3), bool))
+    assert blend_frames([inside, beyond], (1, 4)).tolist() == [[10.0, 10.0, 10.0, 20.0]]

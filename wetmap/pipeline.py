@@ -377,7 +377,8 @@ def _register_frames(survey: Survey, radiometry: Radiometry, warnings: list[str]
             if loo_px > 4 * SUSPECT_MIN_PX:
                 warnings.append(f"{name} ([[frame]] #{i + 1}): registered {reg.model} on its {len(pts)} tape marks, "
                                 f"but each mark lies {loo_px:.1f} px ({1000 * loo_m:.0f} mm on the skin) RMS from "
-                                "where the others put it: placement between marks is uncertain; add marks or check them")
+                                "where the others put it: placement between marks is uncertain; "
+                                "add marks or check them")
         elif fit.rms_px > SUSPECT_MIN_PX:
             warnings.append(f"{name} ([[frame]] #{i + 1}): the control points fit to {fit.rms_px:.1f} px RMS "
                             f"({fit.rms_m:.3g} m): placement is uncertain; check them")
