@@ -294,16 +294,12 @@ class Written:
     folder: Path
     cameras: tuple[Camera, ...]
     marks_cr: tuple[np.ndarray, ...]
-    marks_xy: np.ndarray | None = None
 
 
-def marks_of(first_station: int, *, girths=MARK_GIRTHS_M, as_heights: bool = False) -> np.ndarray:
-    """``(16, 2)`` developed-plan positions of a frame's tape marks and ``(16, 3)`` hull points.
-
-    ``as_heights``: the plan y given is the mark's height above the keel instead of its girth
-    (the mistake the survey format warns about)."""
-    xy = np.array([[first_station + i, g] for g in girths for i in range(4)], dtype=float)
-    return xy
+def marks_of(first_station: int, *, girths=MARK_GIRTHS_M) -> np.ndarray:
+    """``(16, 2)`` developed-plan positions ``(station, girth)`` of a frame's tape marks: four
+    stations 1 m apart from ``first_station``, at each of ``girths``."""
+    return np.array([[first_station + i, g] for g in girths for i in range(4)], dtype=float)
 
 
 def write_survey(folder: Path, *, seed: int = 7, heights: bool = False, extra_toml: str = "",
