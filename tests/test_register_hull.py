@@ -531,6 +531,8 @@ def test_flat_samples_are_unchanged(name, tmp_path):
     assert s["anomaly_count"] == before["anomaly_count"]
     assert abs(s["wet_area_m2"] / before["wet_area_m2"] - 1) <= 0.01
     assert all(r["model"] == "homography" for r in s["registration"])
+    # their oblique views are judged too: each frame's viewing angles are estimated
+    assert all(0 < r["view_angle_deg"]["median"] <= r["view_angle_deg"]["max"] < 71 for r in s["registration"])
 
 
 def test_heights_instead_of_girths_are_warned(tmp_path):
