@@ -1345,6 +1345,10 @@ def write_hull_survey(folder: str | Path, scene: HullScene = HullScene(), *,
     text = "\n".join([
         "# Invented demo survey written by wetmap.demo: an invented yacht, invented data.",
         "# Plan x = station (m from the stem), y = girth (m up from the keel); frames placed by tape marks.",
+        "# Tape marks: x = the mark's station, measured along the hull; y = its girth, measured ALONG THE SKIN",
+        "# from the keel with a tape laid on the hull (round the turn of the bilge), never its height above",
+        "# the keel: heights make areas small wherever the skin flares. Six marks or more per frame in a grid",
+        "# (e.g. every 1 m of station x every 0.8 m of girth) let a curved skin be placed piecewise.",
         "# Written by `python -m wetmap.demo --scene hull FOLDER` (see sample_surveys/README.md).",
         "",
         _toml_table("survey", {

@@ -385,7 +385,7 @@ def _register_frames(survey: Survey, radiometry: Radiometry, warnings: list[str]
                 f"({cols} x {rows} pixels): expected -0.5 <= col <= {cols - 0.5:g} and -0.5 <= row <= {rows - 0.5:g}; "
                 "check that each point is [col, row, x, y]"
             )
-        reg = register_points(pts[:, :2], pts[:, 2:], where=where)
+        reg = register_points(pts[:, :2], pts[:, 2:], where=where, piecewise=True)
         surface = _to_surface_k(image.values_k, radiometry)
         lost = int(np.count_nonzero(np.isnan(surface) & ~np.isnan(image.values_k)))
         if lost:
@@ -393,11 +393,31 @@ def _register_frames(survey: Survey, radiometry: Radiometry, warnings: list[str]
                             "emissivity and reflected temperature given): check [camera] emissivity and "
                             "[conditions] reflected_c")
         fit = reg.fit
-        if reg.loo.note:
+        if reg.loo.note and reg.model == "homography":
             warnings.append(f"{name} ([[frame]] #{i + 1}): {reg.loo.note}")
+        elif reg.model != "homography":
+            loo_px, loo_m = reg.models[reg.model]
+            # a mark left out doubles the gap the model bridges; interpolation error grows with the
+            # square of the gap, so placement with every mark is about a quarter of this figure
+            if loo_px > 4 * SUSPECT_MIN_PX:
+                warnings.append(f"{name} ([[frame]] #{i + 1}): registered {reg.model} on its {len(pts)} tape marks, "
+                                f"but each mark lies {loo_px:.1f} px ({1000 * loo_m:.0f} mm on the skin) RMS from "
+                                "where the others put it: placement between marks is uncertain; "
+                                "add marks or check them")
         elif fit.rms_px > SUSPECT_MIN_PX:
             warnings.append(f"{name} ([[frame]] #{i + 1}): the control points fit to {fit.rms_px:.1f} px RMS "
                             f"({fit.rms_m:.3g} m): placement is uncertain; check them")
+        if survey.survey.kind == "hull":
+            from .register import GIRTH_STRETCH_MAX, girth_stretch
+
+            stretch = girth_stretch(pts[:, :2], pts[:, 2:])
+            if stretch is not None and stretch.ratio > GIRTH_STRETCH_MAX:
+                warnings.append(
+                    f"{name} ([[frame]] #{i + 1}): between y = {stretch.ys[0]:g} and {stretch.ys[1]:g} m at stations "
+                    f"{stretch.xs[0]:g}-{stretch.xs[1]:g} m the tape marks lie {stretch.ratio:.2f} times farther apart "
+                    "in the image per metre of y than per metre of station, which marks measured along the skin do "
+                    "not show: the y values look like heights, not girths; give each mark's girth measured along "
+                    "the skin from the keel (heights make areas small where the skin flares)")
         if fit.mirrored and survey.survey.kind == "roof":
             warnings.append(f"{name} ([[frame]] #{i + 1}): the frame is a mirror image of the plan; check that each "
                             "point is [col, row, x, y] (not x and y swapped) and that the image is not flipped")
@@ -406,7 +426,9 @@ def _register_frames(survey: Survey, radiometry: Radiometry, warnings: list[str]
 
 
 def _frames_onto_grid(frames: list[_RegisteredFrame], grid: PlanGrid, outline: BaseGeometry,
-                      warnings: list[str], *, limits=None, views: list | None = None
+                      warnings: list[str], *, limits=None, views: list | None = None,
+                      max_view_angle_deg: float | None = None, kind: str = "roof",
+                      radiometry: Radiometry | None = None, refractive_index: float | None = None
                       ) -> tuple[np.ndarray, list[FrameReport]]:
     """Resample and blend the frames on the plan grid (surface K, NaN where no frame).
 
@@ -415,29 +437,86 @@ def _frames_onto_grid(frames: list[_RegisteredFrame], grid: PlanGrid, outline: B
     each placed frame as a :class:`wetmap.imagery.FrameView`.
     """
     from .imagery import frame_views
-    from .register import blend_frames, frame_gsd_m, resample_frame
+    from .register import MAX_VIEW_ANGLE_DEG, blend_frames, frame_gsd_m, placement_ranks, resample_frame
     from .survey import Limits
 
-    parts, reports, placed = [], [], []
+    parts, placed = [], []
     for fr in frames:
-        matrix = fr.registration.matrix
-        part = resample_frame(fr.surface_k, matrix, grid_transform=grid.transform, grid_shape=grid.shape)
+        part = resample_frame(fr.surface_k, fr.registration.mapping, grid_transform=grid.transform,
+                              grid_shape=grid.shape)
         if part is None:
             warnings.append(f"{fr.name}: lands nowhere on the plan grid (the outline's bounds): check its control "
                             "points' plan x, y")
         else:
+            if radiometry is not None and refractive_index is not None and part.view_angle_deg is not None:
+                part = _emissivity_by_angle(part, radiometry, refractive_index)
             parts.append(part)
         placed.append(part)
-        reports.append(FrameReport.build(
-            fr.name, fr.registration, gsd_m=frame_gsd_m(matrix, fr.surface_k.shape, outline.bounds),
-            covered_m2=(part.covered if part is not None else 0) * grid.pixel_area_m2))
     limits = limits or Limits()
     found = frame_views([fr.name for fr in frames], [fr.surface_k for fr in frames],
                         [fr.registration.matrix for fr in frames], placed, bounds=outline.bounds,
                         focus_ratio=limits.focus_ratio, exclude_blurred=limits.exclude_blurred)
     if views is not None:
         views.extend(found)
-    return blend_frames(parts, grid.shape, fallback=[v.fallback for v in found]), reports
+    max_angle = MAX_VIEW_ANGLE_DEG if max_view_angle_deg is None else max_view_angle_deg
+    ranks = placement_ranks(parts, grid.shape, fallback=[v.fallback for v in found], max_view_angle_deg=max_angle)
+    low = np.full(grid.shape, np.iinfo(np.int8).max, dtype=np.int8)
+    for part, rank in zip(parts, ranks):
+        r0, r1, c0, c1 = part.window
+        np.minimum(low[r0:r1, c0:c1], np.where(rank >= 0, rank, np.iinfo(np.int8).max).astype(np.int8),
+                   out=low[r0:r1, c0:c1])
+    in_outline = _mask_of(outline, grid)
+    reports = []
+    ranked = iter(zip(parts, ranks))
+    for fr, part in zip(frames, placed):
+        figures: dict[str, Any] = {}
+        if part is not None:
+            _, rank = next(ranked)
+            r0, r1, c0, c1 = part.window
+            used = (rank >= 0) & (rank == low[r0:r1, c0:c1])
+            angles = part.view_angle_deg[used] if part.view_angle_deg is not None else np.empty(0)
+            angles = angles[np.isfinite(angles)]
+            figures = {"view_angle_deg": (float(np.median(angles)), float(np.max(angles))) if len(angles)
+                       else (float("nan"), float("nan")),
+                       "used_m2": int(used.sum()) * grid.pixel_area_m2}
+            if part.outside_marks is not None:
+                extra = int((used & part.outside_marks & in_outline[r0:r1, c0:c1]).sum()) * grid.pixel_area_m2
+                figures["extrapolated_m2"] = extra
+                if extra > 0:
+                    warnings.append(
+                        f"{fr.name}: {extra:.2f} m2 of the {_area_word_kind(kind)} are placed from outside its tape "
+                        "marks (no other frame covers them from within its marks): extrapolated, less certain; "
+                        "add marks around that part")
+        reports.append(FrameReport.build(
+            fr.name, fr.registration, gsd_m=frame_gsd_m(fr.registration.matrix, fr.surface_k.shape, outline.bounds),
+            covered_m2=(part.covered if part is not None else 0) * grid.pixel_area_m2, **figures))
+    return blend_frames(parts, grid.shape, ranks=ranks), reports
+
+
+def _emissivity_by_angle(part, radiometry: Radiometry, refractive_index: float):
+    """A resampled frame's surface temperature redone with the emissivity of each pixel's viewing
+    angle (Fresnel, :func:`wetmap.register.fresnel_emissivity`, scaled to ``[camera] emissivity``
+    square-on): its apparent temperature is recovered with the square-on emissivity, then
+    corrected again with the pixel's own."""
+    from .radiometry import apparent_from_surface, surface_from_apparent
+    from .register import fresnel_emissivity
+
+    common = dict(reflected_k=radiometry.reflected_c + 273.15, transmittance=radiometry.transmittance,
+                  atmosphere_k=radiometry.atmosphere_c + 273.15, band_um=radiometry.band_um)
+    good = np.isfinite(part.values) & np.isfinite(part.view_angle_deg)
+    if not good.any():
+        return part
+    ratio = fresnel_emissivity(part.view_angle_deg[good], refractive_index) / fresnel_emissivity(
+        np.array(0.0), refractive_index)
+    apparent = apparent_from_surface(part.values[good].astype(np.float64), emissivity=radiometry.emissivity, **common)
+    values = part.values.copy()
+    values[good] = surface_from_apparent(apparent, emissivity=np.clip(radiometry.emissivity * ratio, 1e-3, 1.0),
+                                         **common)
+    return replace(part, values=values)
+
+
+def _area_word_kind(kind: str) -> str:
+    return "hull side" if kind == "hull" else "roof"
 
 
 def _surface_on_grid(survey: Survey, outline: BaseGeometry, radiometry: Radiometry,
@@ -496,7 +575,10 @@ def _surface_on_grid(survey: Survey, outline: BaseGeometry, radiometry: Radiomet
             )
     if frames:
         _emit(progress, "resampling and blending the frames on the plan grid")
-        from_frames, reports = _frames_onto_grid(frames, grid, outline, warnings, limits=survey.limits, views=views)
+        from_frames, reports = _frames_onto_grid(frames, grid, outline, warnings, limits=survey.limits, views=views,
+                                                 max_view_angle_deg=survey.camera.max_view_angle_deg,
+                                                 kind=survey.survey.kind, radiometry=radiometry,
+                                                 refractive_index=survey.camera.refractive_index)
         if registration is not None:
             registration.extend(reports)
         if surface is None:

@@ -127,6 +127,14 @@ class Camera:
     ifov_mrad: float | None = None
     """Instantaneous field of view of one detector element, milliradians; with ``distance_m``
     it gives the optics' ground sampling distance (:mod:`wetmap.imagery`)."""
+    max_view_angle_deg: float = 60.0
+    """Frame pixels seen more obliquely than this (degrees from the surface normal) are not
+    used where a better view covers the same plan pixel (:mod:`wetmap.register`)."""
+    refractive_index: float | None = None
+    """Refractive index of the surface in the camera band: frame pixels then get the
+    emissivity ``emissivity * e(angle) / e(0)`` with ``e`` the Fresnel emissivity of a smooth
+    dielectric at their viewing angle (:func:`wetmap.register.fresnel_emissivity`);
+    ``None``: the same emissivity at every angle."""
 
 
 @dataclass(frozen=True)
@@ -603,6 +611,8 @@ def _read_camera(t: _Table) -> Camera | None:
     distance = t.number("distance_m", low=0, high=10_000, example="35.0")
     tau = t.number("transmittance", low=0, high=1, low_open=True, example="0.97")
     ifov = t.number("ifov_mrad", low=0, low_open=True, high=100, example="1.1")
+    max_angle = t.number("max_view_angle_deg", low=0, low_open=True, high=89, example="60")
+    index = t.number("refractive_index", low=1, high=5, example="1.5")
     if eps is None:
         return None
     return Camera(
@@ -611,6 +621,8 @@ def _read_camera(t: _Table) -> Camera | None:
         distance_m=distance or 0.0,
         transmittance=tau,
         ifov_mrad=ifov,
+        max_view_angle_deg=60.0 if max_angle is None else max_angle,
+        refractive_index=index,
     )
 
 
@@ -849,7 +861,8 @@ _KEYS: dict[str, tuple[str, ...]] = {
     "survey": ("title", "kind", "crs", "site", "date", "surveyor", "side"),
     "conditions": ("air_c", "humidity_pct", "wind_m_s", "sky", "reflected_c", "sunset", "time",
                    "hours_since_rain", "surface_dry"),
-    "camera": ("emissivity", "band_um", "distance_m", "transmittance", "ifov_mrad"),
+    "camera": ("emissivity", "band_um", "distance_m", "transmittance", "ifov_mrad", "max_view_angle_deg",
+               "refractive_index"),
     "plan": ("outline", "exclusions", "sections", "pixel_m", "specular"),
     "mosaic": ("path", "units", "time", "scale", "offset", "origin", "pixel_m"),
     "frame": ("path", "units", "points", "time", "scale", "offset"),
