@@ -106,6 +106,11 @@ def read_layer(path: Path, *, survey_crs: str | None, what: str) -> PlanLayer:
             f"{path}: feature {index} is a {geoms[index].geom_type}; expected polygons for the {what}"
         )
     geoms = shapely.force_2d(geoms)
+    coords, owner = shapely.get_coordinates(geoms, return_index=True)
+    bad = ~np.isfinite(coords).all(axis=1)
+    if bad.any():  # NaN or infinity: GEOS cannot compute with them
+        raise InputFileError(f"{path}: feature {int(owner[np.flatnonzero(bad)[0]])} has a coordinate that is not a "
+                             f"finite number ({coords[np.flatnonzero(bad)[0]].tolist()}); fix the {what} in the drawing")
     file_crs = frame.crs
     bounds = np.asarray(shapely.total_bounds(geoms))
     if survey_crs is None:
