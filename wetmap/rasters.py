@@ -381,7 +381,7 @@ def footprint(info: RasterInfo, plan_crs: str | None):
 
     cols = np.array([0.0, info.cols, info.cols, 0.0])
     rows = np.array([0.0, 0.0, info.rows, info.rows])
-    xs, ys = info.transform * (cols, rows)
+    xs, ys = info.transform @ (cols, rows)
     if not _same_crs(info.crs, plan_crs):
         from pyproj import Transformer
 
@@ -414,7 +414,7 @@ def sample_in_outline(path: Path, info: RasterInfo, outline, *, plan_crs: str | 
     local = _in_raster_crs(outline, info.crs, plan_crs)
     inv = ~info.transform
     x0, y0, x1, y1 = local.bounds
-    cs, rs = inv * (np.array([x0, x1, x1, x0]), np.array([y0, y0, y1, y1]))
+    cs, rs = inv @ (np.array([x0, x1, x1, x0]), np.array([y0, y0, y1, y1]))
     c0, c1 = max(int(math.floor(min(cs))), 0), min(int(math.ceil(max(cs))), info.cols)
     r0, r1 = max(int(math.floor(min(rs))), 0), min(int(math.ceil(max(rs))), info.rows)
     if c1 <= c0 or r1 <= r0:
@@ -426,7 +426,7 @@ def sample_in_outline(path: Path, info: RasterInfo, outline, *, plan_crs: str | 
         i, j = np.indices(out_shape, dtype=np.float64)
         cols = window.col_off + (j + 0.5) * window.width / ow
         rows = window.row_off + (i + 0.5) * window.height / oh
-        xs, ys = info.transform * (cols, rows)
+        xs, ys = info.transform @ (cols, rows)
         keep = shapely.contains_xy(local, xs, ys) & ~np.ma.getmaskarray(data)
         values = np.asarray(data.data, dtype=np.float64)[keep] * scale + offset
         values = values[np.isfinite(values)]
