@@ -620,15 +620,15 @@ def _check_crs(table: _Table, value: str | None) -> str | None:
 
 
 def is_web_mercator(crs) -> bool:
-    """True for Web Mercator (EPSG:3857 and its aliases: 900913, 3785, 102100, 102113, ...).
+    """True for Web Mercator (EPSG:3857 and its aliases: EPSG:900913 and 3785, ESRI:102100 and 102113, ...).
 
     Recognised by the projection method PROJ names for it, so every alias is caught.
     """
     op = getattr(crs, "coordinate_operation", None)
     method = (getattr(op, "method_name", "") or "").lower()
     name = (crs.name or "").lower()
-    return "pseudo mercator" in method or "pseudo-mercator" in name or "web mercator" in name or \
-        "web_mercator" in name
+    return "pseudo mercator" in method or any(
+        word in name for word in ("pseudo-mercator", "web mercator", "web_mercator", "popular visualisation"))
 
 
 # --------------------------------------------------------------------------------------

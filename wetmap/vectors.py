@@ -87,8 +87,12 @@ def read_layer(path: Path, *, survey_crs: str | None, what: str) -> PlanLayer:
     import pyogrio
     from pyproj import CRS
 
+    import warnings
+
     try:
-        frame = pyogrio.read_dataframe(path)
+        with warnings.catch_warnings():  # NaN coordinates warn in shapely: refused below, in one line
+            warnings.simplefilter("ignore", RuntimeWarning)
+            frame = pyogrio.read_dataframe(path)
     except Exception as err:  # pyogrio raises several unrelated types for unreadable files
         raise InputFileError(f"{path}: cannot be read as a vector file ({err}); expected GeoJSON, GeoPackage or Shapefile") from None
     notes: list[str] = []
