@@ -91,6 +91,7 @@ def prepare_survey(survey: Survey) -> Prepared:
     crs = None if survey.survey.is_local else survey.survey.crs
     problems: list[str] = []
     warnings: list[str] = []
+    crs_notes: list[str] = []  # the CRS at the site: said with any refusal too, as it is a likely cause
 
     def attempt(fn, *args, **kwargs):
         try:
@@ -129,7 +130,8 @@ def prepare_survey(survey: Survey) -> Prepared:
             problems.append(f"{survey.plan.exclusions}: the exclusions cover the whole outline; nothing is left "
                             "to survey: check the exclusions file")
         if crs is not None:
-            _check_crs_at_site(survey, crs, outline, problems, warnings)
+            _check_crs_at_site(survey, crs, outline, problems, crs_notes)
+            warnings.extend(crs_notes)
 
     infos: list[RasterInfo | None] = []
     for i, m in enumerate(survey.mosaics):
@@ -166,7 +168,7 @@ def prepare_survey(survey: Survey) -> Prepared:
                             f"{MAX_BOARDS}; check the board size (metres) and the outline's coordinates")
 
     if problems:
-        raise ProcessingError(problems)
+        raise ProcessingError([*crs_notes, *problems])
     assert outline is not None and roof is not None  # a missing outline is a problem above
     return Prepared(outline=outline, exclusions=exclusions, roof=roof, sections=tuple(sections), specular=specular,
                     infos=tuple(infos), confirmations=confirmations,  # type: ignore[arg-type]
@@ -207,7 +209,7 @@ def _check_crs_at_site(survey: Survey, crs_text: str, outline: BaseGeometry, pro
         if not inside.all():
             warnings.append(
                 f"{where}: the plan (about {lats[4]:.3f}, {lons[4]:.3f} degrees lat, lon) lies outside the CRS's "
-                f"area of use ({area.name}: {south:g}..{north:g} N, {west:g}..{east:g} E): areas and positions may "
+                f"area of use ({_cut(area.name)}: {south:g}..{north:g} N, {west:g}..{east:g} E): areas and positions may "
                 "be wrong; check that the crs is the one the plan was drawn in")
     try:
         factors = Proj(crs).get_factors(float(lons[4]), float(lats[4]), errcheck=False)
@@ -221,20 +223,26 @@ def _check_crs_at_site(survey: Survey, crs_text: str, outline: BaseGeometry, pro
                         "grid (an equal-area or conformal CRS made for the region)")
 
 
+def _cut(text: str, limit: int = 50) -> str:
+    """``text`` up to its first " - " or ``limit`` characters (an area-of-use name can run to a paragraph)."""
+    head = text.split(" - ")[0]
+    return head if len(head) <= limit else head[: limit - 3] + "..."
+
+
 def _check_mosaic(survey: Survey, index: int, m: Mosaic, info: RasterInfo, outline: BaseGeometry,
                   crs: str | None, problems: list[str]) -> None:
     """The mosaic covers the outline, holds data there, and its values are temperatures in its units."""
     where = f"{survey.file}: [[mosaic]] #{index + 1} ({m.path.name})"
+    edge = None
     try:
         edge = footprint(info, crs)
         overlaps = bool(edge.is_valid and edge.intersects(outline))
     except Exception:  # a corner that cannot be transformed: the placement is far off
         overlaps = False
     if not overlaps:
-        x0, y0, x1, y1 = (round(float(v), 2) for v in (*(info.transform @ (0, 0)),
-                                                         *(info.transform @ (info.cols, info.rows))))
-        problems.append(f"{where}: misses the outline (the mosaic spans {min(x0, x1)}..{max(x0, x1)}, "
-                        f"{min(y0, y1)}..{max(y0, y1)}; the outline "
+        spans = ("bounds " + str(tuple(round(v, 2) for v in edge.bounds))
+                 if edge is not None and np.isfinite(edge.bounds).all() else "a place that cannot be transformed")
+        problems.append(f"{where}: misses the outline (the mosaic covers {spans} in plan coordinates; the outline "
                         f"{tuple(round(v, 2) for v in outline.bounds)}): check its placement and the outline's CRS")
         return
     values = sample_in_outline(m.path, info, outline, plan_crs=crs, units=m.units, scale=m.scale, offset=m.offset)

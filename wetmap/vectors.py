@@ -133,6 +133,10 @@ def read_layer(path: Path, *, survey_crs: str | None, what: str) -> PlanLayer:
         tr = Transformer.from_crs(file_crs, survey_crs, always_xy=True)
         geoms = shapely.transform(geoms, lambda xy: np.column_stack(tr.transform(xy[:, 0], xy[:, 1])))
         notes.append(f"{path.name}: reprojected from {CRS(file_crs).to_string()} to {survey_crs}")
+        if not np.isfinite(shapely.get_coordinates(geoms)).all():
+            raise InputFileError(f"{path}: its coordinates cannot be reprojected from {CRS(file_crs).to_string()} "
+                                 f"to {survey_crs} (they fall outside what either CRS can represent); check the "
+                                 "CRS the file declares and the survey's crs")
     invalid = ~shapely.is_valid(geoms)
     if invalid.any():
         for i in np.flatnonzero(invalid):
