@@ -130,10 +130,17 @@ def test_hostile_numbers_are_one_line(demo, old, new, key):
     assert all(len(p) < 400 for p in problems)  # a 400-digit value is cut, not echoed whole
 
 
-def test_implausible_pixel_size_is_refused(demo):
-    edit_toml(demo, 'outline = "plan/outline.geojson"', 'outline = "plan/outline.geojson"\npixel_m = 50')
+@pytest.mark.parametrize("old, new, key", [
+    ('outline = "plan/outline.geojson"', 'outline = "plan/outline.geojson"\npixel_m = 50', "[plan] pixel_m"),
+    ("delta_c = 1.0", "delta_c = 0.0000001", "[detect] delta_c"),  # 308 noise anomalies before
+    ("delta_c = 1.0", "delta_c = 1.0\nbackground_m = 0.000001", "[detect] background_m"),
+    ("emissivity = 0.94", "emissivity = 0.000001", "[camera] emissivity"),
+    ("emissivity = 0.94", "emissivity = 0.94\ntransmittance = 0.0000001", "[camera] transmittance"),
+])
+def test_implausible_sizes_are_refused(demo, old, new, key):
+    edit_toml(demo, old, new)
     (problem,) = problems_of(load_survey, demo)
-    assert "[plan] pixel_m" in problem and "not a plausible value" in problem
+    assert key in problem and "not a plausible value" in problem
 
 
 def test_board_take_off_beyond_a_sane_count_is_refused_by_check_and_run(demo):
@@ -206,7 +213,7 @@ def test_zero_transform_is_refused(tmp_path, write_tif):
     (lambda v: v + 273.15, None, ("look like kelvin", 'set units = "K"')),  # Kelvin labelled C
     (None, ('units = "C"', 'units = "K"'), ("look like degrees Celsius", 'set units = "C"')),  # degC labelled K
     (lambda v: np.round((v + 273.15) * 100.0), None, ("raw camera counts", "scale = 0.01")),  # counts, no scale
-    (None, ("air_c = 6.0", "air_c = 55.0"), ("from the air temperature 55", "not temperatures")),  # off the air
+    (None, ("air_c = 6.0", "air_c = 55.0"), ("from the air temperature 55", "check [conditions] air_c")),  # off the air
 ])
 def test_mosaic_units_are_checked(demo, change, toml, expected):
     if change is not None:

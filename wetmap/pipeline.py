@@ -610,8 +610,10 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         "uncovered_pct": 100.0 * (roof_px - covered_px) / roof_px if roof_px else 100.0,
     }
     if covered_px == 0:  # nothing to detect on: a confident empty answer would be wrong
-        raise ProcessingError(f"{survey.file}: no usable thermal data on the {area_word} (all nodata, or the imagery "
-                              "misses the outline): check the imagery's placement and nodata; earlier results are kept")
+        raise ProcessingError(f"{survey.file}: no usable thermal data on the {area_word} (all nodata, the imagery "
+                              "misses the outline, or every pixel lost in the apparent-to-surface correction): check "
+                              "the imagery's placement and nodata, [camera] emissivity and [conditions] reflected_c; "
+                              "earlier results are kept")
     if coverage["uncovered_pct"] > 0.5:
         warnings.append(
             f"{coverage['uncovered_m2']:.1f} m2 ({coverage['uncovered_pct']:.1f} %) of the {area_word} has no thermal data: "

@@ -289,10 +289,15 @@ def units_problem(median_c: float, *, air_c: float, units: str, scale: float = 1
     else:
         counts = [(f"scale = {s:g}", raw * s - 273.15) for s in (0.01, 0.04, 0.1)]
         near = [fix for fix, c in counts if abs(c - air_c) <= AIR_GAP_K]
-        looks = ("the values look like raw camera counts: set scale and offset (value = raw * scale + offset), "
-                 f"e.g. {near[0]} with units = \"K\"" if near else
-                 "the values are not temperatures in any unit wetmap knows: check units, scale and offset "
-                 "(value = raw * scale + offset)")
+        if near:
+            looks = ("the values look like raw camera counts: set scale and offset (value = raw * scale + offset), "
+                     f"e.g. {near[0]} with units = \"K\"")
+        elif low <= median_c <= high:
+            looks = (f"no other unit fits either: check [conditions] air_c = {air_c:g} (the air temperature on site, "
+                     "°C), then units, scale and offset")
+        else:
+            looks = ("the values are not temperatures in any unit wetmap knows: check units, scale and offset "
+                     "(value = raw * scale + offset)")
     surface = "hull" if kind == "hull" else "roof"
     settings = f'units = "{units}"' + (f", scale = {scale:g}" if scale != 1.0 else "") + \
         (f", offset = {offset:g}" if offset != 0.0 else "")

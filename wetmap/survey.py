@@ -675,13 +675,13 @@ def _read_conditions(t: _Table) -> Conditions | None:
 
 
 def _read_camera(t: _Table) -> Camera | None:
-    eps = t.number("emissivity", required=True, low=0, high=1, low_open=True, example="0.94")
+    eps = t.number("emissivity", required=True, low=0, high=1, low_open=True, example="0.94", plausible=(0.01, 1.0))
     band = t.numbers("band_um", 2, example="[7.5, 14.0]", positive=True)
     if band is not None and not (1.0 <= band[0] < band[1] <= 20.0):
         t.problem("band_um", f"= {list(band)}: expected [short, long] in micrometres with 1 <= short < long <= 20")
         band = None
     distance = t.number("distance_m", low=0, high=10_000, example="35.0")
-    tau = t.number("transmittance", low=0, high=1, low_open=True, example="0.97")
+    tau = t.number("transmittance", low=0, high=1, low_open=True, example="0.97", plausible=(0.05, 1.0))
     ifov = t.number("ifov_mrad", low=0, low_open=True, high=100, example="1.1")
     if eps is None:
         return None
@@ -765,8 +765,8 @@ def _read_frame(t: _Table, folder: Path) -> Frame | None:
 
 
 def _read_detect(t: _Table, kind: str | None) -> Detect:
-    delta = t.number("delta_c", low=0, high=50, low_open=True, example="1.0")
-    background = t.number("background_m", low=0, low_open=True, high=1000, example="20.0")
+    delta = t.number("delta_c", low=0, high=50, low_open=True, example="1.0", plausible=(0.05, 50))
+    background = t.number("background_m", low=0, low_open=True, high=1000, example="20.0", plausible=(0.1, 1000))
     min_area = t.number("min_area_m2", low=0, example="0.5", plausible=(0, 10_000))
     tile = t.number("tile_px", low=0, high=65536, example="2048")
     if tile is not None and tile != int(tile):
