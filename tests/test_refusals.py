@@ -233,12 +233,18 @@ def test_units_refusal_keeps_earlier_results(demo):
     assert {p.name: p.read_bytes() for p in (demo / "results").iterdir() if p.is_file()} == before
 
 
-def test_units_sample_is_decimated(tmp_path, write_tif):
-    data = np.full((400, 300), 7.0, np.float32)
-    path = write_tif(tmp_path / "big.tif", data, transform=Affine(0.1, 0, 0.0, 0, -0.1, 40.0))
+def test_units_sample_is_small_on_a_large_mosaic(tmp_path, write_tif):
+    data = np.full((1000, 800), 7.0, np.float32)
+    path = write_tif(tmp_path / "big.tif", data, transform=Affine(0.1, 0, 0.0, 0, -0.1, 100.0),
+                     tiled=True, blockxsize=64, blockysize=64)
     info = inspect_raster(path, survey_crs=None)
-    values = sample_in_outline(path, info, shapely.box(0, 0, 30, 40), plan_crs=None, units="C", max_side=16)
-    assert 0 < values.size <= 16 * 16 and np.all(values == 7.0)
+    outline = shapely.box(0, 0, 80, 100)
+    values = sample_in_outline(path, info, outline, plan_crs=None, units="C", max_side=64)
+    assert 0 < values.size <= 8 * 8 * 32 * 32 < data.size and np.all(values == 7.0)  # patches, no overview
+    with rasterio.open(path, "r+") as dst:
+        dst.build_overviews([2, 4, 8, 16])
+    values = sample_in_outline(path, info, outline, plan_crs=None, units="C", max_side=64)
+    assert 0 < values.size <= 64 * 64 and np.all(values == 7.0)  # decimated: GDAL reads an overview
 
 
 def test_outline_far_from_the_mosaic_is_refused_not_a_traceback(demo):

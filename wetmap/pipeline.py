@@ -26,9 +26,9 @@ from shapely.geometry.base import BaseGeometry
 from . import __version__
 from .confirm import (AreaRange, Status, SuggestedCore, ThresholdCheck, Verdicts, assign_status,
                       sample_at_points, suggest_cores, threshold_check, wet_area_range)
-from .confirmations import Confirmations, read_confirmations
+from .confirmations import Confirmations
 from .detect import Detection, default_background_m, detect_anomalies
-from .errors import InputFileError, ProcessingError
+from .errors import ProcessingError
 from .passes import PassComparison, align_to_grid, compare_passes, group_passes
 from .polygons import RegionStats, label_regions, polygonize, region_stats
 from .quantities import BoardTakeoff, Quantities, SectionTotals, compute_quantities, largest_overlap
@@ -36,7 +36,7 @@ from .rasters import PlanGrid, inspect_raster, plan_grid_for, read_onto_grid
 from .register import SUSPECT_MIN_PX, FrameReport, Registration
 from .survey import Survey, load_survey
 from .tiles import FullRasters, WindowProgress, detect_in_windows
-from .vectors import Section, read_layer, read_outline, read_sections
+from .vectors import Section
 
 __all__ = ["Anomaly", "SurveyResult", "process_survey", "write_results", "run_survey", "check_survey", "RESULT_FILES"]
 

@@ -394,7 +394,9 @@ def sample_in_outline(path: Path, info: RasterInfo, outline, *, plan_crs: str | 
     """Apparent temperatures, degC, of a sample of the raster's pixels whose centres lie in ``outline``.
 
     Cheap on huge mosaics: only the outline's window is read, decimated to at most
-    ``max_side`` pixels a side (GDAL then reads an overview when the file has one). When the
+    ``max_side`` pixels a side when the file has overviews (GDAL reads one), else as 8 x 8
+    patches of 32 x 32 pixels spread over the window (then decimated if they hold fewer than
+    100 values inside the outline). When the
     sample holds no value, the window is scanned at full resolution in strips, stopping at the
     first strip with data, so a narrow outline is never reported empty by mistake.
 
@@ -437,6 +439,20 @@ def sample_in_outline(path: Path, info: RasterInfo, outline, *, plan_crs: str | 
     try:
         with _open(path) as src:
             wr, wc = r1 - r0, c1 - c0
+            if wr * wc > 4 * max_side * max_side and not src.overviews(1):
+                # no overview to read from: 8 x 8 small patches spread over the window (a decimated
+                # read of a tiled file without overviews would read every block)
+                side, k = 32, 8
+                parts = []
+                for a in range(k):
+                    for b in range(k):
+                        row = min(max(r0 + int((a + 0.5) * wr / k) - side // 2, r0), r1 - min(side, wr))
+                        col = min(max(c0 + int((b + 0.5) * wc / k) - side // 2, c0), c1 - min(side, wc))
+                        parts.append(values_of(Window(col, row, min(side, wc), min(side, wr)),
+                                               (min(side, wr), min(side, wc))))
+                found = np.concatenate(parts)
+                if found.size >= 100:
+                    return found
             factor = max(1, math.ceil(max(wr, wc) / max_side))
             found = values_of(Window(c0, r0, wc, wr), (max(1, math.ceil(wr / factor)), max(1, math.ceil(wc / factor))))
             if found.size or factor == 1:
