@@ -63,8 +63,8 @@ def spreadsheet_cell(value: Any) -> Any:
 
     Examples
     --------
-    >>> spreadsheet_cell("=HYPERLINK(\"http://x\")"), spreadsheet_cell("-1.250"), spreadsheet_cell(-3)
-    ('\'=HYPERLINK("http://x")', '-1.250', -3)
+    >>> spreadsheet_cell("=SUM(A1:A9)"), spreadsheet_cell("@A1"), spreadsheet_cell("-1.250"), spreadsheet_cell(-3)
+    ("'=SUM(A1:A9)", "'@A1", '-1.250', -3)
     """
     if not isinstance(value, str) or not value.startswith(_FORMULA_START) or _NUMBER.match(value):
         return value
