@@ -440,3 +440,20 @@ def test_parapet_gives_no_false_slivers_in_a_run(tmp_path, write_tif, monkeypatc
 
     monkeypatch.setattr(pipeline, "read_onto_grid", without_rule)
     assert len(process_survey(folder).anomalies) > 0
+
+
+def test_frame_units_are_checked_against_the_air(tmp_path):
+    """Frames read 5-10 degC; an air temperature of 55 degC cannot be the same night: refused by check
+    and run, naming the key to check (values outside -100..200 degC are refused by the frame reader)."""
+    import shutil
+
+    folder = tmp_path / "walked"
+    shutil.copytree(Path(__file__).resolve().parents[1] / "sample_surveys" / "walked_roof", folder)
+    results = folder / "results"
+    if results.exists():
+        shutil.rmtree(results)
+    edit_toml(folder, "air_c = 5.0", "air_c = 55.0")
+    problems = problems_of(check_survey, folder)
+    assert any("[[frame]] #2 (f02.tif)" in p and "from the air temperature 55" in p and "check [conditions] air_c" in p
+               for p in problems), problems
+    assert problems_of(process_survey, folder) == problems

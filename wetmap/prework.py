@@ -22,6 +22,7 @@ from shapely.geometry.base import BaseGeometry
 
 from .confirmations import Confirmations, read_confirmations
 from .errors import ProcessingError, WetmapError
+from .frames import read_frame
 from .rasters import RasterInfo, footprint, inspect_raster, plan_grid_for, sample_in_outline
 from .survey import Mosaic, Survey
 from .vectors import Section, read_layer, read_outline, read_sections
@@ -139,6 +140,16 @@ def prepare_survey(survey: Survey) -> Prepared:
         infos.append(info)
         if info is not None and outline is not None:
             _check_mosaic(survey, i, m, info, outline, crs, problems)
+    for i, f in enumerate(survey.frames):  # frames: read whole (they are small), median against the air
+        image = attempt(read_frame, f.path, units=f.units, scale=f.scale, offset=f.offset)
+        if image is None:
+            continue
+        finite = np.isfinite(image.values_k)
+        problem = units_problem(float(np.median(image.values_k[finite])) - 273.15, air_c=survey.conditions.air_c,
+                                units=f.units, scale=f.scale, offset=f.offset, kind=survey.survey.kind,
+                                where="frame")
+        if problem:
+            problems.append(f"{survey.file}: [[frame]] #{i + 1} ({f.path.name}): {problem}")
     if outline is not None and infos and all(info is not None for info in infos):
         grid = plan_grid_for(infos, outline.bounds, crs=crs, pixel_m=survey.plan.pixel_m)  # type: ignore[arg-type]
         if grid.rows * grid.cols > MAX_GRID_PX:
@@ -257,7 +268,7 @@ def _check_mosaic(survey: Survey, index: int, m: Mosaic, info: RasterInfo, outli
 
 
 def units_problem(median_c: float, *, air_c: float, units: str, scale: float = 1.0, offset: float = 0.0,
-                  kind: str = "roof") -> str | None:
+                  kind: str = "roof", where: str = "outline") -> str | None:
     """Why a median apparent temperature cannot be right, and what it looks like; ``None`` when plausible.
 
     Parameters
@@ -266,6 +277,8 @@ def units_problem(median_c: float, *, air_c: float, units: str, scale: float = 1
         Median apparent temperature on the outline, degC, as read with ``units``, ``scale``, ``offset``.
     air_c
         ``[conditions] air_c``.
+    where
+        ``"outline"`` (a mosaic's pixels inside the outline) or ``"frame"`` (a whole frame).
 
     Examples
     --------
@@ -298,7 +311,7 @@ def units_problem(median_c: float, *, air_c: float, units: str, scale: float = 1
         else:
             looks = ("the values are not temperatures in any unit wetmap knows: check units, scale and offset "
                      "(value = raw * scale + offset)")
-    surface = "hull" if kind == "hull" else "roof"
+    surface = "frame" if where == "frame" else "hull" if kind == "hull" else "roof"
     settings = f'units = "{units}"' + (f", scale = {scale:g}" if scale != 1.0 else "") + \
         (f", offset = {offset:g}" if offset != 0.0 else "")
     return (f"{settings}: median apparent temperature on the {surface} {median_c:.1f} °C, {abs(gap):.0f} K from the "
