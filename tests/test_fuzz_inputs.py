@@ -55,7 +55,7 @@ def toml_text(doc: dict) -> str:
         entries = body if isinstance(body, list) else [body]
         for entry in entries:
             out.append(f"[[{table}]]" if isinstance(body, list) else f"[{table}]")
-            out.extend(f"{key} = {toml_value(v)}" for key, v in entry.items())
+            out.extend(f"{json.dumps(key)} = {toml_value(v)}" for key, v in entry.items())  # quoted keys
             out.append("")
     return "\n".join(out)
 
@@ -66,7 +66,8 @@ scalars = st.one_of(
     st.floats(allow_nan=True, allow_infinity=True),
     st.text(max_size=30),
     st.sampled_from(["../../etc/passwd", "/etc/passwd", "a\x00b", "results/x.tif", "plan/outline.geojson",
-                     "thermal/pass1.tif", "EPSG:3857", "EPSG:32633", "C", "K", "21:30", "=1+1", ""]),
+                     "thermal/pass1.tif", "EPSG:3857", "EPSG:32633", "C", "K", "21:30", "=1+1", "",
+                     "line one\nline two", "plan/\r\noutline.geojson"]),
 )
 values = st.one_of(scalars, st.lists(scalars, max_size=5), st.lists(st.lists(scalars, max_size=4), max_size=5))
 table_names = st.sampled_from(sorted(_KEYS))
@@ -96,7 +97,7 @@ def assert_clean(fn, *args, **kwargs):
 def test_survey_toml_with_arbitrary_values(tmp_path_factory, edits, data):
     doc = json.loads(json.dumps(BASE))
     for table, draw in edits:
-        key = draw.draw(st.sampled_from(_KEYS[table] + ("bogus_key",)))
+        key = draw.draw(st.one_of(st.sampled_from(_KEYS[table] + ("bogus_key",)), st.text(min_size=1, max_size=8)))
         value = draw.draw(values)
         body = doc.setdefault(table, [{}] if table in ("mosaic", "frame") else {})
         (body[0] if isinstance(body, list) else body)[key] = value

@@ -457,3 +457,11 @@ def test_frame_units_are_checked_against_the_air(tmp_path):
     assert any("[[frame]] #2 (f02.tif)" in p and "from the air temperature 55" in p and "check [conditions] air_c" in p
                for p in problems), problems
     assert problems_of(process_survey, folder) == problems
+
+
+def test_control_characters_never_break_a_problem_line(demo):
+    edit_toml(demo, 'kind = "roof"', 'kind = "roof"\n"bad\\nkey" = 1')
+    edit_toml(demo, 'outline = "plan/outline.geojson"', 'outline = "plan/\\r\\noutline.geojson"')
+    problems = problems_of(load_survey, demo)  # every problem one line (checked by problems_of)
+    assert any("bad\\nkey" in p and "unknown key" in p for p in problems), problems
+    assert any("[plan] outline" in p and "\\r\\n" in p for p in problems), problems

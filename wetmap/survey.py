@@ -376,9 +376,18 @@ class _Problems:
         self.items.append(f"{self.file}: {where}{at}: {message}")
 
 
+_CONTROL = re.compile(r"[\x00-\x1f\x7f]")
+
+
+def _one_line(text: str) -> str:
+    """``text`` with control characters (a newline in a quoted key or value, NUL, ...) escaped:
+    a problem is always a single printable line."""
+    return _CONTROL.sub(lambda m: repr(m.group())[1:-1], text)
+
+
 def _fmt(value: Any) -> str:
     if isinstance(value, str):
-        return f'"{value}"'
+        return f'"{_one_line(value)}"'
     if isinstance(value, (clock_time, date_type)):  # TOML dates and times, as written in the file
         return value.isoformat()
     return repr(value)
@@ -1049,7 +1058,7 @@ def load_survey(folder: str | Path) -> Survey:
     prices = _read_prices(t_prices) if t_prices else None
 
     if problems.items:
-        raise SurveyError(problems.items)
+        raise SurveyError([_one_line(p) for p in problems.items])
     assert info and conditions and camera and plan  # guaranteed when no problem was recorded
     return Survey(
         folder=folder,
