@@ -94,11 +94,14 @@ def prepare_survey(survey: Survey) -> Prepared:
     warnings: list[str] = []
     crs_notes: list[str] = []  # the CRS at the site: said with any refusal too, as it is a likely cause
 
+    caught: list[type] = []  # the classes of the errors caught, one entry per problem
+
     def attempt(fn, *args, **kwargs):
         try:
             return fn(*args, **kwargs)
         except WetmapError as err:
             problems.extend(err.problems)
+            caught.extend([type(err)] * len(err.problems))
             return None
 
     outline = None
@@ -178,8 +181,9 @@ def prepare_survey(survey: Survey) -> Prepared:
                             f"{roof.area:.0f} m2 roof could need about {estimate:.3g} boards, more than "
                             f"{MAX_BOARDS}; check the board size (metres) and the outline's coordinates")
 
-    if problems:
-        raise ProcessingError([*crs_notes, *problems])
+    if problems:  # errors of one kind keep their class (InputFileError, ...); a mix is a ProcessingError
+        kind = caught[0] if len(caught) == len(problems) and len(set(caught)) == 1 else ProcessingError
+        raise kind([*crs_notes, *problems])
     assert outline is not None and roof is not None  # a missing outline is a problem above
     return Prepared(outline=outline, exclusions=exclusions, roof=roof, sections=tuple(sections), specular=specular,
                     infos=tuple(infos), confirmations=confirmations,  # type: ignore[arg-type]
