@@ -142,7 +142,7 @@ def prepare_survey(survey: Survey) -> Prepared:
         info = attempt(inspect_raster, m.path, origin=m.origin, pixel_m=m.pixel_m, survey_crs=crs)
         infos.append(info)
         if info is not None and outline is not None:
-            _check_mosaic(survey, i, m, info, outline, crs, problems)
+            attempt(_check_mosaic, survey, i, m, info, outline, crs, problems)  # a corrupt read: one more line
     for i, f in enumerate(survey.frames):  # frames: read whole (they are small), median against the air
         image = attempt(read_frame, f.path, units=f.units, scale=f.scale, offset=f.offset)
         if image is None:
