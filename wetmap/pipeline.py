@@ -26,9 +26,9 @@ from shapely.geometry.base import BaseGeometry
 from . import __version__
 from .confirm import (AreaRange, Status, SuggestedCore, ThresholdCheck, Verdicts, assign_status,
                       sample_at_points, suggest_cores, threshold_check, wet_area_range)
-from .confirmations import Confirmations, read_confirmations
+from .confirmations import Confirmations
 from .detect import Detection, default_background_m, detect_anomalies
-from .errors import InputFileError, ProcessingError
+from .errors import ProcessingError
 from .passes import PassComparison, align_to_grid, choose_primary, compare_passes, group_passes, pass_contrast_c
 from .polygons import RegionStats, label_regions, polygonize, region_stats
 from .quantities import BoardTakeoff, Quantities, SectionTotals, compute_quantities, largest_overlap
@@ -36,7 +36,7 @@ from .rasters import PlanGrid, inspect_raster, plan_grid_for, read_onto_grid
 from .register import SUSPECT_MIN_PX, FrameReport, Registration
 from .survey import Survey, load_survey
 from .tiles import FullRasters, WindowProgress, detect_in_windows
-from .vectors import Section, read_layer, read_outline, read_sections
+from .vectors import Section
 from .wording import wording_of
 
 __all__ = ["Anomaly", "SurveyResult", "process_survey", "write_results", "run_survey", "check_survey", "RESULT_FILES"]
@@ -557,7 +557,8 @@ def _surface_on_grid(survey: Survey, outline: BaseGeometry, radiometry: Radiomet
     apparent: np.ndarray | None = None
     for m, info in zip(survey.mosaics, infos):
         _emit(progress, f"reading {m.path.name}")
-        values = read_onto_grid(m.path, grid, info=info, units=m.units, scale=m.scale, offset=m.offset)
+        values = read_onto_grid(m.path, grid, info=info, units=m.units, scale=m.scale, offset=m.offset,
+                                inside=outline)
         if apparent is None:
             apparent = values
         else:  # later mosaics fill what earlier ones do not cover
@@ -752,30 +753,17 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
     WetmapError
         On any invalid input; the message names the file, key or row and the fix.
     """
+    from .prework import prepare_survey
+
     survey = load_survey(folder)
-    crs = None if survey.survey.is_local else survey.survey.crs
     warnings: list[str] = []
 
-    _emit(progress, "reading the plan")
-    outline, notes = read_outline(survey.plan.outline, survey_crs=crs)
-    warnings.extend(notes)
-    exclusions: BaseGeometry = Polygon()
-    if survey.plan.exclusions is not None:
-        layer = read_layer(survey.plan.exclusions, survey_crs=crs, what="exclusions")
-        warnings.extend(layer.notes)
-        exclusions = _union(layer.geometries)
-    sections: list[Section] = []
-    if survey.plan.sections is not None:
-        sections, notes = read_sections(survey.plan.sections, survey_crs=crs)
-        warnings.extend(notes)
-    specular: BaseGeometry | None = None  # [plan] specular: surfaces that show reflections (wetmap.imagery)
-    if survey.plan.specular is not None:
-        layer = read_layer(survey.plan.specular, survey_crs=crs, what="specular surfaces")
-        warnings.extend(layer.notes)
-        specular = _union(layer.geometries)
-    roof = outline.difference(exclusions) if not exclusions.is_empty else outline
-    if roof.area <= 0:
-        raise InputFileError(f"{survey.plan.exclusions}: the exclusions cover the whole outline; nothing is left to survey")
+    _emit(progress, "reading the plan and checking every input")
+    prepared = prepare_survey(survey)  # the same checks as `wetmap check`, every problem at once
+    warnings.extend(prepared.warnings)
+    outline, exclusions, roof = prepared.outline, prepared.exclusions, prepared.roof
+    sections: list[Section] = list(prepared.sections)
+    specular = prepared.specular  # [plan] specular: surfaces that show reflections (wetmap.imagery)
 
     radiometry = _radiometry(survey, warnings)
     # several passes (imagery with different times): the pass with the greatest wet-dry
@@ -836,10 +824,12 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         "uncovered_m2": (roof_px - covered_px) * px_area,
         "uncovered_pct": 100.0 * (roof_px - covered_px) / roof_px if roof_px else 100.0,
     }
-    if covered_px == 0:
-        warnings.append(f"no usable thermal data on the {area_word} (all nodata, or the imagery misses the outline): "
-                        "nothing was detected; check the imagery's placement and nodata")
-    elif coverage["uncovered_pct"] > 0.5:
+    if covered_px == 0:  # nothing to detect on: a confident empty answer would be wrong
+        raise ProcessingError(f"{survey.file}: no usable thermal data on the {area_word} (all nodata, the imagery "
+                              "misses the outline, or every pixel lost in the apparent-to-surface correction): check "
+                              "the imagery's placement and nodata, [camera] emissivity and [conditions] reflected_c; "
+                              "earlier results are kept")
+    if coverage["uncovered_pct"] > 0.5:
         warnings.append(
             f"{coverage['uncovered_m2']:.1f} m2 ({coverage['uncovered_pct']:.1f} %) of the {area_word} has no thermal data: "
             "it is not surveyed, which does not mean dry"
@@ -870,9 +860,8 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
     warnings[:0] = _condition_warnings(survey, sections, surface_c=float(np.nanmedian(dry_c))
                                        if np.isfinite(dry_c).any() else None)
 
-    if survey.cores is not None:
-        conf = read_confirmations(survey.cores.path, wet_above=survey.cores.wet_above,
-                                  wet_above_pct=survey.cores.wet_above_pct)
+    if prepared.confirmations is not None:
+        conf = prepared.confirmations
     else:
         conf = Confirmations.empty()
     verdicts = assign_status(polys, conf)
@@ -1040,25 +1029,18 @@ def run_survey(folder: str | Path, *, out: str | Path | None = None, progress: P
 def check_survey(folder: str | Path) -> tuple[Survey, tuple[str, ...]]:
     """Validate a survey without processing it: survey.toml, plan files, rasters, cores.
 
-    Returns the survey and the warnings found; raises :class:`WetmapError` on the first
-    file that cannot be used (every survey.toml problem at once).
+    Makes every check a run makes before work (:func:`wetmap.prework.prepare_survey`: plan
+    files, CRS at the site, mosaics' placement, coverage and units, grid size, cores, board
+    take-off) and registers the frames. Returns the survey and the warnings found; raises
+    :class:`WetmapError` listing every problem found (every survey.toml problem at once,
+    then every pre-work problem at once).
     """
+    from .prework import prepare_survey
+
     survey = load_survey(folder)
-    crs = None if survey.survey.is_local else survey.survey.crs
-    warnings: list[str] = []
-    _, notes = read_outline(survey.plan.outline, survey_crs=crs)
-    warnings.extend(notes)
-    if survey.plan.exclusions is not None:
-        warnings.extend(read_layer(survey.plan.exclusions, survey_crs=crs, what="exclusions").notes)
-    sections: list[Section] = []
-    if survey.plan.sections is not None:
-        sections, notes = read_sections(survey.plan.sections, survey_crs=crs)
-        warnings.extend(notes)
-    for m in survey.mosaics:
-        inspect_raster(m.path, origin=m.origin, pixel_m=m.pixel_m, survey_crs=crs)
-    if survey.cores is not None:
-        read_confirmations(survey.cores.path, wet_above=survey.cores.wet_above,
-                           wet_above_pct=survey.cores.wet_above_pct)
+    prepared = prepare_survey(survey)  # the same pre-work checks as a run, every problem at once
+    warnings: list[str] = list(prepared.warnings)
+    sections = list(prepared.sections)
     radiometry = _radiometry(survey, warnings)
     _register_frames(survey, radiometry, warnings, None)  # frame files readable, control points sound
     warnings[:0] = _condition_warnings(survey, sections)

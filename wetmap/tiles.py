@@ -335,10 +335,12 @@ def _preview_need(shape: tuple[int, int]) -> int:
 def preview_factor(tile_px: int, need: int) -> int:
     """The smallest divisor of ``tile_px`` that is at least ``need`` (preview cells never straddle windows).
 
-    >>> preview_factor(960, 15), preview_factor(89, 2)
-    (15, 89)
+    A window smaller than ``need`` gives one preview cell per window (``tile_px``).
+
+    >>> preview_factor(960, 15), preview_factor(89, 2), preview_factor(64, 100)
+    (15, 89, 64)
     """
-    return next(f for f in range(max(1, need), tile_px + 1) if tile_px % f == 0)
+    return next((f for f in range(max(1, need), tile_px + 1) if tile_px % f == 0), max(tile_px, 1))
 
 
 def windows_of(shape: tuple[int, int], tile_px: int) -> list[tuple[int, int, int, int]]:

@@ -87,8 +87,12 @@ def read_layer(path: Path, *, survey_crs: str | None, what: str) -> PlanLayer:
     import pyogrio
     from pyproj import CRS
 
+    import warnings
+
     try:
-        frame = pyogrio.read_dataframe(path)
+        with warnings.catch_warnings():  # NaN coordinates warn in shapely: refused below, in one line
+            warnings.simplefilter("ignore", RuntimeWarning)
+            frame = pyogrio.read_dataframe(path)
     except Exception as err:  # pyogrio raises several unrelated types for unreadable files
         raise InputFileError(f"{path}: cannot be read as a vector file ({err}); expected GeoJSON, GeoPackage or Shapefile") from None
     notes: list[str] = []
@@ -106,6 +110,11 @@ def read_layer(path: Path, *, survey_crs: str | None, what: str) -> PlanLayer:
             f"{path}: feature {index} is a {geoms[index].geom_type}; expected polygons for the {what}"
         )
     geoms = shapely.force_2d(geoms)
+    coords, owner = shapely.get_coordinates(geoms, return_index=True)
+    bad = ~np.isfinite(coords).all(axis=1)
+    if bad.any():  # NaN or infinity: GEOS cannot compute with them
+        raise InputFileError(f"{path}: feature {int(owner[np.flatnonzero(bad)[0]])} has a coordinate that is not a "
+                             f"finite number ({coords[np.flatnonzero(bad)[0]].tolist()}); fix the {what} in the drawing")
     file_crs = frame.crs
     bounds = np.asarray(shapely.total_bounds(geoms))
     if survey_crs is None:
@@ -124,6 +133,10 @@ def read_layer(path: Path, *, survey_crs: str | None, what: str) -> PlanLayer:
         tr = Transformer.from_crs(file_crs, survey_crs, always_xy=True)
         geoms = shapely.transform(geoms, lambda xy: np.column_stack(tr.transform(xy[:, 0], xy[:, 1])))
         notes.append(f"{path.name}: reprojected from {CRS(file_crs).to_string()} to {survey_crs}")
+        if not np.isfinite(shapely.get_coordinates(geoms)).all():
+            raise InputFileError(f"{path}: its coordinates cannot be reprojected from {CRS(file_crs).to_string()} "
+                                 f"to {survey_crs} (they fall outside what either CRS can represent); check the "
+                                 "CRS the file declares and the survey's crs")
     invalid = ~shapely.is_valid(geoms)
     if invalid.any():
         for i in np.flatnonzero(invalid):

@@ -28,6 +28,7 @@ from __future__ import annotations
 import csv
 import json
 import math
+import re
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -36,7 +37,8 @@ from ..quantities import OUTSIDE_SECTIONS, Quantities, SectionTotals, compute_qu
 if TYPE_CHECKING:
     from ..pipeline import SurveyResult
 
-__all__ = ["write_summary", "write_quantities", "quantity_columns", "quantities_of", "QUANTITY_COLUMNS"]
+__all__ = ["write_summary", "write_quantities", "quantity_columns", "quantities_of", "QUANTITY_COLUMNS",
+           "spreadsheet_cell"]
 
 #: The columns every quantities.csv has, in order (unit columns and the bill's follow).
 QUANTITY_COLUMNS = (
@@ -51,6 +53,29 @@ QUANTITY_COLUMNS = (
 _CONVERTED = ("area", "roof_area", "wet_area", "repair_area", "tearoff_area")
 
 _BILL_COLUMNS = ("bill_item", "bill_unit", "bill_quantity", "rate", "amount", "currency")
+
+
+#: First characters that make a spreadsheet evaluate a cell as a formula (OWASP, "CSV Injection").
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+_NUMBER = re.compile(r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$")
+
+
+def spreadsheet_cell(value: Any) -> Any:
+    """``value`` as a CSV cell that a spreadsheet shows and never evaluates.
+
+    A text starting with ``= + - @``, a tab or a carriage return is prefixed with a single
+    quote (OWASP's advice against CSV injection); numbers, and texts that are plain numbers
+    (a negative number is a number, not a formula), are left as they are. Every CSV wetmap
+    writes passes its cells through here.
+
+    Examples
+    --------
+    >>> spreadsheet_cell("=SUM(A1:A9)"), spreadsheet_cell("@A1"), spreadsheet_cell("-1.250"), spreadsheet_cell(-3)
+    ("'=SUM(A1:A9)", "'@A1", '-1.250', -3)
+    """
+    if not isinstance(value, str) or not value.startswith(_FORMULA_START) or _NUMBER.match(value):
+        return value
+    return "'" + value
 
 
 def _clean(value):
@@ -198,4 +223,4 @@ def write_quantities(result: "SurveyResult", path: Path) -> None:
     with path.open("w", newline="", encoding="utf-8") as fh:
         w = csv.DictWriter(fh, fieldnames=list(columns), restval="")
         w.writeheader()
-        w.writerows(rows)
+        w.writerows({k: spreadsheet_cell(v) for k, v in row.items()} for row in rows)
