@@ -26,8 +26,9 @@ from shapely.geometry.base import BaseGeometry
 from . import __version__
 from .confirm import (AreaRange, Status, SuggestedCore, ThresholdCheck, Verdicts, assign_status,
                       sample_at_points, suggest_cores, threshold_check, wet_area_range)
+from .errors import SurveyError
 from .confirmations import Confirmations, read_confirmations
-from .detect import Detection, default_background_m, detect_anomalies
+from .detect import Detection, anomaly_mask, default_background_m, detect_anomalies
 from .errors import InputFileError, ProcessingError
 from .passes import PassComparison, align_to_grid, compare_passes, group_passes
 from .polygons import RegionStats, label_regions, polygonize, region_stats
@@ -128,6 +129,8 @@ class SurveyResult:
     anomalies and their statistics are exact. ``None``: the whole array is in memory."""
     imagery: Any = None
     """Resolution, focus, reflection and display-range findings (:class:`wetmap.imagery.ImageryReport`)."""
+    cores_threshold: Any = None
+    """``[detect] delta_c = "cores"``: the range the cores allowed and the threshold taken (:class:`CoresThreshold`)."""
 
     def summary(self) -> dict[str, Any]:
         """The ``summary.json`` content (areas in m2)."""
@@ -137,6 +140,7 @@ class SurveyResult:
         roof_area = self.roof.area
         wet = by["wet"] + by["unverified"]
         d, s = self.detection, self.survey
+        bg = self.background_entries()
         return {
             "title": s.survey.title,
             "kind": s.survey.kind,
@@ -163,9 +167,11 @@ class SurveyResult:
                 "reflection_suspect": [r.as_dict() for r in self.imagery.reflections]}
                if self.imagery is not None else {}),
             "sections": [
-                {k: (round(v, 4) if isinstance(v, float) else v) for k, v in vars(t).items()}
+                {**{k: (round(v, 4) if isinstance(v, float) else v) for k, v in vars(t).items()},
+                 **({"background": bg[t.name]["method"]} if t.name in bg else {})}
                 for t in self.section_totals
             ],
+            "background": list(bg.values()),
             "coverage": {k: round(v, 4) for k, v in self.coverage.items()},
             "registration": [r.as_dict() for r in self.registration],
             "confirmations": {
@@ -182,6 +188,12 @@ class SurveyResult:
                 "transmittance": round(self.radiometry.transmittance, 5),
                 "transmittance_source": self.radiometry.transmittance_source,
                 "delta_c": d.threshold_c,
+                "delta_c_source": ("the middle of the range the cores allow" if self.cores_threshold is not None
+                                   else "[detect] delta_c"),
+                **({"delta_c_cores": {"dry_max_c": self.cores_threshold.low_c, "wet_min_c": self.cores_threshold.high_c,
+                                      "wet_cores": self.cores_threshold.wet, "dry_cores": self.cores_threshold.dry}}
+                   if self.cores_threshold is not None else {}),
+                "background": s.detect.background,
                 "background_m": round(d.background_m, 3),
                 "min_area_m2": s.detect.min_area_m2,
                 "pixel_m": (self.full_rasters.grid if self.full_rasters is not None else self.grid).pixel_m,
@@ -198,6 +210,17 @@ class SurveyResult:
             },
             "wetmap_version": __version__,
         }
+
+    def background_entries(self) -> dict[str, dict[str, Any]]:
+        """The dry background of each section (method, reason, trend figures), by section name.
+
+        The rest of the roof outside every section is listed only when it has thermal data.
+        """
+        model = getattr(self.detection, "background", None)
+        if model is None:
+            return {}
+        return {e.name: e.as_dict() for e in model.sections
+                if not (e.method == "none" and e.name == OUTSIDE_SECTIONS)}
 
     def _processing(self) -> dict[str, Any]:
         """summary.json ``method.processing``: whole array, or windows and what used the preview."""
@@ -498,7 +521,9 @@ def _condition_warnings(survey: Survey, sections, *, surface_c: float | None = N
 
 def _compare_passes(survey: Survey, groups, outline: BaseGeometry, radiometry: Radiometry, warnings: list[str],
                     progress: Progress | None, *, grid: PlanGrid, surface_c: np.ndarray, in_roof: np.ndarray,
-                    detection: Detection, labels: np.ndarray, count: int, background_m: float) -> PassComparison:
+                    detection: Detection, labels: np.ndarray, count: int, background_m: float,
+                    section_labels: np.ndarray | None = None, names: tuple[str, ...] = ("roof",),
+                    cores=None) -> PassComparison:
     """Detect anomalies in each earlier pass and compare them with the primary (last) pass."""
     sdt = survey.detect
     surfaces, deltas, label_list, counts = [], [], [], []
@@ -509,7 +534,9 @@ def _compare_passes(survey: Survey, groups, outline: BaseGeometry, radiometry: R
         g_surface = align_to_grid(g_surface, g_grid.transform, grid.transform, grid.shape)
         g_usable = in_roof & np.isfinite(g_surface)
         det = detect_anomalies(g_surface, g_usable, pixel_m=grid.pixel_m, delta_c=sdt.delta_c,
-                               background_m=background_m, min_area_m2=sdt.min_area_m2)
+                               background_m=background_m, min_area_m2=sdt.min_area_m2, labels=section_labels,
+                               names=names, choice=sdt.background, cores=cores,
+                               threshold_c=detection.threshold_c)
         lab, n = label_regions(det.mask)
         surfaces.append(np.where(g_usable, g_surface, np.nan))
         deltas.append(det.delta_c)
@@ -524,6 +551,102 @@ def _compare_passes(survey: Survey, groups, outline: BaseGeometry, radiometry: R
                             pass_labels=[g.label for g in groups], transform=grid.transform)
     warnings.extend(result.warnings())
     return result
+
+
+#: Name of the roof outside every section when sections are given (a background group of its own).
+OUTSIDE_SECTIONS = "(outside the sections)"
+
+
+def _group_names(sections, area_word: str) -> tuple[str, ...]:
+    """One name per section label: the sections in order, then the rest of the roof; or the whole roof."""
+    if not sections:
+        return (area_word,)
+    return (*(s.name for s in sections), OUTSIDE_SECTIONS)
+
+
+def _section_labels(geoms, grid: PlanGrid) -> np.ndarray | None:
+    """Section label of every pixel (pixel-centre rule of :mod:`wetmap.tiles`), or ``None`` with no sections."""
+    if not geoms:
+        return None
+    from .tiles import pixel_edges, section_label_raster
+
+    return section_label_raster([pixel_edges(g, grid.transform) for g in geoms], grid.shape)
+
+
+def _core_pixels(conf: Confirmations, grid: PlanGrid) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+    """``(rows, cols, wet)`` of the confirmations on the grid (pixel indices), or ``None``."""
+    if not len(conf):
+        return None
+    cols, rows = ~grid.transform @ (np.asarray(conf.xs, float), np.asarray(conf.ys, float))
+    return np.floor(rows).astype(np.intp), np.floor(cols).astype(np.intp), np.asarray(conf.wet, bool)
+
+
+def _surveyed_part(roof: BaseGeometry, outline: BaseGeometry, exclusions: BaseGeometry, *, edge_buffer_m: float,
+                   exclusion_buffer_m: float) -> tuple[BaseGeometry, list[str], dict[str, float]]:
+    """The roof minus the optional bands along the outline and around the exclusions.
+
+    Returns the surveyed part, notes, and the area of each band left out (m2, ``edge_band_m2``,
+    ``exclusion_band_m2``; only the bands asked for).
+    """
+    surveyed = roof
+    notes: list[str] = []
+    areas: dict[str, float] = {}
+    if edge_buffer_m > 0:
+        inner = outline.buffer(-edge_buffer_m, join_style="mitre")
+        cut = surveyed.intersection(inner)
+        areas["edge_band_m2"] = float(surveyed.area - cut.area)
+        surveyed = cut
+    if exclusion_buffer_m > 0 and not exclusions.is_empty:
+        cut = surveyed.difference(exclusions.buffer(exclusion_buffer_m, join_style="mitre"))
+        areas["exclusion_band_m2"] = float(surveyed.area - cut.area)
+        surveyed = cut
+    return surveyed, notes, areas
+
+
+@dataclass(frozen=True)
+class CoresThreshold:
+    """``[detect] delta_c = "cores"``: the range the cores allow and its middle, degC."""
+
+    low_c: float
+    """Largest delta-T at a dry core."""
+    high_c: float
+    """Smallest delta-T at a wet core."""
+    chosen_c: float
+    wet: int
+    dry: int
+
+
+def threshold_from_cores(ids, core_delta_c: np.ndarray, wet: np.ndarray, *, file: Path) -> CoresThreshold:
+    """The middle of the thresholds the cores allow: between the largest delta-T at a dry core
+    and the smallest at a wet core.
+
+    Raises
+    ------
+    SurveyError
+        When there is no wet or no dry core with thermal data, or when a dry core is at least
+        as warm as a wet core (no threshold separates them).
+
+    >>> threshold_from_cores(("a", "b", "c"), np.array([2.0, 0.4, 0.8]), np.array([True, False, False]),
+    ...                      file=Path("survey.toml")).chosen_c
+    1.4
+    """
+    d = np.asarray(core_delta_c, dtype=float)
+    w = np.asarray(wet, bool)
+    ok = np.isfinite(d)
+    ids = np.asarray(ids, dtype=object)
+    if not (ok & w).any() or not (ok & ~w).any():
+        missing = "wet" if not (ok & w).any() else "dry"
+        raise SurveyError(f'{file}: [detect] delta_c = "cores" needs at least one {missing} core with thermal data '
+                          f"({int((ok & w).sum())} wet, {int((ok & ~w).sum())} dry found): add cores or give a number")
+    i_dry = np.flatnonzero(ok & ~w)[np.argmax(d[ok & ~w])]
+    i_wet = np.flatnonzero(ok & w)[np.argmin(d[ok & w])]
+    low, high = float(d[i_dry]), float(d[i_wet])
+    if not high > low:
+        raise SurveyError(f'{file}: [detect] delta_c = "cores": dry core {ids[i_dry]} (delta-T {low:+.2f} °C) is at '
+                          f"least as warm as wet core {ids[i_wet]} ({high:+.2f} °C), so the cores allow no threshold; "
+                          "give delta_c a number and check those cores")
+    return CoresThreshold(low_c=round(low, 4), high_c=round(high, 4), chosen_c=round(0.5 * (low + high), 4),
+                          wet=int((ok & w).sum()), dry=int((ok & ~w).sum()))
 
 
 def process_survey(folder: str | Path, *, progress: Progress | None = None, scheduler: Any = None,
@@ -578,6 +701,26 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
     if roof.area <= 0:
         raise InputFileError(f"{survey.plan.exclusions}: the exclusions cover the whole outline; nothing is left to survey")
 
+    if survey.cores is not None:
+        conf = read_confirmations(survey.cores.path, wet_above=survey.cores.wet_above,
+                                  wet_above_pct=survey.cores.wet_above_pct)
+    else:
+        conf = Confirmations.empty()
+    sdt = survey.detect
+    surveyed, band_notes, band_m2 = _surveyed_part(roof, outline, exclusions, edge_buffer_m=sdt.edge_buffer_m,
+                                                   exclusion_buffer_m=sdt.exclusion_buffer_m)
+    if surveyed.area <= 0:
+        raise InputFileError(f"{survey.file}: [detect] edge_buffer_m = {sdt.edge_buffer_m:g} and exclusion_buffer_m = "
+                             f"{sdt.exclusion_buffer_m:g} leave nothing of the roof to survey; make them smaller")
+    section_geoms = [s.geometry for s in sections]
+    group_names = _group_names(sections, _area_word(survey))
+    threshold_from = None
+    from_cores: list[CoresThreshold] = []
+    if sdt.delta_from == "cores":
+        def threshold_from(core_delta: np.ndarray) -> float:
+            from_cores.append(threshold_from_cores(conf.ids, core_delta, conf.wet, file=survey.file))
+            return from_cores[-1].chosen_c
+
     radiometry = _radiometry(survey, warnings)
     # several passes (imagery with different times): the last pass is the primary detection
     pass_groups, notes = group_passes(survey.mosaics, survey.frames, sunset=survey.conditions.sunset)
@@ -587,19 +730,20 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
     frame_reports: list[FrameReport] = []
     frame_views: list = []  # the placed frames, for the imagery checks (wetmap.imagery)
     area_word = _area_word(survey)
-    sdt = survey.detect
     x0, y0, x1, y1 = outline.bounds
     background_m = sdt.background_m or default_background_m(survey.survey.kind, max(x1 - x0, y1 - y0))
     # one pass of large mosaics on the plan grid's lattice: in windows, same result (wetmap.tiles)
     tiled = None if len(pass_groups) > 1 else detect_in_windows(
-        primary, outline=outline, roof=roof, radiometry=radiometry, background_m=background_m, tile_px=tile_px,
+        primary, outline=outline, roof=surveyed, radiometry=radiometry, background_m=background_m, tile_px=tile_px,
         scheduler=scheduler, scratch=None if scratch is None else Path(scratch), progress=progress,
-        window_progress=window_progress)
+        window_progress=window_progress, sections=section_geoms, names=group_names, choice=sdt.background,
+        cores=(conf.xs, conf.ys, conf.wet), threshold_from=threshold_from)
     if tiled is None:
         grid, surface_c = _surface_on_grid(primary, outline, radiometry, warnings, progress,
                                            registration=frame_reports, views=frame_views)
         _emit(progress, "masking the roof")
-        in_roof = _mask_of(roof, grid)
+        in_roof = _mask_of(surveyed, grid)
+        labels_px = _section_labels(section_geoms, grid)
         usable = in_roof & np.isfinite(surface_c)
         roof_px = int(in_roof.sum())
         covered_px = int(usable.sum())
@@ -620,7 +764,13 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         "covered_m2": covered_px * px_area,
         "uncovered_m2": (roof_px - covered_px) * px_area,
         "uncovered_pct": 100.0 * (roof_px - covered_px) / roof_px if roof_px else 100.0,
+        **band_m2,
     }
+    for key, what, setting in (("edge_band_m2", "along the outline", "edge_buffer_m"),
+                               ("exclusion_band_m2", "around the exclusions", "exclusion_buffer_m")):
+        if key in band_m2:
+            warnings.append(f"{band_m2[key]:.1f} m2 in the band {what} ([detect] {setting} = "
+                            f"{getattr(sdt, setting):g}) is left out: not surveyed, which does not mean dry")
     if covered_px == 0:
         warnings.append(f"no usable thermal data on the {area_word} (all nodata, or the imagery misses the outline): "
                         "nothing was detected; check the imagery's placement and nodata")
@@ -633,8 +783,14 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         warnings.append(f"the thermal data on the {area_word} are constant: no contrast, nothing can be detected")
     if tiled is None:
         _emit(progress, "estimating the dry background and thresholding")
+        core_px = _core_pixels(conf, grid)
         detection = detect_anomalies(surface_c, usable, pixel_m=grid.pixel_m, delta_c=sdt.delta_c,
-                                     background_m=background_m, min_area_m2=sdt.min_area_m2)
+                                     background_m=background_m, min_area_m2=sdt.min_area_m2, labels=labels_px,
+                                     names=group_names, choice=sdt.background, cores=core_px)
+        if threshold_from is not None:
+            t = threshold_from(sample_at_points(detection.delta_c, grid.transform, conf.xs, conf.ys))
+            detection = replace(detection, threshold_c=t,
+                                mask=anomaly_mask(detection.delta_c, t, min_pixels=detection.min_pixels))
         _emit(progress, "outlining anomalies")
         labels, count = label_regions(detection.mask)
         stats = region_stats(labels, count, detection.delta_c)
@@ -650,15 +806,11 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         range_min_pixels = tiled.preview_min_pixels  # the wet-area range is computed on the preview
     passes = None if len(pass_groups) == 1 else _compare_passes(
         survey, pass_groups, outline, radiometry, warnings, progress, grid=grid, surface_c=surface_c,
-        in_roof=in_roof, detection=detection, labels=labels, count=count, background_m=background_m)
+        in_roof=in_roof, detection=detection, labels=labels, count=count, background_m=background_m,
+        section_labels=labels_px, names=group_names, cores=core_px)
     warnings[:0] = _condition_warnings(survey, sections, surface_c=float(np.nanmedian(dry_c))
                                        if np.isfinite(dry_c).any() else None)
 
-    if survey.cores is not None:
-        conf = read_confirmations(survey.cores.path, wet_above=survey.cores.wet_above,
-                                  wet_above_pct=survey.cores.wet_above_pct)
-    else:
-        conf = Confirmations.empty()
     verdicts = assign_status(polys, conf)
     conf_delta = (sample_at_points(detection.delta_c, grid.transform, conf.xs, conf.ys) if tiled is None
                   else tiled.full_rasters.sample(conf.xs, conf.ys))
@@ -740,6 +892,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         registration=tuple(frame_reports),
         full_rasters=None if tiled is None else tiled.full_rasters,
         imagery=imagery,
+        cores_threshold=from_cores[-1] if from_cores else None,
     )
 
 
