@@ -344,16 +344,21 @@ def fit_trend(values_c: np.ndarray, rows_px: np.ndarray, cols_px: np.ndarray, *,
               max_degree: int = TREND_MAX_DEGREE, iterations: int = 40) -> TrendFit | None:
     """Fit a dry surface to block medians, knowing that wet only warms.
 
-    1. start: the ``TREND_START_QUANTILE`` plane of the blocks (quantile regression), so a
-       section 45 % wet does not pull the start up; where dry cores are given and their
-       blocks lie below it, the start is lowered to them (a dry core anchors the level; a
-       dry core on a warm patch of another cause never raises it);
+    1. robust low starts: the ``TREND_START_QUANTILE`` plane of the blocks (quantile
+       regression), so a section 45 % wet does not pull the start up; a level at half that
+       quantile; and the plane of each half of the section (a wet bay filling one side leaves
+       the other side's plane as a start). Where dry cores are given and their blocks lie
+       below a start, the start is lowered to them (a dry core anchors the level; a dry core
+       on a warm patch of another cause never raises it);
     2. asymmetric trimming: the dry spread ``s`` is measured on the cold side
        (MAD x 1.4826 of the blocks below the surface); blocks more than
        ``min(3 s, delta_c / 2)`` above the surface are wet candidates and left out, blocks
        below count fully; least squares on the kept blocks; repeated until the kept set
        stops changing;
-    3. a quadric (degree 2) is fitted the same way from the plane's kept set and used when
+    3. of the planes the starts converge to, the one whose kept blocks scatter least (wet
+       blocks kept by a wrong start widen the scatter; since blocks below always count, no
+       start can settle on the wet blocks alone);
+    4. a quadric (degree 2) is fitted the same way from the plane's kept set and used when
        there are enough blocks and it shrinks the kept blocks' spread by ``TREND_DEGREE_GAIN``.
 
     Parameters
@@ -415,21 +420,30 @@ def fit_trend(values_c: np.ndarray, rows_px: np.ndarray, cols_px: np.ndarray, *,
                                                                                     np.zeros(x.shape[1] - 1)]
         return beta, keep, cut
 
-    x1 = _design(u, v, 1)
-    start = _quantile_start(x1[usable], y[usable], TREND_START_QUANTILE)
-    f0 = x1 @ start
-    if dry.any():
-        shift = float(np.median(y[dry] - f0[dry]))
-        if shift < 0:
-            start = start.copy()
-            start[0] += shift
-            f0 = x1 @ start
-    beta, keep, cut = trim(1, f0)
-    best = (1, beta, keep, cut)
-
     def spread(degree: int, b: np.ndarray, k: np.ndarray) -> float:
         r = y[k] - _design(u[k], v[k], degree) @ b
         return MAD_TO_SIGMA * float(np.median(np.abs(r))) if r.size else math.inf
+
+    x1 = _design(u, v, 1)
+    starts = [_quantile_start(x1[usable], y[usable], TREND_START_QUANTILE),
+              np.r_[np.quantile(y[usable], 0.5 * TREND_START_QUANTILE), 0.0, 0.0]]
+    for half in (u < 0, u > 0, v < 0, v > 0):  # a wet bay on one side: the other side's plane
+        part = usable & half
+        if part.sum() >= TREND_MIN_BLOCKS[1]:
+            starts.append(_lstsq(x1[part], y[part]))
+    best = None
+    for start in starts:
+        f0 = x1 @ start
+        if dry.any():
+            shift = float(np.median(y[dry] - f0[dry]))
+            if shift < 0:
+                f0 = f0 + shift
+        beta, keep, cut = trim(1, f0)
+        score = (spread(1, beta, keep), -int(keep.sum()))
+        if best is None or score < best[0]:
+            best = (score, (1, beta, keep, cut))
+    best = best[1]
+    beta, keep = best[1], best[2]
 
     s1 = spread(1, beta, keep)
     if max_degree >= 2 and keep.sum() >= TREND_MIN_BLOCKS[2]:
