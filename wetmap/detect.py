@@ -57,6 +57,11 @@ __all__ = [
     "fit_background",
     "core_blocks",
     "estimate_background",
+    "EDGE_BAND_M",
+    "EDGE_FLAG",
+    "UNIT_FLAG",
+    "edge_flags",
+    "large_share",
 ]
 
 #: Default dry-background scale: a fraction of the plan's longest side, clamped per kind
@@ -865,3 +870,84 @@ def detect_anomalies(surface_c: np.ndarray, usable: np.ndarray, *, pixel_m: floa
     mask = anomaly_mask(delta, threshold, min_pixels=min_pixels)
     return Detection(background_c=background, delta_c=delta, mask=mask, background_m=background_m,
                      threshold_c=threshold, min_pixels=min_pixels, background=model)
+
+
+# --------------------------------------------------------------------------------------
+# Anomalies that hug the roof edge or ring a rooftop unit; large wet share
+# --------------------------------------------------------------------------------------
+
+#: Width of the band along the outline and around exclusions in which an anomaly is looked
+#: at as a likely edge or unit effect, metres (common practice: parapet and curb flashing,
+#: ballast against a parapet and heat from a unit warm a band of about a metre).
+EDGE_BAND_M = 1.5
+#: Share of an anomaly's area inside that band for the flag.
+EDGE_BAND_SHARE = 0.8
+#: Elongation (perimeter^2 / (4 pi area); 1 for a disc, 1.27 for a square) above which an
+#: anomaly counts as a band or a ring rather than a patch.
+EDGE_MIN_ELONGATION = 3.0
+EDGE_FLAG = "edge band"
+UNIT_FLAG = "next to a rooftop unit"
+
+
+def edge_flags(polygons, *, outline, exclusions, band_m: float = EDGE_BAND_M,
+               share: float = EDGE_BAND_SHARE) -> list[tuple[str, ...]]:
+    """Flags naming the likely cause of anomalies that hug the roof edge or ring an exclusion.
+
+    An anomaly is a narrow band (mean width ``2 area / perimeter`` at most ``band_m``, and
+    elongated: ``perimeter^2 / (4 pi area) >= EDGE_MIN_ELONGATION``) with at least ``share``
+    of its area within ``band_m`` of the outline's edge (``"edge band"``) or of an exclusion
+    (``"next to a rooftop unit"``).
+
+    Parameters
+    ----------
+    polygons
+        Anomaly polygons, plan coordinates.
+    outline, exclusions
+        The plan outline and the union of the exclusions (may be empty).
+    band_m
+        Band width, metres.
+    share
+        Share of the area in the band.
+
+    Returns
+    -------
+    list of tuple of str
+        One tuple of flags per polygon (empty when none applies).
+
+    >>> import shapely
+    >>> roof = shapely.box(0, 0, 50, 30)
+    >>> edge_flags([shapely.box(0, 29, 50, 30), shapely.box(10, 10, 20, 20)], outline=roof,
+    ...            exclusions=shapely.Polygon())
+    [('edge band',), ()]
+    """
+    import shapely
+
+    polys = np.asarray(list(polygons), dtype=object)
+    out: list[tuple[str, ...]] = [() for _ in range(len(polys))]
+    if not len(polys):
+        return out
+    area = shapely.area(polys)
+    perimeter = shapely.length(polys)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        narrow = (2.0 * area / perimeter <= band_m) & (perimeter ** 2 / (4.0 * math.pi * area) >= EDGE_MIN_ELONGATION)
+    if not narrow.any():
+        return out
+    inner = outline.buffer(-band_m, join_style="mitre")
+    near_edge = area - shapely.area(shapely.difference(polys, inner)) <= (1.0 - share) * area
+    if exclusions is not None and not exclusions.is_empty:
+        ring = exclusions.buffer(band_m, join_style="mitre")
+        near_unit = shapely.area(shapely.intersection(polys, ring)) >= share * area
+    else:
+        near_unit = np.zeros(len(polys), bool)
+    for i in np.flatnonzero(narrow):
+        out[i] = tuple(f for f, on in ((EDGE_FLAG, near_edge[i]), (UNIT_FLAG, near_unit[i])) if on)
+    return out
+
+
+def large_share(wet_fraction: float, *, above_pct: float) -> bool:
+    """True when anomalies fill more than ``above_pct`` percent of a section.
+
+    >>> large_share(0.38, above_pct=25.0), large_share(0.2, above_pct=25.0)
+    (True, False)
+    """
+    return 100.0 * wet_fraction > above_pct

@@ -28,7 +28,8 @@ from .confirm import (AreaRange, Status, SuggestedCore, ThresholdCheck, Verdicts
                       sample_at_points, suggest_cores, threshold_check, wet_area_range)
 from .errors import SurveyError
 from .confirmations import Confirmations, read_confirmations
-from .detect import Detection, anomaly_mask, default_background_m, detect_anomalies
+from .detect import (EDGE_FLAG, UNIT_FLAG, Detection, anomaly_mask, default_background_m, detect_anomalies,
+                     edge_flags, large_share)
 from .errors import InputFileError, ProcessingError
 from .passes import PassComparison, align_to_grid, compare_passes, group_passes
 from .polygons import RegionStats, label_regions, polygonize, region_stats
@@ -172,6 +173,8 @@ class SurveyResult:
                 for t in self.section_totals
             ],
             "background": list(bg.values()),
+            "large_wet_share": [{"where": w, "wet_fraction": round(f, 6)}
+                                for w, f in large_wet_shares(self.quantities, s)],
             "coverage": {k: round(v, 4) for k, v in self.coverage.items()},
             "registration": [r.as_dict() for r in self.registration],
             "confirmations": {
@@ -649,6 +652,30 @@ def threshold_from_cores(ids, core_delta_c: np.ndarray, wet: np.ndarray, *, file
                           wet=int((ok & w).sum()), dry=int((ok & ~w).sum()))
 
 
+def large_wet_shares(quantities: Quantities | None, survey: Survey) -> list[tuple[str, float]]:
+    """``(where, wet fraction)`` of each section (or the whole roof, or the roof outside every
+    section) whose anomalies fill more than ``[repair] replace_above_pct`` of it (roofs only)."""
+    above = survey.repair.replace_above_pct
+    if quantities is None or above is None or survey.survey.kind != "roof":
+        return []
+    out = [(f"section {t.name}", t.wet_fraction) for t in quantities.sections
+           if large_share(t.wet_fraction, above_pct=above)]
+    if quantities.outside is not None and quantities.outside.area_m2 > 0 and large_share(
+            quantities.outside.wet_fraction, above_pct=above):
+        out.append(("the roof outside every section", quantities.outside.wet_fraction))
+    if not quantities.sections and large_share(quantities.wet_fraction, above_pct=above):
+        out.append(("the whole roof", quantities.wet_fraction))
+    return out
+
+
+def _large_share_warnings(quantities: Quantities, survey: Survey) -> list[str]:
+    """A plain warning for each large wet share (:func:`large_wet_shares`)."""
+    return [f"{where}: anomalies fill {100 * f:.0f} % of it, a large wet share: this figure decides between repair "
+            "and replacement (some local codes require replacement above 25 % wet; a trade rule of thumb repairs "
+            "only under about 30 %), so confirm the wet boundary with cores and check which rule applies"
+            for where, f in large_wet_shares(quantities, survey)]
+
+
 def process_survey(folder: str | Path, *, progress: Progress | None = None, scheduler: Any = None,
                    tile_px: int | None = None, window_progress: WindowProgress | None = None,
                    scratch: str | Path | None = None) -> SurveyResult:
@@ -856,6 +883,17 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         sections=sections, specular=specular, outline=outline)
     warnings.extend(imagery.warnings)
     section_of = largest_overlap(polys, [s.geometry for s in sections])
+    # anomalies hugging the roof edge or ringing a rooftop unit: a flag naming the likely cause
+    place_flags = (edge_flags(polys, outline=outline, exclusions=exclusions) if survey.survey.kind == "roof"
+                   else [()] * len(polys))
+    for label in (EDGE_FLAG, UNIT_FLAG):
+        ids = [str(i + 1) for i, f in enumerate(place_flags) if label in f]
+        if ids:
+            where = "along the roof edge" if label == EDGE_FLAG else "ringing an exclusion"
+            setting = "edge_buffer_m" if label == EDGE_FLAG else "exclusion_buffer_m"
+            warnings.append(f"anomal{'y' if len(ids) == 1 else 'ies'} {', '.join(ids)}: a narrow band {where} "
+                            f"(flag \"{label}\"): often flashing, parapet or unit heat rather than wet insulation; "
+                            f"check in daylight and by a core, or leave the band out with [detect] {setting}")
     anomalies = tuple(
         Anomaly(
             id=i + 1,
@@ -867,7 +905,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
             delta_max_c=float(stats.max[i]),
             confirmations=verdicts.confirmation_ids[i],
             section=sections[section_of[i]].name if section_of[i] >= 0 else None,
-            flags=imagery.flags_text(i),
+            flags="; ".join(f for f in (imagery.flags_text(i), *place_flags[i]) if f),
         )
         for i, p in enumerate(polys)
     )
@@ -878,6 +916,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         sections=sections, settings=survey.repair, prices=survey.prices, kind=survey.survey.kind,
     )
     warnings.extend(quantities.notes)
+    warnings.extend(_large_share_warnings(quantities, survey))
     repair, takeoff, totals = quantities.repair, quantities.takeoff, quantities.sections
     return SurveyResult(
         survey=survey, grid=grid, surface_c=surface_c, detection=detection, outline=outline,

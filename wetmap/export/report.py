@@ -546,8 +546,13 @@ def _method(result: "SurveyResult", summary: dict[str, Any]) -> str:
          f"{result.full_rasters.grid.cols:,d}, processed in {result.full_rasters.windows} windows of "
          f"{result.full_rasters.tile_px} px; figures drawn from {result.full_rasters.preview_factor} x "
          f"{result.full_rasters.preview_factor} px block means"),
-        ("Dry background scale", f"{d.background_m:g} m"),
-        ("Threshold", f"ΔT &gt; {d.threshold_c:g} °C above the dry background"),
+        ("Dry background scale", f"{d.background_m:g} m (the local method's footprint)"),
+        *[(f"Dry background, {_esc(e['section'])}", f"{_esc(e['method'])}: {_esc(e['reason'])}")
+          for e in summary.get("background") or []],
+        ("Threshold", f"ΔT &gt; {d.threshold_c:g} °C above the dry background"
+         + ("" if "delta_c_cores" not in m else
+            f": the middle of the range the cores allow (largest ΔT at a dry core {m['delta_c_cores']['dry_max_c']:+.2f} °C, "
+            f"smallest at a wet core {m['delta_c_cores']['wet_min_c']:+.2f} °C)")),
         ("Smallest anomaly kept", f"{s.detect.min_area_m2:g} m² (holes smaller than this are filled)"),
         ("Perimeter", _esc(m.get("perimeter", "length of the outline"))),
         ("Repair margin", f"{s.repair.margin_m:g} m beyond the anomaly outline"),
@@ -703,7 +708,9 @@ def _anomaly_table(result: "SurveyResult", summary: dict[str, Any]) -> str:
         f'<td class="num">{sum(a.area_m2 for a in result.anomalies):,.2f}</td><td colspan="5"></td></tr>'
     )
     flagged = [a for a in result.anomalies if getattr(a, "flags", "")]
-    flags = ("<p id='anomaly-flags' class='small'>Imagery flags (see Imagery checks in the method): "
+    flags = ("<p id='anomaly-flags' class='small'>Flags (imagery: see Imagery checks in the method; "
+             "“edge band”, “next to a rooftop unit”: a narrow band along the roof edge or around an exclusion, "
+             "often flashing, parapet or unit heat): "
              + "; ".join(f"#{a.id}: {_esc(a.flags)}" for a in flagged) + ".</p>") if flagged else ""
     return (f'<table id="anomalies" class="data"><thead>{head}</thead><tbody>{"".join(body)}</tbody>'
             f"<tfoot>{foot}</tfoot></table>{flags}")
@@ -743,6 +750,13 @@ def _quantities(result: "SurveyResult", summary: dict[str, Any]) -> str:
                 f'<tbody>{"".join(rows_html)}</tbody></table>'
                 "<p class='small'>Replace-or-repair rules (for example a share of wet area above which a whole "
                 "roof is replaced) differ by jurisdiction: the local code decides.</p>")
+    large = summary.get("large_wet_share") or []
+    if large:
+        out += ("<p id='large-wet-share'><strong>Large wet share:</strong> "
+                + "; ".join(f"{_esc(e['where'])}: {100 * e['wet_fraction']:.0f} %" for e in large)
+                + ". Anomalies fill more than the replace-or-repair share here (some local codes require "
+                "replacement above 25 % wet; a trade rule of thumb repairs only under about 30 %): confirm the "
+                "wet boundary with cores before deciding.</p>")
     bill = _bill_of(result, summary)
     if bill is not None:
         out += "<h3>Bill of quantities</h3>" + _bill_html(bill)
