@@ -59,7 +59,7 @@ def centres_inside(geometry, transform: Affine, shape: tuple[int, int]) -> np.nd
     """Bool raster: pixel centres inside ``geometry`` (shapely's point-in-polygon)."""
     rows, cols = shape
     cc, rr = np.meshgrid(np.arange(cols) + 0.5, np.arange(rows) + 0.5)
-    xs, ys = transform * (cc.ravel(), rr.ravel())
+    xs, ys = transform @ (cc.ravel(), rr.ravel())
     return shapely.contains_xy(geometry, xs, ys).reshape(shape)
 
 

@@ -351,8 +351,8 @@ def fit_trend(values_c: np.ndarray, rows_px: np.ndarray, cols_px: np.ndarray, *,
 
     1. robust low starts: the ``TREND_START_QUANTILE`` plane of the blocks (quantile
        regression), so a section 45 % wet does not pull the start up; a level at half that
-       quantile; and the plane of each half of the section (a wet bay filling one side leaves
-       the other side's plane as a start). Where dry cores are given and their blocks lie
+       quantile; and the plane of each half, outer third and quadrant of the section (a wet
+       bay filling one side leaves the other side's plane as a start). Where dry cores are given and their blocks lie
        below a start, the start is lowered to them (a dry core anchors the level; a dry core
        on a warm patch of another cause never raises it);
     2. asymmetric trimming: the dry spread ``s`` is measured on the cold side
@@ -432,7 +432,10 @@ def fit_trend(values_c: np.ndarray, rows_px: np.ndarray, cols_px: np.ndarray, *,
     x1 = _design(u, v, 1)
     starts = [_quantile_start(x1[usable], y[usable], TREND_START_QUANTILE),
               np.r_[np.quantile(y[usable], 0.5 * TREND_START_QUANTILE), 0.0, 0.0]]
-    for half in (u < 0, u > 0, v < 0, v > 0):  # a wet bay on one side: the other side's plane
+    # a wet bay filling one side: the plane of the other side (halves, outer thirds, quadrants)
+    parts = [u < 0, u > 0, v < 0, v > 0, u < -1 / 3, u > 1 / 3, v < -1 / 3, v > 1 / 3,
+             (u < 0) & (v < 0), (u < 0) & (v > 0), (u > 0) & (v < 0), (u > 0) & (v > 0)]
+    for half in parts:
         part = usable & half
         if part.sum() >= TREND_MIN_BLOCKS[1]:
             starts.append(_lstsq(x1[part], y[part]))

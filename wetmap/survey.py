@@ -688,7 +688,7 @@ def _read_detect(t: _Table, kind: str | None) -> Detect:
         delta = None
     else:
         delta = t.number("delta_c", low=0, high=50, low_open=True, example="1.0")
-    background = t.choice("background", ("auto", "trend", "local"))
+    background_choice = t.choice("background", ("auto", "trend", "local"))
     edge = t.number("edge_buffer_m", low=0, high=50, example="1.0")
     exclusion = t.number("exclusion_buffer_m", low=0, high=50, example="0.5")
     background = t.number("background_m", low=0, low_open=True, high=1000, example="20.0")
@@ -703,7 +703,7 @@ def _read_detect(t: _Table, kind: str | None) -> Detect:
         min_area_m2=min_area if min_area is not None else DEFAULT_MIN_AREA_M2.get(kind or "roof", 0.5),
         tile_px=None if tile is None else int(tile),
         delta_from=delta_from,  # type: ignore[arg-type]
-        background=background or "auto",  # type: ignore[arg-type]
+        background=background_choice or "auto",  # type: ignore[arg-type]
         edge_buffer_m=edge or 0.0,
         exclusion_buffer_m=exclusion or 0.0,
     )
