@@ -1,31 +1,47 @@
-"""Dry background, delta-T, threshold and clean-up on the plan grid.
+"""Dry background per roof section, delta-T, threshold and clean-up on the plan grid.
 
-The dry background is estimated robustly, so that a wet area several metres across is
-not absorbed into its own background:
+The dry background must not need wet areas to be small: a roof whose wet share decides
+between repair and replacement is exactly the roof with large wet areas. It is modelled
+per roof section (each polygon of ``sections``, and the rest of the roof; the whole roof
+when there are none), on a grid of square blocks of ``block_px`` pixels:
 
-1. the roof is cut into square blocks of ``block_px`` pixels and each block's median of
-   the usable pixels is taken (a block with fewer than a quarter of its pixels usable is
-   left empty; when every block is empty, one median of the whole roof is used);
-2. empty blocks take the value of the nearest filled block; a median filter of
-   ``footprint`` blocks (an odd number; about ``background_m`` across) smooths the block grid;
-3. the block grid is interpolated bilinearly back to every pixel (block centres are
-   the interpolation nodes; the pixel-centre rule holds throughout);
-4. pixels warmer than the background by more than ``max(delta_c / 2, 3 sigma)``
-   (sigma: the pixel noise, the median over blocks of each block's interquartile range
-   / 1.349, measured on the first pass) are warm outliers; they are left out and steps
-   1-3 are repeated (``iterations`` times in all).
+1. each block's median of the usable pixels *of each section* is taken (a block straddling
+   a section boundary gets one median per section; a block with fewer than a quarter of its
+   pixels usable in that section is left empty);
+2. per section, :func:`fit_background` chooses and fits the model on the block grid:
 
-Every step is either per block (1, 3, 4) or on the small block grid (2), so a mosaic
-processed in windows that start at multiples of the block size gives the same
-background, bit for bit, as the whole array.
+   - *trend* (:func:`fit_trend`): a plane or quadric fitted knowing that wet only warms --
+     robust low starts, blocks far above the surface trimmed as wet candidates, blocks
+     below counting fully, the dry spread measured on the cold side, dry cores lowering the
+     start, blocks at wet cores left out. A wet area of any size, touching the outline or
+     not, stays out of its own background;
+   - *local*: the block median filter of ``footprint`` blocks (about ``background_m``
+     across; empty blocks take the nearest filled block of the section first). It follows
+     a dry surface that is not smooth but takes a wet area of about its footprint for
+     background;
+   - ``"auto"``: the trend where the kept blocks lie within the larger of the pixel noise
+     and ``SMOOTH_DELTA_FRACTION * delta_c`` of it, else local; the reason is recorded;
+3. :meth:`BackgroundModel.evaluate` gives every pixel its section's background (the
+   polynomial at the pixel centre, or the block grid interpolated bilinearly from block
+   centres to pixel centres);
+4. pixels warmer than the background by more than ``max(delta_c / 2, 3 sigma)`` (sigma:
+   the pixel noise, the median over blocks of each block's interquartile range / 1.349,
+   measured on the first pass) are left out and steps 1-3 are repeated (three estimates).
+
+Steps 1 and 4 are per block, step 2 on the small block grid and step 3 per pixel from the
+model, so the windowed engine (:mod:`wetmap.tiles`) computes the block statistics in
+windows that start at multiples of the block size, fits the same model with the same
+functions and gets the same background, bit for bit, as the whole array.
 
 A smoothed (mean or Gaussian) background is pulled up by large warm areas and loses
 detections; a full-resolution median filter metres wide costs thousands of seconds per
-megapixel: the block median is both robust and cheap.
+megapixel: block medians are both robust and cheap.
 
 Thresholding is separate from computing the threshold: ``delta > delta_c`` on usable
 pixels, then regions smaller than the minimum area are dropped and holes up to it are
 filled, unless a hole holds an unusable pixel (an excluded drain, missing data).
+:func:`edge_flags` names the likely cause of anomalies that hug the roof edge or ring an
+exclusion; :func:`large_share` says when anomalies fill a large share of a section.
 """
 
 from __future__ import annotations

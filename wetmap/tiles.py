@@ -11,11 +11,14 @@ size (the vector work still grows with the number of anomaly outlines and holes)
 
 Why no halo is needed
 ---------------------
-Every step of the dry background is either per block (block medians and spreads, the
-warm-outlier cut, the bilinear upsampling of :func:`wetmap.detect.upsample_window`,
-which gives the same value at a pixel whichever window computes it) or on the small
-global block grid (nearest fill and median filter). A window that starts at a multiple
-of the block size holds whole blocks, so the passes are:
+Every step of the dry background is either per block (block medians and spreads per
+section, the warm-outlier cut), on the small global block grid (the per-section model of
+:func:`wetmap.detect.fit_background`: the trend fit, or nearest fill and median filter) or
+per pixel from that model (:meth:`wetmap.detect.BackgroundModel.evaluate`: the polynomial
+at the pixel centre, or the bilinear upsampling, which gives the same value at a pixel
+whichever window computes it). The section labels are rasterised by
+:func:`section_labels` with the pixel-centre rule of the roof mask. A window that starts
+at a multiple of the block size holds whole blocks, so the passes are:
 
 1. *surface*: read the window of each mosaic (each task opens its own dataset; rasterio
    datasets are neither picklable nor thread-safe), correct apparent to surface
@@ -23,7 +26,7 @@ of the block size holds whole blocks, so the passes are:
    of the usable pixels; the window is kept in a scratch folder;
 2. *background estimates 2 and 3*: block medians of the pixels not warmer than the
    previous background by more than the cut (the cut from the first estimate's noise),
-   exactly as :func:`wetmap.detect.dry_background` iterates;
+   exactly as :func:`wetmap.detect.estimate_background` iterates;
 3. *outlines*: delta-T, the raw mask ``delta > threshold`` and its 4-connected regions
    outlined in integer pixel coordinates of the whole grid (``outline="pixel"``).
 
