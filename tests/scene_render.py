@@ -75,7 +75,8 @@ class Scene:
     warm_other: list = field(default_factory=list)
     """Polygons warmer by ``other_excess_c`` that are not wet (a parapet band, a curb halo)."""
     sections: list = field(default_factory=list)
-    """``(name, polygon, offset degC)``: each section's dry level offset."""
+    """``(name, polygon, offset degC)`` or ``(name, polygon, offset degC, emissivity)``: each
+    section's dry level offset and, optionally, its own emissivity (written to sections.geojson)."""
     exclusions: list = field(default_factory=list)
     cores: list = field(default_factory=list)
     """``(id, x, y, "wet"|"dry")``."""
@@ -114,7 +115,7 @@ class Scene:
         gx, gy, curve = self.gradient_c
         field_c = (self.dry_c + gx * xs[None, :] + gy * ys[:, None] + curve * (xs[None, :] - 0.5) ** 2)
         field_c = np.broadcast_to(field_c, (rows, cols)).copy()
-        for _, poly, offset in self.sections:
+        for _, poly, offset, *_ in self.sections:
             field_c[centres_inside(poly, self.transform, self.shape)] += offset
         for poly in self.warm_other:
             field_c[centres_inside(poly, self.transform, self.shape)] += self.other_excess_c
@@ -128,7 +129,11 @@ class Scene:
         folder = Path(folder)
         (folder / "plan").mkdir(parents=True, exist_ok=True)
         (folder / "thermal").mkdir(exist_ok=True)
-        app = apparent_c(self.surface(), emissivity=self.emissivity, reflected_c=self.reflected_c).astype(np.float32)
+        eps = np.full(self.shape, self.emissivity)
+        for _, poly, _, *own in reversed(self.sections):
+            if own:
+                eps[centres_inside(poly, self.transform, self.shape)] = own[0]
+        app = apparent_c(self.surface(), emissivity=eps, reflected_c=self.reflected_c).astype(np.float32)
         rows, cols = self.shape
         with rasterio.open(folder / "thermal" / "pass1.tif", "w", driver="GTiff", width=cols, height=rows, count=1,
                            dtype="float32", transform=self.transform, nodata=-9999.0) as dst:
@@ -143,7 +148,8 @@ class Scene:
         plan = 'outline = "plan/outline.geojson"\n'
         if self.sections:
             (folder / "plan" / "sections.geojson").write_text(
-                fc([({"name": n, "assembly": "invented"}, g) for n, g, _ in self.sections]))
+                fc([({"name": sec[0], "assembly": "invented", **({"emissivity": sec[3]} if len(sec) > 3 else {})},
+                     sec[1]) for sec in self.sections]))
             plan += 'sections = "plan/sections.geojson"\n'
         if self.exclusions:
             (folder / "plan" / "exclusions.geojson").write_text(fc([({}, g) for g in self.exclusions]))
@@ -245,3 +251,12 @@ def unit_scene(**kw) -> Scene:
     unit = shapely.box(20.0, 12.0, 23.0, 15.0)
     halo = unit.buffer(0.8, join_style="mitre").difference(unit)
     return Scene(50.0, 30.0, warm_other=[halo], exclusions=[unit], cores=[("D1", 40.0, 8.0, "dry")], **kw)
+
+
+def emissivity_scene(**kw) -> Scene:
+    """Two sections of a 60 x 40 m roof at one true temperature; East is a membrane of
+    emissivity 0.85 (written to sections.geojson), West takes the camera's 0.93."""
+    west = shapely.box(0, 0, 30.37, 40)
+    east = shapely.box(30.37, 0, 60, 40)
+    return Scene(60.0, 40.0, sections=[("West", west, 0.0), ("East", east, 0.0, 0.85)],
+                 cores=[("D1", 10.0, 20.0, "dry")], **kw)

@@ -134,6 +134,40 @@ def test_step_without_sections_is_seen(tmp_path):
     assert sum(a.area_m2 for a in result.anomalies) > 100.0
 
 
+def test_section_emissivity_is_applied_to_its_pixels(tmp_path):
+    """With its emissivity in sections.geojson the East section's surface temperature is right
+    (no offset, no anomaly); without it, East reads cooler than West by about a kelvin."""
+    folder = sr.emissivity_scene().write(tmp_path / "roof")
+    result = process_survey(folder)
+    west = result.surface_c[:, :290][np.isfinite(result.surface_c[:, :290])]
+    east = result.surface_c[:, 320:][np.isfinite(result.surface_c[:, 320:])]
+    scene = sr.emissivity_scene()
+    truth = scene.surface()
+    assert np.median(east) - np.median(west) == pytest.approx(np.median(truth[:, 320:]) - np.median(truth[:, :290]),
+                                                              abs=0.02)
+    assert len(result.anomalies) == 0
+    assert result.summary()["method"]["section_emissivity"] == {"East": 0.85}
+    gj = folder / "plan" / "sections.geojson"
+    data = json.loads(gj.read_text())
+    data["features"][1]["properties"].pop("emissivity")
+    gj.write_text(json.dumps(data))
+    plain = process_survey(folder)
+    east_plain = plain.surface_c[:, 320:][np.isfinite(plain.surface_c[:, 320:])]
+    assert np.median(east) - np.median(east_plain) > 0.5
+
+
+def test_section_emissivity_out_of_range_is_refused(tmp_path):
+    from wetmap.errors import InputFileError
+
+    folder = sr.emissivity_scene().write(tmp_path / "roof")
+    gj = folder / "plan" / "sections.geojson"
+    data = json.loads(gj.read_text())
+    data["features"][1]["properties"]["emissivity"] = 1.4
+    gj.write_text(json.dumps(data))
+    with pytest.raises(InputFileError, match="East.*emissivity 1.4"):
+        process_survey(folder)
+
+
 # ------------------------------------------------------------------------------
 # Edges and rooftop units
 # ------------------------------------------------------------------------------

@@ -209,6 +209,7 @@ def test_windows_equal_whole_array(scene, tile_px, tmp_path):
     ("corner", 'delta_c = "cores"'),                           # the threshold from the cores
     ("step", 'delta_c = 1.0\nbackground = "local"'),           # the local method per section, diagonal step
     ("unit", "delta_c = 1.0\nexclusion_buffer_m = 0.5\nedge_buffer_m = 0.3"),  # bands left out
+    ("emissivity", "delta_c = 1.0"),                           # a section with its own emissivity
 ])
 def test_windows_equal_whole_array_with_sections_and_trend(name, detect, tmp_path):
     """The section-aware background (trend or local), the threshold from cores and the buffers
@@ -216,7 +217,7 @@ def test_windows_equal_whole_array_with_sections_and_trend(name, detect, tmp_pat
     import scene_render as sr
 
     make = {"corner": sr.corner_scene, "step": lambda **kw: sr.step_scene("diagonal", **kw),
-            "unit": sr.unit_scene}[name]
+            "unit": sr.unit_scene, "emissivity": sr.emissivity_scene}[name]
     folder = make(detect=detect).write(tmp_path / name)
     whole = process_survey(folder, tile_px=0)
     tiled = process_survey(folder, tile_px=64, scratch=tmp_path)

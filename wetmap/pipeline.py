@@ -186,6 +186,9 @@ class SurveyResult:
             "method": {
                 "band_um": list(self.radiometry.band_um),
                 "emissivity": self.radiometry.emissivity,
+                **({"section_emissivity": {sec.name: sec.emissivity for sec in self.sections
+                                           if sec.emissivity is not None}}
+                   if any(sec.emissivity is not None for sec in self.sections) else {}),
                 "reflected_c": round(self.radiometry.reflected_c, 3),
                 "reflected_source": self.radiometry.reflected_source,
                 "transmittance": round(self.radiometry.transmittance, 5),
@@ -333,6 +336,22 @@ def _mask_of(geoms: BaseGeometry, grid: PlanGrid) -> np.ndarray:
     return roof_mask(geoms, grid.transform, grid.shape)
 
 
+def section_emissivity_correction(surface_k: np.ndarray, apparent_k: np.ndarray, labels: np.ndarray | None,
+                                  sections, radiometry: Radiometry) -> np.ndarray:
+    """Surface temperature (K) of each section with its own ``emissivity`` (sections.geojson),
+    from the apparent temperature (K); other pixels keep ``surface_k``. ``labels`` as
+    :func:`wetmap.tiles.section_labels` (label ``k`` = ``sections[k]``)."""
+    if labels is None:
+        return surface_k
+    for k, sec in enumerate(sections):
+        if sec.emissivity is None or sec.emissivity == radiometry.emissivity:
+            continue
+        sel = labels == k
+        if sel.any():
+            surface_k[sel] = _to_surface_k(apparent_k[sel], replace(radiometry, emissivity=sec.emissivity))
+    return surface_k
+
+
 def _to_surface_k(apparent_k: np.ndarray, radiometry: Radiometry) -> np.ndarray:
     """Apparent -> surface temperature, K: the measurement equation inverted (NaN stays NaN).
 
@@ -444,7 +463,7 @@ def _frames_onto_grid(frames: list[_RegisteredFrame], grid: PlanGrid, outline: B
 def _surface_on_grid(survey: Survey, outline: BaseGeometry, radiometry: Radiometry,
                      warnings: list[str], progress: Progress | None, *,
                      registration: list[FrameReport] | None = None,
-                     views: list | None = None) -> tuple[PlanGrid, np.ndarray]:
+                     views: list | None = None, sections: tuple = ()) -> tuple[PlanGrid, np.ndarray]:
     """Mosaics and frames on one plan grid, as surface temperature in degC (NaN = no data).
 
     The grid's pixel is ``[plan] pixel_m``, else the finest mosaic's, else chosen from the
@@ -489,6 +508,9 @@ def _surface_on_grid(survey: Survey, outline: BaseGeometry, radiometry: Radiomet
     if apparent is not None:
         _emit(progress, "correcting apparent to surface temperature")
         surface = _to_surface_k(apparent, radiometry)
+        if any(sec.emissivity is not None for sec in sections):
+            labels = _section_labels([sec.geometry for sec in sections], grid)
+            surface = section_emissivity_correction(surface, apparent, labels, sections, radiometry)
         lost = int(np.count_nonzero(np.isnan(surface) & ~np.isnan(apparent)))
         if lost:
             warnings.append(
@@ -526,14 +548,14 @@ def _compare_passes(survey: Survey, groups, outline: BaseGeometry, radiometry: R
                     progress: Progress | None, *, grid: PlanGrid, surface_c: np.ndarray, in_roof: np.ndarray,
                     detection: Detection, labels: np.ndarray, count: int, background_m: float,
                     section_labels: np.ndarray | None = None, names: tuple[str, ...] = ("roof",),
-                    cores=None) -> PassComparison:
+                    cores=None, sections: tuple = ()) -> PassComparison:
     """Detect anomalies in each earlier pass and compare them with the primary (last) pass."""
     sdt = survey.detect
     surfaces, deltas, label_list, counts = [], [], [], []
     for g in groups[:-1]:
         _emit(progress, f"pass {g.label}: surface temperature and detection")
         sub = replace(survey, mosaics=g.mosaics, frames=g.frames)
-        g_grid, g_surface = _surface_on_grid(sub, outline, radiometry, warnings, progress)
+        g_grid, g_surface = _surface_on_grid(sub, outline, radiometry, warnings, progress, sections=tuple(sections))
         g_surface = align_to_grid(g_surface, g_grid.transform, grid.transform, grid.shape)
         g_usable = in_roof & np.isfinite(g_surface)
         det = detect_anomalies(g_surface, g_usable, pixel_m=grid.pixel_m, delta_c=sdt.delta_c,
@@ -740,6 +762,9 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         raise InputFileError(f"{survey.file}: [detect] edge_buffer_m = {sdt.edge_buffer_m:g} and exclusion_buffer_m = "
                              f"{sdt.exclusion_buffer_m:g} leave nothing of the roof to survey; make them smaller")
     section_geoms = [s.geometry for s in sections]
+    if survey.frames and any(sec.emissivity is not None for sec in sections):
+        warnings.append("sections.geojson gives emissivities per section: they correct the mosaics' pixels; "
+                        "[[frame]] pixels are corrected with [camera] emissivity")
     group_names = _group_names(sections, _area_word(survey))
     threshold_from = None
     from_cores: list[CoresThreshold] = []
@@ -764,10 +789,11 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         primary, outline=outline, roof=surveyed, radiometry=radiometry, background_m=background_m, tile_px=tile_px,
         scheduler=scheduler, scratch=None if scratch is None else Path(scratch), progress=progress,
         window_progress=window_progress, sections=section_geoms, names=group_names, choice=sdt.background,
+        section_emissivity=tuple(sec.emissivity for sec in sections),
         cores=(conf.xs, conf.ys, conf.wet), threshold_from=threshold_from)
     if tiled is None:
         grid, surface_c = _surface_on_grid(primary, outline, radiometry, warnings, progress,
-                                           registration=frame_reports, views=frame_views)
+                                           registration=frame_reports, views=frame_views, sections=tuple(sections))
         _emit(progress, "masking the roof")
         in_roof = _mask_of(surveyed, grid)
         labels_px = _section_labels(section_geoms, grid)
@@ -834,7 +860,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
     passes = None if len(pass_groups) == 1 else _compare_passes(
         survey, pass_groups, outline, radiometry, warnings, progress, grid=grid, surface_c=surface_c,
         in_roof=in_roof, detection=detection, labels=labels, count=count, background_m=background_m,
-        section_labels=labels_px, names=group_names, cores=core_px)
+        section_labels=labels_px, names=group_names, cores=core_px, sections=tuple(sections))
     warnings[:0] = _condition_warnings(survey, sections, surface_c=float(np.nanmedian(dry_c))
                                        if np.isfinite(dry_c).any() else None)
 

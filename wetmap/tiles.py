@@ -467,6 +467,8 @@ class SurfaceSource:
     roof_edges: PixelEdges
     section_edges: tuple[PixelEdges, ...] = ()
     """The sections' edges (label ``k`` = section ``k``; :func:`section_labels`)."""
+    section_emissivity: tuple[float | None, ...] = ()
+    """Each section's own emissivity (``None``: the camera's)."""
 
     def labels(self, row0: int, col0: int, rows: int, cols: int) -> np.ndarray:
         """The window's section labels (:func:`section_labels`)."""
@@ -489,6 +491,14 @@ class SurfaceSource:
                 apparent[gap] = values[gap]
         assert apparent is not None  # a tiled survey has at least one mosaic
         surface = _to_surface_k(apparent, self.radiometry)
+        if any(e is not None for e in self.section_emissivity):
+            from types import SimpleNamespace
+
+            from .pipeline import section_emissivity_correction
+
+            sections = [SimpleNamespace(emissivity=e) for e in self.section_emissivity]
+            surface = section_emissivity_correction(surface, apparent, self.labels(row0, col0, rows, cols), sections,
+                                                    self.radiometry)
         lost = int(np.count_nonzero(np.isnan(surface) & ~np.isnan(apparent)))
         del apparent
         surface = surface.astype(np.float32, copy=False)
@@ -1328,7 +1338,8 @@ def detect_in_windows(survey: "Survey", *, outline, roof, radiometry: "Radiometr
                       progress: Progress | None = None, window_progress: WindowProgress | None = None,
                       sections: Sequence = (), names: tuple[str, ...] = ("roof",), choice: str = "auto",
                       cores: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None,
-                      threshold_from: Callable[[np.ndarray], float] | None = None) -> TiledDetection | None:
+                      threshold_from: Callable[[np.ndarray], float] | None = None,
+                      section_emissivity: tuple[float | None, ...] = ()) -> TiledDetection | None:
     """Detection in windows when it applies; ``None`` when the whole array is used.
 
     The windowed path applies to a single pass of mosaics only (no ``[[frame]]``), each
@@ -1359,6 +1370,8 @@ def detect_in_windows(survey: "Survey", *, outline, roof, radiometry: "Radiometr
         ``len(sections)``), one name per label, and ``[detect] background``.
     cores
         ``(xs, ys, wet)`` of the confirmations, plan coordinates (the trend's anchors).
+    section_emissivity
+        Each section's own emissivity (``None``: ``[camera] emissivity``).
     threshold_from
         Given the confirmations' delta-T (3 x 3 median at each, as
         :func:`wetmap.confirm.sample_at_points`), the threshold to apply (``[detect] delta_c =
@@ -1392,7 +1405,7 @@ def detect_in_windows(survey: "Survey", *, outline, roof, radiometry: "Radiometr
     section_edges = tuple(pixel_edges(g, grid.transform) for g in sections)
     count = len(names)
     source = SurfaceSource(mosaics=sources, grid=grid, radiometry=radiometry, roof_edges=pixel_edges(roof, grid.transform),
-                           section_edges=section_edges)
+                           section_edges=section_edges, section_emissivity=tuple(section_emissivity))
     nbr, nbc = -(-grid.rows // block), -(-grid.cols // block)
     wet_b = dry_b = None
     core_rc = None

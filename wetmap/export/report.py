@@ -536,7 +536,9 @@ def _method(result: "SurveyResult", summary: dict[str, Any]) -> str:
     estimated = not r.reflected_source.startswith("measured")
     rows = [
         ("Camera band", f"{r.band_um[0]:g}-{r.band_um[1]:g} µm (band-integrated Planck radiance)"),
-        ("Emissivity", f"{r.emissivity:g}"),
+        ("Emissivity", f"{r.emissivity:g}" + "".join(
+            f"; section {_esc(sec.name)}: {sec.emissivity:g}" for sec in result.sections
+            if getattr(sec, "emissivity", None) is not None)),
         ("Reflected apparent temperature", f"{r.reflected_c:.1f} °C: {_esc(r.reflected_source)}"),
         ("Atmospheric transmittance", f"{r.transmittance:.4f}: {_esc(r.transmittance_source)}; "
                                       f"atmosphere taken at {r.atmosphere_c:g} °C"),
