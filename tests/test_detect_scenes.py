@@ -87,8 +87,12 @@ def test_corner_scene_reports_each_section_background_and_large_share(tmp_path):
     # 25 %: some local codes; 30 %: a trade rule of thumb (common practice)
     assert [e["where"] for e in summary["large_wet_share"]] == ["section A"]
     assert any("section A: anomalies fill 3" in w and "large wet share" in w for w in summary["warnings"])
+    by_section = {e["section"]: e for e in summary["threshold_check_by_section"]}
+    assert (by_section["A"]["wet_cores"], by_section["A"]["dry_cores"]) == (2, 1)  # W1, W2 / D1
+    assert (by_section["B"]["wet_cores"], by_section["B"]["dry_cores"]) == (0, 1)  # D2
+    assert by_section["A"]["misclassified"] == [] and by_section["A"]["separable"]
     report = (folder / "results" / "report.html").read_text(encoding="utf-8")
-    assert "Large wet share" in report and "Dry background, A" in report
+    assert "Large wet share" in report and "Dry background, A" in report and "within each section" in report
 
 
 def test_bay_scene_sets_the_replace_flag(tmp_path):

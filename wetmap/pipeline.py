@@ -132,6 +132,8 @@ class SurveyResult:
     """Resolution, focus, reflection and display-range findings (:class:`wetmap.imagery.ImageryReport`)."""
     cores_threshold: Any = None
     """``[detect] delta_c = "cores"``: the range the cores allowed and the threshold taken (:class:`CoresThreshold`)."""
+    section_checks: tuple = ()
+    """``(section name, ThresholdCheck)``: the threshold against the cores inside each section."""
 
     def summary(self) -> dict[str, Any]:
         """The ``summary.json`` content (areas in m2)."""
@@ -249,6 +251,12 @@ class SurveyResult:
                 "threshold_low_c": r.threshold_low_c, "threshold_high_c": r.threshold_high_c,
                 "geometric_m2": round(r.geometric_m2, 4),
             }
+        if self.section_checks:
+            out["threshold_check_by_section"] = [
+                {"section": name, "range_c": [t.low_c, t.high_c], "range_bounded_by": list(t.bounded_by),
+                 "separable": t.separable, "confusion": t.confusion, "misclassified": list(t.misclassified),
+                 "wet_cores": t.n_wet, "dry_cores": t.n_dry}
+                for name, t in self.section_checks]
         if self.threshold is not None:
             t = self.threshold
             out["threshold_check"] = {
@@ -878,15 +886,25 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
             include = (f"; a threshold below {np.floor(d * 20) / 20:.2f} °C would include it"
                        if np.isfinite(d) and d > 0 else "")
             warnings.append(
-                f"{conf.ids[i]} says wet but lies outside every anomaly ({seen}; threshold {sdt.delta_c:g} °C): "
+                f"{conf.ids[i]} says wet but lies outside every anomaly ({seen}; threshold {detection.threshold_c:g} °C): "
                 f"a possible missed wet area{include}"
             )
     if len(conf) == 0 and count:
         warnings.append("no cores or readings: every anomaly is unverified; infrared alone does not "
                         "establish wet insulation (invasive verification is required)")
-    check = threshold_check(conf.ids, conf_delta, conf.wet, chosen_c=sdt.delta_c)
+    check = threshold_check(conf.ids, conf_delta, conf.wet, chosen_c=detection.threshold_c)
     if len(conf):
         warnings.extend(check.warnings)
+    # the same check within each section (its own background, its own cores)
+    section_checks: list[tuple[str, ThresholdCheck]] = []
+    if sections and len(conf):
+        points = shapely.points(conf.xs, conf.ys)
+        ids = np.asarray(conf.ids, dtype=object)
+        for sec in sections:
+            inside = shapely.covers(sec.geometry, points)
+            if inside.any():
+                section_checks.append((sec.name, threshold_check(tuple(ids[inside]), conf_delta[inside],
+                                                                 conf.wet[inside], chosen_c=detection.threshold_c)))
     core_cols, core_rows = ~grid.transform @ (conf.xs, conf.ys)
     counted = ("wet", "unverified") if survey.repair.include_unverified else ("wet",)
     counted_polys = [p for p, st in zip(polys, verdicts.status) if st in counted]
@@ -958,6 +976,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         full_rasters=None if tiled is None else tiled.full_rasters,
         imagery=imagery,
         cores_threshold=from_cores[-1] if from_cores else None,
+        section_checks=tuple(section_checks),
     )
 
 

@@ -74,6 +74,9 @@ _SHOWN_KEYS = frozenset({
     "tearoff_area_m2", "warnings", "sections", "coverage", "confirmations", "method", "wetmap_version",
     "wet_area_range_m2", "wet_area_range", "threshold_check", "suggested_cores",
     "imagery", "reflection_suspect",  # shown under "Imagery checks" in the method section
+    "background",  # a line per section in the method table
+    "large_wet_share",  # beside the replace-or-repair note in the quantities
+    "threshold_check_by_section",  # in the threshold check
 })
 
 
@@ -821,6 +824,13 @@ def _confirmations(result: "SurveyResult") -> str:
 def _calibration(summary: dict[str, Any]) -> str:
     """The threshold against the cores, the wet-area range and where the next cores are worth most."""
     parts = []
+    by_section = summary.get("threshold_check_by_section") or []
+    if by_section:
+        parts.append("<p id='threshold-by-section' class='small'>The threshold within each section: " + "; ".join(
+            f"{_esc(e['section'])}: {e['wet_cores']} wet and {e['dry_cores']} dry cores, thresholds from "
+            f"{e['range_c'][0]:+.2f} to {e['range_c'][1]:+.2f} °C fit them"
+            + (f", misclassified {_esc(', '.join(e['misclassified']))}" if e["misclassified"] else "")
+            for e in by_section) + ".</p>")
     t = summary.get("threshold_check")
     if t:
         c = t["confusion"]
