@@ -272,6 +272,8 @@ BACKGROUND_CHOICES: tuple[str, ...] = ("auto", "trend", "local")
 #: Quantile of the block medians the trend starts from (a robust low level): with up to
 #: 80 % of a section's blocks wet, the 0.2-quantile surface still lies among the dry blocks.
 TREND_START_QUANTILE = 0.2
+#: Blocks on which the trend's starts are compared (an even subsample of larger sections).
+TREND_START_BLOCKS = 20_000
 #: Highest polynomial degree of the trend (2: a quadric; 6 coefficients).
 TREND_MAX_DEGREE = 2
 #: Fewest kept blocks for a plane and for a quadric (several blocks per coefficient).
@@ -339,10 +341,16 @@ def _design(u: np.ndarray, v: np.ndarray, degree: int) -> np.ndarray:
 
 
 def _lstsq(x: np.ndarray, y: np.ndarray, w: np.ndarray | None = None) -> np.ndarray:
-    if w is not None:
-        sw = np.sqrt(w)
-        x, y = x * sw[:, None], y * sw
-    return np.linalg.lstsq(x, y, rcond=None)[0]
+    """(Weighted) least squares by the normal equations (a few well-scaled columns: the
+    coordinates are normalised to [-1, 1]); SVD when they are singular."""
+    xw = x if w is None else x * w[:, None]
+    try:
+        return np.linalg.solve(xw.T @ x, xw.T @ y)
+    except np.linalg.LinAlgError:
+        if w is not None:
+            sw = np.sqrt(w)
+            x, y = x * sw[:, None], y * sw
+        return np.linalg.lstsq(x, y, rcond=None)[0]
 
 
 def _quantile_start(x: np.ndarray, y: np.ndarray, tau: float, iterations: int = 60) -> np.ndarray:
@@ -417,42 +425,56 @@ def fit_trend(values_c: np.ndarray, rows_px: np.ndarray, cols_px: np.ndarray, *,
     u = (cols_px - centre[1]) / scale[1]
     cap = 0.5 * delta_c
 
-    def trim(degree: int, fitted: np.ndarray) -> tuple[np.ndarray, np.ndarray, float]:
-        x = _design(u, v, degree)
+    def trim(degree: int, fitted: np.ndarray, among: np.ndarray) -> tuple[np.ndarray, np.ndarray, float]:
+        """Asymmetric trimming from ``fitted`` (values at every block) over the blocks ``among``."""
+        idx = np.flatnonzero(among)
+        x = _design(u[idx], v[idx], degree)
+        yy = y[idx]
+        f = fitted[idx]
         keep = None
         cut = cap
-        beta = np.zeros(x.shape[1])
+        beta = None
         for _ in range(iterations):
-            r = y - fitted
-            cold = -r[usable & (r <= 0)]
+            r = yy - f
+            cold = -r[r <= 0]
             s = max(MAD_TO_SIGMA * float(np.median(cold)) if cold.size else 0.0, MIN_BLOCK_SPREAD_C)
             cut = min(3.0 * s, cap)
-            new = usable & (r <= cut)
+            new = r <= cut
             if new.sum() < x.shape[1]:
                 break
             if keep is not None and np.array_equal(new, keep):
                 break
             keep = new
-            beta = _lstsq(x[keep], y[keep])
-            fitted = x @ beta
-        if keep is None:
-            keep = usable & (y - fitted <= cut)
-            beta = _lstsq(x[keep], y[keep]) if keep.sum() >= x.shape[1] else np.r_[np.median(y[usable]),
-                                                                                    np.zeros(x.shape[1] - 1)]
-        return beta, keep, cut
+            beta = _lstsq(x[keep], yy[keep])
+            f = x @ beta
+        if beta is None:
+            keep = yy - f <= cut
+            beta = (_lstsq(x[keep], yy[keep]) if keep.sum() >= x.shape[1]
+                    else np.r_[np.median(yy), np.zeros(x.shape[1] - 1)])
+        full = np.zeros(n, bool)
+        full[idx[keep]] = True
+        return beta, full, cut
 
     def spread(degree: int, b: np.ndarray, k: np.ndarray) -> float:
         r = y[k] - _design(u[k], v[k], degree) @ b
         return MAD_TO_SIGMA * float(np.median(np.abs(r))) if r.size else math.inf
 
     x1 = _design(u, v, 1)
-    starts = [_quantile_start(x1[usable], y[usable], TREND_START_QUANTILE),
-              np.r_[np.quantile(y[usable], 0.5 * TREND_START_QUANTILE), 0.0, 0.0]]
+    # the starts are compared on an even subsample of at most TREND_START_BLOCKS blocks
+    # (deterministic: both engines see the same blocks); the chosen one is refined on all
+    step = max(1, -(-n // TREND_START_BLOCKS))
+    sub = np.zeros(n, bool)
+    sub[::step] = True
+    fit_on = usable & sub
+    if fit_on.sum() < TREND_MIN_BLOCKS[1]:
+        fit_on = usable
+    starts = [_quantile_start(x1[fit_on], y[fit_on], TREND_START_QUANTILE),
+              np.r_[np.quantile(y[fit_on], 0.5 * TREND_START_QUANTILE), 0.0, 0.0]]
     # a wet bay filling one side: the plane of the other side (halves, outer thirds, quadrants)
     parts = [u < 0, u > 0, v < 0, v > 0, u < -1 / 3, u > 1 / 3, v < -1 / 3, v > 1 / 3,
              (u < 0) & (v < 0), (u < 0) & (v > 0), (u > 0) & (v < 0), (u > 0) & (v > 0)]
     for half in parts:
-        part = usable & half
+        part = fit_on & half
         if part.sum() >= TREND_MIN_BLOCKS[1]:
             starts.append(_lstsq(x1[part], y[part]))
     best = None
@@ -462,16 +484,16 @@ def fit_trend(values_c: np.ndarray, rows_px: np.ndarray, cols_px: np.ndarray, *,
             shift = float(np.median(y[dry] - f0[dry]))
             if shift < 0:
                 f0 = f0 + shift
-        beta, keep, cut = trim(1, f0)
+        beta, keep, cut = trim(1, f0, fit_on)
         score = (spread(1, beta, keep), -int(keep.sum()))
         if best is None or score < best[0]:
-            best = (score, (1, beta, keep, cut))
-    best = best[1]
-    beta, keep = best[1], best[2]
+            best = (score, beta)
+    beta, keep, cut = trim(1, x1 @ best[1], usable)
+    best = (1, beta, keep, cut)
 
     s1 = spread(1, beta, keep)
     if max_degree >= 2 and keep.sum() >= TREND_MIN_BLOCKS[2]:
-        beta2, keep2, cut2 = trim(2, x1 @ beta)
+        beta2, keep2, cut2 = trim(2, x1 @ beta, usable)
         if len(beta2) == 6 and keep2.sum() >= TREND_MIN_BLOCKS[2]:
             s2 = spread(2, beta2, keep2)
             if s2 < TREND_DEGREE_GAIN * s1:
@@ -623,10 +645,16 @@ def section_block_statistics(values: np.ndarray, usable: np.ndarray, labels: np.
     sigma = np.full((count, nr, nc), np.nan)
     for g in range(count):
         use = usable if labels is None else usable & (labels == g)
-        if not use.any():
+        rows_any = np.flatnonzero(use.any(axis=1))
+        if not rows_any.size:
             continue
-        st = block_statistics(values, use, block)
-        median[g], sigma[g] = st.median, st.sigma
+        cols_any = np.flatnonzero(use.any(axis=0))
+        # only the blocks around the section's pixels (whole blocks: the same statistics)
+        b0, b1 = rows_any[0] // block, rows_any[-1] // block + 1
+        c0, c1 = cols_any[0] // block, cols_any[-1] // block + 1
+        part = (slice(b0 * block, b1 * block), slice(c0 * block, c1 * block))
+        st = block_statistics(values[part], use[part], block)
+        median[g, b0:b1, c0:c1], sigma[g, b0:b1, c0:c1] = st.median, st.sigma
     return median, sigma
 
 
