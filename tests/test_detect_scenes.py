@@ -312,3 +312,10 @@ def test_sample_surveys_keep_their_answers(name):
     area, count = SAMPLE_BEFORE[name]
     assert s["anomaly_count"] == count
     assert s["wet_area_m2"] == pytest.approx(area, rel=0.01)
+
+
+def test_threshold_from_cores_without_a_cores_table_is_refused_before_work(tmp_path):
+    scene = sr.square_scene(detect='delta_c = "cores"')
+    scene.cores = []
+    with pytest.raises(SurveyError, match=r'delta_c.*"cores": needs cores'):
+        process_survey(scene.write(tmp_path / "roof"))

@@ -960,6 +960,9 @@ def load_survey(folder: str | Path) -> Survey:
     detect = _read_detect(t_det, kind) if t_det else Detect(min_area_m2=DEFAULT_MIN_AREA_M2.get(kind or "roof", 0.5))
     t_cores = _table(problems, doc, "cores", required=False)
     cores = _read_cores(t_cores, folder) if t_cores else None
+    if t_det and detect.delta_from == "cores" and t_cores is None:
+        t_det.problem("delta_c", '= "cores": needs cores; add a [cores] table with path = "cores.csv", '
+                                 "or give delta_c a number")
     t_rep = _table(problems, doc, "repair", required=False)
     repair = _read_repair(t_rep) if t_rep else Repair()
     if kind == "hull" and (t_rep is None or "board_m" not in t_rep.data):
