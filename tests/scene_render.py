@@ -229,11 +229,11 @@ def square_scene(**kw) -> Scene:
 
 def step_scene(kind: str, **kw) -> Scene:
     """A 60 x 40 m roof of two sections whose dry levels differ by 2.5 K, no wet area:
-    the boundary off the block grid (x = 30.37 m) or diagonal."""
+    the boundary off the block grid (x = 41.37 m) or diagonal."""
     if kind == "diagonal":
         line = [(23.37, 0.0), (36.91, 40.0)]
     else:
-        line = [(30.37, 0.0), (30.37, 40.0)]
+        line = [(41.37, 0.0), (41.37, 40.0)]
     west = shapely.Polygon([(0, 0), line[0], line[1], (0, 40)])
     east = shapely.Polygon([line[0], (60, 0), (60, 40), line[1]])
     return Scene(60.0, 40.0, sections=[("West", west, 0.0), ("East", east, 2.5)],
