@@ -26,11 +26,10 @@ from shapely.geometry.base import BaseGeometry
 from . import __version__
 from .confirm import (AreaRange, Status, SuggestedCore, ThresholdCheck, Verdicts, assign_status,
                       sample_at_points, suggest_cores, threshold_check, wet_area_range)
-from .errors import SurveyError
 from .confirmations import Confirmations, read_confirmations
 from .detect import (EDGE_FLAG, UNIT_FLAG, Detection, anomaly_mask, default_background_m, detect_anomalies,
                      edge_flags, large_share)
-from .errors import InputFileError, ProcessingError
+from .errors import InputFileError, ProcessingError, SurveyError
 from .passes import PassComparison, align_to_grid, compare_passes, group_passes
 from .polygons import RegionStats, label_regions, polygonize, region_stats
 from .quantities import BoardTakeoff, Quantities, SectionTotals, compute_quantities, largest_overlap
@@ -615,14 +614,13 @@ def _core_pixels(conf: Confirmations, grid: PlanGrid) -> tuple[np.ndarray, np.nd
 
 
 def _surveyed_part(roof: BaseGeometry, outline: BaseGeometry, exclusions: BaseGeometry, *, edge_buffer_m: float,
-                   exclusion_buffer_m: float) -> tuple[BaseGeometry, list[str], dict[str, float]]:
+                   exclusion_buffer_m: float) -> tuple[BaseGeometry, dict[str, float]]:
     """The roof minus the optional bands along the outline and around the exclusions.
 
-    Returns the surveyed part, notes, and the area of each band left out (m2, ``edge_band_m2``,
+    Returns the surveyed part and the area of each band left out (m2, ``edge_band_m2``,
     ``exclusion_band_m2``; only the bands asked for).
     """
     surveyed = roof
-    notes: list[str] = []
     areas: dict[str, float] = {}
     if edge_buffer_m > 0:
         inner = outline.buffer(-edge_buffer_m, join_style="mitre")
@@ -633,7 +631,7 @@ def _surveyed_part(roof: BaseGeometry, outline: BaseGeometry, exclusions: BaseGe
         cut = surveyed.difference(exclusions.buffer(exclusion_buffer_m, join_style="mitre"))
         areas["exclusion_band_m2"] = float(surveyed.area - cut.area)
         surveyed = cut
-    return surveyed, notes, areas
+    return surveyed, areas
 
 
 @dataclass(frozen=True)
@@ -764,7 +762,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
     else:
         conf = Confirmations.empty()
     sdt = survey.detect
-    surveyed, band_notes, band_m2 = _surveyed_part(roof, outline, exclusions, edge_buffer_m=sdt.edge_buffer_m,
+    surveyed, band_m2 = _surveyed_part(roof, outline, exclusions, edge_buffer_m=sdt.edge_buffer_m,
                                                    exclusion_buffer_m=sdt.exclusion_buffer_m)
     if surveyed.area <= 0:
         raise InputFileError(f"{survey.file}: [detect] edge_buffer_m = {sdt.edge_buffer_m:g} and exclusion_buffer_m = "

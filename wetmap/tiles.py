@@ -1534,6 +1534,8 @@ def _core_deltas(store: _Scratch, model: Any, core_rc: tuple[np.ndarray, np.ndar
     if model is None:
         return out
     for k, (r, c) in enumerate(zip(rows, cols)):
+        if not (0 <= r < store.shape[0] and 0 <= c < store.shape[1]):
+            continue  # off the grid: no data, as sample_at_points
         r0, c0 = max(int(r) - 1, 0), max(int(c) - 1, 0)
         r1, c1 = min(int(r) + 2, store.shape[0]), min(int(c) + 2, store.shape[1])
         if r0 >= r1 or c0 >= c1:
@@ -1551,7 +1553,7 @@ def _core_deltas(store: _Scratch, model: Any, core_rc: tuple[np.ndarray, np.ndar
             lab = None if labels is None else labels[a - wr0:a - wr0 + 1, b - wc0:b - wc0 + 1]
             bg = model.evaluate(lab, shape=(1, 1), row0=int(a), col0=int(b), upsample=upsample_window_fast)
             vals.append(float(masked[a - wr0, b - wc0] - bg[0, 0]))
-        v = np.asarray(vals)
+        v = np.asarray(vals, dtype=np.float32)
         if np.isfinite(v).any():
             out[k] = float(np.nanmedian(v))
     return out
