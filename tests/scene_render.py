@@ -83,6 +83,9 @@ class Scene:
     dry_c: float = 4.0
     gradient_c: tuple[float, float, float] = (2.0, 0.6, 0.5)
     """Plane along x over the whole width, plane along y over the height, curvature (x^2)."""
+    wave_c: float = 0.0
+    """Amplitude of a dry surface that is not smooth (crossed sinusoids of ``wave_m``), degC."""
+    wave_m: float = 10.0
     wet_excess_c: float = 2.0
     other_excess_c: float = 1.5
     noise_c: float = 0.12
@@ -115,6 +118,11 @@ class Scene:
         gx, gy, curve = self.gradient_c
         field_c = (self.dry_c + gx * xs[None, :] + gy * ys[:, None] + curve * (xs[None, :] - 0.5) ** 2)
         field_c = np.broadcast_to(field_c, (rows, cols)).copy()
+        if self.wave_c:
+            x_m = (np.arange(cols) + 0.5) * self.pixel_m
+            y_m = (np.arange(rows) + 0.5) * self.pixel_m
+            k = 2.0 * np.pi / self.wave_m
+            field_c += self.wave_c * np.sin(k * x_m)[None, :] * np.cos(k * y_m)[:, None]
         for _, poly, offset, *_ in self.sections:
             field_c[centres_inside(poly, self.transform, self.shape)] += offset
         for poly in self.warm_other:

@@ -113,6 +113,22 @@ def test_local_method_still_misses_what_it_always_missed(tmp_path):
     assert sr.found_geometry(result).area < 0.5 * scene.truth().area
 
 
+def test_auto_keeps_the_local_method_where_the_dry_surface_is_not_smooth(tmp_path):
+    """A dry surface with 0.5 K waves 10 m long (no wet area): no trend fits it, so "auto"
+    takes the local median, says why, and finds nothing; forcing the trend warns."""
+    scene = sr.square_scene(wave_c=0.5)
+    scene.wet = []
+    result = _run(scene, tmp_path / "auto")
+    (entry,) = result.summary()["background"]
+    assert entry["method"] == "local" and entry["reason"].startswith("not smooth")
+    assert entry["trend_spread_c"] > entry["smooth_limit_c"]
+    assert len(result.anomalies) == 0
+    assert any("the dry surface is not smooth" in w for w in result.warnings)
+    forced = _run(sr.square_scene(wave_c=0.5, detect='delta_c = 1.0\nbackground = "trend"'), tmp_path / "trend")
+    assert forced.summary()["background"][0]["method"] == "trend"
+    assert any('background = "trend" but the dry blocks scatter' in w for w in forced.warnings)
+
+
 # ------------------------------------------------------------------------------
 # Sections: no false anomaly at a step, in any orientation, with either method
 # ------------------------------------------------------------------------------

@@ -78,6 +78,7 @@ __all__ = [
     "UNIT_FLAG",
     "edge_flags",
     "large_share",
+    "background_warnings",
 ]
 
 #: Default dry-background scale: a fraction of the plan's longest side, clamped per kind
@@ -549,6 +550,8 @@ class SectionBackground:
     trend: TrendFit | None = None
     local_grid: np.ndarray | None = None
     level_c: float = math.nan
+    smooth_limit_c: float = math.nan
+    """The spread up to which the dry surface counts as smooth (the ``"auto"`` rule), degC."""
 
     def as_dict(self) -> dict:
         """``summary.json`` ``background`` entry."""
@@ -556,7 +559,8 @@ class SectionBackground:
         if self.trend is not None:
             t = self.trend
             out.update(degree=t.degree if self.method == "trend" else None,
-                       trend_spread_c=round(t.spread_c, 4), kept_blocks=t.kept, blocks=t.blocks)
+                       trend_spread_c=round(t.spread_c, 4), smooth_limit_c=round(self.smooth_limit_c, 4),
+                       kept_blocks=t.kept, blocks=t.blocks)
         if self.method == "median":
             out["level_c"] = round(self.level_c, 4)
         return out
@@ -732,7 +736,7 @@ def fit_background(median: np.ndarray, *, block_px: int, grid_shape: tuple[int, 
                       f"degree-{trend.degree} surface (limit {limit:.3f} °C): local block median over "
                       f"{footprint} blocks; wet areas about that size or larger may be under-found")
         local = smooth_block_grid(m, footprint) if method == "local" else None
-        out.append(SectionBackground(g, name, method, reason, trend=trend, local_grid=local))
+        out.append(SectionBackground(g, name, method, reason, trend=trend, local_grid=local, smooth_limit_c=limit))
     return BackgroundModel(block_px=block_px, sections=tuple(out), noise_c=noise_c, choice=choice)
 
 
@@ -998,3 +1002,20 @@ def large_share(wet_fraction: float, *, above_pct: float) -> bool:
     (True, False)
     """
     return 100.0 * wet_fraction > above_pct
+
+
+def background_warnings(model: BackgroundModel, *, background_m: float, kind: str = "roof") -> list[str]:
+    """Plain warnings about the background of each section: a trend forced on a surface that is
+    not smooth, or (roofs) the local method chosen, which can under-find large wet areas."""
+    out = []
+    for sec in model.sections:
+        t = sec.trend
+        if sec.method == "trend" and t is not None and t.spread_c > sec.smooth_limit_c:
+            out.append(f"section {sec.name}: [detect] background = \"trend\" but the dry blocks scatter "
+                       f"{t.spread_c:.2f} °C about it (smooth up to {sec.smooth_limit_c:.2f} °C): the background is off "
+                       'by about that much in places; consider background = "auto"')
+        elif sec.method == "local" and model.choice == "auto" and kind == "roof":
+            out.append(f"section {sec.name}: the dry surface is not smooth, so the local background "
+                       f"({background_m:g} m) was used: wet areas about that size or larger may be under-found; "
+                       "core the middle of any large warm area")
+    return out

@@ -27,8 +27,8 @@ from . import __version__
 from .confirm import (AreaRange, Status, SuggestedCore, ThresholdCheck, Verdicts, assign_status,
                       sample_at_points, suggest_cores, threshold_check, wet_area_range)
 from .confirmations import Confirmations, read_confirmations
-from .detect import (EDGE_FLAG, UNIT_FLAG, Detection, anomaly_mask, default_background_m, detect_anomalies,
-                     edge_flags, large_share)
+from .detect import (EDGE_FLAG, UNIT_FLAG, Detection, anomaly_mask, background_warnings, default_background_m,
+                     detect_anomalies, edge_flags, large_share)
 from .errors import InputFileError, ProcessingError, SurveyError
 from .passes import PassComparison, align_to_grid, compare_passes, group_passes
 from .polygons import RegionStats, label_regions, polygonize, region_stats
@@ -863,6 +863,8 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         polys = list(tiled.polygons)
         dry_c = detection.background_c[np.isfinite(detection.background_c)]
         range_min_pixels = tiled.preview_min_pixels  # the wet-area range is computed on the preview
+    if detection.background is not None:
+        warnings.extend(background_warnings(detection.background, background_m=background_m, kind=survey.survey.kind))
     passes = None if len(pass_groups) == 1 else _compare_passes(
         survey, pass_groups, outline, radiometry, warnings, progress, grid=grid, surface_c=surface_c,
         in_roof=in_roof, detection=detection, labels=labels, count=count, background_m=background_m,
