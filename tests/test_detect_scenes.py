@@ -203,6 +203,10 @@ def test_parapet_band_is_flagged_or_left_out(tmp_path):
     band = outline.area - outline.buffer(-1.2, join_style="mitre").area
     assert buffered.coverage["edge_band_m2"] == pytest.approx(band, rel=1e-9)
     assert any("not surveyed" in w and "edge_buffer_m" in w for w in buffered.warnings)
+    out = tmp_path / "out"
+    run_survey(tmp_path / "buffer", out=out)
+    assert "Band along the roof edge left out (not surveyed)" in (out / "report.html").read_text(encoding="utf-8")
+    assert json.loads((out / "summary.json").read_text())["coverage"]["edge_band_m2"] == pytest.approx(band, rel=1e-4)
 
 
 def test_unit_halo_is_flagged_or_left_out(tmp_path):

@@ -478,6 +478,10 @@ def _key_figures(s: dict[str, Any]) -> str:
     if cov:
         rows.append(("Roof with no thermal data (not surveyed)",
                      _cell(cov.get("uncovered_m2"), "coverage.uncovered_m2", suffix=" m²")))
+        for key, what in (("edge_band_m2", "Band along the roof edge left out (not surveyed)"),
+                          ("exclusion_band_m2", "Band around the exclusions left out (not surveyed)")):
+            if key in cov:
+                rows.append((what, _cell(cov[key], f"coverage.{key}", suffix=" m²")))
     body = "".join(f"<tr><th>{k}</th>{v}</tr>" for k, v in rows)
     return f'<table class="keyfigures" id="key-figures"><tbody>{body}</tbody></table>'
 
