@@ -296,6 +296,19 @@ def test_dry_core_lowers_the_start_but_never_raises_it():
     assert np.abs(fit.at(rr, cc) - plane).max() < 0.03
 
 
+def test_dry_core_anchors_the_level_when_almost_everything_is_wet():
+    """90 % wet around a dry island: no robust start alone finds the dry level, the dry core
+    in the island does (and the fit without it is wrong, so the anchor is what helps)."""
+    radius = math.sqrt(0.1 * 300 * 500 / math.pi)
+    values, plane, rr, cc = _blocks((300, 500), 10, wet=lambda r, c: (r - 150) ** 2 + (c - 250) ** 2 > radius ** 2)
+    dry = np.zeros(values.shape, bool)
+    dry[15, 25] = True  # the block at the island's centre
+    anchored = fit_trend(values.ravel(), rr.ravel(), cc.ravel(), delta_c=1.0, dry=dry.ravel())
+    assert np.abs(anchored.at(rr, cc) - plane).max() < 0.03
+    alone = fit_trend(values.ravel(), rr.ravel(), cc.ravel(), delta_c=1.0)
+    assert np.abs(alone.at(rr, cc) - plane).max() > 1.0
+
+
 def test_model_windows_equal_the_whole_array():
     """A window of the evaluated model equals the same pixels of the whole array, bit for bit,
     for trend and local sections alike."""
