@@ -27,8 +27,9 @@ from . import __version__
 from .confirm import (AreaRange, Status, SuggestedCore, ThresholdCheck, Verdicts, assign_status,
                       sample_at_points, suggest_cores, threshold_check, wet_area_range)
 from .confirmations import Confirmations
-from .detect import Detection, default_background_m, detect_anomalies
-from .errors import ProcessingError
+from .detect import (EDGE_FLAG, UNIT_FLAG, Detection, anomaly_mask, background_warnings, default_background_m,
+                     detect_anomalies, edge_flags, large_share)
+from .errors import InputFileError, ProcessingError, SurveyError
 from .passes import PassComparison, align_to_grid, choose_primary, compare_passes, group_passes, pass_contrast_c
 from .polygons import RegionStats, label_regions, polygonize, region_stats
 from .quantities import BoardTakeoff, Quantities, SectionTotals, compute_quantities, largest_overlap
@@ -129,6 +130,10 @@ class SurveyResult:
     anomalies and their statistics are exact. ``None``: the whole array is in memory."""
     imagery: Any = None
     """Resolution, focus, reflection and display-range findings (:class:`wetmap.imagery.ImageryReport`)."""
+    cores_threshold: Any = None
+    """``[detect] delta_c = "cores"``: the range the cores allowed and the threshold taken (:class:`CoresThreshold`)."""
+    section_checks: tuple = ()
+    """``(section name, ThresholdCheck)``: the threshold against the cores inside each section."""
 
     def summary(self) -> dict[str, Any]:
         """The ``summary.json`` content (areas in m2)."""
@@ -138,6 +143,7 @@ class SurveyResult:
         roof_area = self.roof.area
         wet = by["wet"] + by["unverified"]
         d, s = self.detection, self.survey
+        bg = self.background_entries()
         return {
             "title": s.survey.title,
             "kind": s.survey.kind,
@@ -165,9 +171,13 @@ class SurveyResult:
                 "reflection_suspect": [r.as_dict() for r in self.imagery.reflections]}
                if self.imagery is not None else {}),
             "sections": [
-                {k: (round(v, 4) if isinstance(v, float) else v) for k, v in vars(t).items()}
+                {**{k: (round(v, 4) if isinstance(v, float) else v) for k, v in vars(t).items()},
+                 **({"background": bg[t.name]["method"]} if t.name in bg else {})}
                 for t in self.section_totals
             ],
+            "background": list(bg.values()),
+            "large_wet_share": [{"where": w, "wet_fraction": round(f, 6)}
+                                for w, f in large_wet_shares(self.quantities, s)],
             "coverage": {k: round(v, 4) for k, v in self.coverage.items()},
             "registration": [r.as_dict() for r in self.registration],
             "confirmations": {
@@ -179,12 +189,21 @@ class SurveyResult:
             "method": {
                 "band_um": list(self.radiometry.band_um),
                 "emissivity": self.radiometry.emissivity,
+                **({"section_emissivity": {sec.name: sec.emissivity for sec in self.sections
+                                           if sec.emissivity is not None}}
+                   if any(sec.emissivity is not None for sec in self.sections) else {}),
                 "reflected_c": round(self.radiometry.reflected_c, 3),
                 "reflected_source": self.radiometry.reflected_source,
                 "reflected_estimated": not self.radiometry.reflected_source.startswith("measured"),
                 "transmittance": round(self.radiometry.transmittance, 5),
                 "transmittance_source": self.radiometry.transmittance_source,
                 "delta_c": d.threshold_c,
+                "delta_c_source": ("the middle of the range the cores allow" if self.cores_threshold is not None
+                                   else "[detect] delta_c"),
+                **({"delta_c_cores": {"dry_max_c": self.cores_threshold.low_c, "wet_min_c": self.cores_threshold.high_c,
+                                      "wet_cores": self.cores_threshold.wet, "dry_cores": self.cores_threshold.dry}}
+                   if self.cores_threshold is not None else {}),
+                "background": s.detect.background,
                 "background_m": round(d.background_m, 3),
                 "min_area_m2": s.detect.min_area_m2,
                 "pixel_m": (self.full_rasters.grid if self.full_rasters is not None else self.grid).pixel_m,
@@ -202,6 +221,17 @@ class SurveyResult:
             },
             "wetmap_version": __version__,
         }
+
+    def background_entries(self) -> dict[str, dict[str, Any]]:
+        """The dry background of each section (method, reason, trend figures), by section name.
+
+        The rest of the roof outside every section is listed only when it has thermal data.
+        """
+        model = getattr(self.detection, "background", None)
+        if model is None:
+            return {}
+        return {e.name: e.as_dict() for e in model.sections
+                if not (e.method == "none" and e.name == OUTSIDE_SECTIONS)}
 
     def _processing(self) -> dict[str, Any]:
         """summary.json ``method.processing``: whole array, or windows and what used the preview."""
@@ -224,6 +254,12 @@ class SurveyResult:
                 "threshold_low_c": r.threshold_low_c, "threshold_high_c": r.threshold_high_c,
                 "geometric_m2": round(r.geometric_m2, 4),
             }
+        if self.section_checks:
+            out["threshold_check_by_section"] = [
+                {"section": name, "range_c": [t.low_c, t.high_c], "range_bounded_by": list(t.bounded_by),
+                 "separable": t.separable, "confusion": t.confusion, "misclassified": list(t.misclassified),
+                 "wet_cores": t.n_wet, "dry_cores": t.n_dry}
+                for name, t in self.section_checks]
         if self.threshold is not None:
             t = self.threshold
             out["threshold_check"] = {
@@ -330,6 +366,22 @@ def _mask_of(geoms: BaseGeometry, grid: PlanGrid) -> np.ndarray:
     from .tiles import roof_mask
 
     return roof_mask(geoms, grid.transform, grid.shape)
+
+
+def section_emissivity_correction(surface_k: np.ndarray, apparent_k: np.ndarray, labels: np.ndarray | None,
+                                  sections, radiometry: Radiometry) -> np.ndarray:
+    """Surface temperature (K) of each section with its own ``emissivity`` (sections.geojson),
+    from the apparent temperature (K); other pixels keep ``surface_k``. ``labels`` as
+    :func:`wetmap.tiles.section_labels` (label ``k`` = ``sections[k]``)."""
+    if labels is None:
+        return surface_k
+    for k, sec in enumerate(sections):
+        if sec.emissivity is None or sec.emissivity == radiometry.emissivity:
+            continue
+        sel = labels == k
+        if sel.any():
+            surface_k[sel] = _to_surface_k(apparent_k[sel], replace(radiometry, emissivity=sec.emissivity))
+    return surface_k
 
 
 def _to_surface_k(apparent_k: np.ndarray, radiometry: Radiometry) -> np.ndarray:
@@ -522,7 +574,7 @@ def _area_word_kind(kind: str) -> str:
 def _surface_on_grid(survey: Survey, outline: BaseGeometry, radiometry: Radiometry,
                      warnings: list[str], progress: Progress | None, *,
                      registration: list[FrameReport] | None = None,
-                     views: list | None = None) -> tuple[PlanGrid, np.ndarray]:
+                     views: list | None = None, sections: tuple = ()) -> tuple[PlanGrid, np.ndarray]:
     """Mosaics and frames on one plan grid, as surface temperature in degC (NaN = no data).
 
     The grid's pixel is ``[plan] pixel_m``, else the finest mosaic's, else chosen from the
@@ -568,6 +620,9 @@ def _surface_on_grid(survey: Survey, outline: BaseGeometry, radiometry: Radiomet
     if apparent is not None:
         _emit(progress, "correcting apparent to surface temperature")
         surface = _to_surface_k(apparent, radiometry)
+        if any(sec.emissivity is not None for sec in sections):
+            labels = _section_labels([sec.geometry for sec in sections], grid)
+            surface = section_emissivity_correction(surface, apparent, labels, sections, radiometry)
         lost = int(np.count_nonzero(np.isnan(surface) & ~np.isnan(apparent)))
         if lost:
             warnings.append(
@@ -605,6 +660,16 @@ def _condition_warnings(survey: Survey, sections, *, surface_c: float | None = N
 
 
 @dataclass(frozen=True)
+class _DetectOn:
+    """What every pass's detection is made with besides its pixels: the sections (their
+    geometries and group names) and the confirmations that anchor the dry background."""
+
+    section_geoms: tuple
+    names: tuple[str, ...]
+    conf: Confirmations
+
+
+@dataclass(frozen=True)
 class _PassImage:
     """One pass on its own plan grid: surface temperature (°C) and what reading it said."""
 
@@ -616,7 +681,7 @@ class _PassImage:
 
 
 def _pass_images(survey: Survey, groups, outline: BaseGeometry, radiometry: Radiometry,
-                 progress: Progress | None) -> list[_PassImage]:
+                 progress: Progress | None, *, sections: tuple = ()) -> list[_PassImage]:
     """Every pass's surface temperature on its own plan grid (each read once)."""
     out = []
     for g in groups:
@@ -626,25 +691,32 @@ def _pass_images(survey: Survey, groups, outline: BaseGeometry, radiometry: Radi
         reports: list[FrameReport] = []
         views: list = []
         g_grid, g_surface = _surface_on_grid(sub, outline, radiometry, notes, progress, registration=reports,
-                                             views=views)
+                                             views=views, sections=sections)
         out.append(_PassImage(g_grid, g_surface, tuple(notes), tuple(reports), tuple(views)))
     return out
 
 
 def _detect_pass(image: _PassImage, grid: PlanGrid, in_roof: np.ndarray, survey: Survey,
-                 background_m: float) -> tuple[np.ndarray, np.ndarray, np.ndarray, int]:
-    """One pass on ``grid``: its surface (NaN off the roof), delta-T, labels and count."""
+                 background_m: float, *, detect_on: "_DetectOn",
+                 threshold_c: float | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray, int]:
+    """One pass on ``grid``: its surface (NaN off the roof), delta-T, labels and count.
+
+    ``threshold_c`` is the primary pass's applied threshold (``None``: ``[detect] delta_c``).
+    """
     sdt = survey.detect
     g_surface = align_to_grid(image.surface_c, image.grid.transform, grid.transform, grid.shape)
     g_usable = in_roof & np.isfinite(g_surface)
     det = detect_anomalies(g_surface, g_usable, pixel_m=grid.pixel_m, delta_c=sdt.delta_c,
-                           background_m=background_m, min_area_m2=sdt.min_area_m2)
+                           background_m=background_m, min_area_m2=sdt.min_area_m2,
+                           labels=_section_labels(detect_on.section_geoms, grid), names=detect_on.names,
+                           choice=sdt.background, cores=_core_pixels(detect_on.conf, grid), threshold_c=threshold_c)
     lab, n = label_regions(det.mask)
     return np.where(g_usable, g_surface, np.nan), det.delta_c, lab, n
 
 
 def _choose_primary_pass(survey: Survey, images: list[_PassImage], roof: BaseGeometry, background_m: float,
-                         progress: Progress | None) -> tuple[int, str, tuple[float, ...], dict]:
+                         progress: Progress | None, *, detect_on: "_DetectOn"
+                         ) -> tuple[int, str, tuple[float, ...], dict]:
     """The pass with the greatest wet-dry contrast (:func:`wetmap.passes.choose_primary`).
 
     The passes are compared on the last pass's grid; their detections there are returned
@@ -653,7 +725,8 @@ def _choose_primary_pass(survey: Survey, images: list[_PassImage], roof: BaseGeo
     _emit(progress, "comparing the passes' wet-dry contrast")
     grid = images[-1].grid
     in_roof = _mask_of(roof, grid)
-    found = {k: _detect_pass(im, grid, in_roof, survey, background_m) for k, im in enumerate(images)}
+    found = {k: _detect_pass(im, grid, in_roof, survey, background_m, detect_on=detect_on)
+             for k, im in enumerate(images)}
     contrast = pass_contrast_c([found[k][1] for k in found], [found[k][2] for k in found],
                                [found[k][3] for k in found])
     index, rule = choose_primary(contrast)
@@ -697,10 +770,15 @@ def _fade_models(survey: Survey, sections, polys, hours: list[float],
 def _compare_passes(survey: Survey, groups, images: list[_PassImage], choice: tuple, warnings: list[str],
                     progress: Progress | None, *, grid: PlanGrid, surface_c: np.ndarray, in_roof: np.ndarray,
                     detection: Detection, labels: np.ndarray, count: int, background_m: float,
-                    sections=(), polys=()) -> PassComparison:
-    """Detect anomalies in the other passes and compare them with the primary pass."""
+                    detect_on: "_DetectOn", sections=(), polys=()) -> PassComparison:
+    """Detect anomalies in the other passes and compare them with the primary pass.
+
+    The other passes use the primary pass's applied threshold; the detections made while
+    choosing the primary pass are reused when they were made on this grid with it.
+    """
     primary, rule, contrast, cache = choice
-    same_grid = (cache["grid"].shape == grid.shape and cache["grid"].transform.almost_equals(grid.transform))
+    same_grid = (cache["grid"].shape == grid.shape and cache["grid"].transform.almost_equals(grid.transform)
+                 and survey.detect.delta_from != "cores")
     surfaces, deltas, label_list, counts = [], [], [], []
     for k, image in enumerate(images):
         if k == primary:
@@ -711,7 +789,8 @@ def _compare_passes(survey: Survey, groups, images: list[_PassImage], choice: tu
             continue
         _emit(progress, f"pass {groups[k].label}: detection")
         g_surface, g_delta, lab, n = (cache["found"][k] if same_grid
-                                      else _detect_pass(image, grid, in_roof, survey, background_m))
+                                      else _detect_pass(image, grid, in_roof, survey, background_m,
+                                                        detect_on=detect_on, threshold_c=detection.threshold_c))
         surfaces.append(g_surface)
         deltas.append(g_delta)
         label_list.append(lab)
@@ -724,6 +803,125 @@ def _compare_passes(survey: Survey, groups, images: list[_PassImage], choice: tu
                             model_delta_c=model, contrast_c=contrast, primary_rule=rule)
     warnings.extend(result.warnings())
     return result
+
+
+#: Name of the roof outside every section when sections are given (a background group of its own).
+OUTSIDE_SECTIONS = "(outside the sections)"
+
+
+def _group_names(sections, area_word: str) -> tuple[str, ...]:
+    """One name per section label: the sections in order, then the rest of the roof; or the whole roof."""
+    if not sections:
+        return (area_word,)
+    return (*(s.name for s in sections), OUTSIDE_SECTIONS)
+
+
+def _section_labels(geoms, grid: PlanGrid) -> np.ndarray | None:
+    """Section label of every pixel (pixel-centre rule of :mod:`wetmap.tiles`), or ``None`` with no sections."""
+    if not geoms:
+        return None
+    from .tiles import pixel_edges, section_label_raster
+
+    return section_label_raster([pixel_edges(g, grid.transform) for g in geoms], grid.shape)
+
+
+def _core_pixels(conf: Confirmations, grid: PlanGrid) -> tuple[np.ndarray, np.ndarray, np.ndarray] | None:
+    """``(rows, cols, wet)`` of the confirmations on the grid (pixel indices), or ``None``."""
+    if not len(conf):
+        return None
+    cols, rows = ~grid.transform @ (np.asarray(conf.xs, float), np.asarray(conf.ys, float))
+    return np.floor(rows).astype(np.intp), np.floor(cols).astype(np.intp), np.asarray(conf.wet, bool)
+
+
+def _surveyed_part(roof: BaseGeometry, outline: BaseGeometry, exclusions: BaseGeometry, *, edge_buffer_m: float,
+                   exclusion_buffer_m: float) -> tuple[BaseGeometry, dict[str, float]]:
+    """The roof minus the optional bands along the outline and around the exclusions.
+
+    Returns the surveyed part and the area of each band left out (m2, ``edge_band_m2``,
+    ``exclusion_band_m2``; only the bands asked for).
+    """
+    surveyed = roof
+    areas: dict[str, float] = {}
+    if edge_buffer_m > 0:
+        inner = outline.buffer(-edge_buffer_m, join_style="mitre")
+        cut = surveyed.intersection(inner)
+        areas["edge_band_m2"] = float(surveyed.area - cut.area)
+        surveyed = cut
+    if exclusion_buffer_m > 0 and not exclusions.is_empty:
+        cut = surveyed.difference(exclusions.buffer(exclusion_buffer_m, join_style="mitre"))
+        areas["exclusion_band_m2"] = float(surveyed.area - cut.area)
+        surveyed = cut
+    return surveyed, areas
+
+
+@dataclass(frozen=True)
+class CoresThreshold:
+    """``[detect] delta_c = "cores"``: the range the cores allow and its middle, degC."""
+
+    low_c: float
+    """Largest delta-T at a dry core."""
+    high_c: float
+    """Smallest delta-T at a wet core."""
+    chosen_c: float
+    wet: int
+    dry: int
+
+
+def threshold_from_cores(ids, core_delta_c: np.ndarray, wet: np.ndarray, *, file: Path) -> CoresThreshold:
+    """The middle of the thresholds the cores allow: between the largest delta-T at a dry core
+    and the smallest at a wet core.
+
+    Raises
+    ------
+    SurveyError
+        When there is no wet or no dry core with thermal data, or when a dry core is at least
+        as warm as a wet core (no threshold separates them).
+
+    >>> threshold_from_cores(("a", "b", "c"), np.array([2.0, 0.4, 0.8]), np.array([True, False, False]),
+    ...                      file=Path("survey.toml")).chosen_c
+    1.4
+    """
+    d = np.asarray(core_delta_c, dtype=float)
+    w = np.asarray(wet, bool)
+    ok = np.isfinite(d)
+    ids = np.asarray(ids, dtype=object)
+    if not (ok & w).any() or not (ok & ~w).any():
+        missing = "wet" if not (ok & w).any() else "dry"
+        raise SurveyError(f'{file}: [detect] delta_c = "cores" needs at least one {missing} core with thermal data '
+                          f"({int((ok & w).sum())} wet, {int((ok & ~w).sum())} dry found): add cores or give a number")
+    i_dry = np.flatnonzero(ok & ~w)[np.argmax(d[ok & ~w])]
+    i_wet = np.flatnonzero(ok & w)[np.argmin(d[ok & w])]
+    low, high = float(d[i_dry]), float(d[i_wet])
+    if not high > low:
+        raise SurveyError(f'{file}: [detect] delta_c = "cores": dry core {ids[i_dry]} (delta-T {low:+.2f} °C) is at '
+                          f"least as warm as wet core {ids[i_wet]} ({high:+.2f} °C), so the cores allow no threshold; "
+                          "give delta_c a number and check those cores")
+    return CoresThreshold(low_c=round(low, 4), high_c=round(high, 4), chosen_c=round(0.5 * (low + high), 4),
+                          wet=int((ok & w).sum()), dry=int((ok & ~w).sum()))
+
+
+def large_wet_shares(quantities: Quantities | None, survey: Survey) -> list[tuple[str, float]]:
+    """``(where, wet fraction)`` of each section (or the whole roof, or the roof outside every
+    section) whose anomalies fill more than ``[repair] replace_above_pct`` of it (roofs only)."""
+    above = survey.repair.replace_above_pct
+    if quantities is None or above is None or survey.survey.kind != "roof":
+        return []
+    out = [(f"section {t.name}", t.wet_fraction) for t in quantities.sections
+           if large_share(t.wet_fraction, above_pct=above)]
+    if quantities.outside is not None and quantities.outside.area_m2 > 0 and large_share(
+            quantities.outside.wet_fraction, above_pct=above):
+        out.append(("the roof outside every section", quantities.outside.wet_fraction))
+    if not quantities.sections and large_share(quantities.wet_fraction, above_pct=above):
+        out.append(("the whole roof", quantities.wet_fraction))
+    return out
+
+
+def _large_share_warnings(quantities: Quantities, survey: Survey) -> list[str]:
+    """A plain warning for each large wet share (:func:`large_wet_shares`)."""
+    return [f"{where}: anomalies fill {100 * f:.0f} % of it, a large wet share: this figure decides between repair "
+            "and replacement (some local codes require replacement above 25 % wet; a trade rule of thumb repairs "
+            "only under about 30 %), so confirm the wet boundary with cores and check which rule applies"
+            for where, f in large_wet_shares(quantities, survey)]
 
 
 def process_survey(folder: str | Path, *, progress: Progress | None = None, scheduler: Any = None,
@@ -765,6 +963,26 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
     sections: list[Section] = list(prepared.sections)
     specular = prepared.specular  # [plan] specular: surfaces that show reflections (wetmap.imagery)
 
+    conf = prepared.confirmations if prepared.confirmations is not None else Confirmations.empty()
+    sdt = survey.detect
+    surveyed, band_m2 = _surveyed_part(roof, outline, exclusions, edge_buffer_m=sdt.edge_buffer_m,
+                                                   exclusion_buffer_m=sdt.exclusion_buffer_m)
+    if surveyed.area <= 0:
+        raise InputFileError(f"{survey.file}: [detect] edge_buffer_m = {sdt.edge_buffer_m:g} and exclusion_buffer_m = "
+                             f"{sdt.exclusion_buffer_m:g} leave nothing of the roof to survey; make them smaller")
+    section_geoms = [s.geometry for s in sections]
+    if survey.frames and any(sec.emissivity is not None for sec in sections):
+        warnings.append("sections.geojson gives emissivities per section: they correct the mosaics' pixels; "
+                        "[[frame]] pixels are corrected with [camera] emissivity")
+    group_names = _group_names(sections, _area_word(survey))
+    detect_on = _DetectOn(section_geoms=tuple(section_geoms), names=group_names, conf=conf)
+    threshold_from = None
+    from_cores: list[CoresThreshold] = []
+    if sdt.delta_from == "cores":
+        def threshold_from(core_delta: np.ndarray) -> float:
+            from_cores.append(threshold_from_cores(conf.ids, core_delta, conf.wet, file=survey.file))
+            return from_cores[-1].chosen_c
+
     radiometry = _radiometry(survey, warnings)
     # several passes (imagery with different times): the pass with the greatest wet-dry
     # contrast is the primary detection (wetmap.passes.choose_primary)
@@ -773,14 +991,13 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
     frame_reports: list[FrameReport] = []
     frame_views: list = []  # the placed frames, for the imagery checks (wetmap.imagery)
     area_word = _area_word(survey)
-    sdt = survey.detect
     x0, y0, x1, y1 = outline.bounds
     background_m = sdt.background_m or default_background_m(survey.survey.kind, max(x1 - x0, y1 - y0))
     pass_images: list[_PassImage] | None = None
     choice = None
     if len(pass_groups) > 1:
-        pass_images = _pass_images(survey, pass_groups, outline, radiometry, progress)
-        choice = _choose_primary_pass(survey, pass_images, roof, background_m, progress)
+        pass_images = _pass_images(survey, pass_groups, outline, radiometry, progress, sections=tuple(sections))
+        choice = _choose_primary_pass(survey, pass_images, surveyed, background_m, progress, detect_on=detect_on)
         for k, image in enumerate(pass_images):
             if k != choice[0]:
                 warnings.extend(image.warnings)
@@ -788,9 +1005,11 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         survey, mosaics=pass_groups[choice[0]].mosaics, frames=pass_groups[choice[0]].frames)
     # one pass of large mosaics on the plan grid's lattice: in windows, same result (wetmap.tiles)
     tiled = None if len(pass_groups) > 1 else detect_in_windows(
-        primary, outline=outline, roof=roof, radiometry=radiometry, background_m=background_m, tile_px=tile_px,
+        primary, outline=outline, roof=surveyed, radiometry=radiometry, background_m=background_m, tile_px=tile_px,
         scheduler=scheduler, scratch=None if scratch is None else Path(scratch), progress=progress,
-        window_progress=window_progress)
+        window_progress=window_progress, sections=section_geoms, names=group_names, choice=sdt.background,
+        section_emissivity=tuple(sec.emissivity for sec in sections),
+        cores=(conf.xs, conf.ys, conf.wet), threshold_from=threshold_from)
     if tiled is None:
         if pass_images is not None and choice is not None:  # several passes: the chosen one, already read
             chosen = pass_images[choice[0]]
@@ -800,9 +1019,11 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
             frame_views.extend(chosen.views)
         else:
             grid, surface_c = _surface_on_grid(primary, outline, radiometry, warnings, progress,
-                                               registration=frame_reports, views=frame_views)
+                                               registration=frame_reports, views=frame_views,
+                                               sections=tuple(sections))
         _emit(progress, "masking the roof")
-        in_roof = _mask_of(roof, grid)
+        in_roof = _mask_of(surveyed, grid)
+        labels_px = _section_labels(section_geoms, grid)
         usable = in_roof & np.isfinite(surface_c)
         roof_px = int(in_roof.sum())
         covered_px = int(usable.sum())
@@ -823,7 +1044,13 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         "covered_m2": covered_px * px_area,
         "uncovered_m2": (roof_px - covered_px) * px_area,
         "uncovered_pct": 100.0 * (roof_px - covered_px) / roof_px if roof_px else 100.0,
+        **band_m2,
     }
+    for key, what, setting in (("edge_band_m2", "along the outline", "edge_buffer_m"),
+                               ("exclusion_band_m2", "around the exclusions", "exclusion_buffer_m")):
+        if key in band_m2:
+            warnings.append(f"{band_m2[key]:.1f} m2 in the band {what} ([detect] {setting} = "
+                            f"{getattr(sdt, setting):g}) is left out: not surveyed, which does not mean dry")
     if covered_px == 0:  # nothing to detect on: a confident empty answer would be wrong
         raise ProcessingError(f"{survey.file}: no usable thermal data on the {area_word} (all nodata, the imagery "
                               "misses the outline, or every pixel lost in the apparent-to-surface correction): check "
@@ -838,8 +1065,14 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         warnings.append(f"the thermal data on the {area_word} are constant: no contrast, nothing can be detected")
     if tiled is None:
         _emit(progress, "estimating the dry background and thresholding")
+        core_px = _core_pixels(conf, grid)
         detection = detect_anomalies(surface_c, usable, pixel_m=grid.pixel_m, delta_c=sdt.delta_c,
-                                     background_m=background_m, min_area_m2=sdt.min_area_m2)
+                                     background_m=background_m, min_area_m2=sdt.min_area_m2, labels=labels_px,
+                                     names=group_names, choice=sdt.background, cores=core_px)
+        if threshold_from is not None:
+            t = threshold_from(sample_at_points(detection.delta_c, grid.transform, conf.xs, conf.ys))
+            detection = replace(detection, threshold_c=t,
+                                mask=anomaly_mask(detection.delta_c, t, min_pixels=detection.min_pixels))
         _emit(progress, "outlining anomalies")
         labels, count = label_regions(detection.mask)
         stats = region_stats(labels, count, detection.delta_c)
@@ -853,17 +1086,15 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         polys = list(tiled.polygons)
         dry_c = detection.background_c[np.isfinite(detection.background_c)]
         range_min_pixels = tiled.preview_min_pixels  # the wet-area range is computed on the preview
+    if detection.background is not None:
+        warnings.extend(background_warnings(detection.background, background_m=background_m, kind=survey.survey.kind))
     passes = None if pass_images is None else _compare_passes(
         survey, pass_groups, pass_images, choice, warnings, progress, grid=grid, surface_c=surface_c,
         in_roof=in_roof, detection=detection, labels=labels, count=count, background_m=background_m,
-        sections=sections, polys=polys)
+        detect_on=detect_on, sections=sections, polys=polys)
     warnings[:0] = _condition_warnings(survey, sections, surface_c=float(np.nanmedian(dry_c))
                                        if np.isfinite(dry_c).any() else None)
 
-    if prepared.confirmations is not None:
-        conf = prepared.confirmations
-    else:
-        conf = Confirmations.empty()
     verdicts = assign_status(polys, conf)
     conf_delta = (sample_at_points(detection.delta_c, grid.transform, conf.xs, conf.ys) if tiled is None
                   else tiled.full_rasters.sample(conf.xs, conf.ys))
@@ -878,7 +1109,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
             include = (f"; a threshold below {np.floor(d * 20) / 20:.2f} °C would include it"
                        if np.isfinite(d) and d > 0 else "")
             warnings.append(
-                f"{conf.ids[i]} says wet but lies outside every anomaly ({seen}; threshold {sdt.delta_c:g} °C): "
+                f"{conf.ids[i]} says wet but lies outside every anomaly ({seen}; threshold {detection.threshold_c:g} °C): "
                 f"a possible missed wet area{include}"
             )
     words = wording_of(survey)
@@ -887,10 +1118,21 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
                         f"establish {words.wet_words} (invasive verification is required)")
     warnings.extend(_sounding_notes(conf, verdicts))
     decisive = conf.decisive  # solid soundings neither refute an anomaly nor bound the threshold
-    check = threshold_check(tuple(np.asarray(conf.ids, dtype=object)[decisive].tolist()), conf_delta[decisive],
-                            conf.wet[decisive], chosen_c=sdt.delta_c, words=words)
+    ids = np.asarray(conf.ids, dtype=object)
+    check = threshold_check(tuple(ids[decisive].tolist()), conf_delta[decisive], conf.wet[decisive],
+                            chosen_c=detection.threshold_c, words=words)
     if len(conf):
         warnings.extend(check.warnings)
+    # the same check within each section (its own background, its own confirmations)
+    section_checks: list[tuple[str, ThresholdCheck]] = []
+    if sections and len(conf):
+        points = shapely.points(conf.xs, conf.ys)
+        for sec in sections:
+            inside = shapely.covers(sec.geometry, points) & decisive
+            if inside.any():
+                section_checks.append((sec.name, threshold_check(tuple(ids[inside].tolist()), conf_delta[inside],
+                                                                 conf.wet[inside], chosen_c=detection.threshold_c,
+                                                                 words=words)))
     core_cols, core_rows = ~grid.transform @ (conf.xs[decisive], conf.ys[decisive])
     counted = ("wet", "unverified") if survey.repair.include_unverified else ("wet",)
     counted_polys = [p for p, st in zip(polys, verdicts.status) if st in counted]
@@ -914,6 +1156,17 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         sections=sections, specular=specular, outline=outline)
     warnings.extend(imagery.warnings)
     section_of = largest_overlap(polys, [s.geometry for s in sections])
+    # anomalies hugging the roof edge or ringing a rooftop unit: a flag naming the likely cause
+    place_flags = (edge_flags(polys, outline=outline, exclusions=exclusions) if survey.survey.kind == "roof"
+                   else [()] * len(polys))
+    for label in (EDGE_FLAG, UNIT_FLAG):
+        ids = [str(i + 1) for i, f in enumerate(place_flags) if label in f]
+        if ids:
+            where = "along the roof edge" if label == EDGE_FLAG else "ringing an exclusion"
+            setting = "edge_buffer_m" if label == EDGE_FLAG else "exclusion_buffer_m"
+            warnings.append(f"anomal{'y' if len(ids) == 1 else 'ies'} {', '.join(ids)}: a narrow band {where} "
+                            f"(flag \"{label}\"): often flashing, parapet or unit heat rather than wet insulation; "
+                            f"check in daylight and by a core, or leave the band out with [detect] {setting}")
     anomalies = tuple(
         Anomaly(
             id=i + 1,
@@ -925,7 +1178,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
             delta_max_c=float(stats.max[i]),
             confirmations=verdicts.confirmation_ids[i],
             section=sections[section_of[i]].name if section_of[i] >= 0 else None,
-            flags=imagery.flags_text(i),
+            flags="; ".join(f for f in (imagery.flags_text(i), *place_flags[i]) if f),
         )
         for i, p in enumerate(polys)
     )
@@ -938,6 +1191,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
     warnings.extend(quantities.notes)
     if quantities.takeoff.range_note:
         warnings.append(quantities.takeoff.range_note)
+    warnings.extend(_large_share_warnings(quantities, survey))
     repair, takeoff, totals = quantities.repair, quantities.takeoff, quantities.sections
     return SurveyResult(
         survey=survey, grid=grid, surface_c=surface_c, detection=detection, outline=outline,
@@ -952,6 +1206,8 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         registration=tuple(frame_reports),
         full_rasters=None if tiled is None else tiled.full_rasters,
         imagery=imagery,
+        cores_threshold=from_cores[-1] if from_cores else None,
+        section_checks=tuple(section_checks),
     )
 
 

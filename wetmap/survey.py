@@ -206,6 +206,15 @@ class Detect:
     tile_px: int | None = None
     """Window side for processing in windows, pixels (rounded to the background block);
     0: the whole array; ``None``: chosen by the plan grid's size (see :mod:`wetmap.tiles`)."""
+    delta_from: Literal["value", "cores"] = "value"
+    """``"cores"`` when ``delta_c = "cores"``: the threshold is the middle of the range the
+    cores allow (``delta_c`` then keeps the default, used for the background's warm cut)."""
+    background: Literal["auto", "trend", "local"] = "auto"
+    """The dry background per section: chosen from the data, a robust trend, or the local block median."""
+    edge_buffer_m: float = 0.0
+    """Band along the outline left out of the survey, metres (0: none)."""
+    exclusion_buffer_m: float = 0.0
+    """Band around each exclusion left out of the survey, metres (0: none)."""
 
 
 @dataclass(frozen=True)
@@ -797,7 +806,18 @@ def _read_frame(t: _Table, folder: Path) -> Frame | None:
 
 
 def _read_detect(t: _Table, kind: str | None) -> Detect:
-    delta = t.number("delta_c", low=0, high=50, low_open=True, example="1.0", plausible=(0.05, 50))
+    delta_from = "value"
+    if isinstance(t.data.get("delta_c"), str):
+        if t.data["delta_c"] != "cores":
+            t.problem("delta_c", f'= "{t.data["delta_c"]}": expected a number of degC (e.g. delta_c = 1.0) '
+                                 'or "cores" (the middle of the range the cores allow)')
+        delta_from = "cores"
+        delta = None
+    else:
+        delta = t.number("delta_c", low=0, high=50, low_open=True, example="1.0", plausible=(0.05, 50))
+    background_choice = t.choice("background", ("auto", "trend", "local"))
+    edge = t.number("edge_buffer_m", low=0, high=50, example="1.0")
+    exclusion = t.number("exclusion_buffer_m", low=0, high=50, example="0.5")
     background = t.number("background_m", low=0, low_open=True, high=1000, example="20.0", plausible=(0.1, 1000))
     min_area = t.number("min_area_m2", low=0, example="0.5", plausible=(0, 10_000))
     tile = t.number("tile_px", low=0, high=65536, example="2048")
@@ -809,6 +829,10 @@ def _read_detect(t: _Table, kind: str | None) -> Detect:
         background_m=background,
         min_area_m2=min_area if min_area is not None else DEFAULT_MIN_AREA_M2.get(kind or "roof", 0.5),
         tile_px=None if tile is None else int(tile),
+        delta_from=delta_from,  # type: ignore[arg-type]
+        background=background_choice or "auto",  # type: ignore[arg-type]
+        edge_buffer_m=edge or 0.0,
+        exclusion_buffer_m=exclusion or 0.0,
     )
 
 
@@ -970,7 +994,8 @@ _KEYS: dict[str, tuple[str, ...]] = {
     "plan": ("outline", "exclusions", "sections", "pixel_m", "specular"),
     "mosaic": ("path", "units", "time", "scale", "offset", "origin", "pixel_m"),
     "frame": ("path", "units", "points", "time", "scale", "offset"),
-    "detect": ("delta_c", "background_m", "min_area_m2", "tile_px"),
+    "detect": ("delta_c", "background_m", "min_area_m2", "tile_px", "background", "edge_buffer_m",
+               "exclusion_buffer_m"),
     "cores": ("path", "wet_above", "wet_above_pct"),
     "repair": ("margin_m", "board_m", "include_unverified", "board_angle_deg", "board_origin",
                "replace_above_pct", "area_units"),
@@ -1096,6 +1121,9 @@ def load_survey(folder: str | Path) -> Survey:
     detect = _read_detect(t_det, kind) if t_det else Detect(min_area_m2=DEFAULT_MIN_AREA_M2.get(kind or "roof", 0.5))
     t_cores = _table(problems, doc, "cores", required=False)
     cores = _read_cores(t_cores, folder) if t_cores else None
+    if t_det and detect.delta_from == "cores" and t_cores is None:
+        t_det.problem("delta_c", '= "cores": needs cores; add a [cores] table with path = "cores.csv", '
+                                 "or give delta_c a number")
     t_rep = _table(problems, doc, "repair", required=False)
     repair = _read_repair(t_rep) if t_rep else Repair()
     if kind == "hull" and (t_rep is None or "board_m" not in t_rep.data):

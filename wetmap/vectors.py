@@ -12,6 +12,7 @@ as plan metres. Invalid polygons are repaired with
 from __future__ import annotations
 
 import logging
+import math
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -54,6 +55,8 @@ class Section:
     geometry: BaseGeometry
     assembly: str | None = None
     insulation: str | None = None
+    emissivity: float | None = None
+    """The section's surface emissivity in the camera band (``None``: ``[camera] emissivity``)."""
 
 
 def _looks_like_lonlat(bounds: np.ndarray) -> bool:
@@ -182,8 +185,21 @@ def read_sections(path: Path, *, survey_crs: str | None) -> tuple[list[Section],
         values = layer.attributes.get(key, (None,) * len(names))
         return [None if _missing(v) else str(v) for v in values]
 
+    emissivity: list[float | None] = []
+    for i, v in enumerate(layer.attributes.get("emissivity", (None,) * len(names))):
+        if _missing(v):
+            emissivity.append(None)
+            continue
+        try:
+            e = float(v)
+        except (TypeError, ValueError):
+            e = math.nan
+        if not (0.0 < e <= 1.0):
+            raise InputFileError(f"{path}: section {names[i]!r} (feature {i}) has emissivity {v!r}: expected a number "
+                                 "above 0 and at most 1 (e.g. 0.90), or leave it empty for [camera] emissivity")
+        emissivity.append(e)
     sections = [
-        Section(name=n, geometry=g, assembly=a, insulation=ins)
-        for n, g, a, ins in zip(names, layer.geometries, column("assembly"), column("insulation"))
+        Section(name=n, geometry=g, assembly=a, insulation=ins, emissivity=e)
+        for n, g, a, ins, e in zip(names, layer.geometries, column("assembly"), column("insulation"), emissivity)
     ]
     return sections, layer.notes
