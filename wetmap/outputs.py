@@ -17,7 +17,8 @@ Every command that writes files (``run``, ``batch``, ``window``, ``compare``) go
   through ``.NAME.old-*``; a run that then finds the destination missing and a complete
   set in ``.NAME.old-*`` puts it back.
 - **One run at a time.** ``flock`` on ``.wetmap-NAME.lock`` beside the destination and on
-  ``.wetmap.lock`` in the survey folder; a second run refuses at once with one line.
+  ``.wetmap.lock`` in the survey folder (removed when the run ends); a second run
+  refuses at once with one line.
 - **Leftovers are cleaned.** The next run that holds the same lock removes the
   ``.NAME.tmp-*`` and ``.NAME.old-*`` folders and the survey's ``.wetmap-windows-*``
   scratch folders of runs that stopped (only a run holding the lock could own them).
@@ -123,8 +124,8 @@ def check_out_dir(out_dir: str | Path, *, surveys: Iterable[str | Path] = ()) ->
         around ``out_dir``); their own ``results/`` is allowed.
     """
     if str(out_dir).strip() == "":
-        raise OutputError("--out '': the results folder is empty text; give a folder path, or leave --out out "
-                          "to write SURVEY_DIR/results")
+        raise OutputError("'': the results folder path is empty: give a folder path (or none for the default, "
+                          "SURVEY_DIR/results)")
     out = _resolve(Path(out_dir), "results folder")
     protected: list[Path] = []
     for s in (*(_resolve(Path(s), "survey folder") for s in surveys), *_survey_folders_around(out)):
@@ -161,31 +162,48 @@ def check_out_dir(out_dir: str | Path, *, surveys: Iterable[str | Path] = ()) ->
 
 @contextlib.contextmanager
 def _lock(path: Path, what: str, *, required: bool) -> Iterator[None]:
-    """Hold an exclusive ``flock`` on ``path``; refuse at once when another run holds it."""
+    """Hold an exclusive ``flock`` on ``path``; refuse at once when another run holds it.
+
+    The lock file is removed on release; a run that locked a file another run had just
+    removed sees that the path no longer names its file and locks afresh.
+    """
     try:
         import fcntl
     except ImportError:  # pragma: no cover -- not a POSIX system: no lock
         yield
         return
-    try:
-        fd = os.open(path, os.O_RDWR | os.O_CREAT, 0o666)
-    except OSError as err:
-        if required:
-            raise OutputError(f"{path.parent}: cannot create files here ({err.strerror}): choose a folder you "
-                              "can write for the results") from None
-        log.info("%s: no lock (%s); the folder is read-only", path, err.strerror)
-        yield
-        return
-    try:
+    for _ in range(100):
+        try:
+            fd = os.open(path, os.O_RDWR | os.O_CREAT, 0o666)
+        except OSError as err:
+            if required:
+                raise OutputError(f"{path.parent}: cannot create files here ({err.strerror}): choose a folder you "
+                                  "can write for the results") from None
+            log.info("%s: no lock (%s); the folder is read-only", path, err.strerror)
+            yield
+            return
         try:
             fcntl.flock(fd, fcntl.LOCK_EX | fcntl.LOCK_NB)
         except OSError as err:
+            os.close(fd)
             if err.errno not in (errno.EWOULDBLOCK, errno.EAGAIN, errno.EACCES):
                 raise
             raise OutputError(f"{path}: another wetmap run is {what} and holds this lock: wait until it ends, "
                               "then run again (the lock frees itself when that run stops)") from None
+        try:
+            same = os.path.samestat(os.fstat(fd), os.stat(path))
+        except OSError:
+            same = False
+        if same:
+            break
+        os.close(fd)  # the file was removed by the run that just ended: lock the new one
+    else:  # pragma: no cover
+        raise OutputError(f"{path}: the lock file keeps changing: run again")
+    try:
         yield
     finally:
+        with contextlib.suppress(OSError):
+            os.unlink(path)
         os.close(fd)
 
 
