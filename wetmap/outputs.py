@@ -124,8 +124,8 @@ def check_out_dir(out_dir: str | Path, *, surveys: Iterable[str | Path] = ()) ->
         around ``out_dir``); their own ``results/`` is allowed.
     """
     if str(out_dir).strip() == "":
-        raise OutputError("'': the results folder path is empty: give a folder path (or none for the default, "
-                          "SURVEY_DIR/results)")
+        raise OutputError("'': the results folder path is empty: choose a folder path, or give none for the "
+                          "default SURVEY_DIR/results")
     out = _resolve(Path(out_dir), "results folder")
     protected: list[Path] = []
     for s in (*(_resolve(Path(s), "survey folder") for s in surveys), *_survey_folders_around(out)):
