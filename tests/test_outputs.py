@@ -367,3 +367,27 @@ def test_refusals_are_wetmap_errors_before_any_work(survey, monkeypatch):
     monkeypatch.setattr(pipeline, "process_survey", never)
     with pytest.raises(WetmapError, match="survey folder itself"):
         run_survey(survey, out=survey)
+
+
+def test_a_run_killed_while_processing_in_windows_leaves_nothing_after_the_next_run(survey):
+    """The window scratch folder lives in the run's staging folder: one leftover, removed next time."""
+    before = _snapshot(survey / "results")
+    script = textwrap.dedent("""
+        import os, sys
+        from wetmap import pipeline
+        from wetmap_cli.main import main
+        pipeline._write_files = lambda *args, **kwargs: os._exit(9)  # killed once detection is done
+        main(["run", sys.argv[1], "--quiet", "--no-map", "--no-report", "--tile-px", "64", "--scheduler", "sync"])
+    """)
+    proc = subprocess.run([sys.executable, "-c", script, str(survey)], capture_output=True, text=True,
+                          timeout=TIMEOUT_S)
+    assert proc.returncode == 9, proc.stderr
+    staged = [p for p in survey.iterdir() if p.name.startswith(".results.tmp-")]
+    assert len(staged) == 1 and list(staged[0].glob(".wetmap-windows-*"))  # what the kill left
+    assert _snapshot(survey / "results") == before
+    proc = subprocess.run([sys.executable, "-m", "wetmap_cli.main", "window", str(survey)], capture_output=True,
+                          text=True, timeout=TIMEOUT_S)  # any later command that writes the results cleans up
+    assert proc.returncode == 0, proc.stderr
+    after = _snapshot(survey / "results")
+    assert all(after[name] == before[name] for name in before if name != MANIFEST)
+    assert _leftovers(survey) == []
