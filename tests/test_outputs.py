@@ -169,7 +169,8 @@ def test_failed_write_leaves_the_earlier_set(tmp_path):
     assert _snapshot(out) == before and _leftovers(tmp_path) == []
 
 
-@pytest.mark.parametrize("umask, dir_mode, file_mode", [(0o022, 0o755, 0o644), (0o027, 0o750, 0o640)])
+@pytest.mark.parametrize("umask, dir_mode, file_mode", [(0o022, 0o755, 0o644), (0o027, 0o750, 0o640)],
+                         ids=["umask022", "umask027"])
 def test_modes_follow_the_umask(survey, umask, dir_mode, file_mode):
     """A plain mkdir/open gives 0777/0666 minus the umask (POSIX open(2), mkdir(2))."""
     old = os.umask(umask)
