@@ -3,16 +3,14 @@
 survey.toml -> plan -> imagery on the plan grid -> surface temperature -> background,
 delta, mask -> polygons -> confirmations -> quantities -> results/.
 
-Results are written to a temporary folder beside the destination and moved into place
-only when every file was written; a failed run leaves earlier results exactly as they were.
+Results are written to a staging folder beside the destination and swapped into place
+only when every file was written (:mod:`wetmap.outputs`); a failed run leaves earlier
+results exactly as they were.
 """
 
 from __future__ import annotations
 
 import logging
-import os
-import shutil
-import tempfile
 from collections.abc import Callable
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -30,6 +28,7 @@ from .confirmations import Confirmations
 from .detect import (EDGE_FLAG, UNIT_FLAG, Detection, anomaly_mask, background_warnings, default_background_m,
                      detect_anomalies, edge_flags, large_share)
 from .errors import InputFileError, ProcessingError, SurveyError
+from .outputs import replacing
 from .passes import PassComparison, align_to_grid, choose_primary, compare_passes, group_passes, pass_contrast_c
 from .polygons import RegionStats, label_regions, polygonize, region_stats
 from .quantities import BoardTakeoff, Quantities, SectionTotals, compute_quantities, largest_overlap
@@ -1211,74 +1210,76 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
     )
 
 
-def write_results(result: SurveyResult, out_dir: Path, *, extra_writers: tuple[Callable[[SurveyResult, Path], None], ...] = (),
-                  map_html: bool = True, report_html: bool = True) -> Path:
-    """Write every result file into ``out_dir`` atomically.
-
-    The files are written to a temporary folder beside ``out_dir``; only when all are
-    written is an existing ``out_dir`` replaced. On failure the temporary folder is
-    removed and ``out_dir`` is untouched. ``map_html`` / ``report_html`` false skip
-    ``map.html`` / ``report.html``.
-    """
+def _write_files(result: SurveyResult, folder: Path, *,
+                 extra_writers: tuple[Callable[[SurveyResult, Path], None], ...] = (),
+                 map_html: bool = True, report_html: bool = True) -> None:
+    """Write every result file into ``folder`` (a staging folder of :func:`wetmap.outputs.replacing`)."""
     from .export import cad, gis, report, tables, webmap
 
-    out_dir = Path(out_dir).resolve()
-    out_dir.parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.tmp-", dir=out_dir.parent))
-    try:
-        tables.write_summary(result, tmp / "summary.json")
-        tables.write_quantities(result, tmp / "quantities.csv")
-        gis.write_anomalies(result, tmp / "anomalies.gpkg", tmp / "anomalies.geojson")
-        gis.write_repair(result, tmp / "repair.gpkg")
-        cad.write_dxf(result, tmp / "repair.dxf")
-        if result.full_rasters is not None:  # processed in windows: the full rasters are on disk
-            result.full_rasters.place(tmp)
-        else:
-            gis.write_raster(result.surface_c, result.grid, tmp / "surface_c.tif")
-            gis.write_raster(result.detection.delta_c, result.grid, tmp / "delta_c.tif")
-        if result.passes is not None:
-            gis.write_raster(result.passes.cooling_c_per_h, result.grid, tmp / "cooling_c_per_h.tif")
-        if map_html:
-            webmap.write_map(result, tmp / "map.html")
-        if report_html:
-            report.write_report(result, tmp / "report.html")
-        for name in ("window.json", "window.png"):  # the cool-down plan of `wetmap window` is kept
-            if (out_dir / name).is_file() and not (tmp / name).exists():
-                shutil.copy2(out_dir / name, tmp / name)
-        for writer in extra_writers:
-            writer(result, tmp)
-        if out_dir.exists():
-            old = Path(tempfile.mkdtemp(prefix=f".{out_dir.name}.old-", dir=out_dir.parent))
-            os.replace(out_dir, old / out_dir.name)
-            try:
-                os.replace(tmp, out_dir)
-            except BaseException:
-                os.replace(old / out_dir.name, out_dir)  # put the earlier results back
-                raise
-            shutil.rmtree(old, ignore_errors=True)
-        else:
-            os.replace(tmp, out_dir)
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise
-    return out_dir
+    tables.write_summary(result, folder / "summary.json")
+    tables.write_quantities(result, folder / "quantities.csv")
+    gis.write_anomalies(result, folder / "anomalies.gpkg", folder / "anomalies.geojson")
+    gis.write_repair(result, folder / "repair.gpkg")
+    cad.write_dxf(result, folder / "repair.dxf")
+    if result.full_rasters is not None:  # processed in windows: the full rasters are on disk
+        result.full_rasters.place(folder)
+    else:
+        gis.write_raster(result.surface_c, result.grid, folder / "surface_c.tif")
+        gis.write_raster(result.detection.delta_c, result.grid, folder / "delta_c.tif")
+    if result.passes is not None:
+        gis.write_raster(result.passes.cooling_c_per_h, result.grid, folder / "cooling_c_per_h.tif")
+    if map_html:
+        webmap.write_map(result, folder / "map.html")
+    if report_html:
+        report.write_report(result, folder / "report.html")
+    for writer in extra_writers:
+        writer(result, folder)
+
+
+#: Files of an earlier results folder that a run carries over (the plan of `wetmap window`).
+KEPT_FILES = ("window.json", "window.png")
+
+
+def write_results(result: SurveyResult, out_dir: Path, *, extra_writers: tuple[Callable[[SurveyResult, Path], None], ...] = (),
+                  map_html: bool = True, report_html: bool = True) -> Path:
+    """Write every result file into ``out_dir`` atomically (:func:`wetmap.outputs.replacing`).
+
+    The files are written to a staging folder beside ``out_dir``; only when all are
+    written is an existing ``out_dir`` (wetmap's own) replaced, in one step where the
+    file system allows. On failure the staging folder is removed and ``out_dir`` is
+    untouched. ``map_html`` / ``report_html`` false skip ``map.html`` / ``report.html``.
+
+    Raises
+    ------
+    OutputError
+        ``out_dir`` is, holds or lies in the survey folder (other than its ``results/``),
+        is a file, holds files wetmap did not write, or another run holds its lock.
+    """
+    with replacing(out_dir, survey=result.survey.folder, keep=KEPT_FILES) as staging:
+        _write_files(result, staging, extra_writers=extra_writers, map_html=map_html, report_html=report_html)
+    return Path(out_dir).resolve()
 
 
 def run_survey(folder: str | Path, *, out: str | Path | None = None, progress: Progress | None = None,
                extra_writers: tuple[Callable[[SurveyResult, Path], None], ...] = (),
                map_html: bool = True, report_html: bool = True, scheduler: Any = None,
-               tile_px: int | None = None, window_progress: WindowProgress | None = None) -> SurveyResult:
+               tile_px: int | None = None, window_progress: WindowProgress | None = None,
+               surveys: tuple[str | Path, ...] = ()) -> SurveyResult:
     """Process the survey in ``folder`` and write its results (default ``folder/results``).
 
+    The results folder is checked and locked before any work (:func:`wetmap.outputs.replacing`);
+    ``surveys`` names further survey folders it must not be, hold or lie in.
     ``map_html`` / ``report_html`` false skip ``map.html`` / ``report.html``; ``scheduler``,
     ``tile_px`` and ``window_progress`` as in :func:`process_survey`.
     """
-    scratch = Path(out).resolve().parent if out is not None else None  # beside the results: moved, not copied
-    result = process_survey(folder, progress=progress, scheduler=scheduler, tile_px=tile_px,
-                            window_progress=window_progress, scratch=scratch)
-    out_dir = Path(out) if out is not None else result.survey.folder / "results"
-    _emit(progress, f"writing results to {out_dir}")
-    write_results(result, out_dir, extra_writers=extra_writers, map_html=map_html, report_html=report_html)
+    survey = load_survey(folder)  # a missing survey fails here, before any folder is made
+    out_dir = out if out is not None else survey.folder / "results"
+    with replacing(out_dir, survey=survey.folder, surveys=surveys, keep=KEPT_FILES) as staging:
+        # the window scratch folder lives in the staging folder: the full rasters are linked, not copied
+        result = process_survey(survey.folder, progress=progress, scheduler=scheduler, tile_px=tile_px,
+                                window_progress=window_progress, scratch=staging)
+        _emit(progress, f"writing results to {out_dir}")
+        _write_files(result, staging, extra_writers=extra_writers, map_html=map_html, report_html=report_html)
     return result
 
 

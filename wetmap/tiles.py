@@ -1715,6 +1715,31 @@ def _run_one(folder: Path, out: Path | None, options: dict[str, Any], scheduler:
                         warnings=len(s["warnings"]))
 
 
+def _batch_out_folders(folders: list[Path], out_root: Path) -> list[Path | None]:
+    """``out_root/<name>`` for each survey, distinct for same-named surveys; refused (every
+    problem at once, before any work) when one would be, hold or lie in any survey of the
+    batch, or when a survey is given twice."""
+    from .errors import OutputError
+    from .outputs import check_out_dir, results_name_for
+
+    problems: list[str] = []
+    seen: dict[Path, Path] = {}
+    for f in folders:
+        key = f.resolve()
+        if key in seen:
+            problems.append(f"{f}: given twice in the batch (also as {seen[key]}); give each survey once")
+        seen.setdefault(key, f)
+    outs = [out_root / name for name in results_name_for([f.resolve() for f in folders])]
+    for out in outs:
+        try:
+            check_out_dir(out, surveys=folders)
+        except OutputError as err:
+            problems.extend(err.problems)
+    if problems:
+        raise OutputError(problems)
+    return list(outs)
+
+
 def run_batch(folders: Iterable[str | Path], *, scheduler: Any = None, out_root: str | Path | None = None,
               progress: Progress | None = None, window_progress: WindowProgress | None = None,
               survey_done: Callable[[BatchOutcome, int, int], None] | None = None,
@@ -1733,7 +1758,9 @@ def run_batch(folders: Iterable[str | Path], *, scheduler: Any = None, out_root:
         See :class:`Engine`.
     out_root
         Write each survey's results to ``out_root/<folder name>`` instead of
-        ``<folder>/results``.
+        ``<folder>/results``; same-named surveys get as many trailing path parts as tell
+        them apart (``x/roof``, ``y/roof`` -> ``x_roof``, ``y_roof``). Refused before any
+        work when a results folder would be, hold or lie in a survey of the batch.
     progress, window_progress
         Passed to each survey (local schedulers only).
     survey_done
@@ -1745,17 +1772,18 @@ def run_batch(folders: Iterable[str | Path], *, scheduler: Any = None, out_root:
         In the order of ``folders``.
     """
     folders = [Path(f) for f in folders]
-    options = dict(map_html=map_html, report_html=report_html)
-
-    def out_of(folder: Path) -> Path | None:
-        return None if out_root is None else Path(out_root) / folder.resolve().name
+    options: dict[str, Any] = dict(map_html=map_html, report_html=report_html)
+    outs: list[Path | None] = [None] * len(folders)
+    if out_root is not None:
+        outs = _batch_out_folders(folders, Path(out_root))
+        options["surveys"] = tuple(str(f) for f in folders)
 
     outcomes: list[BatchOutcome | None] = [None] * len(folders)
     with (scheduler if isinstance(scheduler, Engine) else Engine(scheduler)) as engine:
         if engine.kind == "distributed":
             from distributed import as_completed
 
-            futures = {engine.client.submit(_run_one, f, out_of(f), options, None, None, None, pure=False): i
+            futures = {engine.client.submit(_run_one, f, outs[i], options, None, None, None, pure=False): i
                        for i, f in enumerate(folders)}
             done = 0
             for fut in as_completed(list(futures)):
@@ -1772,7 +1800,7 @@ def run_batch(folders: Iterable[str | Path], *, scheduler: Any = None, out_root:
             for i, f in enumerate(folders):
                 if progress is not None:
                     progress(f"survey {i + 1} of {len(folders)}: {f}")
-                outcomes[i] = _run_one(f, out_of(f), options, engine, progress, window_progress)
+                outcomes[i] = _run_one(f, outs[i], options, engine, progress, window_progress)
                 if survey_done is not None:
                     survey_done(outcomes[i], i + 1, len(folders))
     return tuple(o for o in outcomes if o is not None)
