@@ -67,23 +67,36 @@ _SCHEDULER_HELP = ("Where windows of a large mosaic run: threads (default), proc
 _TILE_HELP = "Window side in pixels for processing in windows (0: the whole array at once); overrides [detect] tile_px."
 
 
-@click.group(help=f"Map wet roof insulation and wet hull core from thermal imagery.\n\n{CAUTIONS}",
+class _Commands(click.Group):
+    """The command group; Ctrl-C ends a command with one line and exit status 130 (128 + SIGINT)."""
+
+    def invoke(self, ctx: click.Context):
+        try:
+            return super().invoke(ctx)
+        except KeyboardInterrupt:
+            click.echo("\nwetmap: interrupted (Ctrl-C); earlier results are kept as they were", err=True)
+            raise click.exceptions.Exit(130) from None
+
+
+@click.group(cls=_Commands, help=f"Map wet roof insulation and wet hull core from thermal imagery.\n\n{CAUTIONS}",
              context_settings={"help_option_names": ["-h", "--help"]})
 @click.version_option(__version__, prog_name="wetmap")
 def main() -> None:
     logging.basicConfig(level=logging.ERROR, format="wetmap: %(message)s")
+    logging.captureWarnings(True)  # library warnings (plot layout, glyphs, ...) go to logging, not raw to stderr
 
 
 @main.command(help=f"Process SURVEY_DIR and write its results (default SURVEY_DIR/results).\n\n{CAUTIONS}")
 @click.argument("survey_dir", type=click.Path(path_type=Path))
-@click.option("--out", "out", type=click.Path(path_type=Path), default=None,
-              help="Write the results here instead of SURVEY_DIR/results.")
+@click.option("--out", "out", type=click.Path(), default=None,
+              help="Write the results here instead of SURVEY_DIR/results: a new or empty folder, or one wetmap "
+                   "wrote (never the survey folder or a folder holding other files).")
 @click.option("--quiet", "-q", is_flag=True, help="Print only the summary line and errors.")
 @click.option("--no-map", "no_map", is_flag=True, help="Do not write map.html (the interactive map).")
 @click.option("--no-report", "no_report", is_flag=True, help="Do not write report.html (the printable report).")
 @click.option("--scheduler", default=None, metavar="ADDRESS", help=_SCHEDULER_HELP)
 @click.option("--tile-px", "tile_px", type=click.IntRange(min=0), default=None, help=_TILE_HELP)
-def run(survey_dir: Path, out: Path | None, quiet: bool, no_map: bool, no_report: bool, scheduler: str | None,
+def run(survey_dir: Path, out: str | None, quiet: bool, no_map: bool, no_report: bool, scheduler: str | None,
         tile_px: int | None) -> None:
     from wetmap.pipeline import run_survey
 
@@ -111,7 +124,7 @@ def run(survey_dir: Path, out: Path | None, quiet: bool, no_map: bool, no_report
         f"{s['unverified_area_m2']:.2f} m2 unverified, {s['confirmed_dry_area_m2']:.2f} m2 refuted (dry); "
         f"{where}, wet fraction {100 * s['wet_fraction']:.1f} %; {repair}"
     )
-    click.echo(f"results: {(out or result.survey.folder / 'results')}")
+    click.echo(f"results: {Path(out).resolve() if out is not None else result.survey.folder / 'results'}")
     if hull:
         click.echo("Apparent thermal anomalies only: verify by sounding and cores before any repair decision.")
     else:
@@ -124,14 +137,15 @@ the others; a table of outcomes is printed and the exit status is non-zero when 
 
 {CAUTIONS}""")
 @click.argument("survey_dirs", nargs=-1, required=True, type=click.Path(path_type=Path))
-@click.option("--out-root", "out_root", type=click.Path(path_type=Path), default=None,
-              help="Write each survey's results to OUT_ROOT/<folder name> instead of <folder>/results.")
+@click.option("--out-root", "out_root", type=click.Path(), default=None,
+              help="Write each survey's results to OUT_ROOT/<folder name> instead of <folder>/results "
+                   "(same-named surveys: OUT_ROOT/<parent>_<folder name>).")
 @click.option("--quiet", "-q", is_flag=True, help="Print only the table of outcomes and errors.")
 @click.option("--no-map", "no_map", is_flag=True, help="Do not write map.html.")
 @click.option("--no-report", "no_report", is_flag=True, help="Do not write report.html.")
 @click.option("--scheduler", default=None, metavar="ADDRESS",
               help=_SCHEDULER_HELP + " On a cluster every survey is a task, so many run at once.")
-def batch(survey_dirs: tuple[Path, ...], out_root: Path | None, quiet: bool, no_map: bool, no_report: bool,
+def batch(survey_dirs: tuple[Path, ...], out_root: str | None, quiet: bool, no_map: bool, no_report: bool,
           scheduler: str | None) -> None:
     from wetmap.tiles import run_batch
 
@@ -196,9 +210,10 @@ and window.png into SURVEY_DIR/results (other results there are kept).
 A model estimate for planning, not a measurement.
 {CAUTIONS}""")
 @click.argument("survey_dir", type=click.Path(path_type=Path))
-@click.option("--out", "out", type=click.Path(path_type=Path), default=None,
-              help="Write window.json and window.png here instead of SURVEY_DIR/results.")
-def window(survey_dir: Path, out: Path | None) -> None:
+@click.option("--out", "out", type=click.Path(), default=None,
+              help="Write window.json and window.png here instead of SURVEY_DIR/results (other files of "
+                   "wetmap's there are kept).")
+def window(survey_dir: Path, out: str | None) -> None:
     from wetmap.cooldown import run_window
 
     try:
@@ -224,14 +239,18 @@ wet areas) and change.json (wet-area growth) into OUT (default NEW_DIR/results).
 OLD_DIR and NEW_DIR are survey folders that have been run, or their results folders.""")
 @click.argument("old_dir", type=click.Path(path_type=Path))
 @click.argument("new_dir", type=click.Path(path_type=Path))
-@click.option("--out", "out", type=click.Path(path_type=Path), default=None, help="Folder for change.gpkg and change.json.")
+@click.option("--out", "out", type=click.Path(), default=None,
+              help="Folder for change.gpkg and change.json (new, empty, or a results folder wetmap wrote).")
 @click.option("--confirmed-only", is_flag=True, help="Compare only anomalies confirmed wet (leave out unverified).")
-def compare(old_dir: Path, new_dir: Path, out: Path | None, confirmed_only: bool) -> None:
+def compare(old_dir: Path, new_dir: Path, out: str | None, confirmed_only: bool) -> None:
     from wetmap.compare import compare_results, write_change
+    from wetmap.outputs import check_out_dir
 
     try:
+        if out is not None:
+            check_out_dir(out)  # refused before the comparison is made
+        target = out if out is not None else (new_dir / "results" if (new_dir / "results").is_dir() else new_dir)
         comparison = compare_results(old_dir, new_dir, counted=("wet",) if confirmed_only else ("wet", "unverified"))
-        target = out or (new_dir / "results" if (new_dir / "results").is_dir() else new_dir)
         gpkg, _ = write_change(comparison, target)
     except WetmapError as err:
         _fail(err)

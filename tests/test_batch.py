@@ -13,6 +13,7 @@ import pytest
 from click.testing import CliRunner
 
 from wetmap.demo import write_roof_survey
+from wetmap.errors import WetmapError
 from wetmap.tiles import BatchOutcome, run_batch
 from wetmap_cli.main import main
 
@@ -130,3 +131,37 @@ def test_truncated_mosaic_in_windows_is_a_clean_error(portfolio, tmp_path):
     assert errors and ("cannot be read" in errors[0] or "cannot be opened" in errors[0])  # GDAL builds fail at open or at read
     assert not (tmp_path / "x").exists()
     assert not list(tmp_path.glob(".wetmap-windows-*"))  # the scratch folder is removed
+
+
+def test_same_named_surveys_get_distinct_results_folders(tmp_path):
+    x, y = tmp_path / "site_x" / "roof", tmp_path / "site_y" / "roof"
+    write_roof_survey(x)
+    write_roof_survey(y, title="Invented second roof")
+    out = tmp_path / "out"
+    res = CliRunner().invoke(main, ["batch", str(x), str(y), "--out-root", str(out), "--quiet", "--no-map",
+                                    "--no-report"])
+    assert res.exit_code == 0, res.output
+    assert sorted(p.name for p in out.iterdir()) == ["site_x_roof", "site_y_roof"]
+    titles = {json.loads((out / n / "summary.json").read_text())["title"] for n in ("site_x_roof", "site_y_roof")}
+    assert titles == {"Invented warehouse roof", "Invented second roof"}  # neither lost
+
+
+def test_out_root_that_would_replace_surveys_is_refused_before_any_work(portfolio, tmp_path):
+    root, good, _ = portfolio
+    before = {p: p.read_bytes() for f in good for p in sorted(f.rglob("*")) if p.is_file()}
+    for out_root in (root, good[0]):  # the surveys' parent (results would be the surveys), inside a survey
+        res = CliRunner().invoke(main, ["batch", *map(str, good), "--out-root", str(out_root), "--quiet"])
+        assert res.exit_code == 1, res.output
+        assert "Traceback" not in res.output
+        errors = res.stderr.strip().splitlines()
+        assert errors and all(line.startswith("wetmap: error:") for line in errors)
+        assert any("survey folder" in line for line in errors)
+        assert "surveys done" not in res.stdout  # refused as a whole, nothing run
+    assert {p: p.read_bytes() for f in good for p in sorted(f.rglob("*")) if p.is_file()} == before
+
+
+def test_a_survey_given_twice_is_refused(portfolio, tmp_path):
+    _, good, _ = portfolio
+    with pytest.raises(WetmapError, match="given twice"):
+        run_batch([good[0], good[0]], out_root=tmp_path / "out")
+    assert not (tmp_path / "out").exists()

@@ -2,9 +2,11 @@
 
 from __future__ import annotations
 
+import shutil
 import subprocess
 import sys
 
+import pytest
 from click.testing import CliRunner
 
 from wetmap.demo import write_roof_survey
@@ -63,3 +65,96 @@ def test_console_script_entry_point(tmp_path):
     proc = subprocess.run([sys.executable, "-m", "wetmap_cli.main", "--version"], capture_output=True, text=True)
     assert proc.returncode == 0
     assert "wetmap" in proc.stdout
+
+
+# --out never destroys a user's files: every refusal is one line, exit 1, nothing touched
+
+
+@pytest.fixture(scope="module")
+def ran_roof(tmp_path_factory):
+    """The invented roof, run once (results/ without map and report); tests copy it."""
+    folder = tmp_path_factory.mktemp("cli_ran") / "roof"
+    write_roof_survey(folder)
+    assert CliRunner().invoke(main, ["run", str(folder), "-q", "--no-map", "--no-report"]).exit_code == 0
+    return folder
+
+
+def _tree(folder):
+    return {p.relative_to(folder).as_posix(): p.read_bytes() for p in sorted(folder.rglob("*")) if p.is_file()}
+
+
+def _refused(args, *, cwd=None, monkeypatch=None):
+    if cwd is not None:
+        monkeypatch.chdir(cwd)
+    res = CliRunner().invoke(main, args)
+    assert res.exit_code == 1, res.output
+    assert "Traceback" not in res.output
+    lines = res.stderr.strip().splitlines()
+    assert len(lines) == 1 and lines[0].startswith("wetmap: error:"), res.stderr
+    return lines[0]
+
+
+@pytest.mark.parametrize("where", ["survey", "dot", "empty", "parent", "user_file", "user_folder", "inside"])
+def test_run_out_that_would_destroy_files_is_refused(ran_roof, tmp_path, monkeypatch, where):
+    survey = tmp_path / "work" / "roof"
+    shutil.copytree(ran_roof, survey)
+    user_file = tmp_path / "work" / "some.txt"
+    user_file.write_text("a user's file")
+    user_folder = tmp_path / "work" / "deliverables"
+    user_folder.mkdir()
+    (user_folder / "notes.txt").write_text("a user's notes")
+    before = _tree(tmp_path / "work")
+    args, cwd = {
+        "survey": (["run", str(survey), "--out", str(survey)], None),
+        "dot": (["run", ".", "--out", "."], survey),
+        "empty": (["run", str(survey), "--out", ""], survey),
+        "parent": (["run", str(survey), "--out", str(survey.parent)], None),
+        "user_file": (["run", str(survey), "--out", str(user_file)], None),
+        "user_folder": (["run", str(survey), "--out", str(user_folder)], None),
+        "inside": (["run", str(survey), "--out", str(survey / "thermal")], None),
+    }[where]
+    line = _refused([*args, "-q", "--no-map", "--no-report"], cwd=cwd, monkeypatch=monkeypatch)
+    assert "choose" in line  # the fix
+    assert _tree(tmp_path / "work") == before  # survey, user file and notes untouched
+    assert sorted(p.name for p in (tmp_path / "work").iterdir()) == ["deliverables", "roof", "some.txt"]
+
+
+def test_run_replaces_its_own_results_and_an_earlier_results_folder(ran_roof, tmp_path):
+    survey = tmp_path / "roof"
+    shutil.copytree(ran_roof, survey)
+    (survey / "results" / "quantities.csv").write_text("stale")
+    res = CliRunner().invoke(main, ["run", str(survey), "-q", "--no-map", "--no-report"])
+    assert res.exit_code == 0, res.output
+    assert (survey / "results" / "quantities.csv").read_text() != "stale"  # replaced
+    elsewhere = tmp_path / "deliverables" / "roof_results"
+    for _ in range(2):  # the second run replaces the folder the first one wrote
+        res = CliRunner().invoke(main, ["run", str(survey), "--out", str(elsewhere), "-q", "--no-map", "--no-report"])
+        assert res.exit_code == 0, res.output
+        assert (elsewhere / "wetmap-manifest.json").is_file()
+    assert sorted(p.name for p in elsewhere.parent.iterdir()) == ["roof_results"]  # no lock or staging left
+
+
+def test_window_and_compare_refuse_a_user_folder(ran_roof, tmp_path):
+    user_folder = tmp_path / "deliverables"
+    user_folder.mkdir()
+    (user_folder / "notes.txt").write_text("a user's notes")
+    for args in (["window", str(ran_roof), "--out", str(user_folder)],
+                 ["compare", str(ran_roof), str(ran_roof), "--out", str(user_folder)],
+                 ["compare", str(ran_roof), str(ran_roof), "--out", str(ran_roof)]):
+        line = _refused(args)
+        assert "choose" in line
+    assert sorted(p.name for p in user_folder.iterdir()) == ["notes.txt"]
+
+
+def test_ctrl_c_is_exit_130_and_one_line(tmp_path, monkeypatch):
+    """128 + SIGINT (2): the shell's convention for a program stopped by Ctrl-C."""
+    from wetmap import pipeline
+
+    def interrupted(*args, **kwargs):
+        raise KeyboardInterrupt
+
+    monkeypatch.setattr(pipeline, "run_survey", interrupted)
+    res = CliRunner().invoke(main, ["run", str(tmp_path)])
+    assert res.exit_code == 130
+    lines = res.stderr.strip().splitlines()
+    assert len(lines) == 1 and "interrupted" in lines[0] and "Aborted" not in res.output

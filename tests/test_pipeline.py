@@ -232,18 +232,21 @@ def test_no_contrast_gives_empty_result(tmp_path):
     assert any("constant" in w for w in result.warnings)
 
 
-def test_all_nodata_gives_empty_result_with_warning(tmp_path):
+def test_all_nodata_is_refused_and_earlier_results_kept(tmp_path):
     folder = tmp_path / "s"
     write_roof_survey(folder)
+    run_survey(folder)
+    before = {p.name: p.read_bytes() for p in (folder / "results").iterdir() if p.is_file()}
     path = folder / "thermal" / "roof_pass1.tif"
     with rasterio.open(path, "r+") as dst:
         data = dst.read(1)
         data[:] = dst.nodata
         dst.write(data, 1)
-    result = process_survey(folder)
-    assert result.anomalies == ()
-    assert result.coverage["uncovered_pct"] == pytest.approx(100.0)
-    assert any("no usable thermal data" in w for w in result.warnings)
+    with pytest.raises(WetmapError) as err:
+        run_survey(folder)
+    assert "no data inside the outline" in str(err.value) and "roof_pass1.tif" in str(err.value)
+    after = {p.name: p.read_bytes() for p in (folder / "results").iterdir() if p.is_file()}
+    assert after == before
 
 
 def test_partial_coverage_is_reported_not_called_dry(tmp_path):

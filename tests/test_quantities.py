@@ -530,3 +530,86 @@ def test_overlap_areas_empty_inputs():
     cells = shapely.box([0.0], [0.0], [1.0], [1.0])
     assert overlap_areas(cells, shapely.Polygon()).tolist() == [0.0]
     assert overlap_areas(np.asarray([], dtype=object), box(0, 0, 1, 1)).shape == (0,)
+
+
+# ------------------------------------------------------- board grid origin unknown
+
+
+def _count_by_hand(repair, w: float, h: float, ox: float, oy: float) -> int:
+    """Boards of the axis-aligned grid with corner (ox, oy) that ``repair`` overlaps by more
+    than a touch: every cell tested one by one with shapely (slow, obviously right)."""
+    x0, y0, x1, y1 = repair.bounds
+    n = 0
+    for i in range(math.floor((x0 - ox) / w) - 1, math.ceil((x1 - ox) / w) + 1):
+        for j in range(math.floor((y0 - oy) / h) - 1, math.ceil((y1 - oy) / h) + 1):
+            cell = box(ox + i * w, oy + j * h, ox + (i + 1) * w, oy + (j + 1) * h)
+            n += cell.intersection(repair).area > 1e-6
+    return n
+
+
+def test_board_count_over_origins_is_the_median_with_its_range():
+    # A 3.0 x 3.0 m repair on 1.2 x 2.4 m boards: the count depends on where the joints
+    # lie. Without a given joint the grid is tried at 7 x 7 offsets across one board; the
+    # reported count is the median (common practice: state the range, price the typical
+    # case), the range the fewest and most. Each count is checked against a cell-by-cell
+    # count done here.
+    from wetmap.quantities import ORIGIN_STEPS, board_takeoff_over_origins
+
+    roof = box(0.0, 0.0, 40.0, 30.0)
+    repair = box(10.3, 7.1, 13.3, 10.1)
+    t = board_takeoff_over_origins(repair, board_m=(1.2, 2.4), roof=roof)
+    counts = [_count_by_hand(repair, 1.2, 2.4, i * 1.2 / ORIGIN_STEPS, j * 2.4 / ORIGIN_STEPS)
+              for i in range(ORIGIN_STEPS) for j in range(ORIGIN_STEPS)]
+    assert t.origins_tried == ORIGIN_STEPS**2 == 49
+    assert t.count_range == (min(counts), max(counts))
+    assert min(counts) < max(counts)  # the joints matter here: 3 x 2 = 6 up to 4 x 3 = 12
+    assert (min(counts), max(counts)) == (6, 12)  # ceil(3 / 1.2) x ceil(3 / 2.4) .. +1 each, by hand
+    assert t.count == sorted(counts)[len(counts) // 2]
+    # the reported boards are those of one grid: the origin's own count, consistent geometry
+    again = board_takeoff(repair, board_m=(1.2, 2.4), roof=roof, angle_deg=0.0, origin_xy=t.origin_xy)
+    assert again.count == t.count and len(t.boards) == t.count
+    assert t.board_area_m2 == pytest.approx(t.count * 1.2 * 2.4)
+    assert "median" in t.origin_rule and "49 grid origins" in t.origin_rule
+    assert t.range_note is not None and f"from {min(counts)} to {max(counts)}" in t.range_note
+
+
+def test_board_origin_given_is_exact():
+    # With [repair] board_origin (a board corner found on site) the count is exact: no
+    # range, no sweep.
+    roof = box(0.0, 0.0, 40.0, 30.0)
+    repair = box(10.3, 7.1, 13.3, 10.1)
+    q = compute_quantities([repair], ["wet"], outline=roof,
+                           settings=Repair(margin_m=0.0, board_m=(1.2, 2.4), board_origin=(10.3, 7.1)))
+    assert q.takeoff.count == _count_by_hand(repair, 1.2, 2.4, 10.3, 7.1) == 6  # 3 x 2 from the joint
+    assert q.takeoff.count_range is None and q.takeoff.range_note is None
+    assert "board_origin" in q.takeoff.origin_rule
+    # without it, the sweep's median and range
+    q = compute_quantities([repair], ["wet"], outline=roof, settings=Repair(margin_m=0.0, board_m=(1.2, 2.4)))
+    assert q.takeoff.count_range == (6, 12)
+
+
+def test_board_range_in_outputs(tmp_path):
+    # summary.json, quantities.csv and the report carry the range when no origin is given
+    import csv
+    import json
+
+    from wetmap.demo import RoofScene, write_roof_survey
+    from wetmap.pipeline import run_survey
+
+    folder = tmp_path / "s"
+    write_roof_survey(folder, RoofScene(crs="local", origin_xy=(0.0, 0.0)))
+    result = run_survey(folder)
+    out = folder / "results"
+    s = json.loads((out / "summary.json").read_text(encoding="utf-8"))
+    low, high = s["boards_range"]
+    assert low <= s["boards"] <= high
+    assert "median" in s["method"]["board_origin_rule"]
+    ends = list(csv.DictReader((out / "board_range.csv").open(encoding="utf-8")))
+    assert [r["end"] for r in ends] == ["fewest", "most"]
+    assert [int(r["boards"]) for r in ends] == [low, high]
+    assert "board_range" not in s and result.takeoff.count == s["boards"]
+    html = (out / "report.html").read_text(encoding="utf-8")
+    assert f"fewest to most with where the joints lie</th><td class='num'>{low} to {high}</td>" in html
+    assert "Board grid origin" in html
+    if low < high:
+        assert any("whole boards:" in w and "board_origin" in w for w in s["warnings"])

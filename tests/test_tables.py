@@ -60,9 +60,11 @@ def plain(tmp_path_factory):
 
 @pytest.fixture(scope="module")
 def priced(tmp_path_factory):
-    """A copy of the sample with [prices] and every area unit, run."""
+    """A copy of the sample with [prices] and every area unit, run; the board grid starts at
+    the outline's corner (a given joint: the count is exact, as checked by hand below)."""
     folder = copy_sample(tmp_path_factory.mktemp("priced") / "survey",
-                         repair_extra='area_units = ["m2", "ft2", "squares"]\n', extra=PRICES)
+                         repair_extra='area_units = ["m2", "ft2", "squares"]\n'
+                                      'board_origin = [512300.0, 5463100.0]\n', extra=PRICES)
     return run_survey(folder, out=folder / "results"), folder / "results"
 
 
@@ -91,9 +93,14 @@ def test_summary_has_the_quantities(plain):
     assert [line["item"] for line in s["bill"]["lines"]] == ["tear-off", "replace", "boards", "cut edge"]
     assert s["method"]["replace_above_pct"] == 25.0
     assert s["method"]["area_units"] == ["m2"]
-    # the sample's roof is axis-aligned: the grid runs along x from the outline's corner
+    # the sample's roof is axis-aligned: the grid runs along x; with no board_origin given its
+    # corner is one of the 7 x 7 offsets across one board from the outline's corner (the one
+    # with the median count, wetmap.quantities.board_takeoff_over_origins)
     assert s["method"]["board_angle_deg"] == 0.0
-    assert s["method"]["board_origin"] == list(result.outline.bounds[:2])
+    w, h = result.survey.repair.board_m
+    steps = [(v - c) / (size / 7) for v, c, size in zip(s["method"]["board_origin"], result.outline.bounds[:2], (w, h))]
+    assert all(abs(k - round(k)) < 1e-3 and 0 <= round(k) < 7 for k in steps)
+    assert s["boards_range"][0] <= s["boards"] <= s["boards_range"][1]
 
 
 def test_sections_add_up_to_the_survey_totals(plain):
@@ -233,7 +240,7 @@ def test_local_geojson_and_gpkg_are_equal(tmp_path):
     assert shapely.equals(gj.geometry.values, gp.geometry.values).all()
     assert shapely.equals(gp.geometry.values, [a.geometry for a in result.anomalies]).all()
     # same quantities whatever the CRS label
-    assert result.summary()["boards"] == 64
+    assert result.summary()["boards"] == 67  # median over the board-grid origins (64 from the outline corner)
     s = json.loads((tmp_path / "results" / "summary.json").read_text(encoding="utf-8"))
     assert s["outside_sections"]["name"] == OUTSIDE_SECTIONS
 

@@ -204,6 +204,29 @@ def test_windows_equal_whole_array(scene, tile_px, tmp_path):
     _assert_same(whole, tiled)
 
 
+@pytest.mark.parametrize("name,detect", [
+    ("corner", "delta_c = 1.0"),                               # trend per section, a quadric in A
+    ("corner", 'delta_c = "cores"'),                           # the threshold from the cores
+    ("step", 'delta_c = 1.0\nbackground = "local"'),           # the local method per section, diagonal step
+    ("unit", "delta_c = 1.0\nexclusion_buffer_m = 0.5\nedge_buffer_m = 0.3"),  # bands left out
+    ("emissivity", "delta_c = 1.0"),                           # a section with its own emissivity
+])
+def test_windows_equal_whole_array_with_sections_and_trend(name, detect, tmp_path):
+    """The section-aware background (trend or local), the threshold from cores and the buffers
+    give the same result in windows of 64 px as on the whole array (scenes from tests/scene_render.py)."""
+    import scene_render as sr
+
+    make = {"corner": sr.corner_scene, "step": lambda **kw: sr.step_scene("diagonal", **kw),
+            "unit": sr.unit_scene, "emissivity": sr.emissivity_scene}[name]
+    folder = make(detect=detect).write(tmp_path / name)
+    whole = process_survey(folder, tile_px=0)
+    tiled = process_survey(folder, tile_px=64, scratch=tmp_path)
+    assert tiled.full_rasters.windows > 4  # 64 px rounded to a multiple of the block
+    _assert_same(whole, tiled)
+    assert whole.summary()["background"] == tiled.summary()["background"]
+    assert whole.detection.threshold_c == tiled.detection.threshold_c
+
+
 def test_rasters_equal_bit_for_bit(scene, tmp_path):
     folder, _ = scene
     run_survey(folder, out=tmp_path / "whole", tile_px=0, map_html=False, report_html=False)

@@ -13,8 +13,6 @@ areas counted as wet (``wet`` and ``unverified`` by default) are compared:
 from __future__ import annotations
 
 import json
-import os
-import tempfile
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Literal
@@ -163,29 +161,26 @@ def compare_results(old: Path, new: Path, *, counted: tuple[str, ...] = COUNTED_
 def write_change(comparison: Comparison, out_dir: Path) -> tuple[Path, Path]:
     """Write ``change.gpkg`` (layer ``change``: kind, area_m2) and ``change.json`` into ``out_dir``.
 
-    Each file is written beside its destination and moved into place when complete.
+    Written through :func:`wetmap.outputs.write_folder`: the other files of ``out_dir`` are
+    carried over and the folder is swapped in one step; ``out_dir`` must be missing, empty
+    or wetmap's own results folder, and not a survey folder.
     """
     import geopandas as gpd
 
-    out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
+    from .outputs import write_folder
+
     frame = gpd.GeoDataFrame(
         {"kind": [c.kind for c in comparison.changes], "area_m2": [round(c.area_m2, 4) for c in comparison.changes]},
         geometry=[c.geometry for c in comparison.changes], crs=comparison.crs,
     )
-    gpkg, summary = out_dir / "change.gpkg", out_dir / "change.json"
-    tmp_dir = Path(tempfile.mkdtemp(prefix=".change.tmp-", dir=out_dir))
-    try:
+
+    def write(folder: Path) -> None:
         import warnings
 
         with warnings.catch_warnings():
             warnings.filterwarnings("ignore", message="'crs' was not provided")
-            frame.to_file(tmp_dir / gpkg.name, layer="change", driver="GPKG", engine="pyogrio")
-        (tmp_dir / summary.name).write_text(json.dumps(comparison.summary(), indent=2) + "\n", encoding="utf-8")
-        os.replace(tmp_dir / gpkg.name, gpkg)
-        os.replace(tmp_dir / summary.name, summary)
-    finally:
-        for p in tmp_dir.iterdir():
-            p.unlink()
-        tmp_dir.rmdir()
-    return gpkg, summary
+            frame.to_file(folder / "change.gpkg", layer="change", driver="GPKG", engine="pyogrio")
+        (folder / "change.json").write_text(json.dumps(comparison.summary(), indent=2) + "\n", encoding="utf-8")
+
+    out = write_folder(out_dir, write, keep=None)
+    return out / "change.gpkg", out / "change.json"

@@ -10,13 +10,14 @@ with ``T`` in °C.
 
 Relative humidity convention
 ----------------------------
-Below 0 °C a relative humidity can be stated with respect to saturation over water
-(the WMO convention, used by most weather services) or over ice (the ASHRAE
-Handbook convention, followed by ``psychrolib``). The functions here take
-``rh_over="auto"`` by default: over water at or above 0 °C and over ice below it,
-as ASHRAE does. Pass ``rh_over="water"`` when the humidity comes from a weather
-report or a hygrometer that states it over water at all temperatures. Above
-0 °C the two are identical.
+A relative humidity is taken over liquid water at every temperature, the WMO
+convention (WMO-No. 8, Guide to Instruments and Methods of Observation) that weather
+services and hygrometers use: the vapour pressure is ``RH * e_s,water(T_air)`` also
+below 0 °C. That vapour pressure gives the dew point (Magnus over water) and the frost
+point (Magnus over ice). ``rh_over="auto"`` keeps the ASHRAE Handbook convention (over
+ice below 0 °C, as ``psychrolib`` takes it) for humidity stated that way. Above 0 °C the
+two are identical; below it, reading a WMO humidity as over ice puts the frost point
+0.6 K (at -5 °C) to 1.1 K (at -10 °C) too low.
 
 Survey-condition checks
 -----------------------
@@ -27,11 +28,12 @@ what was seen, the limit and why it matters.
 
 Sky temperature
 ---------------
-The sky models (Swinbank 1963; Berdahl & Martin 1984; Clark & Allen 1978) are
-*broadband* (whole long-wave spectrum). In the 8-14 um window of a thermal camera a
-clear sky is much colder than these values (often tens of degrees below zero),
-so they over-estimate the reflected temperature a roof sees. A measured reflected
-apparent temperature (ASTM E1862) is always preferred.
+The broadband sky models (Swinbank 1963; Berdahl & Martin 1984; Clark & Allen 1978)
+cover the whole long-wave spectrum; they drive the heat balance of
+:mod:`wetmap.cooldown`. A thermal camera sees the sky through the 8-14 um window,
+where a clear sky is far colder, so an unmeasured reflected temperature comes from
+the window sky (:func:`estimate_reflected_c`, Idso 1981 window emissivity). A measured
+reflected apparent temperature (ASTM E1862) is always preferred.
 """
 
 from __future__ import annotations
@@ -63,6 +65,9 @@ __all__ = [
     "sky_emissivity_berdahl_martin",
     "sky_emissivity_clark_allen",
     "clark_allen_cloud_factor",
+    "WINDOW_BAND_UM",
+    "IDSO_WINDOW",
+    "sky_window_emissivity_idso",
     "ReflectedEstimate",
     "estimate_reflected_c",
     "EmissivityRange",
@@ -135,7 +140,7 @@ def saturation_vapour_pressure_hpa(
     return float(e) if e.ndim == 0 else e
 
 
-def vapour_pressure_hpa(air_c: float, humidity_pct: float, *, rh_over: RhOver = "auto") -> float:
+def vapour_pressure_hpa(air_c: float, humidity_pct: float, *, rh_over: RhOver = "water") -> float:
     """Partial pressure of water vapour in the air.
 
     Parameters
@@ -145,9 +150,8 @@ def vapour_pressure_hpa(air_c: float, humidity_pct: float, *, rh_over: RhOver = 
     humidity_pct
         Relative humidity, %, in (0, 100].
     rh_over
-        ``"auto"``: the humidity is relative to saturation over water at or above
-        0 °C and over ice below 0 °C (ASHRAE convention). ``"water"``: always over
-        water (WMO convention).
+        ``"water"`` (default): always over water (WMO convention). ``"auto"``: over
+        water at or above 0 °C and over ice below 0 °C (ASHRAE convention).
 
     Returns
     -------
@@ -171,7 +175,7 @@ def _invert_magnus(e_hpa: float, coeffs: tuple[float, float, float]) -> float:
     return c * g / (b - g)
 
 
-def dew_point_c(air_c: float, humidity_pct: float, *, rh_over: RhOver = "auto") -> float:
+def dew_point_c(air_c: float, humidity_pct: float, *, rh_over: RhOver = "water") -> float:
     """Dew point (saturation over liquid water), Magnus formula.
 
     Parameters
@@ -196,7 +200,7 @@ def dew_point_c(air_c: float, humidity_pct: float, *, rh_over: RhOver = "auto") 
     return _invert_magnus(vapour_pressure_hpa(air_c, humidity_pct, rh_over=rh_over), MAGNUS_WATER)
 
 
-def frost_point_c(air_c: float, humidity_pct: float, *, rh_over: RhOver = "auto") -> float:
+def frost_point_c(air_c: float, humidity_pct: float, *, rh_over: RhOver = "water") -> float:
     """Frost point (saturation over ice), Magnus formula.
 
     Parameters
@@ -216,12 +220,12 @@ def frost_point_c(air_c: float, humidity_pct: float, *, rh_over: RhOver = "auto"
     Examples
     --------
     >>> round(frost_point_c(-5.0, 85.0), 3)
-    -6.886
+    -6.315
     """
     return _invert_magnus(vapour_pressure_hpa(air_c, humidity_pct, rh_over=rh_over), MAGNUS_ICE)
 
 
-def condensation_point_c(air_c: float, humidity_pct: float, *, rh_over: RhOver = "auto") -> float:
+def condensation_point_c(air_c: float, humidity_pct: float, *, rh_over: RhOver = "water") -> float:
     """Surface temperature at which dew or frost forms.
 
     The frost point when it is below 0 °C, otherwise the dew point. A surface
@@ -247,7 +251,7 @@ def condensation_point_c(air_c: float, humidity_pct: float, *, rh_over: RhOver =
     >>> round(condensation_point_c(20.0, 50.0), 3)
     9.261
     >>> round(condensation_point_c(-5.0, 85.0), 3)
-    -6.886
+    -6.315
     """
     frost = frost_point_c(air_c, humidity_pct, rh_over=rh_over)
     if frost < 0.0:
@@ -255,7 +259,7 @@ def condensation_point_c(air_c: float, humidity_pct: float, *, rh_over: RhOver =
     return dew_point_c(air_c, humidity_pct, rh_over=rh_over)
 
 
-def absolute_humidity_g_m3(air_c: float, humidity_pct: float, *, rh_over: RhOver = "auto") -> float:
+def absolute_humidity_g_m3(air_c: float, humidity_pct: float, *, rh_over: RhOver = "water") -> float:
     """Mass of water vapour per volume of air (ideal gas).
 
     ``rho_v = e / (R_v T)`` with ``R_v`` = :data:`WATER_VAPOUR_GAS_CONSTANT`.
@@ -386,26 +390,82 @@ def sky_emissivity_clark_allen(dew_point_k: float, *, cloud_tenths: float = 0.0)
     return clear * clark_allen_cloud_factor(cloud_tenths)
 
 
+#: The atmospheric window of :func:`sky_window_emissivity_idso`, um (lower, upper).
+WINDOW_BAND_UM: tuple[float, float] = (8.0, 14.0)
+
+#: Idso (1981) clear-sky emissivity of the 8-14 um window, ``a + b e^2 exp(c / T)`` with
+#: ``e`` the screen-level vapour pressure in kPa and ``T`` the air temperature in K:
+#: ``(a, b_per_kPa2, c_K)``. The coefficients are from memory (Idso, S. B., 1981, "A set of
+#: equations for full spectrum and 8- to 14-um and 10.5- to 12.5-um thermal radiation from
+#: cloudless skies", Water Resources Research 17(2): 295-304). The units follow from a bound:
+#: with ``e`` in hPa the formula gives an emissivity of about 6 for night air of 6 °C and
+#: 70 % (impossible), with ``e`` in kPa 0.30. The same paper's full-spectrum form,
+#: ``0.70 + 5.95e-5 e exp(1500 / T)``, takes ``e`` in hPa.
+IDSO_WINDOW: tuple[float, float, float] = (0.24, 2.98e-6, 3000.0)
+
+
+def sky_window_emissivity_idso(vapour_pressure_hpa: float, air_k: float) -> float:
+    """Clear-sky emissivity of the 8-14 um atmospheric window, Idso (1981).
+
+    ``eps = 0.24 + 2.98e-6 e^2 exp(3000 / T)``, ``e`` in kPa, ``T`` in K (coefficients
+    from memory, see :data:`IDSO_WINDOW`), capped at 1. It is the ratio of the clear sky's
+    downward (hemispherical) emission in 8-14 um to that of a blackbody at the screen air
+    temperature in the same band.
+
+    Parameters
+    ----------
+    vapour_pressure_hpa
+        Screen-level vapour pressure, hPa.
+    air_k
+        Screen-level air temperature, K.
+
+    Returns
+    -------
+    float
+        Window emissivity, dimensionless, in [0.24, 1].
+
+    Examples
+    --------
+    >>> round(sky_window_emissivity_idso(6.54, 279.15), 3)
+    0.299
+    """
+    if not air_k > 0.0:
+        raise ValueError(f"air_k = {air_k!r}: expected a temperature above 0 K")
+    if not vapour_pressure_hpa >= 0.0:
+        raise ValueError(f"vapour_pressure_hpa = {vapour_pressure_hpa!r}: expected >= 0")
+    a, b, c = IDSO_WINDOW
+    e_kpa = vapour_pressure_hpa / 10.0
+    return float(min(1.0, a + b * e_kpa * e_kpa * math.exp(c / air_k)))
+
+
 @dataclass(frozen=True)
 class ReflectedEstimate:
-    """An estimated reflected temperature, for when none was measured.
+    """An estimated reflected apparent temperature, for when none was measured.
 
     Attributes
     ----------
     reflected_c
-        Reflected temperature to use in the measurement equation, °C.
+        Reflected apparent temperature to use in the measurement equation, °C: the
+        blackbody temperature whose radiance in the camera band equals what the surface
+        sees (sky and surroundings).
     sky_c
-        Broadband effective sky temperature, °C.
+        Apparent temperature of the sky alone in the camera band, °C.
     model
         The sky model and the inputs used, one line.
     note
         A caution for the report, plain text.
+    window_emissivity
+        Clear-sky emissivity of the 8-14 um window used, dimensionless.
+    band_um
+        The camera band whose radiance was matched, um.
     """
 
     reflected_c: float
     sky_c: float
     model: str
     note: str
+    window_emissivity: float = float("nan")
+    band_um: tuple[float, float] = (7.5, 14.0)
 
 
 def estimate_reflected_c(
@@ -414,31 +474,51 @@ def estimate_reflected_c(
     sky: Literal["clear", "partly", "overcast"],
     *,
     sky_view: float = 1.0,
+    band_um: tuple[float, float] = (7.5, 14.0),
 ) -> ReflectedEstimate:
-    """Estimate the reflected temperature of a surface under an open sky.
+    """Estimate the reflected apparent temperature of a surface under an open sky.
 
-    The sky emissivity comes from Clark & Allen (1978) with the dew point of the air
-    and the cloud cover of :data:`SKY_CLOUD_TENTHS`; it is capped at 1. The sky
-    temperature is ``eps**0.25 * T_air``. The surface sees the sky over the fraction
-    ``sky_view`` of its hemisphere and surroundings at air temperature over the
-    rest, mixed as radiation (fourth powers):
-    ``T_refl^4 = sky_view T_sky^4 + (1 - sky_view) T_air^4``.
+    What is matched: the radiance, integrated over the camera band ``band_um`` (Planck's
+    law, :func:`wetmap.radiometry.band_radiance`), that reaches the surface from its
+    hemisphere; the result is the blackbody temperature with that band radiance, which is
+    what the measurement equation needs for its reflected term.
 
-    This is a broadband estimate. In the 8-14 um camera window a clear sky is much
-    colder, so the estimate is too warm under clear skies. A measured reflected
-    apparent temperature (ASTM E1862) is preferred.
+    * Clear sky, inside the 8-14 um window (the part of ``band_um`` that overlaps it):
+      ``eps_w L(T_air)`` with ``eps_w`` the Idso (1981) window emissivity
+      (:func:`sky_window_emissivity_idso`, vapour pressure from the humidity over water).
+      The remaining ``1 - eps_w`` of the window is what the atmosphere does not emit: it
+      comes from space beyond the atmosphere, whose radiance in this band is nil (the
+      2.7 K background).
+    * Clear sky, outside 8-14 um (e.g. 7.5-8 um of a 7.5-14 um camera): water vapour
+      (6.3 um band) and carbon dioxide (15 um band) are close to opaque there, so the sky
+      emits as a blackbody at the air temperature.
+    * Clouds (``SKY_CLOUD_TENTHS``: 0, 5 or 10 tenths) cover that share of the sky and
+      emit in the band as a blackbody at the air temperature (a low cloud base; an upper
+      bound, a higher base is colder). Clouds raise the estimate toward the air
+      temperature.
+    * Surroundings: the surface sees the sky over ``sky_view`` of its hemisphere and
+      surroundings at air temperature over the rest, mixed as band radiance.
+
+    Idso's emissivity is a hemispherical (flux) value, which is what a diffusely
+    reflecting surface returns. The model is for long-wave cameras: a band outside
+    8-14 um (a 3-5 um camera looks through another window) is taken as opaque sky at air
+    temperature, which is wrong there; measure the reflected temperature for such a camera. A measured reflected apparent temperature (ASTM E1862)
+    is always preferred; the estimate is a documented default that ``[conditions]
+    reflected_c`` overrides.
 
     Parameters
     ----------
     air_c
         Air temperature, °C.
     humidity_pct
-        Relative humidity, %, in (0, 100].
+        Relative humidity over water, %, in (0, 100].
     sky
         ``"clear"``, ``"partly"`` or ``"overcast"``.
     sky_view
         Fraction of the hemisphere above the surface that is sky, in [0, 1]
         (1 for an open flat roof; about 0.5 for a vertical hull side).
+    band_um
+        The camera band, um (lower, upper).
 
     Returns
     -------
@@ -446,39 +526,55 @@ def estimate_reflected_c(
 
     Examples
     --------
-    >>> est = estimate_reflected_c(20.0, 52.5, "overcast")
-    >>> round(est.reflected_c, 1)
-    15.5
+    >>> est = estimate_reflected_c(6.0, 70.0, "clear")
+    >>> round(est.window_emissivity, 3), round(est.reflected_c, 1)
+    (0.299, -43.9)
+    >>> estimate_reflected_c(6.0, 70.0, "overcast").reflected_c
+    6.0
     >>> estimate_reflected_c(20.0, 52.5, "clear", sky_view=0.0).reflected_c
     20.0
     """
+    from .radiometry import band_radiance, band_table
+
     if sky not in SKY_CLOUD_TENTHS:
         valid = ", ".join(repr(k) for k in SKY_CLOUD_TENTHS)
         raise ValueError(f"sky = {sky!r}: expected one of {valid}")
     if not (0.0 <= sky_view <= 1.0):
         raise ValueError(f"sky_view = {sky_view!r}: expected 0 <= value <= 1")
+    lo, hi = (float(v) for v in band_um)
+    table = band_table((lo, hi))
     tenths = SKY_CLOUD_TENTHS[sky]
-    dew_c = dew_point_c(air_c, humidity_pct, rh_over="auto")
-    eps = min(1.0, sky_emissivity_clark_allen(dew_c + _ZERO_C_K, cloud_tenths=tenths))
+    cloud = tenths / 10.0
     air_k = air_c + _ZERO_C_K
-    sky_k = eps**0.25 * air_k
-    refl_k = (sky_view * sky_k**4 + (1.0 - sky_view) * air_k**4) ** 0.25
+    e_hpa = vapour_pressure_hpa(air_c, humidity_pct)
+    eps_w = sky_window_emissivity_idso(e_hpa, air_k)
+    l_air = float(table.radiance_of(air_k))
+    w_lo, w_hi = max(lo, WINDOW_BAND_UM[0]), min(hi, WINDOW_BAND_UM[1])
+    l_window_air = float(band_radiance(air_k, band_um=(w_lo, w_hi))) if w_hi > w_lo else 0.0
+    l_clear = eps_w * l_window_air + (l_air - l_window_air)
+    l_sky = (1.0 - cloud) * l_clear + cloud * l_air
+    l_refl = sky_view * l_sky + (1.0 - sky_view) * l_air
+    # the air temperature itself where the sky adds nothing colder (exact, not through the table)
+    sky_k = air_k if cloud == 1.0 else float(table.temperature_of(l_sky))
+    refl_k = air_k if (cloud == 1.0 or sky_view == 0.0) else float(table.temperature_of(l_refl))
     model = (
-        f"Clark & Allen (1978) broadband sky emissivity {eps:.3f} "
-        f"(dew point {dew_c:.1f} °C, cloud {tenths}/10), sky view {sky_view:g}"
+        f"{lo:g}-{hi:g} um band radiance of a sky with Idso (1981) 8-14 um clear-sky window emissivity "
+        f"{eps_w:.3f} (vapour pressure {e_hpa:.2f} hPa over water; coefficients from memory), opaque at air "
+        f"temperature outside 8-14 um, cloud {tenths}/10 at air temperature, sky view {sky_view:g}"
     )
     note = (
-        f"Reflected temperature {refl_k - _ZERO_C_K:.1f} °C is a broadband estimate from "
-        "air temperature, humidity and cloud cover, not a measurement. In the 8-14 um "
-        "camera window a clear sky is much colder than this (often tens of degrees below "
-        "zero), so the estimate is too warm under clear skies. A measured reflected "
-        "apparent temperature (ASTM E1862) is preferred."
+        f"Reflected apparent temperature {refl_k - _ZERO_C_K:.1f} °C is estimated from air temperature, "
+        "humidity and cloud cover (the sky's emission in the camera's 8-14 um window, Idso 1981), not measured. "
+        "The real sky varies with the air above the ground and with cloud; a measured reflected apparent "
+        "temperature (ASTM E1862) is preferred: give it as [conditions] reflected_c."
     )
     return ReflectedEstimate(
         reflected_c=float(refl_k - _ZERO_C_K),
         sky_c=float(sky_k - _ZERO_C_K),
         model=model,
         note=note,
+        window_emissivity=eps_w,
+        band_um=(lo, hi),
     )
 
 
@@ -673,8 +769,8 @@ def check_conditions(
     * rain within the last ``rain_free_h`` hours (default 24 h: same sources);
     * surface reported not dry;
     * surface within ``dew_margin_c`` of the dew point, or of the frost point below
-      0 °C (Magnus, Alduchov & Eskridge 1996), using ``surface_c`` or else the air
-      temperature;
+      0 °C (Magnus, Alduchov & Eskridge 1996; the humidity over water, WMO-No. 8),
+      using ``surface_c`` or else the air temperature;
     * survey time (and every pass time) outside ``after_sunset_min_h`` ..
       ``after_sunset_max_h`` hours after sunset (roofs only; common practice: start
       near sunset, window about 4 h);
@@ -767,8 +863,8 @@ def check_conditions(
         out.append(ConditionWarning(
             "dew",
             f"surface {surface:.1f} °C ({source}) against a {which} of {forming:.1f} °C (air "
-            f"{conditions.air_c:g} °C, {conditions.humidity_pct:g} % humidity; Magnus, Alduchov & Eskridge "
-            f"1996): {state}",
+            f"{conditions.air_c:g} °C, {conditions.humidity_pct:g} % humidity over water, WMO-No. 8; Magnus, "
+            f"Alduchov & Eskridge 1996): {state}",
             f"at least {lim.dew_margin_c:g} K above the {which}, [limits] dew_margin_c; from memory",
             "dew or frost forming releases latent heat and wets the surface evenly, which hides wet areas "
             "(false negatives) and changes the emissivity",
@@ -821,7 +917,7 @@ def check_conditions(
     if conditions.reflected_c is None:
         sky_view = 1.0 if roof else 0.5
         est = estimate_reflected_c(conditions.air_c, conditions.humidity_pct, conditions.sky or "clear",
-                                   sky_view=sky_view)
+                                   sky_view=sky_view, band_um=camera.band_um)
         out.append(ConditionWarning(
             "reflected",
             f"reflected temperature not measured: estimated {est.reflected_c:.1f} °C ({est.model})",

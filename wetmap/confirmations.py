@@ -113,38 +113,49 @@ def read_confirmations(path: Path, *, wet_above: float | None = None,
         text = path.read_text(encoding="utf-8-sig")
     except UnicodeDecodeError:
         raise InputFileError(f"{path}: not UTF-8 text; save the cores table as CSV (UTF-8)") from None
+    except OSError as err:
+        raise InputFileError(f"{path}: cannot be read ({err.strerror or err}); check the file") from None
+    if "\0" in text:
+        raise InputFileError(f"{path}: holds NUL characters, so it is not a text table; save the cores table as CSV (UTF-8)")
     lines = text.splitlines()
     if not lines or not lines[0].strip():
         raise InputFileError(f"{path}: is empty; expected a header id,x,y,result (or moisture_pct, reading, sound)")
     delimiter = ";" if lines[0].count(";") > lines[0].count(",") else ","
     decimal_comma = delimiter == ";"
     reader = csv.DictReader(lines, delimiter=delimiter)
-    header = [h.strip() for h in (reader.fieldnames or [])]
+    try:
+        header = [h.strip() for h in (reader.fieldnames or [])]
+    except csv.Error as err:
+        raise InputFileError(f"{path}: row 1 cannot be read as CSV ({err}); save the cores table as CSV") from None
     reader.fieldnames = header
+    problems: list[str] = []  # every row's problems, reported at once
     repeated = sorted({h for h in header if h and header.count(h) > 1})
     if repeated:
-        raise InputFileError(f"{path}: column {', '.join(repr(h) for h in repeated)} appears twice in the header; "
-                             "expected each column once")
+        problems.append(f"{path}: column {', '.join(repr(h) for h in repeated)} appears twice in the header; "
+                        "expected each column once")
     for col in ("id", "x", "y"):
         if col not in header:
-            raise InputFileError(f"{path}: column '{col}' is missing; expected columns id,x,y and result, "
-                                 "moisture_pct, reading or sound")
+            problems.append(f"{path}: column '{col}' is missing; expected columns id,x,y and result, "
+                            "moisture_pct, reading or sound")
     judged = [c for c in JUDGED_COLUMNS if c in header]
     if not judged:
-        raise InputFileError(
-            f"{path}: no judgement column; add 'result' (wet/dry), 'moisture_pct', 'reading' or 'sound' (dull/solid)"
-        )
+        problems.append(f"{path}: no judgement column; add 'result' (wet/dry), 'moisture_pct', 'reading' "
+                        "or 'sound' (dull/solid)")
+    if problems:
+        raise InputFileError(problems)
 
-    def number(row_no: int, col: str, value: str) -> float:
+    def number(row_no: int, col: str, value: str) -> float | None:
         v = value.strip()
         if decimal_comma:
             v = v.replace(",", ".")
         try:
             out = float(v)
         except ValueError:
-            raise InputFileError(f"{path}: row {row_no}, column '{col}' = {value!r}: expected a number") from None
+            problems.append(f"{path}: row {row_no}, column '{col}' = {_shown(value)}: expected a number")
+            return None
         if not math.isfinite(out):
-            raise InputFileError(f"{path}: row {row_no}, column '{col}' = {value!r}: expected a finite number")
+            problems.append(f"{path}: row {row_no}, column '{col}' = {_shown(value)}: expected a finite number")
+            return None
         return out
 
     ids: list[str] = []
@@ -155,25 +166,40 @@ def read_confirmations(path: Path, *, wet_above: float | None = None,
     values: list[float] = []
     extra_cols = [c for c in header if c not in ("id", "x", "y", *JUDGED_COLUMNS)]
     extra: dict[str, list[str]] = {c: [] for c in extra_cols}
-    for row in reader:
+    missing_threshold: set[str] = set()
+    rows = iter(reader)
+    while True:
+        try:
+            row = next(rows)
+        except StopIteration:
+            break
+        except csv.Error as err:
+            problems.append(f"{path}: row {reader.line_num} cannot be read as CSV ({err}); fix the quoting on that row")
+            break
         # the row number a spreadsheet shows: the line in the file (csv skips blank lines itself)
         row_no = reader.line_num
         if any((v or "").strip() for v in row.get(None, ())):  # more values than header columns (blank extras pass)
-            raise InputFileError(
+            problems.append(
                 f"{path}: row {row_no} has {len(header) + len(row[None])} values but the header has "
                 f"{len(header)} columns; a decimal comma in a comma-separated file? "
                 "use a decimal point, or ';' as the delimiter"
             )
+            continue
         if not any((v or "").strip() for v in row.values() if isinstance(v, str)):
             continue  # blank line
         ident = (row.get("id") or "").strip()
+        ok = True
         if not ident:
-            raise InputFileError(f"{path}: row {row_no}, column 'id' is empty; give every core an id")
-        if ident in ids:
-            raise InputFileError(f"{path}: row {row_no}, column 'id' = {ident!r} repeats; ids must be unique")
+            problems.append(f"{path}: row {row_no}, column 'id' is empty; give every core an id")
+            ok = False
+        elif ident in ids:
+            problems.append(f"{path}: row {row_no}, column 'id' = {_shown(ident)} repeats; ids must be unique")
+            ok = False
         x = number(row_no, "x", row.get("x") or "")
         y = number(row_no, "y", row.get("y") or "")
-        decided = False
+        if x is None or y is None:
+            ok = False
+        decided: tuple[bool, float, Basis] | None = None
         for col in judged:
             raw = (row.get(col) or "").strip()
             if not raw:
@@ -181,40 +207,53 @@ def read_confirmations(path: Path, *, wet_above: float | None = None,
             if col == "result":
                 word = raw.lower()
                 if word not in _RESULT_WORDS:
-                    raise InputFileError(f"{path}: row {row_no}, column 'result' = {raw!r}: expected wet or dry")
-                wet.append(_RESULT_WORDS[word])
-                values.append(math.nan)
+                    problems.append(f"{path}: row {row_no}, column 'result' = {_shown(raw)}: expected wet or dry")
+                    ok = False
+                else:
+                    decided = (_RESULT_WORDS[word], math.nan, "result")
             elif col == "sound":
                 word = raw.lower()
                 if word not in _SOUND_WORDS:
-                    raise InputFileError(f"{path}: row {row_no}, column 'sound' = {raw!r}: expected dull or solid "
-                                         "(a percussion sounding)")
-                wet.append(_SOUND_WORDS[word])
-                values.append(math.nan)
+                    problems.append(f"{path}: row {row_no}, column 'sound' = {_shown(raw)}: expected dull or solid "
+                                    "(a percussion sounding)")
+                    ok = False
+                else:
+                    decided = (_SOUND_WORDS[word], math.nan, "sound")
             else:
                 value = number(row_no, col, raw)
                 limit = wet_above_pct if col == "moisture_pct" else wet_above
-                if limit is None:
+                if value is None:
+                    ok = False
+                elif limit is None:
                     key = "wet_above_pct" if col == "moisture_pct" else "wet_above"
-                    raise InputFileError(
-                        f"{path}: row {row_no} is judged by column '{col}' but [cores] {key} is not set; "
-                        f"add {key} = ... to survey.toml (the level above which a {col} reading counts as wet)"
-                    )
-                wet.append(value > limit)
-                values.append(value)
-            basis.append(col)  # type: ignore[arg-type]
-            decided = True
+                    if col not in missing_threshold:  # said once, at its first row
+                        problems.append(
+                            f"{path}: row {row_no} is judged by column '{col}' but [cores] {key} is not set; "
+                            f"add {key} = ... to survey.toml (the level above which a {col} reading counts as wet)"
+                        )
+                    missing_threshold.add(col)
+                    ok = False
+                else:
+                    decided = (value > limit, value, col)  # type: ignore[assignment]
             break
-        if not decided:
-            raise InputFileError(
-                f"{path}: row {row_no} (id {ident}) has no value in {', '.join(judged)}; "
+        else:
+            problems.append(
+                f"{path}: row {row_no} (id {_shown(ident)[1:-1]}) has no value in {', '.join(judged)}; "
                 "give a result (wet/dry), a number or a sounding (dull/solid)"
             )
+            ok = False
+        if not ok or decided is None:
+            continue
         ids.append(ident)
-        xs.append(x)
-        ys.append(y)
+        xs.append(x)  # type: ignore[arg-type]
+        ys.append(y)  # type: ignore[arg-type]
+        wet.append(decided[0])
+        values.append(decided[1])
+        basis.append(decided[2])
         for c in extra_cols:
             extra[c].append((row.get(c) or "").strip())
+    if problems:
+        raise InputFileError(problems)
     return Confirmations(
         ids=tuple(ids),
         xs=np.asarray(xs, dtype=float),
@@ -224,3 +263,9 @@ def read_confirmations(path: Path, *, wet_above: float | None = None,
         values=np.asarray(values, dtype=float),
         extra={c: tuple(v) for c, v in extra.items()},
     )
+
+
+def _shown(value: str, limit: int = 60) -> str:
+    """``repr(value)`` on one line, cut to ``limit`` characters (a problem is one line)."""
+    text = repr(value)
+    return text if len(text) <= limit else text[: limit - 4] + "...'"

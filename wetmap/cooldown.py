@@ -45,9 +45,7 @@ from __future__ import annotations
 
 import json
 import math
-import os
 import re
-import uuid
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
 from pathlib import Path
@@ -1044,35 +1042,28 @@ def _plot(plan: WindowPlan, path: Path, *, title: str) -> None:
     fig.savefig(path, format="png")
 
 
-def write_window(plan: WindowPlan, out_dir: str | Path, *, title: str = "Cool-down plan") -> tuple[Path, Path]:
-    """Write ``window.json`` and ``window.png`` into ``out_dir`` atomically.
+def write_window(plan: WindowPlan, out_dir: str | Path, *, title: str = "Cool-down plan",
+                 survey: str | Path | None = None) -> tuple[Path, Path]:
+    """Write ``window.json`` and ``window.png`` into ``out_dir`` atomically (:func:`wetmap.outputs.replacing`).
 
-    Both files are first written to temporary files in ``out_dir`` and moved into
-    place only when both were written; other files in ``out_dir`` are left alone, and
-    a failure leaves earlier ``window.*`` files as they were.
+    Other files in ``out_dir`` are carried over; a failure leaves ``out_dir`` as it was.
+    ``out_dir`` must be missing, empty or wetmap's own results folder, and not be, hold or
+    lie in ``survey`` (other than its ``results/``).
 
     Returns
     -------
     (Path, Path)
         The JSON and PNG paths.
     """
-    out_dir = Path(out_dir)
-    out_dir.mkdir(parents=True, exist_ok=True)
-    targets = [out_dir / name for name in WINDOW_FILES]
-    temps: list[Path] = []
-    try:
-        for target in targets:  # created with the usual permissions (mkstemp would make them private)
-            tmp = out_dir / f".{target.name}.{os.getpid()}.{uuid.uuid4().hex}.tmp"
-            tmp.open("xb").close()
-            temps.append(tmp)
-        temps[0].write_text(json.dumps(plan.to_json(), indent=2, ensure_ascii=False) + "\n", encoding="utf-8")
-        _plot(plan, temps[1], title=title)
-        for tmp, target in zip(temps, targets):
-            os.replace(tmp, target)
-    finally:
-        for tmp in temps:
-            tmp.unlink(missing_ok=True)
-    return targets[0], targets[1]
+    from .outputs import write_folder
+
+    def write(folder: Path) -> None:
+        (folder / WINDOW_FILES[0]).write_text(json.dumps(plan.to_json(), indent=2, ensure_ascii=False) + "\n",
+                                              encoding="utf-8")
+        _plot(plan, folder / WINDOW_FILES[1], title=title)
+
+    out = write_folder(out_dir, write, survey=survey, keep=None)
+    return out / WINDOW_FILES[0], out / WINDOW_FILES[1]
 
 
 def run_window(folder: str | Path, *, out: str | Path | None = None) -> tuple[WindowPlan, Path, Path]:
@@ -1089,16 +1080,19 @@ def run_window(folder: str | Path, *, out: str | Path | None = None) -> tuple[Wi
     -------
     (WindowPlan, Path, Path)
     """
+    from .outputs import check_out_dir
     from .sun import with_sun_times
     from .survey import load_survey
     from .vectors import read_sections
 
     survey = with_sun_times(load_survey(folder))  # sunset and sunrise from place and date when not typed in
+    out_dir = Path(out) if out is not None else survey.folder / "results"
+    check_out_dir(out_dir, surveys=[survey.folder])  # refused before the model runs
     sections: list = []
     if survey.cooldown.insulation is None and survey.plan.sections is not None:
         crs = None if survey.survey.is_local else survey.survey.crs
         sections, _ = read_sections(survey.plan.sections, survey_crs=crs)
     plan = plan_survey_window(survey, sections=sections)
-    out_dir = Path(out) if out is not None else survey.folder / "results"
-    json_path, png_path = write_window(plan, out_dir, title=f"{survey.survey.title}: cool-down plan")
+    json_path, png_path = write_window(plan, out_dir, title=f"{survey.survey.title}: cool-down plan",
+                                       survey=survey.folder)
     return plan, json_path, png_path

@@ -54,6 +54,8 @@ import shapely
 from shapely import affinity
 from shapely.geometry import Polygon, box
 
+from .export.tables import spreadsheet_cell
+
 __all__ = [
     "RoofScene",
     "RoofTruth",
@@ -580,7 +582,7 @@ def write_roof_survey(
         writer = csv.writer(f, lineterminator="\n")
         writer.writerow(["id", "x", "y", "result", "depth_mm", "notes"])
         for c in truth.cores:
-            writer.writerow([c.id, f"{c.x:.3f}", f"{c.y:.3f}", c.result, c.depth_mm, c.notes])
+            writer.writerow([spreadsheet_cell(v) for v in (c.id, f"{c.x:.3f}", f"{c.y:.3f}", c.result, c.depth_mm, c.notes)])
 
     # --- survey.toml ---
     scale, offset = scene.scale_offset
@@ -1050,7 +1052,7 @@ def write_walked_roof_survey(folder: str | Path, scene: WalkedRoofScene = Walked
         writer = csv.writer(f, lineterminator="\n")
         writer.writerow(["id", "x", "y", "result", "depth_mm", "notes"])
         for c in truth.cores:
-            writer.writerow([c.id, f"{c.x:.3f}", f"{c.y:.3f}", c.result, c.depth_mm, c.notes])
+            writer.writerow([spreadsheet_cell(v) for v in (c.id, f"{c.x:.3f}", f"{c.y:.3f}", c.result, c.depth_mm, c.notes)])
     text = "\n".join([
         "# Invented demo survey written by wetmap.demo: an invented workshop roof, invented data.",
         "# Frames from a camera on a mast carried across the roof, placed by control points.",
@@ -1341,10 +1343,14 @@ def write_hull_survey(folder: str | Path, scene: HullScene = HullScene(), *,
         writer = csv.writer(f, lineterminator="\n")
         writer.writerow(["id", "x", "y", "reading", "notes"])
         for r in truth.readings:
-            writer.writerow([r.id, f"{r.x:.3f}", f"{r.y:.3f}", f"{r.reading:g}", r.notes])
+            writer.writerow([spreadsheet_cell(v) for v in (r.id, f"{r.x:.3f}", f"{r.y:.3f}", f"{r.reading:g}", r.notes)])
     text = "\n".join([
         "# Invented demo survey written by wetmap.demo: an invented yacht, invented data.",
         "# Plan x = station (m from the stem), y = girth (m up from the keel); frames placed by tape marks.",
+        "# Tape marks: x = the mark's station, measured along the hull; y = its girth, measured ALONG THE SKIN",
+        "# from the keel with a tape laid on the hull (round the turn of the bilge), never its height above",
+        "# the keel: heights make areas small wherever the skin flares. Six marks or more per frame in a grid",
+        "# (e.g. every 1 m of station x every 0.8 m of girth) let a curved skin be placed piecewise.",
         "# Written by `python -m wetmap.demo --scene hull FOLDER` (see sample_surveys/README.md).",
         "",
         _toml_table("survey", {

@@ -19,6 +19,7 @@ __all__ = [
     "InputFileError",
     "MissingFileError",
     "ProcessingError",
+    "OutputError",
 ]
 
 
@@ -58,3 +59,8 @@ class MissingFileError(WetmapError, FileNotFoundError):
 
 class ProcessingError(WetmapError, RuntimeError):
     """The data were valid but the survey cannot be processed as asked."""
+
+
+class OutputError(WetmapError, ValueError):
+    """The results folder cannot be written as asked (it is the survey, holds a user's
+    files, is a file, or another run holds its lock); nothing was written."""

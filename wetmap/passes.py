@@ -11,11 +11,20 @@ pixel ``(row, col)`` represented by its centre) and on the passes' times:
 * :func:`match_regions` links the labelled anomalies of every pass by overlap;
 * :func:`cooling_rate` fits, per pixel, the least-squares slope of temperature against
   time (°C per hour, positive when cooling);
+* :func:`pass_contrast_c` and :func:`choose_primary`: the *primary* pass, whose anomalies
+  are reported, is the one with the greatest wet-dry contrast (the mean delta-T over
+  the anomalies seen in more than one pass, the same pixels in every pass); passes
+  within :data:`CONTRAST_TIE_C` (or :data:`CONTRAST_TIE_REL`) of the greatest count as
+  equal and the latest of them is taken;
 * :func:`compare_passes` puts these together for the pipeline: each anomaly of the
-  primary pass (the last one) gets its persistence (in how many passes it appears),
-  its delta in each pass and its cooling rate relative to the dry background; it is
-  flagged *fading* when its delta fell below ``fade_ratio`` of its earlier maximum;
-  anomalies of earlier passes that are gone by the primary pass are listed as *faded*.
+  primary pass gets its persistence (in how many passes it appears), its delta in each
+  pass and its cooling rate relative to the dry background; it is flagged *fading*
+  (:func:`judge_fading`) when its delta in the latest pass fell below ``fade_ratio`` of
+  its earlier maximum *after dividing each pass's delta by the wet-dry contrast the
+  cool-down model predicts for its assembly at that time* (:mod:`wetmap.cooldown`), so
+  that a wet area whose contrast decays as wet insulation of that kind does (closed-cell
+  boards) is kept; without a model the raw deltas are compared. Anomalies of other
+  passes not seen in the primary pass are listed as *faded*.
 
 The relative cooling rate of a pixel is the cooling rate of its delta-T (surface
 minus dry background): positive when it cools faster than the dry roof (a fading
@@ -43,16 +52,32 @@ __all__ = [
     "PassComparison",
     "compare_passes",
     "align_to_grid",
+    "pass_contrast_c",
+    "choose_primary",
+    "judge_fading",
     "MIN_OVERLAP",
     "FADE_RATIO",
+    "CONTRAST_TIE_C",
+    "CONTRAST_TIE_REL",
+    "MODEL_MIN_C",
 ]
 
 #: Two anomalies of different passes are the same when their overlap is at least this
 #: share of the smaller one (common practice for matching detections; a setting).
 MIN_OVERLAP: float = 0.2
-#: An anomaly is fading when its delta in the primary pass is below this share of its
-#: largest delta in the earlier passes.
+#: An anomaly is fading when its delta in the latest pass is below this share of its
+#: largest delta in the earlier passes, each delta first divided by the contrast the
+#: cool-down model predicts at that pass's time (common practice for a persistence test;
+#: a setting).
 FADE_RATIO: float = 0.5
+#: Passes whose contrast is within this many kelvin of the greatest count as equal
+#: (about the noise of a mean over many pixels; a setting).
+CONTRAST_TIE_C: float = 0.05
+#: ... or within this share of the greatest contrast (a setting).
+CONTRAST_TIE_REL: float = 0.05
+#: A predicted wet-dry contrast below this (K) says nothing about fading: such passes are
+#: left out of the model-relative comparison (a setting).
+MODEL_MIN_C: float = 0.05
 
 
 @dataclass(frozen=True)
@@ -280,7 +305,12 @@ class AnomalyPasses:
         Mean cooling rate of its delta-T, °C/h: positive when it cools faster than
         the dry roof.
     fading
-        Its delta in the primary pass is below ``fade_ratio`` of its earlier maximum.
+        It fades faster than wet insulation of its assembly would (:func:`judge_fading`).
+    model_delta_by_pass_c
+        Wet-dry contrast the cool-down model predicts for its assembly at each pass, K
+        (empty or NaN: no model).
+    fade_basis
+        How fading was judged, in words.
     """
 
     region: int
@@ -289,6 +319,8 @@ class AnomalyPasses:
     delta_by_pass_c: tuple[float, ...]
     cooling_vs_background_c_per_h: float
     fading: bool
+    model_delta_by_pass_c: tuple[float, ...] = ()
+    fade_basis: str = ""
 
 
 @dataclass(frozen=True)
@@ -335,6 +367,10 @@ class PassComparison:
         Anomalies of earlier passes that are gone by the primary pass.
     fade_ratio, min_overlap
         The settings used.
+    contrast_c
+        Each pass's wet-dry contrast (:func:`pass_contrast_c`), K.
+    primary_rule
+        How the primary pass was chosen, in words.
     """
 
     labels: tuple[str, ...]
@@ -345,6 +381,8 @@ class PassComparison:
     faded: tuple[FadedAnomaly, ...]
     fade_ratio: float = FADE_RATIO
     min_overlap: float = MIN_OVERLAP
+    contrast_c: tuple[float, ...] = ()
+    primary_rule: str = ""
 
     def summary(self) -> dict[str, Any]:
         """The ``passes`` entry of ``summary.json``."""
@@ -356,12 +394,16 @@ class PassComparison:
             "times": list(self.labels),
             "hours": [round(h, 3) for h in self.hours],
             "primary": self.labels[self.primary],
+            "primary_rule": self.primary_rule,
+            "contrast_c": [r(c) for c in self.contrast_c],
             "min_overlap": self.min_overlap,
             "fade_ratio": self.fade_ratio,
             "anomalies": [
                 {"id": a.region, "persistence": a.persistence, "seen_in": list(a.seen_in),
                  "delta_by_pass_c": [r(d) for d in a.delta_by_pass_c],
-                 "cooling_vs_background_c_per_h": r(a.cooling_vs_background_c_per_h), "fading": a.fading}
+                 "model_delta_by_pass_c": [r(d) for d in a.model_delta_by_pass_c],
+                 "cooling_vs_background_c_per_h": r(a.cooling_vs_background_c_per_h), "fading": a.fading,
+                 "fade_basis": a.fade_basis}
                 for a in self.anomalies
             ],
             "faded": [
@@ -375,11 +417,15 @@ class PassComparison:
         """One line per faded or fading anomaly."""
         primary = self.labels[self.primary]
         out = []
+        at = {label: i for i, label in enumerate(self.labels)}
         for f in self.faded:
+            before = all(at.get(label, -1) < self.primary for label in f.seen_in)
+            where = (f"is gone by the {primary} pass" if before else
+                     f"is not seen in the {primary} pass (the one with the greatest wet-dry contrast)")
             out.append(
                 f"a warm patch of {f.area_m2:.1f} m2 near ({f.x:.2f}, {f.y:.2f}) seen at {', '.join(f.seen_in)} "
                 f"(delta {f.delta_mean_c:+.2f} °C, cooling {_signed_rate(f.cooling_vs_background_c_per_h)} the dry "
-                f"roof) is gone by the {primary} pass: a fading pattern points to surface water, dew or residual "
+                f"roof) {where}: a fading pattern points to surface water, dew or residual "
                 "sun rather than wet insulation; it is not reported as an anomaly"
             )
         for a in self.anomalies:
@@ -387,8 +433,8 @@ class PassComparison:
                 deltas = ", ".join("-" if not np.isfinite(d) else f"{d:+.2f}" for d in a.delta_by_pass_c)
                 out.append(
                     f"anomaly {a.region} is fading (delta by pass {deltas} °C; cooling "
-                    f"{_signed_rate(a.cooling_vs_background_c_per_h)} the dry roof): possibly surface water, dew "
-                    "or residual sun rather than wet insulation; verify before counting it"
+                    f"{_signed_rate(a.cooling_vs_background_c_per_h)} the dry roof; {a.fade_basis}): possibly "
+                    "surface water, dew or residual sun rather than wet insulation; verify before counting it"
                 )
         return tuple(out)
 
@@ -409,6 +455,147 @@ def _region_means(labels: np.ndarray, count: int, values: np.ndarray) -> np.ndar
         return np.where(n > 0, s / np.maximum(n, 1), np.nan)
 
 
+def pass_contrast_c(deltas_c: Sequence[np.ndarray], labels: Sequence[np.ndarray], counts: Sequence[int], *,
+                    min_overlap: float = MIN_OVERLAP) -> np.ndarray:
+    """Wet-dry contrast of each pass: mean delta-T over the same anomaly pixels in every pass.
+
+    The pixels are those of the anomalies seen in more than one pass (any pass's extent);
+    when no anomaly is seen twice, those of every anomaly. Comparing the passes on the
+    same pixels keeps a pass's threshold from choosing its own pixels.
+
+    Parameters
+    ----------
+    deltas_c
+        Delta-T (surface minus dry background) of each pass, °C, ``(rows, cols)``, NaN
+        where unusable.
+    labels, counts
+        Each pass's labelled anomalies.
+    min_overlap
+        As in :func:`match_regions`.
+
+    Returns
+    -------
+    numpy.ndarray of float, shape (passes,)
+        Mean delta-T, °C; NaN when no pass has an anomaly.
+
+    Examples
+    --------
+    >>> lab = np.array([[1, 0], [0, 0]])
+    >>> d1 = np.array([[1.0, 0.0], [0.0, 0.0]]); d2 = np.array([[2.0, 0.1], [0.0, 0.0]])
+    >>> pass_contrast_c([d1, d2], [lab, lab], [1, 1]).tolist()
+    [1.0, 2.0]
+    """
+    track_of, _ = match_regions(labels, counts, min_overlap=min_overlap)
+    seen: dict[int, set[int]] = {}
+    for p, tracks in enumerate(track_of):
+        for t in tracks.tolist():
+            seen.setdefault(int(t), set()).add(p)
+    persistent = {t for t, ps in seen.items() if len(ps) > 1}
+    shape = np.shape(labels[0])
+    pixels = np.zeros(shape, dtype=bool)
+    for p, lab in enumerate(labels):
+        lab = np.asarray(lab)
+        if not counts[p]:
+            continue
+        keep = np.zeros(counts[p] + 1, dtype=bool)
+        keep[1:] = [int(t) in persistent for t in track_of[p]] if persistent else True
+        pixels |= keep[lab]
+    out = np.full(len(deltas_c), np.nan)
+    if pixels.any():
+        for p, d in enumerate(deltas_c):
+            v = np.asarray(d, dtype=np.float64)[pixels]
+            v = v[np.isfinite(v)]
+            if v.size:
+                out[p] = float(v.mean())
+    return out
+
+
+def choose_primary(contrast_c: Sequence[float], *, tie_c: float = CONTRAST_TIE_C,
+                   tie_rel: float = CONTRAST_TIE_REL) -> tuple[int, str]:
+    """The pass with the greatest wet-dry contrast; among near-equals, the latest.
+
+    Parameters
+    ----------
+    contrast_c
+        Each pass's contrast (:func:`pass_contrast_c`), earliest pass first; NaN unknown.
+    tie_c, tie_rel
+        Passes within ``max(tie_c, tie_rel * greatest)`` of the greatest are equal.
+
+    Returns
+    -------
+    index : int
+        The primary pass.
+    rule : str
+        The rule in words.
+
+    Examples
+    --------
+    >>> choose_primary([0.8, 1.6, 1.1])[0], choose_primary([1.60, 1.58, 0.9])[0], choose_primary([np.nan, np.nan])[0]
+    (1, 1, 1)
+    """
+    c = np.asarray(contrast_c, dtype=np.float64)
+    if not np.isfinite(c).any():
+        return len(c) - 1, "no anomaly to compare the passes on: the last pass"
+    best = float(np.nanmax(c))
+    tol = max(tie_c, tie_rel * abs(best))
+    near = np.flatnonzero(np.isfinite(c) & (c >= best - tol))
+    rule = (f"the greatest wet-dry contrast (mean delta-T over the anomalies seen in more than one pass, the same "
+            f"pixels in every pass); passes within {tol:.2f} K of it count as equal and the latest is taken")
+    return int(near[-1]), rule
+
+
+def judge_fading(delta_by_pass_c: Sequence[float], *, model_c: Sequence[float] | None = None,
+                 fade_ratio: float = FADE_RATIO) -> tuple[bool, str]:
+    """Does an anomaly fade faster than wet insulation of its assembly would?
+
+    Each pass's delta is divided by the wet-dry contrast the cool-down model predicts at
+    that pass's time (passes where the model predicts less than :data:`MODEL_MIN_C` are
+    left out); the anomaly fades when this ratio in the latest pass with data is below
+    ``fade_ratio`` of its largest value in the earlier passes. Without a model the raw
+    deltas are compared (a fixed ratio).
+
+    Parameters
+    ----------
+    delta_by_pass_c
+        Observed mean delta-T of the anomaly in each pass, °C (NaN: no data), earliest first.
+    model_c
+        Predicted wet-dry contrast at each pass, K; ``None`` or all NaN: no model.
+    fade_ratio
+        See :data:`FADE_RATIO`.
+
+    Returns
+    -------
+    fading : bool
+    basis : str
+        How it was judged, in words.
+
+    Examples
+    --------
+    >>> judge_fading([1.6, 1.0, 0.66], model_c=[0.41, 0.26, 0.17])[0]   # decays as the model: kept
+    False
+    >>> judge_fading([1.6, 1.0, 0.66])[0]                              # a fixed ratio: 0.41 < 0.5
+    True
+    """
+    d = np.asarray(delta_by_pass_c, dtype=np.float64)
+    m = None if model_c is None else np.asarray(model_c, dtype=np.float64)
+    use_model = m is not None and m.shape == d.shape and bool(np.any(np.isfinite(m) & (m >= MODEL_MIN_C)))
+    if use_model:
+        ok = np.isfinite(d) & np.isfinite(m) & (m >= MODEL_MIN_C)
+        value = np.where(ok, d / np.where(ok, m, 1.0), np.nan)
+        basis = (f"delta divided by the cool-down model's predicted wet-dry contrast at each pass, the latest below "
+                 f"{fade_ratio:g} of its earlier maximum")
+    else:
+        value = np.where(np.isfinite(d), d, np.nan)
+        basis = f"no cool-down model: delta in the latest pass below {fade_ratio:g} of its earlier maximum"
+    idx = np.flatnonzero(np.isfinite(value))
+    if idx.size < 2:
+        return False, basis
+    last = int(idx[-1])
+    earlier = value[idx[:-1]]
+    top = float(earlier.max())
+    return bool(top > 0 and value[last] < fade_ratio * top), basis
+
+
 def compare_passes(
     surfaces_c: Sequence[np.ndarray],
     deltas_c: Sequence[np.ndarray],
@@ -421,6 +608,9 @@ def compare_passes(
     primary: int = -1,
     min_overlap: float = MIN_OVERLAP,
     fade_ratio: float = FADE_RATIO,
+    model_delta_c: np.ndarray | None = None,
+    contrast_c: Sequence[float] = (),
+    primary_rule: str = "",
 ) -> PassComparison:
     """Compare the passes of a night on one plan grid.
 
@@ -438,9 +628,16 @@ def compare_passes(
     transform
         The plan grid's affine (pixel corner ``(col, row)`` -> plan ``(x, y)``).
     primary
-        Index of the pass whose anomalies are reported (default: the last).
+        Index of the pass whose anomalies are reported (default: the last; the pipeline
+        passes :func:`choose_primary`'s choice).
     min_overlap, fade_ratio
         See :data:`MIN_OVERLAP` and :data:`FADE_RATIO`.
+    model_delta_c
+        The cool-down model's predicted wet-dry contrast for each primary anomaly's
+        assembly at each pass, K, shape ``(counts[primary], passes)`` (NaN rows: no
+        model); ``None``: fading is judged on the raw deltas.
+    contrast_c, primary_rule
+        Each pass's contrast and the rule that chose the primary pass, for the record.
 
     Returns
     -------
@@ -468,16 +665,18 @@ def compare_passes(
         if counts[primary] else np.zeros((0, n_pass))
     rel_primary = _region_means(lab_primary, counts[primary], relative)
     anomalies = []
+    if model_delta_c is not None and np.shape(model_delta_c) != (counts[primary], n_pass):
+        raise ValueError(f"model_delta_c: shape {np.shape(model_delta_c)}: expected ({counts[primary]}, {n_pass})")
     for i in range(counts[primary]):
         seen = sorted(passes_of_track[int(track_of[primary][i])])
         d = deltas_by_pass[i]
-        earlier = [d[p] for p in range(n_pass) if p != primary and np.isfinite(d[p])]
-        fading = bool(earlier and max(earlier) > 0 and np.isfinite(d[primary])
-                      and d[primary] < fade_ratio * max(earlier))
+        model = None if model_delta_c is None else np.asarray(model_delta_c[i], dtype=np.float64)
+        fading, basis = judge_fading(d, model_c=model, fade_ratio=fade_ratio)
         anomalies.append(AnomalyPasses(
             region=i + 1, persistence=len(seen), seen_in=tuple(pass_labels[p] for p in seen),
             delta_by_pass_c=tuple(float(v) for v in d), cooling_vs_background_c_per_h=float(rel_primary[i]),
-            fading=fading,
+            fading=fading, model_delta_by_pass_c=() if model is None else tuple(float(v) for v in model),
+            fade_basis=basis,
         ))
 
     kept = set(track_of[primary].tolist())
@@ -508,6 +707,7 @@ def compare_passes(
     return PassComparison(
         labels=tuple(pass_labels), hours=tuple(float(h) for h in hours), primary=primary, cooling_c_per_h=cooling,
         anomalies=tuple(anomalies), faded=tuple(faded), fade_ratio=fade_ratio, min_overlap=min_overlap,
+        contrast_c=tuple(float(c) for c in contrast_c), primary_rule=primary_rule,
     )
 
 

@@ -11,7 +11,11 @@ are metres. Other area units are derived only for display (:func:`convert_area`)
   direction (or a given angle and origin); every board the repair outline overlaps
   (more than touching) is replaced (rounding up to whole boards is common practice). A
   board's *tear-off* is the board clipped to the roof (outline minus exclusions); the
-  tear-off area is their sum.
+  tear-off area is their sum. The count depends on where the board joints lie. With a
+  given origin (``[repair] board_origin``, a board corner found on site) it is exact;
+  without one the grid is tried at :data:`ORIGIN_STEPS` x :data:`ORIGIN_STEPS` offsets
+  across one board, the range of counts is reported and the reported grid is the one
+  with the median count (:func:`board_takeoff_over_origins`).
 - *Sections*: anomaly, repair and board figures per roof section. Each board belongs to
   the section holding the largest share of its tear-off area, or to no section, so the
   sections (plus the part of the roof in no section) add up to the totals.
@@ -28,7 +32,7 @@ from __future__ import annotations
 
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from decimal import ROUND_HALF_UP, Decimal
 from typing import TYPE_CHECKING, Any
 
@@ -56,6 +60,8 @@ __all__ = [
     "repair_outline",
     "BoardTakeoff",
     "board_takeoff",
+    "ORIGIN_STEPS",
+    "board_takeoff_over_origins",
     "overlap_areas",
     "SectionTotals",
     "section_totals",
@@ -88,6 +94,10 @@ QUAD_SEGS = 16
 OUTSIDE_SECTIONS = "(outside sections)"
 
 _TOUCH_M2 = 1e-6  # an overlap smaller than this is a touch, not an overlap
+
+#: Offsets tried along each board side when no board origin is given (odd, so that the
+#: median of the counts is one of them): 7 x 7 = 49 grid origins.
+ORIGIN_STEPS = 7
 _OVERLAP_NOTE_M2 = 0.01  # sections overlapping by more than this are reported
 
 
@@ -234,6 +244,13 @@ class BoardTakeoff:
         whole-board take-off was asked for.
     tearoff_m2
         Per board, its area inside the roof, m2 (shape ``(count,)``).
+    count_range
+        Fewest and most boards over the grid origins tried when no origin was given;
+        ``None`` when the origin was given (the count is then exact).
+    origins_tried
+        Number of grid origins tried (0 when the origin was given).
+    origin_rule
+        How the origin of the reported grid was chosen, in words.
     """
 
     boards: tuple[Polygon, ...]
@@ -244,6 +261,19 @@ class BoardTakeoff:
     origin_xy: tuple[float, float] = (0.0, 0.0)
     board_m: tuple[float, float] | None = None
     tearoff_m2: tuple[float, ...] = ()
+    count_range: tuple[int, int] | None = None
+    origins_tried: int = 0
+    origin_rule: str = ""
+
+    @property
+    def range_note(self) -> str | None:
+        """One warning line when the count depends on the unknown joints; ``None`` otherwise."""
+        if self.count_range is None or self.count_range[0] == self.count_range[1]:
+            return None
+        low, high = self.count_range
+        return (f"whole boards: {self.count} reported, but the count runs from {low} to {high} with where the "
+                f"board joints lie ({self.origin_rule}); give [repair] board_origin = [x, y], a board corner "
+                "found on site, for the exact count")
 
 
 def overlap_areas(cells: np.ndarray, geom: BaseGeometry) -> np.ndarray:
@@ -319,6 +349,15 @@ def board_takeoff(repair: BaseGeometry, *, board_m: tuple[float, float], roof: B
         return BoardTakeoff((), 0, 0.0, 0.0, float(angle_deg), origin_xy, tuple(board_m))
     w, h = board_m
     rot_repair = affinity.rotate(repair, -angle_deg, origin=pivot)
+    cells = _grid_cells(rot_repair, ox, oy, w, h)
+    boards = tuple(affinity.rotate(c, angle_deg, origin=pivot) for c in cells)
+    tearoff = tuple(float(a) for a in overlap_areas(np.asarray(boards, dtype=object), roof))
+    return BoardTakeoff(boards, len(boards), len(boards) * w * h, math.fsum(tearoff), float(angle_deg),
+                        origin_xy, (float(w), float(h)), tearoff)
+
+
+def _grid_cells(rot_repair: BaseGeometry, ox: float, oy: float, w: float, h: float) -> np.ndarray:
+    """Boards (in the grid's frame) of the grid with corner ``(ox, oy)`` that ``rot_repair`` overlaps."""
     # candidate boards: those under the bounding box of each repair polygon (not of them all,
     # which on a big roof with scattered repairs is most of the roof)
     cand = []
@@ -331,11 +370,69 @@ def board_takeoff(repair: BaseGeometry, *, board_m: tuple[float, float], roof: B
     x0 = ox + ij[:, 0] * w
     y0 = oy + ij[:, 1] * h
     cells = shapely.box(x0, y0, x0 + w, y0 + h)
-    cells = cells[overlap_areas(cells, rot_repair) > _TOUCH_M2]
-    boards = tuple(affinity.rotate(c, angle_deg, origin=pivot) for c in cells)
-    tearoff = tuple(float(a) for a in overlap_areas(np.asarray(boards, dtype=object), roof))
-    return BoardTakeoff(boards, len(boards), len(boards) * w * h, math.fsum(tearoff), float(angle_deg),
-                        origin_xy, (float(w), float(h)), tearoff)
+    return cells[overlap_areas(cells, rot_repair) > _TOUCH_M2]
+
+
+def board_takeoff_over_origins(repair: BaseGeometry, *, board_m: tuple[float, float], roof: BaseGeometry,
+                               angle_deg: float | None = None, grid_of: BaseGeometry | None = None,
+                               steps: int = ORIGIN_STEPS) -> BoardTakeoff:
+    """Whole boards when the board joints' position is unknown: the range over grid origins.
+
+    The grid (direction as in :func:`board_takeoff`) is laid with its corner at ``steps``
+    x ``steps`` offsets across one board, ``(i w / steps, j h / steps)`` from the default
+    corner (the outline's lower-left corner in the grid's frame). Each origin gives a
+    count; the result is the take-off of the origin with the *median* count (the lowest
+    offset among equals), with the fewest and most boards in ``count_range``. The median
+    is the count to expect when the joints may lie anywhere (common practice: state the
+    range, price the typical case); the contractor cannot choose where existing joints
+    lie, so the minimum is not an achievable figure.
+
+    Parameters
+    ----------
+    repair, board_m, roof, angle_deg, grid_of
+        As in :func:`board_takeoff`.
+    steps
+        Offsets per board side, an odd number >= 1 (so the median is one of the counts).
+
+    Returns
+    -------
+    BoardTakeoff
+        With ``count_range``, ``origins_tried`` and ``origin_rule`` set.
+
+    Examples
+    --------
+    >>> from shapely.geometry import box
+    >>> t = board_takeoff_over_origins(box(0.4, 0.4, 1.4, 1.4), board_m=(1.0, 1.0), roof=box(0, 0, 10, 10),
+    ...                                steps=5)
+    >>> t.count_range, t.count, t.origins_tried   # a 1 m square on a 1 m grid: 1 board only when aligned
+    ((1, 4), 4, 25)
+    """
+    if steps < 1 or steps % 2 == 0:
+        raise ValueError(f"steps = {steps!r}: expected an odd number >= 1")
+    ref = roof if grid_of is None else grid_of
+    if angle_deg is None:
+        angle_deg = dominant_angle_deg(ref)
+    pivot = (0.0, 0.0)
+    rot_ref = affinity.rotate(ref, -angle_deg, origin=pivot)
+    ox0, oy0 = rot_ref.bounds[0], rot_ref.bounds[1]
+    w, h = board_m
+    rule = (f"no [repair] board_origin: the median count over {steps * steps} grid origins "
+            f"({steps} x {steps} offsets across one board), the lowest offset among equals")
+    if repair.is_empty:
+        base = board_takeoff(repair, board_m=board_m, roof=roof, angle_deg=angle_deg, grid_of=grid_of)
+        return replace(base, count_range=(0, 0), origins_tried=steps * steps, origin_rule=rule)
+    rot_repair = affinity.rotate(repair, -angle_deg, origin=pivot)
+    offsets = [(i, j) for i in range(steps) for j in range(steps)]
+    counts = np.array([len(_grid_cells(rot_repair, ox0 + i * w / steps, oy0 + j * h / steps, w, h))
+                       for i, j in offsets])
+    median = int(np.sort(counts)[len(counts) // 2])
+    k = int(np.flatnonzero(counts == median)[0])  # offsets run from the default corner outward
+    i, j = offsets[k]
+    corner = affinity.rotate(shapely.Point(ox0 + i * w / steps, oy0 + j * h / steps), angle_deg, origin=pivot)
+    take = board_takeoff(repair, board_m=board_m, roof=roof, angle_deg=angle_deg,
+                         origin_xy=(float(corner.x), float(corner.y)), grid_of=grid_of)
+    return replace(take, count_range=(int(counts.min()), int(counts.max())), origins_tried=len(offsets),
+                   origin_rule=rule)
 
 
 def largest_overlap(geoms: Sequence[BaseGeometry], zones: Sequence[BaseGeometry]) -> list[int]:
@@ -751,9 +848,13 @@ def compute_quantities(anomalies: Sequence[BaseGeometry], status: Sequence[Statu
     if settings.board_m and hull:
         notes.append(f"[repair] board_m = {list(settings.board_m)} is not used on a hull side: a hull is cut back "
                      "to dry core and billed by area and edge length")
-    if settings.board_m and not hull:
+    if settings.board_m and not hull and settings.board_origin is not None:
         takeoff = board_takeoff(repair, board_m=settings.board_m, roof=roof, angle_deg=settings.board_angle_deg,
                                 origin_xy=settings.board_origin, grid_of=outline)
+        takeoff = replace(takeoff, origin_rule="[repair] board_origin (a board corner given)")
+    elif settings.board_m and not hull:
+        takeoff = board_takeoff_over_origins(repair, board_m=settings.board_m, roof=roof,
+                                             angle_deg=settings.board_angle_deg, grid_of=outline)
     else:
         takeoff = BoardTakeoff((), 0, 0.0, 0.0, 0.0)
     threshold = settings.replace_above_pct

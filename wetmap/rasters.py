@@ -25,7 +25,8 @@ from affine import Affine
 
 from .errors import InputFileError
 
-__all__ = ["PlanGrid", "to_kelvin", "plan_grid_for", "read_onto_grid", "RasterInfo", "inspect_raster"]
+__all__ = ["PlanGrid", "to_kelvin", "plan_grid_for", "read_onto_grid", "RasterInfo", "inspect_raster",
+           "footprint", "sample_in_outline"]
 
 log = logging.getLogger(__name__)
 
@@ -159,14 +160,21 @@ def inspect_raster(path: Path, *, origin: tuple[float, float] | None = None, pix
     if rows < 1 or cols < 1:
         raise InputFileError(f"{path}: is empty ({rows} x {cols} pixels)")
     if origin is not None and pixel_m is not None:
+        if not transform.is_identity:  # origin/pixel_m place only a raster that carries no transform
+            raise InputFileError(
+                f"{path}: carries its own geo-transform {tuple(round(v, 6) for v in tuple(transform)[:6])}, but its "
+                "[[mosaic]] entry also gives origin and pixel_m; remove origin and pixel_m (they apply only to a "
+                "raster with no transform), or fix the raster's transform where it was exported"
+            )
         transform = Affine(pixel_m, 0.0, origin[0], 0.0, -pixel_m, origin[1])
     elif transform.is_identity:
         raise InputFileError(
             f"{path}: has no geo-transform (pixel coordinates only), so areas would be in pixels; "
             "add origin = [x, y] (upper-left corner) and pixel_m to its [[mosaic]] entry"
         )
-    if abs(transform.determinant) == 0:
-        raise InputFileError(f"{path}: degenerate geo-transform {tuple(transform)[:6]}")
+    if not all(math.isfinite(v) for v in tuple(transform)[:6]) or abs(transform.determinant) == 0:
+        raise InputFileError(f"{path}: degenerate geo-transform {tuple(transform)[:6]} (zero pixel size); "
+                             "export the mosaic again with its placement")
     crs_text = None
     if crs is not None:
         if crs.is_geographic:
@@ -253,7 +261,7 @@ def _aligned(info: RasterInfo, grid: PlanGrid) -> tuple[int, int] | None:
 
 
 def read_onto_grid(path: Path, grid: PlanGrid, *, info: RasterInfo, units: Units, scale: float = 1.0,
-                   offset: float = 0.0) -> np.ndarray:
+                   offset: float = 0.0, inside=None) -> np.ndarray:
     """Read a raster's temperatures onto ``grid``, in kelvin, float32, NaN where no data.
 
     Parameters
@@ -266,6 +274,10 @@ def read_onto_grid(path: Path, grid: PlanGrid, *, info: RasterInfo, units: Units
         From :func:`inspect_raster` (carries an origin/pixel_m override).
     units, scale, offset
         ``value = raw * scale + offset`` is in ``units``.
+    inside
+        The outline (plan coordinates), or ``None``. When the raster is resampled, grid pixels
+        whose centres lie inside it are interpolated only from source pixels whose centres lie
+        inside it too, so a warm parapet just outside never bleeds into the roof's edge row.
 
     Returns
     -------
@@ -294,7 +306,7 @@ def read_onto_grid(path: Path, grid: PlanGrid, *, info: RasterInfo, units: Units
                     block = _to_float(data, scale, offset)
                     out[rr0 - r0: rr1 - r0, cc0 - c0: cc1 - c0] = block
             else:
-                _warp(src, info, grid, out, scale, offset)
+                _warp(src, info, grid, out, scale, offset, inside=inside)
     except (RasterioError, CPLE_BaseError) as err:
         detail = err.__cause__ or err  # rasterio's "see previous exception" hides GDAL's own reason
         raise InputFileError(
@@ -314,8 +326,14 @@ def _to_float(data: np.ma.MaskedArray, scale: float, offset: float) -> np.ndarra
     return values
 
 
-def _warp(src, info: RasterInfo, grid: PlanGrid, out: np.ndarray, scale: float, offset: float) -> None:
-    """Bilinear resampling of the whole raster onto the grid (rotated, south-up, other size or CRS)."""
+def _warp(src, info: RasterInfo, grid: PlanGrid, out: np.ndarray, scale: float, offset: float, *,
+          inside=None) -> None:
+    """Bilinear resampling of the whole raster onto the grid (rotated, south-up, other size or CRS).
+
+    With ``inside`` (the outline, plan coordinates), grid pixels whose centres lie inside are
+    resampled a second time from the source pixels whose centres lie inside (GDAL's bilinear
+    kernel weighs only valid source pixels), so nothing from beyond the outline mixes in.
+    """
     from rasterio.warp import Resampling, reproject
 
     log.info("%s: resampled onto the plan grid (bilinear)", src.name)
@@ -324,14 +342,130 @@ def _warp(src, info: RasterInfo, grid: PlanGrid, out: np.ndarray, scale: float, 
     dst_crs = grid.crs or src_crs
     if grid.crs is None:  # local plan: raster coordinates are plan metres
         src_crs = dst_crs = "EPSG:3857"  # any metric CRS: identical on both sides, so no reprojection happens
-    reproject(
-        source=data,
-        destination=out,
-        src_transform=info.transform,
-        src_crs=src_crs,
-        src_nodata=np.nan,
-        dst_transform=grid.transform,
-        dst_crs=dst_crs,
-        dst_nodata=np.nan,
-        resampling=Resampling.bilinear,
-    )
+
+    def warp(source: np.ndarray, destination: np.ndarray) -> None:
+        reproject(source=source, destination=destination, src_transform=info.transform, src_crs=src_crs,
+                  src_nodata=np.nan, dst_transform=grid.transform, dst_crs=dst_crs, dst_nodata=np.nan,
+                  resampling=Resampling.bilinear)
+
+    warp(data, out)
+    if inside is None or getattr(inside, "is_empty", True):
+        return
+    from .tiles import roof_mask
+
+    grid_in = roof_mask(inside, grid.transform, grid.shape)
+    if not grid_in.any():
+        return
+    local = _in_raster_crs(inside, info.crs, grid.crs)
+    src_in = roof_mask(local, info.transform, data.shape)  # the pixel-centre rule, any affine transform
+    data[~src_in] = np.nan
+    clean = np.full(out.shape, np.nan, dtype=out.dtype)
+    warp(data, clean)
+    out[grid_in] = clean[grid_in]
+
+
+def _in_raster_crs(geometry, raster_crs: str | None, plan_crs: str | None):
+    """``geometry`` (plan coordinates) in the raster's coordinates."""
+    if _same_crs(raster_crs, plan_crs):
+        return geometry
+    import shapely
+    from pyproj import Transformer
+
+    tr = Transformer.from_crs(plan_crs, raster_crs, always_xy=True)
+    return shapely.transform(geometry, lambda xy: np.column_stack(tr.transform(xy[:, 0], xy[:, 1])))
+
+
+def footprint(info: RasterInfo, plan_crs: str | None):
+    """The raster's outer edge as a polygon in plan coordinates (its corners transformed)."""
+    import shapely
+
+    cols = np.array([0.0, info.cols, info.cols, 0.0])
+    rows = np.array([0.0, 0.0, info.rows, info.rows])
+    xs, ys = info.transform @ (cols, rows)
+    if not _same_crs(info.crs, plan_crs):
+        from pyproj import Transformer
+
+        xs, ys = Transformer.from_crs(info.crs, plan_crs, always_xy=True).transform(xs, ys)
+    return shapely.Polygon(np.column_stack([xs, ys]))
+
+
+def sample_in_outline(path: Path, info: RasterInfo, outline, *, plan_crs: str | None, units: Units,
+                      scale: float = 1.0, offset: float = 0.0, max_side: int = 1024) -> np.ndarray:
+    """Apparent temperatures, degC, of a sample of the raster's pixels whose centres lie in ``outline``.
+
+    Cheap on huge mosaics: only the outline's window is read, decimated to at most
+    ``max_side`` pixels a side when the file has overviews (GDAL reads one), else as 8 x 8
+    patches of 32 x 32 pixels spread over the window (then decimated if they hold fewer than
+    100 values inside the outline). When the
+    sample holds no value, the window is scanned at full resolution in strips, stopping at the
+    first strip with data, so a narrow outline is never reported empty by mistake.
+
+    Returns
+    -------
+    numpy.ndarray
+        1-D, finite values only; empty when no pixel with data lies inside the outline.
+    """
+    from rasterio.errors import RasterioError
+    from rasterio.windows import Window
+
+    try:
+        from rasterio._err import CPLE_BaseError
+    except ImportError:  # pragma: no cover
+        CPLE_BaseError = RasterioError
+
+    local = _in_raster_crs(outline, info.crs, plan_crs)
+    inv = ~info.transform
+    x0, y0, x1, y1 = local.bounds
+    cs, rs = inv @ (np.array([x0, x1, x1, x0]), np.array([y0, y0, y1, y1]))
+    c0, c1 = max(int(math.floor(min(cs))), 0), min(int(math.ceil(max(cs))), info.cols)
+    r0, r1 = max(int(math.floor(min(rs))), 0), min(int(math.ceil(max(rs))), info.rows)
+    if c1 <= c0 or r1 <= r0:
+        return np.zeros(0, np.float64)
+
+    def values_of(window, out_shape) -> np.ndarray:
+        data = src.read(1, window=window, out_shape=out_shape, masked=True)
+        oh, ow = out_shape
+        i, j = np.indices(out_shape, dtype=np.float64)
+        cols = window.col_off + (j + 0.5) * window.width / ow
+        rows = window.row_off + (i + 0.5) * window.height / oh
+        xs, ys = info.transform @ (cols, rows)
+        keep = shapely.contains_xy(local, xs, ys) & ~np.ma.getmaskarray(data)
+        values = np.asarray(data.data, dtype=np.float64)[keep] * scale + offset
+        values = values[np.isfinite(values)]
+        return to_kelvin(values, units) - 273.15
+
+    import shapely
+
+    try:
+        with _open(path) as src:
+            wr, wc = r1 - r0, c1 - c0
+            if wr * wc > 4 * max_side * max_side and not src.overviews(1):
+                # no overview to read from: 8 x 8 small patches spread over the window (a decimated
+                # read of a tiled file without overviews would read every block)
+                side, k = 32, 8
+                parts = []
+                for a in range(k):
+                    for b in range(k):
+                        row = min(max(r0 + int((a + 0.5) * wr / k) - side // 2, r0), r1 - min(side, wr))
+                        col = min(max(c0 + int((b + 0.5) * wc / k) - side // 2, c0), c1 - min(side, wc))
+                        parts.append(values_of(Window(col, row, min(side, wc), min(side, wr)),
+                                               (min(side, wr), min(side, wc))))
+                found = np.concatenate(parts)
+                if found.size >= 100:
+                    return found
+            factor = max(1, math.ceil(max(wr, wc) / max_side))
+            found = values_of(Window(c0, r0, wc, wr), (max(1, math.ceil(wr / factor)), max(1, math.ceil(wc / factor))))
+            if found.size or factor == 1:
+                return found
+            strip = max(1, (max_side * max_side) // max(wc, 1))
+            for row in range(r0, r1, strip):
+                rows = min(strip, r1 - row)
+                found = values_of(Window(c0, row, wc, rows), (rows, wc))
+                if found.size:
+                    return found
+            return found
+    except (RasterioError, CPLE_BaseError) as err:
+        detail = err.__cause__ or err
+        raise InputFileError(
+            f"{path}: cannot be read ({detail}); the file may be truncated or corrupt: export it again"
+        ) from None

@@ -6,8 +6,12 @@ Image points are ``(col, row)`` in pixel-index units: whole numbers are pixel
 *centres*, so ``(0, 0)`` is the centre of the top-left pixel and ``(-0.5, -0.5)`` its
 outer corner (numpy's and scikit-image's convention, and what an image viewer that
 shows pixel indices reports). Plan points ``(x, y)`` are plan metres. A roof or a
-developed hull side is taken as a plane, so one projective transform (a homography)
-maps a frame onto the plan.
+flat panel of a hull side is a plane, so one projective transform (a homography)
+maps a frame onto the plan. A curved hull skin is not: with a dense tape grid (6 marks or
+more) a frame may be placed by a piecewise map, plan -> image (:class:`SkinMap`,
+:func:`choose_model`): piecewise-affine over the marks' Delaunay triangles, or a thin-plate
+spline (Bookstein 1989, IEEE PAMI 11(6)), whichever predicts left-out marks best, and only
+when clearly better than the homography.
 
 Fitting (:func:`fit_projective`)
 --------------------------------
@@ -48,6 +52,14 @@ most :data:`MAX_FORESHORTENING` times longer than it is wide (about 70° from sq
 the image centre; at grazing views emissivity falls and one pixel smears a long strip).
 Image pixels without data give no data; bilinear sampling next to them gives none either.
 
+Each covered plan pixel also gets an estimated viewing angle: ``cos(angle) = small / large``
+singular value of the local plan -> image Jacobian (a square-on skin element images
+undistorted; tilted by ``a`` it is shortened by ``cos a`` across its tilt).
+:func:`placement_ranks` ranks every frame's pixels (outside a piecewise frame's marks, a
+blurred frame, a view beyond ``[camera] max_view_angle_deg`` where another is at least
+:data:`VIEW_ANGLE_TOLERANCE_DEG` better) and only the best-ranked frames of a plan pixel
+are blended.
+
 Overlaps are blended as a weighted mean with weight ``taper / g**2``: ``g`` is the coarser
 ground sampling distance of the pixel's footprint (metres per image pixel, from the local
 Jacobian of the transform, whose determinant is the footprint's area): small for a sharp,
@@ -77,7 +89,7 @@ from __future__ import annotations
 import itertools
 import math
 from collections.abc import Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 
@@ -99,6 +111,16 @@ __all__ = [
     "choose_pixel_m",
     "resample_frame",
     "blend_frames",
+    "placement_ranks",
+    "fresnel_emissivity",
+    "girth_stretch",
+    "GirthStretch",
+    "GIRTH_STRETCH_MAX",
+    "SkinMap",
+    "choose_model",
+    "SKIN_MODELS",
+    "MIN_PIECEWISE_POINTS",
+    "MAX_VIEW_ANGLE_DEG",
     "MAX_FORESHORTENING",
     "EDGE_TAPER_FRACTION",
     "SUSPECT_MIN_PX",
@@ -131,6 +153,21 @@ DISTINCT_RATIO = 1.5
 #: Relative tolerance for "the same point" and "on one line": a fraction of the spread
 #: of the points (and at least half a pixel in the image).
 _REL_TOL = 1e-3
+#: The models that can place a frame (:func:`choose_model`).
+SKIN_MODELS = ("homography", "piecewise-affine", "thin-plate spline")
+#: A frame is registered piecewise only from this many control points on (a dense tape grid:
+#: fewer leave too few triangles, and 4 or 5 points cannot check a piecewise model at all).
+MIN_PIECEWISE_POINTS = 6
+#: Beyond this angle from the skin's normal a frame's pixels are not used where a better
+#: view covers the same skin (``[camera] max_view_angle_deg``; common practice: keep views
+#: within about 60 degrees of square-on, beyond which emissivity falls and pixels smear).
+MAX_VIEW_ANGLE_DEG = 60.0
+#: Views beyond the limit but within this many degrees of the best view of a plan pixel are
+#: still used there (several equally oblique views are blended, not one picked at random).
+VIEW_ANGLE_TOLERANCE_DEG = 5.0
+#: A piecewise-registered frame is extrapolated at most this fraction of its marks' spacing
+#: beyond their hull (a piecewise model is unfounded far from its marks).
+EXTRAPOLATE_SPACING = 0.25
 _NICE = (1.0, 1.5, 2.0, 2.5, 3.0, 4.0, 5.0, 6.0, 8.0)
 
 
@@ -628,21 +665,268 @@ def leave_one_out(image_cr: np.ndarray, plan_xy: np.ndarray, *, min_px: float = 
 
 @dataclass(frozen=True)
 class Registration:
-    """A frame's fit and its leave-one-out check."""
+    """A frame's fit and its leave-one-out check, and the map that places it on the plan.
+
+    Attributes
+    ----------
+    fit
+        The homography fitted to all control points (always computed: its residuals say how
+        far the frame is from a view of a plane, and the image checks use it).
+    loo
+        The homography's leave-one-out check (a misplaced point).
+    skin
+        The map used to place the frame (:class:`SkinMap`); the homography unless a dense tape
+        grid chose a piecewise model (:func:`choose_model`).
+    models
+        Leave-one-out figures of each model tried: ``{model: (rms_px, rms_m)}``.
+    """
 
     fit: ProjectiveFit
     loo: LeaveOneOut
+    skin: "SkinMap | None" = None
+    models: dict = field(default_factory=dict)
 
     @property
     def matrix(self) -> np.ndarray:
-        """Image ``(col, row)`` -> plan ``(x, y)``, ``(3, 3)``."""
+        """Image ``(col, row)`` -> plan ``(x, y)``, ``(3, 3)`` (the homography)."""
         return self.fit.matrix
 
+    @property
+    def model(self) -> str:
+        """The model that places the frame."""
+        return "homography" if self.skin is None else self.skin.model
 
-def register_points(image_cr: np.ndarray, plan_xy: np.ndarray, *, where: str = "control points") -> Registration:
-    """:func:`fit_projective` and, with 5 or more points, :func:`leave_one_out`."""
+    @property
+    def mapping(self) -> "SkinMap | np.ndarray":
+        """What :func:`resample_frame` takes: the skin map, or the homography."""
+        return self.matrix if self.skin is None else self.skin
+
+
+def register_points(image_cr: np.ndarray, plan_xy: np.ndarray, *, where: str = "control points",
+                    piecewise: bool = False) -> Registration:
+    """:func:`fit_projective` and, with 5 or more points, :func:`leave_one_out`.
+
+    ``piecewise``: with :data:`MIN_PIECEWISE_POINTS` or more points, also try the piecewise
+    models and keep the one :func:`choose_model` picks.
+    """
+    image_cr = np.asarray(image_cr, dtype=np.float64).reshape(-1, 2)
+    plan_xy = np.asarray(plan_xy, dtype=np.float64).reshape(-1, 2)
     fit = fit_projective(image_cr, plan_xy, where=where)
-    return Registration(fit=fit, loo=leave_one_out(image_cr, plan_xy))
+    loo = leave_one_out(image_cr, plan_xy)
+    if not piecewise or len(image_cr) < MIN_PIECEWISE_POINTS:
+        return Registration(fit=fit, loo=loo)
+    model, models = choose_model(image_cr, plan_xy, fit=fit, loo=loo)
+    return Registration(fit=fit, loo=loo, skin=SkinMap(model, fit.matrix, plan_xy, image_cr), models=models)
+
+
+# --------------------------------------------------------------------------------------
+# Piecewise maps on a tape grid
+# --------------------------------------------------------------------------------------
+
+
+class _PiecewiseAffine:
+    """Plan -> image, affine on each triangle of the marks' Delaunay triangulation
+    (:class:`scipy.spatial.Delaunay`); outside the marks' hull, the affine map of the triangle
+    whose least barycentric coordinate is the largest (the nearest triangle's plane extended)."""
+
+    def __init__(self, plan_xy: np.ndarray, image_cr: np.ndarray):
+        from scipy.spatial import Delaunay
+
+        self.tri = Delaunay(plan_xy)
+        self.image_cr = image_cr
+
+    def __call__(self, pts: np.ndarray) -> np.ndarray:
+        tri = self.tri
+        t = tri.transform  # (k, 3, 2)
+        simplex = tri.find_simplex(pts)
+        out_idx = np.flatnonzero(simplex < 0)
+        if len(out_idx):
+            d = pts[out_idx, None, :] - t[None, :, 2, :]
+            b = np.einsum("kij,nkj->nki", t[:, :2, :], d)
+            bary = np.concatenate([b, 1 - b.sum(-1, keepdims=True)], axis=-1)
+            simplex[out_idx] = np.argmax(bary.min(-1), axis=1)
+        tt = t[simplex]
+        b = np.einsum("nij,nj->ni", tt[:, :2, :], pts - tt[:, 2, :])
+        bary = np.concatenate([b, 1 - b.sum(-1, keepdims=True)], axis=-1)
+        verts = self.image_cr[tri.simplices[simplex]]  # (n, 3, 2)
+        return np.einsum("ni,nij->nj", bary, verts)
+
+
+def _interpolator(model: str, plan_xy: np.ndarray, image_cr: np.ndarray):
+    """A callable ``(n, 2)`` plan points -> ``(n, 2)`` image points for a piecewise model."""
+    if model == "piecewise-affine":
+        return _PiecewiseAffine(plan_xy, image_cr)
+    if model == "thin-plate spline":
+        from scipy.interpolate import RBFInterpolator
+
+        return RBFInterpolator(plan_xy, image_cr, kernel="thin_plate_spline", degree=1)
+    raise ValueError(f"unknown model {model!r}")
+
+
+@dataclass(frozen=True)
+class SkinMap:
+    """Plan ``(x, y)`` -> image ``(col, row)`` of one frame, by one of :data:`SKIN_MODELS`.
+
+    Attributes
+    ----------
+    model
+        ``"homography"``, ``"piecewise-affine"`` (Delaunay triangles of the marks) or
+        ``"thin-plate spline"`` (Bookstein 1989).
+    matrix
+        The frame's homography, image -> plan (``(3, 3)``): it tells in front of the camera
+        from behind, and gives the frame's figures for the image checks.
+    plan_xy, image_cr
+        ``(n, 2)`` the marks.
+    """
+
+    model: str
+    matrix: np.ndarray
+    plan_xy: np.ndarray
+    image_cr: np.ndarray
+
+    def __post_init__(self) -> None:
+        interp = None if self.model == "homography" else _interpolator(self.model, self.plan_xy, self.image_cr)
+        object.__setattr__(self, "_interp", interp)
+        object.__setattr__(self, "_inverse", np.linalg.inv(self.matrix))
+
+    @property
+    def piecewise(self) -> bool:
+        """True for the piecewise models (they are trusted inside the marks' hull only)."""
+        return self.model != "homography"
+
+    def to_image(self, xs: np.ndarray, ys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Image ``(cols, rows)`` of plan points (any shape)."""
+        xs, ys = np.asarray(xs, dtype=np.float64), np.asarray(ys, dtype=np.float64)
+        if self._interp is None:
+            return project(self._inverse, xs, ys)
+        cr = self._interp(np.column_stack([xs.ravel(), ys.ravel()]))
+        return cr[:, 0].reshape(xs.shape), cr[:, 1].reshape(xs.shape)
+
+    def scales(self, xs: np.ndarray, ys: np.ndarray, *, step_m: float) -> tuple[np.ndarray, np.ndarray]:
+        """Singular values ``(large, small)`` of the local Jacobian of plan -> image, pixels per metre
+        (central differences over ``step_m``)."""
+        xs, ys = np.asarray(xs, dtype=np.float64), np.asarray(ys, dtype=np.float64)
+        h = 0.5 * step_m
+        c1, r1 = self.to_image(xs + h, ys)
+        c0, r0 = self.to_image(xs - h, ys)
+        a, c = (c1 - c0) / step_m, (r1 - r0) / step_m
+        c1, r1 = self.to_image(xs, ys + h)
+        c0, r0 = self.to_image(xs, ys - h)
+        b, d = (c1 - c0) / step_m, (r1 - r0) / step_m
+        s = a * a + b * b + c * c + d * d
+        det = np.abs(a * d - b * c)
+        root = np.sqrt(np.maximum(s * s - 4.0 * det * det, 0.0))
+        return np.sqrt(0.5 * (s + root)), np.sqrt(np.maximum(0.5 * (s - root), 0.0))
+
+    def inside_marks(self, xs: np.ndarray, ys: np.ndarray) -> np.ndarray:
+        """True where a plan point lies in the marks' convex hull."""
+        import shapely
+
+        hull = shapely.MultiPoint(self.plan_xy).convex_hull.buffer(1e-9)
+        xs, ys = np.asarray(xs, dtype=np.float64), np.asarray(ys, dtype=np.float64)
+        shapely.prepare(hull)
+        return shapely.contains_xy(hull, xs, ys)
+
+    @property
+    def spacing_m(self) -> float:
+        """Median distance from each mark to its nearest neighbour, plan metres."""
+        d = np.sqrt(((self.plan_xy[:, None, :] - self.plan_xy[None, :, :]) ** 2).sum(-1))
+        np.fill_diagonal(d, np.inf)
+        return float(np.median(d.min(axis=1)))
+
+    def beyond_marks_m(self, xs: np.ndarray, ys: np.ndarray) -> np.ndarray:
+        """Distance of plan points from the marks' convex hull, metres (0 inside)."""
+        import shapely
+
+        hull = shapely.MultiPoint(self.plan_xy).convex_hull
+        xs, ys = np.asarray(xs, dtype=np.float64), np.asarray(ys, dtype=np.float64)
+        return shapely.distance(hull, shapely.points(xs, ys)).reshape(xs.shape)
+
+    def hull_in_image(self, *, step_m: float) -> np.ndarray:
+        """``(m, 2)`` image ``(col, row)`` of the marks' convex hull boundary, densified every ``step_m``."""
+        import shapely
+
+        ring = shapely.MultiPoint(self.plan_xy).convex_hull.exterior
+        ring = shapely.segmentize(ring, max(step_m, 1e-6))
+        xy = np.asarray(ring.coords)
+        c, r = self.to_image(xy[:, 0], xy[:, 1])
+        return np.column_stack([c, r])
+
+
+def _loo_piecewise(model: str, image_cr: np.ndarray, plan_xy: np.ndarray) -> np.ndarray:
+    """``(n, 2)`` image offset of each mark from where a fit of ``model`` to the others puts it."""
+    n = len(image_cr)
+    out = np.full((n, 2), np.nan)
+    for i in range(n):
+        keep = np.arange(n) != i
+        try:
+            f = _interpolator(model, plan_xy[keep], image_cr[keep])
+            out[i] = image_cr[i] - f(plan_xy[i:i + 1])[0]
+        except (ValueError, RuntimeError, np.linalg.LinAlgError):  # a degenerate subset: no prediction
+            continue
+    return out
+
+
+def _interior_marks(plan_xy: np.ndarray) -> np.ndarray:
+    """True for each mark lying in the convex hull of the other marks (on its edge included).
+
+    Leaving out a corner of the grid asks a model to extrapolate, which no frame pixel in
+    use needs (pixels outside the marks' hull are used only as a last resort): the models
+    are compared on the marks they must interpolate. All marks when fewer than 3 qualify.
+    """
+    import shapely
+
+    n = len(plan_xy)
+    tol = _REL_TOL * max(_spread(plan_xy), 1e-12)
+    out = np.zeros(n, dtype=bool)
+    for i in range(n):
+        others = shapely.MultiPoint(np.delete(plan_xy, i, axis=0)).convex_hull
+        out[i] = others.distance(shapely.Point(plan_xy[i])) <= tol
+    return out if out.sum() >= 3 else np.ones(n, dtype=bool)
+
+
+def choose_model(image_cr: np.ndarray, plan_xy: np.ndarray, *, fit: ProjectiveFit,
+                 loo: LeaveOneOut) -> tuple[str, dict]:
+    """Pick the model that places a frame: homography, piecewise-affine or thin-plate spline.
+
+    Each model predicts every mark from the others (leave-one-out); its RMS error over the
+    marks that lie within the others' hull (:func:`_interior_marks`) says how well it places
+    skin between marks. The homography (the right model for a plane,
+    and the one that extrapolates safely) is kept unless a piecewise model predicts the
+    marks at least :data:`DISTINCT_RATIO` times better *and* the homography misses them by
+    more than :data:`SUSPECT_MIN_PX` RMS (beyond what picking explains), or when the
+    homography's leave-one-out names one misplaced point (a typo is the likelier cause).
+
+    Returns
+    -------
+    model, figures
+        The chosen model; ``{model: (rms_px, rms_m)}`` for each model tried (errors in
+        metres on the skin: pixel errors divided by the local scale at each mark).
+    """
+    figures: dict[str, tuple[float, float]] = {}
+    judged = _interior_marks(plan_xy)
+    e = loo.error_px[judged & np.isfinite(loo.error_px)]
+    em = loo.error_m[judged & np.isfinite(loo.error_m)]
+    figures["homography"] = (float(np.sqrt(np.mean(e ** 2))) if len(e) else math.nan,
+                             float(np.sqrt(np.mean(em ** 2))) if len(em) else math.nan)
+    for model in SKIN_MODELS[1:]:
+        off = _loo_piecewise(model, image_cr, plan_xy)
+        err = np.hypot(off[:, 0], off[:, 1])
+        ok = np.isfinite(err) & judged
+        if not ok.any():
+            continue
+        full = SkinMap(model, fit.matrix, plan_xy, image_cr)
+        step = 0.01 * max(_spread(plan_xy), 1e-6)
+        large, small = full.scales(plan_xy[ok, 0], plan_xy[ok, 1], step_m=step)
+        err_m = err[ok] / np.sqrt(large * small)
+        figures[model] = (float(np.sqrt(np.mean(err[ok] ** 2))), float(np.sqrt(np.mean(err_m ** 2))))
+    h_px = figures["homography"][0]
+    best = min(SKIN_MODELS[1:], key=lambda m: figures.get(m, (math.inf,))[0])
+    b_px = figures.get(best, (math.inf,))[0]
+    if (loo.suspect is None and math.isfinite(h_px) and h_px > SUSPECT_MIN_PX
+            and b_px * DISTINCT_RATIO <= h_px):
+        return best, figures
+    return "homography", figures
 
 
 # --------------------------------------------------------------------------------------
@@ -737,12 +1021,22 @@ class ResampledFrame:
     gsd_m
         Coarser ground sampling distance at each pixel, m per image pixel (NaN where
         not covered).
+    view_angle_deg
+        Estimated angle between the line of sight and the skin's normal, degrees (NaN where
+        not covered; ``None``: not estimated, taken as square-on). From the anisotropy of the
+        local map: ``cos(angle) = small / large`` singular value of its Jacobian.
+    outside_marks
+        Bool, True where the pixel lies outside the marks' convex hull of a piecewise-registered
+        frame (extrapolated; used only where no frame covers it from within its marks);
+        ``None``: nowhere.
     """
 
     window: tuple[int, int, int, int]
     values: np.ndarray
     weights: np.ndarray
     gsd_m: np.ndarray
+    view_angle_deg: np.ndarray | None = None
+    outside_marks: np.ndarray | None = None
 
     @property
     def covered(self) -> int:
@@ -750,17 +1044,36 @@ class ResampledFrame:
         return int(np.count_nonzero(self.weights > 0))
 
 
-def resample_frame(values: np.ndarray, matrix: np.ndarray, *, grid_transform, grid_shape: tuple[int, int],
+def _image_mask_inside(polygon_cr: np.ndarray, shape: tuple[int, int]) -> np.ndarray:
+    """Image pixels lying wholly inside a polygon given in image ``(col, row)``: the pixel centres
+    inside it, eroded by one pixel (a pixel straddling the edge sees skin beyond the marks)."""
+    from scipy import ndimage
+    from skimage.draw import polygon as fill_polygon
+
+    rows, cols = shape
+    mask = np.zeros(shape, dtype=bool)
+    finite = np.isfinite(polygon_cr).all(axis=1)
+    if finite.sum() < 3:
+        return mask
+    rr, cc = fill_polygon(polygon_cr[finite, 1], polygon_cr[finite, 0], shape=(rows, cols))
+    mask[rr, cc] = True
+    return ndimage.binary_erosion(mask, structure=np.ones((3, 3), bool), border_value=1)
+
+
+def resample_frame(values: np.ndarray, mapping, *, grid_transform, grid_shape: tuple[int, int],
                    max_foreshortening: float = MAX_FORESHORTENING,
                    taper_fraction: float = EDGE_TAPER_FRACTION) -> ResampledFrame | None:
-    """Resample a frame onto the plan grid by its projective transform.
+    """Resample a frame onto the plan grid by its registration.
 
     Parameters
     ----------
     values
         ``(rows, cols)`` frame values (any units), NaN where no data.
-    matrix
-        Image ``(col, row)`` -> plan ``(x, y)``, ``(3, 3)``.
+    mapping
+        The homography image ``(col, row)`` -> plan ``(x, y)`` (``(3, 3)``), or a
+        :class:`SkinMap` (:attr:`Registration.mapping`). With a piecewise skin map, plan
+        pixels inside the marks' hull are sampled only from image pixels wholly inside the
+        hull's image; those outside are sampled as they come and flagged ``outside_marks``.
     grid_transform
         Affine of the north-up plan grid (pixel corner ``(col, row)`` -> plan ``(x, y)``).
     grid_shape
@@ -778,6 +1091,8 @@ def resample_frame(values: np.ndarray, matrix: np.ndarray, *, grid_transform, gr
     """
     from scipy import ndimage
 
+    skin = mapping if isinstance(mapping, SkinMap) else None
+    matrix = np.asarray(mapping.matrix if skin is not None else mapping, dtype=np.float64)
     values = np.asarray(values, dtype=np.float32)
     rows, cols = values.shape
     g_rows, g_cols = grid_shape
@@ -791,9 +1106,12 @@ def resample_frame(values: np.ndarray, matrix: np.ndarray, *, grid_transform, gr
     xs, ys = project(matrix, lc[ok], lr[ok])
     _, coarse = ground_sampling_m(matrix, lc[ok], lr[ok])
     pad = 2.0 * step * float(np.max(coarse))
+    x_lo, x_hi, y_lo, y_hi = xs.min() - pad, xs.max() + pad, ys.min() - pad, ys.max() + pad
+    if skin is not None and skin.piecewise:
+        x_lo, x_hi = min(x_lo, skin.plan_xy[:, 0].min()), max(x_hi, skin.plan_xy[:, 0].max())
+        y_lo, y_hi = min(y_lo, skin.plan_xy[:, 1].min()), max(y_hi, skin.plan_xy[:, 1].max())
     inv = ~ga
-    cs, rs = inv @ (np.array([xs.min() - pad, xs.max() + pad, xs.min() - pad, xs.max() + pad]),
-                    np.array([ys.min() - pad, ys.min() - pad, ys.max() + pad, ys.max() + pad]))
+    cs, rs = inv @ (np.array([x_lo, x_hi, x_lo, x_hi]), np.array([y_lo, y_lo, y_hi, y_hi]))
     c0, c1 = max(int(math.floor(np.min(cs))), 0), min(int(math.ceil(np.max(cs))), g_cols)
     r0, r1 = max(int(math.floor(np.min(rs))), 0), min(int(math.ceil(np.max(rs))), g_rows)
     if c1 <= c0 or r1 <= r0:
@@ -802,36 +1120,99 @@ def resample_frame(values: np.ndarray, matrix: np.ndarray, *, grid_transform, gr
     cc, rr = np.meshgrid(np.arange(c0, c1) + 0.5, np.arange(r0, r1) + 0.5)
     px, py = ga @ (cc, rr)
     g = np.linalg.inv(matrix)
-    u, v = project(g, px, py)
-    w_img = _w(matrix, u, v)
+    u_h, v_h = project(g, px, py)
+    in_front = _w(matrix, u_h, v_h) > 0
+    outside = None
+    if skin is not None and skin.piecewise:
+        pixel_m = math.sqrt(abs(ga.a * ga.e - ga.b * ga.d))
+        u, v = skin.to_image(px, py)
+        large, small = skin.scales(px, py, step_m=pixel_m)
+        with np.errstate(divide="ignore", invalid="ignore"):
+            fine, coarse_px = 1.0 / large, 1.0 / small
+        outside = ~skin.inside_marks(px, py)
+        far = skin.beyond_marks_m(px, py) > EXTRAPOLATE_SPACING * skin.spacing_m
+        in_front &= ~far  # extrapolated only next to the marks
+    else:
+        u, v = u_h, v_h
+        fine, coarse_px = ground_sampling_m(matrix, np.where(in_front, u, 0.0), np.where(in_front, v, 0.0))
     with np.errstate(invalid="ignore"):
-        inside = (u >= -0.5) & (u <= cols - 0.5) & (v >= -0.5) & (v <= rows - 0.5) & (w_img > 0)
-    fine, coarse_px = ground_sampling_m(matrix, np.where(inside, u, 0.0), np.where(inside, v, 0.0))
-    with np.errstate(invalid="ignore"):
+        inside = (u >= -0.5) & (u <= cols - 0.5) & (v >= -0.5) & (v <= rows - 0.5) & in_front
         inside &= np.isfinite(coarse_px) & (coarse_px <= max_foreshortening * fine)
     if not inside.any():
         return None
     uu, vv = np.clip(np.where(inside, u, 0.0), 0, cols - 1), np.clip(np.where(inside, v, 0.0), 0, rows - 1)
     sampled = ndimage.map_coordinates(values, [vv, uu], order=1, mode="nearest", prefilter=False)
+    if outside is not None:  # inside the marks' hull: only image pixels wholly within its image
+        pixel_m = math.sqrt(abs(ga.a * ga.e - ga.b * ga.d))
+        within = _image_mask_inside(skin.hull_in_image(step_m=pixel_m), (rows, cols)) & np.isfinite(values)
+        kept = ndimage.map_coordinates(np.where(within, values, np.nan).astype(np.float32), [vv, uu], order=1,
+                                       mode="nearest", prefilter=False)
+        sampled = np.where(outside, sampled, kept)
     # distance (image pixels) from the frame edge or nodata, for the taper
-    valid = np.pad(np.isfinite(values), 1, constant_values=False)
-    dist = ndimage.distance_transform_edt(valid)[1:-1, 1:-1].astype(np.float32)
-    d = ndimage.map_coordinates(dist, [vv, uu], order=1, mode="nearest", prefilter=False)
+    dist = ndimage.distance_transform_edt(np.pad(np.isfinite(values), 1, constant_values=False))[1:-1, 1:-1]
+    d = ndimage.map_coordinates(dist.astype(np.float32), [vv, uu], order=1, mode="nearest", prefilter=False)
     taper_px = max(taper_fraction * min(rows, cols), 1.0)
     taper = np.clip((d - 0.5) / taper_px, 1e-3, 1.0)
     good = inside & np.isfinite(sampled)
     with np.errstate(invalid="ignore", divide="ignore"):
         weights = np.where(good, taper / np.where(good, coarse_px, 1.0) ** 2, 0.0).astype(np.float32)
+        cos_view = np.clip(np.where(good, fine / np.where(good, coarse_px, 1.0), np.nan), 0.0, 1.0)
     out = np.where(good, sampled, np.nan).astype(np.float32)
     gsd = np.where(good, coarse_px, np.nan).astype(np.float32)
     if not good.any():
         return None
-    return ResampledFrame(window=(r0, r1, c0, c1), values=out, weights=weights, gsd_m=gsd)
+    angle = np.degrees(np.arccos(cos_view)).astype(np.float32)
+    return ResampledFrame(window=(r0, r1, c0, c1), values=out, weights=weights, gsd_m=gsd, view_angle_deg=angle,
+                          outside_marks=None if outside is None else (outside & good))
+
+
+def placement_ranks(frames: Sequence[ResampledFrame], grid_shape: tuple[int, int], *,
+                    fallback: Sequence[bool] | None = None, max_view_angle_deg: float = MAX_VIEW_ANGLE_DEG,
+                    tolerance_deg: float = VIEW_ANGLE_TOLERANCE_DEG) -> list[np.ndarray]:
+    """Rank of each frame's pixels in the blend: only the lowest rank at a plan pixel is used.
+
+    A frame's pixel gets ``4`` when outside its marks' hull (extrapolated), ``+ 2`` when the
+    frame is flagged (``fallback``, e.g. blurred), ``+ 1`` when seen more than
+    ``max_view_angle_deg`` from square-on and more than ``tolerance_deg`` worse than the best
+    view of that plan pixel. So a better view, a sharp frame and the marks' interior win
+    where they cover; the rest fills only what nothing better covers.
+
+    Returns
+    -------
+    list of numpy.ndarray
+        One int8 array per frame, on its window (``-1`` where it gives no value).
+    """
+    flags = [False] * len(frames) if fallback is None else [bool(b) for b in fallback]
+    if len(flags) != len(frames):
+        raise ValueError("fallback needs one flag per frame")
+    best = np.full(grid_shape, np.inf)
+    for f in frames:
+        if f.view_angle_deg is None:
+            continue
+        r0, r1, c0, c1 = f.window
+        a = np.where(f.weights > 0, f.view_angle_deg, np.inf)
+        np.minimum(best[r0:r1, c0:c1], np.nan_to_num(a, nan=np.inf), out=best[r0:r1, c0:c1])
+    ranks = []
+    for f, flag in zip(frames, flags):
+        r0, r1, c0, c1 = f.window
+        rank = np.zeros(f.weights.shape, dtype=np.int8)
+        if f.outside_marks is not None:
+            rank += 4 * f.outside_marks.astype(np.int8)
+        if flag:
+            rank += 2
+        if f.view_angle_deg is not None:
+            with np.errstate(invalid="ignore"):
+                oblique = (f.view_angle_deg > max_view_angle_deg) & (
+                    f.view_angle_deg > best[r0:r1, c0:c1] + tolerance_deg)
+            rank += oblique.astype(np.int8)
+        ranks.append(np.where(f.weights > 0, rank, -1).astype(np.int8))
+    return ranks
 
 
 def blend_frames(frames: Sequence[ResampledFrame], grid_shape: tuple[int, int], *,
-                 fallback: Sequence[bool] | None = None) -> np.ndarray:
-    """Weighted mean of resampled frames on the plan grid.
+                 fallback: Sequence[bool] | None = None, max_view_angle_deg: float = MAX_VIEW_ANGLE_DEG,
+                 ranks: Sequence[np.ndarray] | None = None) -> np.ndarray:
+    """Weighted mean of resampled frames on the plan grid, best-ranked views only.
 
     Parameters
     ----------
@@ -842,6 +1223,11 @@ def blend_frames(frames: Sequence[ResampledFrame], grid_shape: tuple[int, int], 
     fallback
         One flag per frame: a flagged frame (e.g. one found blurred by
         :mod:`wetmap.imagery`) gives values only where no unflagged frame does.
+    max_view_angle_deg
+        Views more oblique than this are used only where no better view covers
+        (:func:`placement_ranks`).
+    ranks
+        Precomputed :func:`placement_ranks` (then ``fallback`` and the angle are not used).
 
     Returns
     -------
@@ -857,20 +1243,18 @@ def blend_frames(frames: Sequence[ResampledFrame], grid_shape: tuple[int, int], 
     >>> blend_frames([a, b], (1, 4), fallback=[False, True])  # b only where a gives nothing
     array([[ 1.,  2.,  5., nan]], dtype=float32)
     """
+    if ranks is None:
+        ranks = placement_ranks(frames, grid_shape, fallback=fallback, max_view_angle_deg=max_view_angle_deg)
+    low = np.full(grid_shape, np.iinfo(np.int8).max, dtype=np.int8)
+    for f, rank in zip(frames, ranks):
+        r0, r1, c0, c1 = f.window
+        np.minimum(low[r0:r1, c0:c1], np.where(rank >= 0, rank, np.iinfo(np.int8).max).astype(np.int8),
+                   out=low[r0:r1, c0:c1])
     total = np.zeros(grid_shape, dtype=np.float64)
     weight = np.zeros(grid_shape, dtype=np.float64)
-    flags = [False] * len(frames) if fallback is None else [bool(b) for b in fallback]
-    if len(flags) != len(frames):
-        raise ValueError("fallback needs one flag per frame")
-    for f in [f for f, b in zip(frames, flags) if not b]:
+    for f, rank in zip(frames, ranks):
         r0, r1, c0, c1 = f.window
-        w = f.weights.astype(np.float64)
-        total[r0:r1, c0:c1] += np.where(w > 0, f.values, 0.0) * w
-        weight[r0:r1, c0:c1] += w
-    main = weight > 0
-    for f in [f for f, b in zip(frames, flags) if b]:  # only where no unflagged frame gives a value
-        r0, r1, c0, c1 = f.window
-        w = np.where(main[r0:r1, c0:c1], 0.0, f.weights.astype(np.float64))
+        w = np.where((rank >= 0) & (rank == low[r0:r1, c0:c1]), f.weights.astype(np.float64), 0.0)
         total[r0:r1, c0:c1] += np.where(w > 0, f.values, 0.0) * w
         weight[r0:r1, c0:c1] += w
     with np.errstate(invalid="ignore", divide="ignore"):
@@ -906,6 +1290,18 @@ class FrameReport:
         Median ground sampling distance over its part of the plan, m per image pixel.
     covered_m2
         Plan area (on the plan grid) it gives values for.
+    model
+        The model that placed it (:data:`SKIN_MODELS`).
+    loo_rms_px, loo_rms_m
+        Leave-one-out RMS of the chosen model: how far each mark lies from where a fit to the
+        other marks puts it, image pixels and metres on the skin (NaN with 4 points).
+    models
+        ``{model: (loo_rms_px, loo_rms_m)}`` of each model tried.
+    view_angle_deg
+        ``(median, max)`` estimated viewing angle from the skin's normal over the pixels the
+        blend used from this frame, degrees (NaN when none).
+    used_m2, extrapolated_m2
+        Plan area the blend took from this frame, and the part of it outside its marks' hull.
     """
 
     path: str
@@ -919,17 +1315,34 @@ class FrameReport:
     note: str | None
     gsd_m: float
     covered_m2: float
+    model: str = "homography"
+    loo_rms_px: float = math.nan
+    loo_rms_m: float = math.nan
+    models: tuple[tuple[str, float, float], ...] = ()
+    view_angle_deg: tuple[float, float] = (math.nan, math.nan)
+    used_m2: float = math.nan
+    extrapolated_m2: float = 0.0
 
     @classmethod
-    def build(cls, path: str, registration: Registration, *, gsd_m: float, covered_m2: float) -> "FrameReport":
+    def build(cls, path: str, registration: Registration, *, gsd_m: float, covered_m2: float,
+              view_angle_deg: tuple[float, float] = (math.nan, math.nan), used_m2: float = math.nan,
+              extrapolated_m2: float = 0.0) -> "FrameReport":
         """From a :class:`Registration` and the frame's resampling figures."""
         fit, loo = registration.fit, registration.loo
         s = loo.suspect
+        figures = dict(registration.models)
+        if "homography" not in figures:
+            e, em = loo.error_px[np.isfinite(loo.error_px)], loo.error_m[np.isfinite(loo.error_m)]
+            figures["homography"] = (float(np.sqrt(np.mean(e ** 2))) if len(e) else math.nan,
+                                     float(np.sqrt(np.mean(em ** 2))) if len(em) else math.nan)
+        chosen = figures.get(registration.model, (math.nan, math.nan))
         return cls(path=path, points=len(fit.residuals_px), rms_px=fit.rms_px, rms_m=fit.rms_m,
                    max_px=float(np.max(fit.residuals_px)), suspect=None if s is None else s + 1,
                    suspect_px=None if s is None else float(loo.error_px[s]),
                    suspect_m=None if s is None else float(loo.error_m[s]), note=loo.note, gsd_m=gsd_m,
-                   covered_m2=covered_m2)
+                   covered_m2=covered_m2, model=registration.model, loo_rms_px=chosen[0], loo_rms_m=chosen[1],
+                   models=tuple((m, *figures[m]) for m in SKIN_MODELS if m in figures),
+                   view_angle_deg=view_angle_deg, used_m2=used_m2, extrapolated_m2=extrapolated_m2)
 
     def as_dict(self) -> dict:
         """JSON-ready, rounded (pixels to 0.001, metres to 0.1 mm)."""
@@ -942,4 +1355,113 @@ class FrameReport:
             "max_px": r(self.max_px, 3), "suspect_point": self.suspect, "suspect_px": r(self.suspect_px, 3),
             "suspect_m": r(self.suspect_m, 4), "note": self.note, "gsd_m": r(self.gsd_m, 4),
             "covered_m2": r(self.covered_m2, 4),
+            "model": self.model, "loo_rms_px": r(self.loo_rms_px, 3),
+            "loo_rms_mm": r(1000 * self.loo_rms_m, 1) if math.isfinite(self.loo_rms_m) else None,
+            "models": {m: {"loo_rms_px": r(px, 3), "loo_rms_mm": r(1000 * m_ if math.isfinite(m_) else m_, 1)}
+                       for m, px, m_ in self.models},
+            "view_angle_deg": {"median": r(self.view_angle_deg[0], 1), "max": r(self.view_angle_deg[1], 1)},
+            "used_m2": r(self.used_m2, 4), "extrapolated_m2": r(self.extrapolated_m2, 4),
         }
+
+
+# --------------------------------------------------------------------------------------
+# Girth or height?
+# --------------------------------------------------------------------------------------
+
+#: A cell of tape marks whose image is this many times longer per plan metre along y than
+#: along x looks taped by height, not girth (1 / cos 40 degrees: see :func:`girth_stretch`).
+GIRTH_STRETCH_MAX = 1.3
+
+
+@dataclass(frozen=True)
+class GirthStretch:
+    """The most stretched cell of a hull frame's tape grid (:func:`girth_stretch`).
+
+    Attributes
+    ----------
+    ratio
+        Image length per plan metre along y over image length per plan metre along x.
+    xs, ys
+        ``(x0, x1)`` stations and ``(y0, y1)`` plan y of the cell, metres.
+    """
+
+    ratio: float
+    xs: tuple[float, float]
+    ys: tuple[float, float]
+
+
+def girth_stretch(image_cr: np.ndarray, plan_xy: np.ndarray) -> GirthStretch | None:
+    """How much a hull frame's tape grid looks stretched along plan y, per cell of 4 marks.
+
+    For each cell of marks at two stations ``x0, x1`` and two plan ``y0, y1`` (all four
+    given), the mean image length of its two y-sides per metre of ``y1 - y0`` over the mean
+    image length of its two x-sides per metre of ``x1 - x0``.
+
+    Why it tells girths from heights: the developed plan is the skin unrolled, lengths kept.
+    A camera shortens a skin cell along the direction in which the skin turns away from it and
+    keeps its length across that direction; facing a hull side, the skin turns away across the
+    hull (around the bilge), not along it, so per metre of girth a cell never looks longer than
+    per metre of station, except by ``1 / cos`` of the angle at which the camera looks along the
+    hull (1.3 at 40 degrees, :data:`GIRTH_STRETCH_MAX`). A height is shorter than the girth it
+    spans by ``cos`` of the skin's angle from vertical, so at the bilge and bottom seen from
+    level or from below, height steps look stretched in the image by up to ``1 / cos`` of that
+    angle. A view from above the bilge shortens both alike: the test cannot then tell, and a
+    stretch below the limit proves nothing.
+
+    Returns
+    -------
+    GirthStretch or None
+        The cell with the largest ratio; ``None`` when the marks form no complete cell.
+
+    >>> xy = np.array([[0, 0], [1, 0], [0, 1], [1, 1]], dtype=float)
+    >>> cr = np.array([[0, 0], [50, 0], [0, 80], [50, 80]], dtype=float)  # 80 px per metre of y, 50 of x
+    >>> girth_stretch(cr, xy).ratio
+    1.6
+    """
+    image_cr = np.asarray(image_cr, dtype=np.float64).reshape(-1, 2)
+    plan_xy = np.asarray(plan_xy, dtype=np.float64).reshape(-1, 2)
+    tol = _REL_TOL * max(_spread(plan_xy), 1e-12)
+    keys = {(round(x / tol), round(y / tol)): i for i, (x, y) in enumerate(plan_xy)}
+    xs = np.unique(np.round(plan_xy[:, 0] / tol))
+    ys = np.unique(np.round(plan_xy[:, 1] / tol))
+    best: GirthStretch | None = None
+    for a, b in zip(xs[:-1], xs[1:]):
+        for c, d in zip(ys[:-1], ys[1:]):
+            k = [keys.get(key) for key in ((a, c), (a, d), (b, c), (b, d))]
+            if None in k:
+                continue
+            p = image_cr[k]
+            x0, y0 = plan_xy[k[0]]
+            x1, y1 = plan_xy[k[3]]
+            along_y = 0.5 * (np.hypot(*(p[1] - p[0])) + np.hypot(*(p[3] - p[2]))) / (y1 - y0)
+            along_x = 0.5 * (np.hypot(*(p[2] - p[0])) + np.hypot(*(p[3] - p[1]))) / (x1 - x0)
+            if along_x <= 0:
+                continue
+            ratio = float(along_y / along_x)
+            if best is None or ratio > best.ratio:
+                best = GirthStretch(ratio=round(ratio, 6), xs=(float(x0), float(x1)), ys=(float(y0), float(y1)))
+    return best
+
+
+# --------------------------------------------------------------------------------------
+# Emissivity by viewing angle
+# --------------------------------------------------------------------------------------
+
+
+def fresnel_emissivity(angle_deg: np.ndarray, refractive_index: float) -> np.ndarray:
+    """Directional emissivity of a smooth, non-absorbing dielectric: ``1 - (R_s + R_p) / 2``.
+
+    Fresnel reflectances for unpolarised light leaving a medium of real refractive index
+    ``n`` into air (Born & Wolf, *Principles of Optics*, section 1.5.2), at the angle
+    from the surface normal.
+
+    >>> round(float(fresnel_emissivity(np.array(0.0), 1.5)), 6)   # 1 - ((n - 1) / (n + 1))**2
+    0.96
+    """
+    theta = np.radians(np.clip(np.asarray(angle_deg, dtype=np.float64), 0.0, 90.0))
+    n2 = float(refractive_index) ** 2
+    c = np.cos(theta)
+    root = np.sqrt(n2 - np.sin(theta) ** 2)
+    r_s = ((c - root) / (c + root)) ** 2
+    r_p = ((n2 * c - root) / (n2 * c + root)) ** 2
+    return 1.0 - 0.5 * (r_s + r_p)

@@ -63,6 +63,10 @@ __all__ = [
     "Cooldown",
     "COOLDOWN_INSULATIONS",
     "COOLDOWN_DECKS",
+    "is_web_mercator",
+    "PIXEL_M_RANGE",
+    "BOARD_M_RANGE",
+    "COORD_MAX_M",
 ]
 
 SURVEY_FILE = "survey.toml"
@@ -71,6 +75,15 @@ Kind = Literal["roof", "hull"]
 Units = Literal["C", "K", "F"]
 Sky = Literal["clear", "partly", "overcast"]
 Side = Literal["port", "starboard"]
+
+#: Plausible sizes (common practice): thermal pixels on roofs and hulls run from about a
+#: millimetre (a frame from a metre away) to a few metres (a high flight); insulation boards and
+#: core sheets from a 5 cm strip to a 10 m panel; plan coordinates of any projected CRS in metres
+#: stay within 1e8 m; a unit rate above 1e9 in any currency is a typing mistake.
+PIXEL_M_RANGE = (0.0005, 10.0)
+BOARD_M_RANGE = (0.05, 10.0)
+COORD_MAX_M = 1e8
+RATE_MAX = 1e9
 
 #: Default smallest anomaly kept, by survey kind (common practice: a roof survey
 #: does not report patches smaller than about a board's corner; hull patches are smaller).
@@ -94,6 +107,9 @@ class SurveyInfo:
     date: str | None = None
     surveyor: str | None = None
     side: Side | None = None
+    allow_outside_paths: bool = False
+    """Paths in survey.toml may name files outside the survey folder (absolute, ``..``, symbolic
+    links leading out); by default they are refused."""
 
     @property
     def is_local(self) -> bool:
@@ -130,6 +146,14 @@ class Camera:
     ifov_mrad: float | None = None
     """Instantaneous field of view of one detector element, milliradians; with ``distance_m``
     it gives the optics' ground sampling distance (:mod:`wetmap.imagery`)."""
+    max_view_angle_deg: float = 60.0
+    """Frame pixels seen more obliquely than this (degrees from the surface normal) are not
+    used where a better view covers the same plan pixel (:mod:`wetmap.register`)."""
+    refractive_index: float | None = None
+    """Refractive index of the surface in the camera band: frame pixels then get the
+    emissivity ``emissivity * e(angle) / e(0)`` with ``e`` the Fresnel emissivity of a smooth
+    dielectric at their viewing angle (:func:`wetmap.register.fresnel_emissivity`);
+    ``None``: the same emissivity at every angle."""
 
 
 @dataclass(frozen=True)
@@ -185,6 +209,15 @@ class Detect:
     tile_px: int | None = None
     """Window side for processing in windows, pixels (rounded to the background block);
     0: the whole array; ``None``: chosen by the plan grid's size (see :mod:`wetmap.tiles`)."""
+    delta_from: Literal["value", "cores"] = "value"
+    """``"cores"`` when ``delta_c = "cores"``: the threshold is the middle of the range the
+    cores allow (``delta_c`` then keeps the default, used for the background's warm cut)."""
+    background: Literal["auto", "trend", "local"] = "auto"
+    """The dry background per section: chosen from the data, a robust trend, or the local block median."""
+    edge_buffer_m: float = 0.0
+    """Band along the outline left out of the survey, metres (0: none)."""
+    exclusion_buffer_m: float = 0.0
+    """Band around each exclusion left out of the survey, metres (0: none)."""
 
 
 @dataclass(frozen=True)
@@ -369,6 +402,8 @@ class _Problems:
         self.file = file
         self.lines = text.splitlines()
         self.items: list[str] = []
+        self.allow_outside_paths = False
+        """``[survey] allow_outside_paths``: paths may leave the survey folder."""
 
     def line_of(self, table: str, key: str | None, index: int | None) -> int | None:
         """1-based line of ``key`` inside ``[table]`` (or its ``index``-th ``[[table]]``)."""
@@ -398,12 +433,33 @@ class _Problems:
         self.items.append(f"{self.file}: {where}{at}: {message}")
 
 
+_CONTROL = re.compile(r"[\x00-\x1f\x7f]")
+
+
+def _one_line(text: str) -> str:
+    """``text`` with control characters (a newline in a quoted key or value, NUL, ...) escaped:
+    a problem is always a single printable line."""
+    return _CONTROL.sub(lambda m: repr(m.group())[1:-1], text)
+
+
 def _fmt(value: Any) -> str:
     if isinstance(value, str):
-        return f'"{value}"'
+        return f'"{_one_line(value)}"'
     if isinstance(value, (clock_time, date_type)):  # TOML dates and times, as written in the file
         return value.isoformat()
     return repr(value)
+
+
+def _as_number(value: Any) -> float | None:
+    """``value`` as a finite float, or ``None`` for a bool, a text, NaN, infinity or an integer too
+    large for a float (a 400-digit integer must not raise ``OverflowError``)."""
+    if isinstance(value, bool) or not isinstance(value, (int, float)):
+        return None
+    try:
+        out = float(value)
+    except OverflowError:
+        return None
+    return out if math.isfinite(out) else None
 
 
 def _short(value: Any, limit: int = 60) -> str:
@@ -463,21 +519,29 @@ class _Table:
         low_open: bool = False,
         high_open: bool = False,
         example: str = "1.0",
+        plausible: tuple[float, float] | None = None,
     ) -> float | None:
+        """A finite number within the range; ``plausible`` (low, high) is a further range of sizes
+        that can be right (common practice), reported as implausible rather than invalid."""
         expected = _range_text(low, high, low_open, high_open)
         value = self._get(key, required, example, f"a number{expected}")
         if value is None:
             return None
-        if isinstance(value, bool) or not isinstance(value, (int, float)) or not math.isfinite(value):
-            self.problem(key, f"= {_fmt(value)}: expected a number{expected}, e.g. {key} = {example}")
+        number = _as_number(value)
+        if number is None:
+            self.problem(key, f"= {_short(value)}: expected a number{expected}, e.g. {key} = {example}")
             return None
-        value = float(value)
+        value = number
         bad = (
             (low is not None and (value <= low if low_open else value < low))
             or (high is not None and (value >= high if high_open else value > high))
         )
         if bad:
             self.problem(key, f"= {value:g}: expected a number{expected}")
+            return None
+        if plausible is not None and not plausible[0] <= value <= plausible[1]:
+            self.problem(key, f"= {value:g}: not a plausible value; expected {plausible[0]:g} <= value <= "
+                         f"{plausible[1]:g} (check the number and its unit), e.g. {key} = {example}")
             return None
         return value
 
@@ -514,30 +578,64 @@ class _Table:
             return None
         return clock_time(int(m.group(1)), int(m.group(2)))
 
-    def numbers(self, key: str, count: int, *, example: str, positive: bool = False) -> tuple[float, ...] | None:
+    def numbers(self, key: str, count: int, *, example: str, positive: bool = False,
+                low: float | None = None, high: float | None = None) -> tuple[float, ...] | None:
+        """A list of ``count`` finite numbers, each within ``low <= v <= high`` when given."""
         value = self._get(key, False, example, f"a list of {count} numbers")
         if value is None:
             return None
-        ok = (
-            isinstance(value, list)
-            and len(value) == count
-            and all(isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) for v in value)
-        )
+        parsed = [_as_number(v) for v in value] if isinstance(value, list) else []
+        ok = isinstance(value, list) and len(value) == count and all(v is not None for v in parsed)
         if ok and positive:
-            ok = all(v > 0 for v in value)
+            ok = all(v > 0 for v in parsed)  # type: ignore[operator]
         if not ok:
             what = "positive numbers" if positive else "numbers"
-            self.problem(key, f"= {_fmt(value)}: expected a list of {count} {what}, e.g. {key} = {example}")
+            self.problem(key, f"= {_short(value)}: expected a list of {count} {what}, e.g. {key} = {example}")
             return None
-        return tuple(float(v) for v in value)
+        if any((low is not None and v < low) or (high is not None and v > high) for v in parsed):  # type: ignore[operator]
+            self.problem(key, f"= {_short(value)}: expected each number{_range_text(low, high, False, False)}, "
+                         f"e.g. {key} = {example}")
+            return None
+        return tuple(float(v) for v in parsed)  # type: ignore[arg-type]
 
     def path(self, key: str, folder: Path, *, required: bool = False, example: str = '"file"') -> Path | None:
+        """A file inside the survey folder (``folder`` is resolved), existing, not under ``results/``.
+
+        Paths leaving the folder (absolute, ``..``, a symbolic link leading out) are refused
+        unless ``[survey] allow_outside_paths = true``.
+        """
         value = self.text(key, required=required, example=example)
         if value is None:
             return None
-        path = (folder / value).resolve() if not Path(value).is_absolute() else Path(value)
-        if not path.is_file():
-            self.problem(key, f'= "{value}": file not found at {path}; check the path (relative to the survey folder)')
+        shown = _short(value)
+        if "\0" in value:
+            self.problem(key, f"= {shown}: holds a NUL character, which no file name can; retype the path")
+            return None
+        outside_ok = self.p.allow_outside_paths
+        allow_hint = "or set [survey] allow_outside_paths = true to allow it"
+        if Path(value).is_absolute() and not outside_ok:
+            self.problem(key, f"= {shown}: an absolute path; paths are relative to the survey folder: copy the "
+                         f"file into the folder and give its relative path, {allow_hint}")
+            return None
+        try:
+            path = (folder / value).resolve()
+        except (OSError, RuntimeError, ValueError) as err:  # a symbolic link loop raises RuntimeError
+            self.problem(key, f"= {shown}: cannot be followed ({err}); a symbolic link loop? point it at the file itself")
+            return None
+        if not outside_ok and not path.is_relative_to(folder):
+            self.problem(key, f"= {shown}: resolves to {path}, outside the survey folder {folder}; copy the file "
+                         f"into the folder and give its relative path, {allow_hint}")
+            return None
+        if path.is_relative_to(folder / "results"):
+            self.problem(key, f"= {shown}: lies in the survey's results folder, which every run replaces; move "
+                         "the file out of results/ (e.g. to thermal/ or plan/) and give its new path")
+            return None
+        try:
+            found = path.is_file()
+        except (OSError, ValueError):
+            found = False
+        if not found:
+            self.problem(key, f'= {shown}: file not found at {path}; check the path (relative to the survey folder)')
             return None
         return path
 
@@ -579,7 +677,24 @@ def _check_crs(table: _Table, value: str | None) -> str | None:
     if not units <= {"metre", "meter", "m"}:
         table.problem("crs", f'= "{value}": axes in {", ".join(sorted(units)) or "unknown units"}; expected a projected CRS in metres or "local"')
         return None
+    if is_web_mercator(crs):
+        table.problem("crs", f'= "{value}" is Web Mercator ({crs.name}): its lengths grow as 1/cos(latitude) on '
+                      "each axis, so areas are wrong by 1/cos^2 (x2.3 at 49 degrees); expected the site's UTM "
+                      'zone or national grid, or "local"')
+        return None
     return value
+
+
+def is_web_mercator(crs) -> bool:
+    """True for Web Mercator (EPSG:3857 and its aliases: EPSG:900913 and 3785, ESRI:102100 and 102113, ...).
+
+    Recognised by the projection method PROJ names for it, so every alias is caught.
+    """
+    op = getattr(crs, "coordinate_operation", None)
+    method = (getattr(op, "method_name", "") or "").lower()
+    name = (crs.name or "").lower()
+    return "pseudo mercator" in method or any(
+        word in name for word in ("pseudo-mercator", "web mercator", "web_mercator", "popular visualisation"))
 
 
 # --------------------------------------------------------------------------------------
@@ -601,9 +716,11 @@ def _read_survey_info(t: _Table) -> SurveyInfo | None:
     side = t.choice("side", get_args(Side))
     if side is not None and kind == "roof":
         t.problem("side", f'= "{side}": applies to hull surveys only; remove it or set kind = "hull"')
+    outside = t.boolean("allow_outside_paths")
     if None in (title, kind, crs):
         return None
-    return SurveyInfo(title=title, kind=kind, crs=crs, site=site, date=date, surveyor=surveyor, side=side)
+    return SurveyInfo(title=title, kind=kind, crs=crs, site=site, date=date, surveyor=surveyor, side=side,
+                      allow_outside_paths=bool(outside))
 
 
 def _read_conditions(t: _Table) -> Conditions | None:
@@ -613,7 +730,7 @@ def _read_conditions(t: _Table) -> Conditions | None:
     reflected = t.number("reflected_c", low=-100, high=100, example="-18.0")
     sky = t.choice("sky", get_args(Sky), required=reflected is None and "reflected_c" not in t.data)
     sunset, at = t.clock("sunset"), t.clock("time")
-    rain = t.number("hours_since_rain", low=0, example="48")
+    rain = t.number("hours_since_rain", low=0, example="48", plausible=(0, 100_000))
     dry = t.boolean("surface_dry")
     if air is None or rh is None:
         return None
@@ -624,14 +741,16 @@ def _read_conditions(t: _Table) -> Conditions | None:
 
 
 def _read_camera(t: _Table) -> Camera | None:
-    eps = t.number("emissivity", required=True, low=0, high=1, low_open=True, example="0.94")
+    eps = t.number("emissivity", required=True, low=0, high=1, low_open=True, example="0.94", plausible=(0.01, 1.0))
     band = t.numbers("band_um", 2, example="[7.5, 14.0]", positive=True)
     if band is not None and not (1.0 <= band[0] < band[1] <= 20.0):
         t.problem("band_um", f"= {list(band)}: expected [short, long] in micrometres with 1 <= short < long <= 20")
         band = None
     distance = t.number("distance_m", low=0, high=10_000, example="35.0")
-    tau = t.number("transmittance", low=0, high=1, low_open=True, example="0.97")
+    tau = t.number("transmittance", low=0, high=1, low_open=True, example="0.97", plausible=(0.05, 1.0))
     ifov = t.number("ifov_mrad", low=0, low_open=True, high=100, example="1.1")
+    max_angle = t.number("max_view_angle_deg", low=0, low_open=True, high=89, example="60")
+    index = t.number("refractive_index", low=1, high=5, example="1.5")
     if eps is None:
         return None
     return Camera(
@@ -640,6 +759,8 @@ def _read_camera(t: _Table) -> Camera | None:
         distance_m=distance or 0.0,
         transmittance=tau,
         ifov_mrad=ifov,
+        max_view_angle_deg=60.0 if max_angle is None else max_angle,
+        refractive_index=index,
     )
 
 
@@ -647,7 +768,7 @@ def _read_plan(t: _Table, folder: Path) -> Plan | None:
     outline = t.path("outline", folder, required=True, example='"plan/outline.geojson"')
     exclusions = t.path("exclusions", folder, example='"plan/exclusions.geojson"')
     sections = t.path("sections", folder, example='"plan/sections.geojson"')
-    pixel = t.number("pixel_m", low=0, low_open=True, high=100, example="0.05")
+    pixel = t.number("pixel_m", low=0, low_open=True, high=100, example="0.05", plausible=PIXEL_M_RANGE)
     specular = t.path("specular", folder, example='"plan/specular.geojson"')
     if outline is None:
         return None
@@ -667,8 +788,8 @@ def _read_mosaic(t: _Table, folder: Path) -> Mosaic | None:
     units = t.choice("units", get_args(Units), required=True)
     at = t.clock("time")
     scale, offset = _scale_offset(t)
-    origin = t.numbers("origin", 2, example="[512300.0, 5463140.0]")
-    pixel = t.number("pixel_m", low=0, low_open=True, high=100, example="0.05")
+    origin = t.numbers("origin", 2, example="[512300.0, 5463140.0]", low=-COORD_MAX_M, high=COORD_MAX_M)
+    pixel = t.number("pixel_m", low=0, low_open=True, high=100, example="0.05", plausible=PIXEL_M_RANGE)
     if ("origin" in t.data) != ("pixel_m" in t.data):
         missing = "origin" if "origin" not in t.data else "pixel_m"
         t.problem(missing, "is missing: origin and pixel_m go together (upper-left corner and pixel size)")
@@ -693,12 +814,16 @@ def _read_frame(t: _Table, folder: Path) -> Frame | None:
     points: tuple[tuple[float, float, float, float], ...] | None = None
     if raw is not None:
         ok = isinstance(raw, list) and all(
-            isinstance(p, list) and len(p) == 4
-            and all(isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v) for v in p)
+            isinstance(p, list) and len(p) == 4 and all(_as_number(v) is not None for v in p)
             for p in raw
         )
+        far = ok and any(abs(float(p[0])) > 1e6 or abs(float(p[1])) > 1e6 or abs(float(p[2])) > COORD_MAX_M
+                         or abs(float(p[3])) > COORD_MAX_M for p in raw)
         if not ok:
             t.problem("points", f"= {_short(raw)}: expected a list of [col, row, x, y] lists of 4 numbers each")
+        elif far:
+            t.problem("points", f"= {_short(raw)}: expected pixel col, row within +-1e6 and plan x, y within "
+                      f"+-{COORD_MAX_M:g} m")
         elif len(raw) < 4:
             t.problem("points", f"has {len(raw)} control points: expected at least 4 [col, row, x, y]")
         else:
@@ -710,9 +835,20 @@ def _read_frame(t: _Table, folder: Path) -> Frame | None:
 
 
 def _read_detect(t: _Table, kind: str | None) -> Detect:
-    delta = t.number("delta_c", low=0, high=50, low_open=True, example="1.0")
-    background = t.number("background_m", low=0, low_open=True, high=1000, example="20.0")
-    min_area = t.number("min_area_m2", low=0, example="0.5")
+    delta_from = "value"
+    if isinstance(t.data.get("delta_c"), str):
+        if t.data["delta_c"] != "cores":
+            t.problem("delta_c", f'= "{t.data["delta_c"]}": expected a number of degC (e.g. delta_c = 1.0) '
+                                 'or "cores" (the middle of the range the cores allow)')
+        delta_from = "cores"
+        delta = None
+    else:
+        delta = t.number("delta_c", low=0, high=50, low_open=True, example="1.0", plausible=(0.05, 50))
+    background_choice = t.choice("background", ("auto", "trend", "local"))
+    edge = t.number("edge_buffer_m", low=0, high=50, example="1.0")
+    exclusion = t.number("exclusion_buffer_m", low=0, high=50, example="0.5")
+    background = t.number("background_m", low=0, low_open=True, high=1000, example="20.0", plausible=(0.1, 1000))
+    min_area = t.number("min_area_m2", low=0, example="0.5", plausible=(0, 10_000))
     tile = t.number("tile_px", low=0, high=65536, example="2048")
     if tile is not None and tile != int(tile):
         t.problem("tile_px", f"= {tile:g}: expected a whole number of pixels (0 = process the whole array at once)")
@@ -722,13 +858,17 @@ def _read_detect(t: _Table, kind: str | None) -> Detect:
         background_m=background,
         min_area_m2=min_area if min_area is not None else DEFAULT_MIN_AREA_M2.get(kind or "roof", 0.5),
         tile_px=None if tile is None else int(tile),
+        delta_from=delta_from,  # type: ignore[arg-type]
+        background=background_choice or "auto",  # type: ignore[arg-type]
+        edge_buffer_m=edge or 0.0,
+        exclusion_buffer_m=exclusion or 0.0,
     )
 
 
 def _read_cores(t: _Table, folder: Path) -> Cores | None:
     path = t.path("path", folder, required=True, example='"cores.csv"')
-    wet_above = t.number("wet_above", example="30")
-    wet_above_pct = t.number("wet_above_pct", low=0, example="5.0")
+    wet_above = t.number("wet_above", example="30", plausible=(-1e6, 1e6))
+    wet_above_pct = t.number("wet_above_pct", low=0, example="5.0", plausible=(0, 10_000))
     if path is None:
         return None
     return Cores(path=path, wet_above=wet_above, wet_above_pct=wet_above_pct)
@@ -736,10 +876,10 @@ def _read_cores(t: _Table, folder: Path) -> Cores | None:
 
 def _read_repair(t: _Table) -> Repair:
     margin = t.number("margin_m", low=0, high=10, example="0.3")
-    board = t.numbers("board_m", 2, example="[1.2, 2.4]", positive=True)
+    board = t.numbers("board_m", 2, example="[1.2, 2.4]", positive=True, low=BOARD_M_RANGE[0], high=BOARD_M_RANGE[1])
     include = t.boolean("include_unverified")
     angle = t.number("board_angle_deg", low=-360, high=360, example="0.0")
-    origin = t.numbers("board_origin", 2, example="[512300.0, 5463100.0]")
+    origin = t.numbers("board_origin", 2, example="[512300.0, 5463100.0]", low=-COORD_MAX_M, high=COORD_MAX_M)
     replace = t.number("replace_above_pct", low=0, high=100, low_open=True, example="25")
     units: tuple[AreaUnit, ...] = ("m2",)
     raw = t.data.get("area_units")
@@ -800,13 +940,13 @@ def _read_prices(t: _Table, kind: str | None = None) -> Prices | None:
                       f"per m2, per ft2 or per square")
         rate, unit = None, "m2"
         if given:
-            rate = t.number(given[0], low=0, example="12.50")
+            rate = t.number(given[0], low=0, example="12.50", plausible=(0, RATE_MAX))
             unit = _RATE_SUFFIX[given[0][len(item):]]
         rates[item] = (rate, unit)  # type: ignore[assignment]
-    board = t.number("board_each", low=0, example="18.00")
-    edge = t.number("cut_edge_per_m", low=0, example="4.00")
-    scarf = t.number("scarf_per_m", low=0, example="15.00")
-    mobilisation = t.number("mobilisation", low=0, example="350.00")
+    board = t.number("board_each", low=0, example="18.00", plausible=(0, RATE_MAX))
+    edge = t.number("cut_edge_per_m", low=0, example="4.00", plausible=(0, RATE_MAX))
+    scarf = t.number("scarf_per_m", low=0, example="15.00", plausible=(0, RATE_MAX))
+    mobilisation = t.number("mobilisation", low=0, example="350.00", plausible=(0, RATE_MAX * 1000))
     if currency is None:
         return None
     return Prices(
@@ -903,14 +1043,16 @@ _KEYS: dict[str, tuple[str, ...]] = {
     "cooldown": ("insulation", "insulation_m", "water_vol_pct", "insulation_k_w_mk", "insulation_rho_kg_m3",
                  "insulation_c_j_kgk", "moisture_factor", "membrane_m", "deck", "deck_m", "absorptance",
                  "sun_peak_w_m2", "sunrise", "air_range_c", "interior_c", "window_fraction"),
-    "survey": ("title", "kind", "crs", "site", "date", "surveyor", "side"),
+    "survey": ("title", "kind", "crs", "site", "date", "surveyor", "side", "allow_outside_paths"),
     "conditions": ("air_c", "humidity_pct", "wind_m_s", "sky", "reflected_c", "sunset", "time",
                    "hours_since_rain", "surface_dry"),
-    "camera": ("emissivity", "band_um", "distance_m", "transmittance", "ifov_mrad"),
+    "camera": ("emissivity", "band_um", "distance_m", "transmittance", "ifov_mrad", "max_view_angle_deg",
+               "refractive_index"),
     "plan": ("outline", "exclusions", "sections", "pixel_m", "specular"),
     "mosaic": ("path", "units", "time", "scale", "offset", "origin", "pixel_m"),
     "frame": ("path", "units", "points", "time", "scale", "offset"),
-    "detect": ("delta_c", "background_m", "min_area_m2", "tile_px"),
+    "detect": ("delta_c", "background_m", "min_area_m2", "tile_px", "background", "edge_buffer_m",
+               "exclusion_buffer_m"),
     "cores": ("path", "wet_above", "wet_above_pct"),
     "repair": ("margin_m", "board_m", "include_unverified", "board_angle_deg", "board_origin",
                "replace_above_pct", "area_units"),
@@ -984,13 +1126,20 @@ def load_survey(folder: str | Path) -> Survey:
     if not file.is_file():
         raise MissingFileError(f"{file}: not found; expected the survey description {SURVEY_FILE} in {folder}")
     folder = folder.resolve()
-    text = file.read_text(encoding="utf-8", errors="replace")
+    try:
+        text = file.read_text(encoding="utf-8", errors="replace")
+    except OSError as err:
+        raise MissingFileError(f"{file}: cannot be read ({err.strerror or err}); check its permissions") from None
     try:
         doc = tomllib.loads(text)
     except tomllib.TOMLDecodeError as err:
         raise SurveyError(f"{file}: not valid TOML: {err}; fix the syntax at that line") from None
+    except RecursionError:
+        raise SurveyError(f"{file}: not valid TOML: arrays or tables nested too deeply; fix the file") from None
 
     problems = _Problems(file, text)
+    survey_doc = doc.get("survey")
+    problems.allow_outside_paths = isinstance(survey_doc, dict) and survey_doc.get("allow_outside_paths") is True
     for key, value in doc.items():
         if key in _TOP:
             continue
@@ -1029,6 +1178,9 @@ def load_survey(folder: str | Path) -> Survey:
     detect = _read_detect(t_det, kind) if t_det else Detect(min_area_m2=DEFAULT_MIN_AREA_M2.get(kind or "roof", 0.5))
     t_cores = _table(problems, doc, "cores", required=False)
     cores = _read_cores(t_cores, folder) if t_cores else None
+    if t_det and detect.delta_from == "cores" and t_cores is None:
+        t_det.problem("delta_c", '= "cores": needs cores; add a [cores] table with path = "cores.csv", '
+                                 "or give delta_c a number")
     t_rep = _table(problems, doc, "repair", required=False)
     repair = _read_repair(t_rep) if t_rep else Repair()
     if kind == "hull" and (t_rep is None or "board_m" not in t_rep.data):
@@ -1055,7 +1207,7 @@ def load_survey(folder: str | Path) -> Survey:
                       'areas in ft2; add "ft2" to area_units or remove area_units')
 
     if problems.items:
-        raise SurveyError(problems.items)
+        raise SurveyError([_one_line(p) for p in problems.items])
     assert info and conditions and camera and plan  # guaranteed when no problem was recorded
     return Survey(
         folder=folder,

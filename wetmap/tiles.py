@@ -11,11 +11,14 @@ size (the vector work still grows with the number of anomaly outlines and holes)
 
 Why no halo is needed
 ---------------------
-Every step of the dry background is either per block (block medians and spreads, the
-warm-outlier cut, the bilinear upsampling of :func:`wetmap.detect.upsample_window`,
-which gives the same value at a pixel whichever window computes it) or on the small
-global block grid (nearest fill and median filter). A window that starts at a multiple
-of the block size holds whole blocks, so the passes are:
+Every step of the dry background is either per block (block medians and spreads per
+section, the warm-outlier cut), on the small global block grid (the per-section model of
+:func:`wetmap.detect.fit_background`: the trend fit, or nearest fill and median filter) or
+per pixel from that model (:meth:`wetmap.detect.BackgroundModel.evaluate`: the polynomial
+at the pixel centre, or the bilinear upsampling, which gives the same value at a pixel
+whichever window computes it). The section labels are rasterised by
+:func:`section_labels` with the pixel-centre rule of the roof mask. A window that starts
+at a multiple of the block size holds whole blocks, so the passes are:
 
 1. *surface*: read the window of each mosaic (each task opens its own dataset; rasterio
    datasets are neither picklable nor thread-safe), correct apparent to surface
@@ -23,7 +26,7 @@ of the block size holds whole blocks, so the passes are:
    of the usable pixels; the window is kept in a scratch folder;
 2. *background estimates 2 and 3*: block medians of the pixels not warmer than the
    previous background by more than the cut (the cut from the first estimate's noise),
-   exactly as :func:`wetmap.detect.dry_background` iterates;
+   exactly as :func:`wetmap.detect.estimate_background` iterates;
 3. *outlines*: delta-T, the raw mask ``delta > threshold`` and its 4-connected regions
    outlined in integer pixel coordinates of the whole grid (``outline="pixel"``).
 
@@ -93,6 +96,9 @@ __all__ = [
     "PixelEdges",
     "pixel_edges",
     "rasterize_window",
+    "section_labels",
+    "section_label_raster",
+    "labels_at",
     "choose_tile_px",
     "preview_factor",
     "windows_of",
@@ -288,6 +294,38 @@ def roof_mask(geometry, transform: Affine, shape: tuple[int, int]) -> np.ndarray
     return out
 
 
+def section_labels(edges: Sequence[PixelEdges], *, row0: int, col0: int, shape: tuple[int, int]) -> np.ndarray:
+    """Section label of every pixel of a window by the pixel-centre rule (:func:`rasterize_window`).
+
+    Label ``k`` is the first section (in the order given) whose polygon holds the pixel's
+    centre; pixels in no section get ``len(edges)`` (with no sections at all: 0, one section
+    for the whole roof). int16 ``shape``; the same in every window as in the whole grid.
+    """
+    out = np.full(shape, len(edges), dtype=np.int16)
+    for k in range(len(edges) - 1, -1, -1):
+        out[rasterize_window(edges[k], row0=row0, col0=col0, shape=shape)] = k
+    return out
+
+
+def section_label_raster(edges: Sequence[PixelEdges], shape: tuple[int, int]) -> np.ndarray:
+    """:func:`section_labels` of the whole grid (computed in bands of rows)."""
+    out = np.empty(shape, dtype=np.int16)
+    step = max(1, (1 << 22) // max(shape[1], 1))
+    for r in range(0, shape[0], step):
+        n = min(step, shape[0] - r)
+        out[r:r + n] = section_labels(edges, row0=r, col0=0, shape=(n, shape[1]))
+    return out
+
+
+def labels_at(edges: Sequence[PixelEdges], rows: np.ndarray, cols: np.ndarray, shape: tuple[int, int]) -> np.ndarray:
+    """Section labels at pixels ``(rows, cols)`` of the grid (-1 off the grid), as :func:`section_labels`."""
+    out = np.full(len(rows), -1, dtype=np.int64)
+    for i, (r, c) in enumerate(zip(rows, cols)):
+        if 0 <= r < shape[0] and 0 <= c < shape[1]:
+            out[i] = int(section_labels(edges, row0=int(r), col0=int(c), shape=(1, 1))[0, 0])
+    return out
+
+
 # --------------------------------------------------------------------------------------
 # Windows
 # --------------------------------------------------------------------------------------
@@ -335,10 +373,12 @@ def _preview_need(shape: tuple[int, int]) -> int:
 def preview_factor(tile_px: int, need: int) -> int:
     """The smallest divisor of ``tile_px`` that is at least ``need`` (preview cells never straddle windows).
 
-    >>> preview_factor(960, 15), preview_factor(89, 2)
-    (15, 89)
+    A window smaller than ``need`` gives one preview cell per window (``tile_px``).
+
+    >>> preview_factor(960, 15), preview_factor(89, 2), preview_factor(64, 100)
+    (15, 89, 64)
     """
-    return next(f for f in range(max(1, need), tile_px + 1) if tile_px % f == 0)
+    return next((f for f in range(max(1, need), tile_px + 1) if tile_px % f == 0), max(tile_px, 1))
 
 
 def windows_of(shape: tuple[int, int], tile_px: int) -> list[tuple[int, int, int, int]]:
@@ -427,6 +467,14 @@ class SurfaceSource:
     grid: "PlanGrid"
     radiometry: "Radiometry"
     roof_edges: PixelEdges
+    section_edges: tuple[PixelEdges, ...] = ()
+    """The sections' edges (label ``k`` = section ``k``; :func:`section_labels`)."""
+    section_emissivity: tuple[float | None, ...] = ()
+    """Each section's own emissivity (``None``: the camera's)."""
+
+    def labels(self, row0: int, col0: int, rows: int, cols: int) -> np.ndarray:
+        """The window's section labels (:func:`section_labels`)."""
+        return section_labels(self.section_edges, row0=row0, col0=col0, shape=(rows, cols))
 
     def read(self, row0: int, col0: int, rows: int, cols: int) -> tuple[np.ndarray, np.ndarray, int]:
         """``(surface_c float32, in_roof bool, lost pixels)`` of a window, as the whole array gives them."""
@@ -445,6 +493,14 @@ class SurfaceSource:
                 apparent[gap] = values[gap]
         assert apparent is not None  # a tiled survey has at least one mosaic
         surface = _to_surface_k(apparent, self.radiometry)
+        if any(e is not None for e in self.section_emissivity):
+            from types import SimpleNamespace
+
+            from .pipeline import section_emissivity_correction
+
+            sections = [SimpleNamespace(emissivity=e) for e in self.section_emissivity]
+            surface = section_emissivity_correction(surface, apparent, self.labels(row0, col0, rows, cols), sections,
+                                                    self.radiometry)
         lost = int(np.count_nonzero(np.isnan(surface) & ~np.isnan(apparent)))
         del apparent
         surface = surface.astype(np.float32, copy=False)
@@ -494,6 +550,17 @@ class _Scratch:
     def save_surface(self, i: int, surface: np.ndarray, in_roof: np.ndarray) -> None:
         self.save("surface", i, surface.astype(np.float32, copy=False))
         self.save("roof", i, np.packbits(in_roof, axis=None))
+
+    def save_labels(self, i: int, labels: np.ndarray) -> None:
+        self.save("labels", i, labels.astype(np.int16, copy=False))
+
+    def labels(self, i: int) -> np.ndarray | None:
+        """The window's section labels (int16), or ``None`` when the survey has no sections."""
+        path = self.path("labels", i)
+        if not path.is_file():
+            return None
+        _, _, rows, cols = self.windows[i]
+        return np.fromfile(path, dtype=np.int16).reshape(rows, cols)
 
     def masked(self, i: int) -> np.ndarray:
         """The window's surface temperature, NaN where not usable (off the roof or no data)."""
@@ -555,42 +622,50 @@ class _SurfacePass:
     preview: np.ndarray
 
 
-def _surface_task(source: SurfaceSource, scratch: _Scratch, i: int, block: int, factor: int) -> _SurfacePass:
-    from .detect import block_statistics
+def _surface_task(source: SurfaceSource, scratch: _Scratch, i: int, block: int, factor: int,
+                  count: int = 1) -> _SurfacePass:
+    from .detect import section_block_statistics
 
     scratch.limit_gdal_cache()
     row0, col0, rows, cols = scratch.windows[i]
     surface, in_roof, lost = source.read(row0, col0, rows, cols)
     scratch.save_surface(i, surface, in_roof)
+    labels = None
+    if source.section_edges:
+        labels = source.labels(row0, col0, rows, cols)
+        scratch.save_labels(i, labels)
     preview = _block_mean(surface, factor)
     usable = in_roof & np.isfinite(surface)
-    stats = block_statistics(surface, usable, block)
+    median, sigma = section_block_statistics(surface, usable, labels, count, block)
     covered = int(np.count_nonzero(usable))
     if covered:
         values = surface[usable]
         low, high = float(values.min()), float(values.max())
     else:
         low, high = math.inf, -math.inf
-    return _SurfacePass(median=stats.median, sigma=stats.sigma, roof_px=int(np.count_nonzero(in_roof)),
+    return _SurfacePass(median=median, sigma=sigma, roof_px=int(np.count_nonzero(in_roof)),
                         covered_px=covered, lost_px=lost, low_c=low, high_c=high, preview=preview)
 
 
-def _keep_task(scratch: _Scratch, i: int, block: int, background: np.ndarray, cut: float) -> np.ndarray:
-    """Block medians of the usable pixels not warmer than ``background`` by more than ``cut``."""
-    from .detect import block_statistics
+def _keep_task(scratch: _Scratch, i: int, block: int, model: Any, cut: float, count: int = 1) -> np.ndarray:
+    """Block medians per section of the usable pixels not warmer than the background by more than ``cut``."""
+    from .detect import section_block_statistics
 
     row0, col0, rows, cols = scratch.windows[i]
     masked = scratch.masked(i)
-    diff = upsample_window_fast(background, block, shape=(rows, cols), row0=row0, col0=col0)
+    labels = scratch.labels(i)
+    diff = model.evaluate(labels, shape=(rows, cols), row0=row0, col0=col0, upsample=upsample_window_fast)
     np.subtract(masked, diff, out=diff)  # surface - background, NaN where not usable
     keep = np.isfinite(masked)
     keep &= ~(diff > cut)
-    return block_statistics(masked, keep, block).median
+    return section_block_statistics(masked, keep, labels, count, block)[0]
 
 
-def _usable_values_task(scratch: _Scratch, i: int) -> np.ndarray:
+def _usable_values_task(scratch: _Scratch, i: int) -> tuple[np.ndarray, np.ndarray | None]:
     masked = scratch.masked(i)
-    return masked[np.isfinite(masked)]
+    ok = np.isfinite(masked)
+    labels = scratch.labels(i)
+    return masked[ok], (None if labels is None else labels[ok])
 
 
 @dataclass(frozen=True)
@@ -692,14 +767,15 @@ class _FinalPass:
     background_preview: np.ndarray
 
 
-def _final_task(scratch: _Scratch, i: int, block: int, background: np.ndarray | None, threshold_c: float,
+def _final_task(scratch: _Scratch, i: int, block: int, model: Any, threshold_c: float,
                 min_pixels: int, factor: int) -> _FinalPass:
     row0, col0, rows, cols = scratch.windows[i]
     masked = scratch.masked(i)
-    if background is None:
+    if model is None:
         bg = np.full((rows, cols), np.nan, dtype=np.float32)
     else:
-        bg = upsample_window_fast(background, block, shape=(rows, cols), row0=row0, col0=col0)
+        bg = model.evaluate(scratch.labels(i), shape=(rows, cols), row0=row0, col0=col0,
+                            upsample=upsample_window_fast)
     delta = masked - bg
     del masked
     scratch.save("delta", i, delta)
@@ -1261,8 +1337,11 @@ def _new_scratch(parent: Path | None, survey_folder: Path) -> Path:
 
 def detect_in_windows(survey: "Survey", *, outline, roof, radiometry: "Radiometry", background_m: float,
                       tile_px: int | None = None, scheduler: Any = None, scratch: Path | None = None,
-                      progress: Progress | None = None, window_progress: WindowProgress | None = None
-                      ) -> TiledDetection | None:
+                      progress: Progress | None = None, window_progress: WindowProgress | None = None,
+                      sections: Sequence = (), names: tuple[str, ...] = ("roof",), choice: str = "auto",
+                      cores: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None,
+                      threshold_from: Callable[[np.ndarray], float] | None = None,
+                      section_emissivity: tuple[float | None, ...] = ()) -> TiledDetection | None:
     """Detection in windows when it applies; ``None`` when the whole array is used.
 
     The windowed path applies to a single pass of mosaics only (no ``[[frame]]``), each
@@ -1288,8 +1367,19 @@ def detect_in_windows(survey: "Survey", *, outline, roof, radiometry: "Radiometr
         Folder in which the scratch folder is made (default: the survey folder).
     progress, window_progress
         Stage messages; ``(stage, windows done, windows)``.
+    sections, names, choice
+        Section geometries (label ``k`` = ``sections[k]``; the rest of the roof is label
+        ``len(sections)``), one name per label, and ``[detect] background``.
+    cores
+        ``(xs, ys, wet)`` of the confirmations, plan coordinates (the trend's anchors).
+    section_emissivity
+        Each section's own emissivity (``None``: ``[camera] emissivity``).
+    threshold_from
+        Given the confirmations' delta-T (3 x 3 median at each, as
+        :func:`wetmap.confirm.sample_at_points`), the threshold to apply (``[detect] delta_c =
+        "cores"``); ``None``: ``[detect] delta_c``.
     """
-    from .detect import Detection, background_grid, noise_sigma, smooth_block_grid, warm_cut
+    from .detect import Detection, background_grid, core_blocks, fit_background, noise_sigma, warm_cut
     from .rasters import PlanGrid, inspect_raster, plan_grid_for
 
     if survey.frames or not survey.mosaics:
@@ -1314,7 +1404,21 @@ def detect_in_windows(survey: "Survey", *, outline, roof, radiometry: "Radiometr
                           folder=folder, tile_px=tp, windows=len(windows), preview_factor=factor)
     weakref.finalize(rasters, shutil.rmtree, str(folder), True)
     store = _Scratch(folder=folder, windows=windows, tile_px=tp, shape=grid.shape, driver_pid=os.getpid())
-    source = SurfaceSource(mosaics=sources, grid=grid, radiometry=radiometry, roof_edges=pixel_edges(roof, grid.transform))
+    section_edges = tuple(pixel_edges(g, grid.transform) for g in sections)
+    count = len(names)
+    source = SurfaceSource(mosaics=sources, grid=grid, radiometry=radiometry, roof_edges=pixel_edges(roof, grid.transform),
+                           section_edges=section_edges, section_emissivity=tuple(section_emissivity))
+    nbr, nbc = -(-grid.rows // block), -(-grid.cols // block)
+    wet_b = dry_b = None
+    core_rc = None
+    if cores is not None and len(cores[0]):
+        ccols, crows = ~grid.transform @ (np.asarray(cores[0], float), np.asarray(cores[1], float))
+        crows, ccols = np.floor(crows).astype(np.intp), np.floor(ccols).astype(np.intp)
+        core_rc = (crows, ccols)
+        lab = labels_at(section_edges, crows, ccols, grid.shape) if section_edges else np.where(
+            (crows >= 0) & (crows < grid.rows) & (ccols >= 0) & (ccols < grid.cols), 0, -1)
+        wet_b, dry_b = core_blocks(crows, ccols, lab, np.asarray(cores[2], bool), count=count, block=block,
+                                   block_shape=(nbr, nbc))
     engine = scheduler if isinstance(scheduler, Engine) else Engine(scheduler)
     sdt = survey.detect
     min_pixels = max(1, int(math.ceil(sdt.min_area_m2 / (grid.pixel_m * grid.pixel_m) - 1e-9)))
@@ -1326,15 +1430,14 @@ def detect_in_windows(survey: "Survey", *, outline, roof, radiometry: "Radiometr
     try:
         _emit(progress, f"{len(windows)} windows of {tp} px on {engine.describe()}: reading and correcting the "
                         "mosaics, background estimate 1")
-        first = engine.map(_surface_task, (source, store), [(i, block, factor) for i in range(len(windows))],
+        first = engine.map(_surface_task, (source, store), [(i, block, factor, count) for i in range(len(windows))],
                            label="surface temperature", progress=window_progress)
-        nbr, nbc = -(-grid.rows // block), -(-grid.cols // block)
-        median = np.full((nbr, nbc), np.nan)
-        sigma = np.full((nbr, nbc), np.nan)
+        median = np.full((count, nbr, nbc), np.nan)
+        sigma = np.full((count, nbr, nbc), np.nan)
         for (r0, c0, _, _), f in zip(windows, first):
             br, bc = r0 // block, c0 // block
-            median[br:br + f.median.shape[0], bc:bc + f.median.shape[1]] = f.median
-            sigma[br:br + f.sigma.shape[0], bc:bc + f.sigma.shape[1]] = f.sigma
+            median[:, br:br + f.median.shape[1], bc:bc + f.median.shape[2]] = f.median
+            sigma[:, br:br + f.sigma.shape[1], bc:bc + f.sigma.shape[2]] = f.sigma
         roof_px = sum(f.roof_px for f in first)
         covered_px = sum(f.covered_px for f in first)
         lost_px = sum(f.lost_px for f in first)
@@ -1348,31 +1451,39 @@ def detect_in_windows(survey: "Survey", *, outline, roof, radiometry: "Radiometr
         # without the GIL, so the writer uses what the window tasks leave idle)
         writer = _Background(_write_tiff, store, "surface", rasters.surface_c, grid, None)
 
-        background: np.ndarray | None = None
+        model = None
         if covered_px:
-            cut = None
-            for estimate in range(3):  # as wetmap.detect.dry_background: three estimates
+            noise = noise_sigma(sigma)
+            cut = warm_cut(sdt.delta_c, noise)
+            fallback = None
+            if not np.isfinite(median).reshape(count, -1).any(axis=1).all():
+                from .detect import section_medians
+
+                parts = engine.map(_usable_values_task, (store,), [(i,) for i in range(len(windows))])
+                values = np.concatenate([p[0] for p in parts])
+                labs = None if not section_edges else np.concatenate([p[1] for p in parts])
+                fallback = section_medians(values, np.ones(values.shape, bool), labs, count)
+                del parts, values, labs
+            for estimate in range(3):  # as wetmap.detect.estimate_background: three estimates
                 if estimate:
                     _emit(progress, f"background estimate {estimate + 1} of 3")
-                    parts = engine.map(_keep_task, (store,), [(i, block, background, cut) for i in range(len(windows))],
+                    parts = engine.map(_keep_task, (store,), [(i, block, model, cut, count) for i in range(len(windows))],
                                        label=f"background estimate {estimate + 1}", progress=window_progress)
-                    median = np.full((nbr, nbc), np.nan)
+                    median = np.full((count, nbr, nbc), np.nan)
                     for (r0, c0, _, _), m in zip(windows, parts):
-                        median[r0 // block:r0 // block + m.shape[0], c0 // block:c0 // block + m.shape[1]] = m
+                        median[:, r0 // block:r0 // block + m.shape[1], c0 // block:c0 // block + m.shape[2]] = m
                     del parts
-                if np.isnan(median).all():
-                    if background is not None:
-                        break  # every block lost to outliers: keep the previous estimate
-                    values = engine.map(_usable_values_task, (store,), [(i,) for i in range(len(windows))])
-                    median = np.full(median.shape, float(np.median(np.concatenate(values))))
-                    del values
-                if cut is None:
-                    cut = warm_cut(sdt.delta_c, noise_sigma(sigma))
-                background = smooth_block_grid(median, spec.footprint)
+                model = fit_background(median, block_px=block, grid_shape=grid.shape, footprint=spec.footprint,
+                                       delta_c=sdt.delta_c, noise_c=noise, names=names, choice=choice,
+                                       fallback_c=fallback, previous=model, wet_blocks=wet_b, dry_blocks=dry_b)
+
+        threshold_c = sdt.delta_c
+        if threshold_from is not None:
+            threshold_c = float(threshold_from(_core_deltas(store, model, core_rc, block)))
 
         _emit(progress, "delta-T and anomaly outlines in windows")
         final = engine.map(_final_task, (store,),
-                           [(i, block, background, sdt.delta_c, min_pixels, factor) for i in range(len(windows))],
+                           [(i, block, model, threshold_c, min_pixels, factor) for i in range(len(windows))],
                            label="anomaly outlines", progress=window_progress)
         delta_preview = _assemble_preview([f.delta_preview for f in final], windows, factor, preview_grid.shape)
         bg_preview = _assemble_preview([f.background_preview for f in final], windows, factor, preview_grid.shape)
@@ -1405,13 +1516,49 @@ def detect_in_windows(survey: "Survey", *, outline, roof, radiometry: "Radiometr
 
     preview_mask = _preview_mask(merged.polygons, factor, preview_grid.shape)
     detection = Detection(background_c=bg_preview, delta_c=delta_preview, mask=preview_mask,
-                          background_m=background_m, threshold_c=sdt.delta_c, min_pixels=min_pixels)
+                          background_m=background_m, threshold_c=threshold_c, min_pixels=min_pixels, background=model)
     return TiledDetection(
         grid=preview_grid, surface_c=surface_preview, detection=detection, polygons=polygons,
         pixels=merged.pixels, delta_mean=merged.delta_mean, delta_max=merged.delta_max, roof_px=roof_px,
         covered_px=covered_px, lost_px=lost_px, constant=bool(covered_px and low == high), full_rasters=rasters,
         preview_min_pixels=max(1, math.ceil(min_pixels / (factor * factor))),
     )
+
+
+def _core_deltas(store: _Scratch, model: Any, core_rc: tuple[np.ndarray, np.ndarray] | None,
+                 block: int) -> np.ndarray:
+    """Delta-T at each confirmation: the median of its 3 x 3 usable pixels (as
+    :func:`wetmap.confirm.sample_at_points`), from the scratch windows and the model."""
+    if core_rc is None:
+        return np.zeros(0)
+    rows, cols = core_rc
+    out = np.full(len(rows), np.nan)
+    if model is None:
+        return out
+    for k, (r, c) in enumerate(zip(rows, cols)):
+        if not (0 <= r < store.shape[0] and 0 <= c < store.shape[1]):
+            continue  # off the grid: no data, as sample_at_points
+        r0, c0 = max(int(r) - 1, 0), max(int(c) - 1, 0)
+        r1, c1 = min(int(r) + 2, store.shape[0]), min(int(c) + 2, store.shape[1])
+        if r0 >= r1 or c0 >= c1:
+            continue
+        rr, cc = np.mgrid[r0:r1, c0:c1]
+        rr, cc = rr.ravel(), cc.ravel()
+        tp = store.tile_px
+        n_cols = -(-store.shape[1] // tp)
+        vals = []
+        for a, b in zip(rr, cc):
+            i = (a // tp) * n_cols + b // tp
+            wr0, wc0, _, _ = store.windows[i]
+            masked = store.masked(i)
+            labels = store.labels(i)
+            lab = None if labels is None else labels[a - wr0:a - wr0 + 1, b - wc0:b - wc0 + 1]
+            bg = model.evaluate(lab, shape=(1, 1), row0=int(a), col0=int(b), upsample=upsample_window_fast)
+            vals.append(float(masked[a - wr0, b - wc0] - bg[0, 0]))
+        v = np.asarray(vals, dtype=np.float32)
+        if np.isfinite(v).any():
+            out[k] = float(np.nanmedian(v))
+    return out
 
 
 class _Background:
@@ -1568,6 +1715,31 @@ def _run_one(folder: Path, out: Path | None, options: dict[str, Any], scheduler:
                         warnings=len(s["warnings"]))
 
 
+def _batch_out_folders(folders: list[Path], out_root: Path) -> list[Path | None]:
+    """``out_root/<name>`` for each survey, distinct for same-named surveys; refused (every
+    problem at once, before any work) when one would be, hold or lie in any survey of the
+    batch, or when a survey is given twice."""
+    from .errors import OutputError
+    from .outputs import check_out_dir, results_name_for
+
+    problems: list[str] = []
+    seen: dict[Path, Path] = {}
+    for f in folders:
+        key = f.resolve()
+        if key in seen:
+            problems.append(f"{f}: given twice in the batch (also as {seen[key]}); give each survey once")
+        seen.setdefault(key, f)
+    outs = [out_root / name for name in results_name_for([f.resolve() for f in folders])]
+    for out in outs:
+        try:
+            check_out_dir(out, surveys=folders)
+        except OutputError as err:
+            problems.extend(err.problems)
+    if problems:
+        raise OutputError(problems)
+    return list(outs)
+
+
 def run_batch(folders: Iterable[str | Path], *, scheduler: Any = None, out_root: str | Path | None = None,
               progress: Progress | None = None, window_progress: WindowProgress | None = None,
               survey_done: Callable[[BatchOutcome, int, int], None] | None = None,
@@ -1586,7 +1758,9 @@ def run_batch(folders: Iterable[str | Path], *, scheduler: Any = None, out_root:
         See :class:`Engine`.
     out_root
         Write each survey's results to ``out_root/<folder name>`` instead of
-        ``<folder>/results``.
+        ``<folder>/results``; same-named surveys get as many trailing path parts as tell
+        them apart (``x/roof``, ``y/roof`` -> ``x_roof``, ``y_roof``). Refused before any
+        work when a results folder would be, hold or lie in a survey of the batch.
     progress, window_progress
         Passed to each survey (local schedulers only).
     survey_done
@@ -1598,17 +1772,18 @@ def run_batch(folders: Iterable[str | Path], *, scheduler: Any = None, out_root:
         In the order of ``folders``.
     """
     folders = [Path(f) for f in folders]
-    options = dict(map_html=map_html, report_html=report_html)
-
-    def out_of(folder: Path) -> Path | None:
-        return None if out_root is None else Path(out_root) / folder.resolve().name
+    options: dict[str, Any] = dict(map_html=map_html, report_html=report_html)
+    outs: list[Path | None] = [None] * len(folders)
+    if out_root is not None:
+        outs = _batch_out_folders(folders, Path(out_root))
+        options["surveys"] = tuple(str(f) for f in folders)
 
     outcomes: list[BatchOutcome | None] = [None] * len(folders)
     with (scheduler if isinstance(scheduler, Engine) else Engine(scheduler)) as engine:
         if engine.kind == "distributed":
             from distributed import as_completed
 
-            futures = {engine.client.submit(_run_one, f, out_of(f), options, None, None, None, pure=False): i
+            futures = {engine.client.submit(_run_one, f, outs[i], options, None, None, None, pure=False): i
                        for i, f in enumerate(folders)}
             done = 0
             for fut in as_completed(list(futures)):
@@ -1625,7 +1800,7 @@ def run_batch(folders: Iterable[str | Path], *, scheduler: Any = None, out_root:
             for i, f in enumerate(folders):
                 if progress is not None:
                     progress(f"survey {i + 1} of {len(folders)}: {f}")
-                outcomes[i] = _run_one(f, out_of(f), options, engine, progress, window_progress)
+                outcomes[i] = _run_one(f, outs[i], options, engine, progress, window_progress)
                 if survey_done is not None:
                     survey_done(outcomes[i], i + 1, len(folders))
     return tuple(o for o in outcomes if o is not None)

@@ -12,6 +12,7 @@ as plan metres. Invalid polygons are repaired with
 from __future__ import annotations
 
 import logging
+import math
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -54,6 +55,8 @@ class Section:
     geometry: BaseGeometry
     assembly: str | None = None
     insulation: str | None = None
+    emissivity: float | None = None
+    """The section's surface emissivity in the camera band (``None``: ``[camera] emissivity``)."""
 
 
 def _looks_like_lonlat(bounds: np.ndarray) -> bool:
@@ -87,8 +90,12 @@ def read_layer(path: Path, *, survey_crs: str | None, what: str) -> PlanLayer:
     import pyogrio
     from pyproj import CRS
 
+    import warnings
+
     try:
-        frame = pyogrio.read_dataframe(path)
+        with warnings.catch_warnings():  # NaN coordinates warn in shapely: refused below, in one line
+            warnings.simplefilter("ignore", RuntimeWarning)
+            frame = pyogrio.read_dataframe(path)
     except Exception as err:  # pyogrio raises several unrelated types for unreadable files
         raise InputFileError(f"{path}: cannot be read as a vector file ({err}); expected GeoJSON, GeoPackage or Shapefile") from None
     notes: list[str] = []
@@ -106,6 +113,11 @@ def read_layer(path: Path, *, survey_crs: str | None, what: str) -> PlanLayer:
             f"{path}: feature {index} is a {geoms[index].geom_type}; expected polygons for the {what}"
         )
     geoms = shapely.force_2d(geoms)
+    coords, owner = shapely.get_coordinates(geoms, return_index=True)
+    bad = ~np.isfinite(coords).all(axis=1)
+    if bad.any():  # NaN or infinity: GEOS cannot compute with them
+        raise InputFileError(f"{path}: feature {int(owner[np.flatnonzero(bad)[0]])} has a coordinate that is not a "
+                             f"finite number ({coords[np.flatnonzero(bad)[0]].tolist()}); fix the {what} in the drawing")
     file_crs = frame.crs
     bounds = np.asarray(shapely.total_bounds(geoms))
     if survey_crs is None:
@@ -124,6 +136,10 @@ def read_layer(path: Path, *, survey_crs: str | None, what: str) -> PlanLayer:
         tr = Transformer.from_crs(file_crs, survey_crs, always_xy=True)
         geoms = shapely.transform(geoms, lambda xy: np.column_stack(tr.transform(xy[:, 0], xy[:, 1])))
         notes.append(f"{path.name}: reprojected from {CRS(file_crs).to_string()} to {survey_crs}")
+        if not np.isfinite(shapely.get_coordinates(geoms)).all():
+            raise InputFileError(f"{path}: its coordinates cannot be reprojected from {CRS(file_crs).to_string()} "
+                                 f"to {survey_crs} (they fall outside what either CRS can represent); check the "
+                                 "CRS the file declares and the survey's crs")
     invalid = ~shapely.is_valid(geoms)
     if invalid.any():
         for i in np.flatnonzero(invalid):
@@ -169,8 +185,21 @@ def read_sections(path: Path, *, survey_crs: str | None) -> tuple[list[Section],
         values = layer.attributes.get(key, (None,) * len(names))
         return [None if _missing(v) else str(v) for v in values]
 
+    emissivity: list[float | None] = []
+    for i, v in enumerate(layer.attributes.get("emissivity", (None,) * len(names))):
+        if _missing(v):
+            emissivity.append(None)
+            continue
+        try:
+            e = float(v)
+        except (TypeError, ValueError):
+            e = math.nan
+        if not (0.0 < e <= 1.0):
+            raise InputFileError(f"{path}: section {names[i]!r} (feature {i}) has emissivity {v!r}: expected a number "
+                                 "above 0 and at most 1 (e.g. 0.90), or leave it empty for [camera] emissivity")
+        emissivity.append(e)
     sections = [
-        Section(name=n, geometry=g, assembly=a, insulation=ins)
-        for n, g, a, ins in zip(names, layer.geometries, column("assembly"), column("insulation"))
+        Section(name=n, geometry=g, assembly=a, insulation=ins, emissivity=e)
+        for n, g, a, ins, e in zip(names, layer.geometries, column("assembly"), column("insulation"), emissivity)
     ]
     return sections, layer.notes

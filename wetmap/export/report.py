@@ -78,6 +78,10 @@ _SHOWN_KEYS = frozenset({
     "tearoff_area_m2", "warnings", "sections", "coverage", "confirmations", "method", "wetmap_version",
     "wet_area_range_m2", "wet_area_range", "threshold_check", "suggested_cores",
     "imagery", "reflection_suspect",  # shown under "Imagery checks" in the method section
+    "boards_range",  # shown with the repair quantities
+    "background",  # a line per section in the method table
+    "large_wet_share",  # beside the replace-or-repair note in the quantities
+    "threshold_check_by_section",  # in the threshold check
 })
 
 
@@ -644,6 +648,10 @@ def _key_figures(s: dict[str, Any], w: Wording, u: DisplayUnits = DisplayUnits()
     if cov:
         rows.append((f"{w.area_title} with no thermal data (not surveyed)",
                      _c(cov.get("uncovered_m2"), "coverage.uncovered_m2", suffix=" m²")))
+        for key, what in (("edge_band_m2", "Band along the roof edge left out (not surveyed)"),
+                          ("exclusion_band_m2", "Band around the exclusions left out (not surveyed)")):
+            if key in cov:
+                rows.append((what, _c(cov[key], f"coverage.{key}", suffix=" m²")))
     body = "".join(f"<tr><th>{k}</th>{v}</tr>" for k, v in rows)
     return f'<table class="keyfigures" id="key-figures"><tbody>{body}</tbody></table>'
 
@@ -670,11 +678,14 @@ def _conditions(result: "SurveyResult") -> str:
         except Exception:  # noqa: BLE001 - a display nicety; the CRS was validated when the survey loaded
             pass
     rows.append(("Air temperature", f"{u.temp(c.air_c):.1f} {u.temp_unit}" if u.imperial else f"{c.air_c:g} °C"))
-    rows.append(("Relative humidity", f"{c.humidity_pct:g} %"))
+    rows.append(("Relative humidity", f"{c.humidity_pct:g} % (over water)"))
     try:
-        from ..conditions import dew_point_c
+        from ..conditions import dew_point_c, frost_point_c
 
         rows.append(("Dew point (computed, Magnus formula)", f"{u.temp(dew_point_c(c.air_c, c.humidity_pct)):.1f} {u.temp_unit}"))
+        frost = frost_point_c(c.air_c, c.humidity_pct)
+        if frost < 0.0:
+            rows.append(("Frost point (computed, Magnus over ice)", f"{u.temp(frost):.1f} {u.temp_unit}"))
     except Exception:  # noqa: BLE001 - the same: shown when it can be computed
         pass
     rows.append(("Wind", "not given" if c.wind_m_s is None else u.wind(c.wind_m_s)))
@@ -708,7 +719,9 @@ def _method(result: "SurveyResult", summary: dict[str, Any]) -> str:
     estimated = not r.reflected_source.startswith("measured")
     rows = [
         ("Camera band", f"{r.band_um[0]:g}-{r.band_um[1]:g} µm (band-integrated Planck radiance)"),
-        ("Emissivity", f"{r.emissivity:g}"),
+        ("Emissivity", f"{r.emissivity:g}" + "".join(
+            f"; section {_esc(sec.name)}: {sec.emissivity:g}" for sec in result.sections
+            if getattr(sec, "emissivity", None) is not None)),
         ("Reflected apparent temperature", f"{r.reflected_c:.1f} °C: {_esc(r.reflected_source)}"),
         ("Atmospheric transmittance", f"{r.transmittance:.4f}: {_esc(r.transmittance_source)}; "
                                       f"atmosphere taken at {r.atmosphere_c:g} °C"),
@@ -718,8 +731,13 @@ def _method(result: "SurveyResult", summary: dict[str, Any]) -> str:
          f"{result.full_rasters.grid.cols:,d}, processed in {result.full_rasters.windows} windows of "
          f"{result.full_rasters.tile_px} px; figures drawn from {result.full_rasters.preview_factor} x "
          f"{result.full_rasters.preview_factor} px block means"),
-        ("Dry background scale", f"{d.background_m:g} m"),
-        ("Threshold", f"ΔT &gt; {d.threshold_c:g} °C above the dry background"),
+        ("Dry background scale", f"{d.background_m:g} m (the local method's footprint)"),
+        *[(f"Dry background, {_esc(e['section'])}", f"{_esc(e['method'])}: {_esc(e['reason'])}")
+          for e in summary.get("background") or []],
+        ("Threshold", f"ΔT &gt; {d.threshold_c:g} °C above the dry background"
+         + ("" if "delta_c_cores" not in m else
+            f": the middle of the range the cores allow (largest ΔT at a dry core {m['delta_c_cores']['dry_max_c']:+.2f} °C, "
+            f"smallest at a wet core {m['delta_c_cores']['wet_min_c']:+.2f} °C)")),
         ("Smallest anomaly kept", f"{s.detect.min_area_m2:g} m² (holes smaller than this are filled)"),
         ("Perimeter", _esc(m.get("perimeter", "length of the outline"))),
         ("Repair margin", f"{s.repair.margin_m:g} m beyond the anomaly outline"),
@@ -740,9 +758,10 @@ def _method(result: "SurveyResult", summary: dict[str, Any]) -> str:
         + w.status_note + ".</p>"
     )
     if estimated:
-        text += ("<p class='caution'>The reflected temperature was <b>estimated</b>, not measured. In the "
-                 "camera's long-wave band a clear sky is colder than a broadband estimate; a measured value "
-                 "(ASTM E1862) is preferable.</p>")
+        text += ("<p class='caution'>The reflected temperature was <b>estimated</b>, not measured: from the "
+                 "sky's emission in the camera's 8-14 µm window (Idso 1981) for the recorded air temperature, "
+                 "humidity and cloud. The real sky varies; a measured reflected apparent temperature (ASTM E1862) "
+                 "is preferable.</p>")
     return text + f'<table class="kv" id="method">{body}</table>' + _imagery(result, summary)
 
 
@@ -884,7 +903,9 @@ def _anomaly_table(result: "SurveyResult", summary: dict[str, Any]) -> str:
         f'{u.area_cell(sum(a.area_m2 for a in result.anomalies), unit=False)}<td colspan="5"></td></tr>'
     )
     flagged = [a for a in result.anomalies if getattr(a, "flags", "")]
-    flags = ("<p id='anomaly-flags' class='small'>Imagery flags (see Imagery checks in the method): "
+    flags = ("<p id='anomaly-flags' class='small'>Flags (imagery: see Imagery checks in the method; "
+             "“edge band”, “next to a rooftop unit”: a narrow band along the roof edge or around an exclusion, "
+             "often flashing, parapet or unit heat): "
              + "; ".join(f"#{a.id}: {_esc(a.flags)}" for a in flagged) + ".</p>") if flagged else ""
     return (f'<table id="anomalies" class="data"><thead>{head}</thead><tbody>{"".join(body)}</tbody>'
             f"<tfoot>{foot}</tfoot></table>{flags}")
@@ -902,6 +923,11 @@ def _quantities(result: "SurveyResult", summary: dict[str, Any]) -> str:
     if w.whole_boards:
         rows += [
             ("Whole boards", _cell(summary["boards"], "boards")),
+            *([("Whole boards, fewest to most with where the joints lie",
+                f"<td class='num'>{summary['boards_range'][0]} to {summary['boards_range'][1]}</td>")]
+              if summary.get("boards_range") else []),
+            *([("Board grid origin", f"<td>{_esc(result.takeoff.origin_rule)}</td>")]
+              if s.board_m and result.takeoff.origin_rule else []),
             ("Board size", "<td>–</td>" if not s.board_m else
              f"<td>{u.length(s.board_m[0]):.2f} x {u.length(s.board_m[1]):.2f} {u.length_unit}</td>" if u.imperial
              else f"<td>{s.board_m[0]:g} x {s.board_m[1]:g} m</td>"),
@@ -934,6 +960,13 @@ def _quantities(result: "SurveyResult", summary: dict[str, Any]) -> str:
                 f'<tbody>{"".join(rows_html)}</tbody></table>'
                 "<p class='small'>Replace-or-repair rules (for example a share of wet area above which a whole "
                 f"{w.area_short} is replaced) differ by jurisdiction: the local code decides.</p>")
+    large = summary.get("large_wet_share") or []
+    if large:
+        out += ("<p id='large-wet-share'><strong>Large wet share:</strong> "
+                + "; ".join(f"{_esc(e['where'])}: {100 * e['wet_fraction']:.0f} %" for e in large)
+                + ". Anomalies fill more than the replace-or-repair share here (some local codes require "
+                "replacement above 25 % wet; a trade rule of thumb repairs only under about 30 %): confirm the "
+                f"wet boundary with {w.confirmations} before deciding.</p>")
     bill = _bill_of(result, summary)
     if bill is not None:
         out += "<h3>Bill of quantities</h3>" + _bill_html(bill)
@@ -1001,6 +1034,13 @@ def _calibration(summary: dict[str, Any], w: Wording) -> str:
     """The threshold against the cores, the wet-area range and where the next cores are worth most."""
     parts = []
     n = w.confirmations
+    by_section = summary.get("threshold_check_by_section") or []
+    if by_section:
+        parts.append("<p id='threshold-by-section' class='small'>The threshold within each section: " + "; ".join(
+            f"{_esc(e['section'])}: {e['wet_cores']} wet and {e['dry_cores']} dry {n}, thresholds from "
+            f"{e['range_c'][0]:+.2f} to {e['range_c'][1]:+.2f} °C fit them"
+            + (f", misclassified {_esc(', '.join(e['misclassified']))}" if e["misclassified"] else "")
+            for e in by_section) + ".</p>")
     t = summary.get("threshold_check")
     if t:
         c = t["confusion"]

@@ -10,6 +10,9 @@ Each CSV holds one kind of row, so that a plain SUM of a column is meaningful:
 - ``wet_area_range.csv``: ``low end`` and ``high end`` of the counted wet area
   (``wet_area_*``) at the thresholds of :func:`wetmap.confirm.area_thresholds`, widened by
   the outline's uncertainty (written when the cores give a range);
+- ``board_range.csv``: without ``[repair] board_origin``, the ``fewest`` and ``most``
+  whole ``boards`` over the board-grid origins tried; the total row gives the median
+  (:func:`wetmap.quantities.board_takeoff_over_origins`);
 - ``bill.csv``: one row per line of the bill of quantities, then ``bill total``.
 
 ``takeoff.xlsx`` holds the same tables, one sheet each, with totals as formulas.
@@ -27,6 +30,7 @@ from __future__ import annotations
 import csv
 import json
 import math
+import re
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -36,7 +40,8 @@ if TYPE_CHECKING:
     from ..pipeline import SurveyResult
 
 __all__ = ["write_summary", "write_quantities", "write_takeoff", "quantity_tables", "quantity_columns",
-           "quantities_of", "sheet_text", "QUANTITY_COLUMNS", "SECTION_COLUMNS", "BILL_COLUMNS", "TAKEOFF_FILES"]
+           "quantities_of", "spreadsheet_cell", "QUANTITY_COLUMNS", "SECTION_COLUMNS", "BILL_COLUMNS",
+           "TAKEOFF_FILES"]
 
 #: The columns every quantities.csv has, in order (unit columns and the bill's follow).
 QUANTITY_COLUMNS = (
@@ -49,6 +54,29 @@ QUANTITY_COLUMNS = (
 
 #: Area columns also given in each extra unit (``area_ft2``, ...).
 _CONVERTED = ("area", "roof_area", "wet_area", "repair_area", "tearoff_area")
+
+
+#: First characters that make a spreadsheet evaluate a cell as a formula (OWASP, "CSV Injection").
+_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
+_NUMBER = re.compile(r"^[+-]?(\d+\.?\d*|\.\d+)([eE][+-]?\d+)?$")
+
+
+def spreadsheet_cell(value: Any) -> Any:
+    """``value`` as a CSV cell that a spreadsheet shows and never evaluates.
+
+    A text starting with ``= + - @``, a tab or a carriage return is prefixed with a single
+    quote (OWASP's advice against CSV injection); numbers, and texts that are plain numbers
+    (a negative number is a number, not a formula), are left as they are. Every CSV wetmap
+    writes passes its cells through here.
+
+    Examples
+    --------
+    >>> spreadsheet_cell("=SUM(A1:A9)"), spreadsheet_cell("@A1"), spreadsheet_cell("-1.250"), spreadsheet_cell(-3)
+    ("'=SUM(A1:A9)", "'@A1", '-1.250', -3)
+    """
+    if not isinstance(value, str) or not value.startswith(_FORMULA_START) or _NUMBER.match(value):
+        return value
+    return "'" + value
 
 
 def _clean(value):
@@ -106,27 +134,6 @@ def _f(value: float | None, digits: int = 3) -> str:
     return "" if value is None or not math.isfinite(value) else f"{value:.{digits}f}"
 
 
-#: Characters that make a spreadsheet read a text cell as a formula (OWASP "CSV injection").
-_FORMULA_START = ("=", "+", "-", "@", "\t", "\r")
-
-
-def sheet_text(value: Any) -> Any:
-    """A text cell made safe for spreadsheets: text starting like a formula gets a leading ``'``.
-
-    Numbers (and text that is a number, as written by :func:`_f`) pass unchanged.
-
-    >>> sheet_text("=HYPERLINK(1)"), sheet_text("-1.250"), sheet_text("A"), sheet_text(3)
-    ("'=HYPERLINK(1)", '-1.250', 'A', 3)
-    """
-    if not isinstance(value, str) or not value.startswith(_FORMULA_START):
-        return value
-    try:
-        float(value)
-        return value
-    except ValueError:
-        return "'" + value
-
-
 #: Columns of sections.csv (areas per section; unit columns follow), of wet_area_range.csv and of bill.csv.
 SECTION_COLUMNS = (
     "section", "area_m2", "counted_wet_area_m2", "roof_area_m2", "confirmed_wet_area_m2", "unverified_area_m2",
@@ -134,6 +141,7 @@ SECTION_COLUMNS = (
     "board_area_m2", "tearoff_area_m2",
 )
 RANGE_COLUMNS = ("end", "wet_area_m2")
+BOARD_RANGE_COLUMNS = ("end", "origins_tried", "boards")
 BILL_COLUMNS = ("bill_item", "description", "bill_unit", "bill_quantity", "rate", "amount", "currency")
 
 
@@ -220,6 +228,11 @@ def quantity_tables(result: "SurveyResult") -> dict[str, tuple[tuple[str, ...], 
             converted(row, wet_area=value)
             ranges.append(row)
 
+    board_range: list[dict[str, Any]] = []
+    if q.takeoff.count_range is not None:  # no board origin given: the count over grid origins
+        for end, value in zip(("fewest", "most"), q.takeoff.count_range):
+            board_range.append({"end": end, "origins_tried": q.takeoff.origins_tried, "boards": value})
+
     bill = q.bill
     bill_rows: list[dict[str, Any]] = []
     for line in bill.lines:
@@ -243,19 +256,21 @@ def quantity_tables(result: "SurveyResult") -> dict[str, tuple[tuple[str, ...], 
         "quantities": (quantity_columns(("m2", *units), kind=kind), renamed(rows)),
         "sections": (_with_units(SECTION_COLUMNS, ("m2", *units), kind), renamed(sections)),
         "wet_area_range": (_with_units(RANGE_COLUMNS, ("m2", *units), kind), ranges),
+        "board_range": (BOARD_RANGE_COLUMNS, [] if hull else board_range),
         "bill": (bill_columns, bill_rows),
     }
 
 
 #: The files of :func:`write_quantities`, beside quantities.csv.
-TAKEOFF_FILES = {"sections": "sections.csv", "wet_area_range": "wet_area_range.csv", "bill": "bill.csv"}
+TAKEOFF_FILES = {"sections": "sections.csv", "wet_area_range": "wet_area_range.csv",
+                 "board_range": "board_range.csv", "bill": "bill.csv"}
 
 
 def _write_csv(path: Path, columns: tuple[str, ...], rows: list[dict[str, Any]]) -> None:
     with path.open("w", newline="", encoding="utf-8") as fh:
         w = csv.DictWriter(fh, fieldnames=list(columns), restval="", extrasaction="ignore")
         w.writeheader()
-        w.writerows({k: sheet_text(v) for k, v in r.items()} for r in rows)
+        w.writerows({k: spreadsheet_cell(v) for k, v in r.items()} for r in rows)
 
 
 def write_quantities(result: "SurveyResult", path: Path) -> None:
@@ -278,14 +293,14 @@ def _number(text: Any) -> Any:
     try:
         return int(text) if text.lstrip("-").isdigit() else float(text)
     except ValueError:
-        return sheet_text(text)
+        return spreadsheet_cell(text)
 
 
 def write_takeoff(result: "SurveyResult", path: Path) -> None:
     """``takeoff.xlsx``: one sheet per table of :func:`quantity_tables` (openpyxl).
 
     Numbers are stored as numbers and texts as texts (a text that looks like a formula is
-    quoted). Totals a contractor can audit are formulas: on the anomalies sheet the total
+    quoted by :func:`spreadsheet_cell`). Totals a contractor can audit are formulas: on the anomalies sheet the total
     row sums the anomaly rows' areas and perimeters; on the sections sheet a last row sums
     the sections; on the bill sheet each priced amount is ``ROUND(quantity * rate, 2)`` and
     the total sums the amounts. Header cells name the unit (``area_m2``, ``perimeter_m``).
@@ -299,7 +314,7 @@ def write_takeoff(result: "SurveyResult", path: Path) -> None:
     wb.remove(wb.active)
     bold = Font(bold=True)
     sheet_names = {"quantities": "anomalies", "sections": "sections", "wet_area_range": "wet area range",
-                   "bill": "bill"}
+                   "board_range": "board range", "bill": "bill"}
     for name, (columns, rows) in tables.items():
         if not rows and name != "quantities":
             continue

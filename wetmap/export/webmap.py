@@ -1108,7 +1108,7 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
     fields = ["anomaly", "status", "area", "perimeter", "delta_mean", "delta_max", "confirmations", "section",
               "counted", "flags"]
     aliases = ["Anomaly", "Status", "Area", "Perimeter", "Mean ΔT", "Max ΔT", "Confirmations", "Section",
-               "Counted in repair", "Imagery flags"]
+               "Counted in repair", "Flags"]
     for status, st in STATUS_STYLES.items():
         feats = [
             _feature(a.geometry, proj, f"a{a.id}", {
