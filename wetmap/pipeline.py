@@ -30,7 +30,7 @@ from .confirmations import Confirmations
 from .detect import Detection, default_background_m, detect_anomalies
 from .errors import ProcessingError
 from .passes import PassComparison, align_to_grid, choose_primary, compare_passes, group_passes, pass_contrast_c
-from .polygons import RegionStats, label_regions, polygonize, region_stats
+from .polygons import SIMPLIFY_TOLERANCE_PX, RegionStats, label_regions, polygonize, region_stats, simplify_outlines
 from .quantities import BoardTakeoff, Quantities, SectionTotals, compute_quantities, largest_overlap
 from .rasters import PlanGrid, inspect_raster, plan_grid_for, read_onto_grid
 from .register import SUSPECT_MIN_PX, FrameReport, Registration
@@ -64,6 +64,9 @@ class Anomaly:
 
     id: int
     geometry: Polygon
+    """The outline simplified within :data:`wetmap.polygons.SIMPLIFY_TOLERANCE_PX` of a pixel
+    (what the repair margin, the files, the map and the report draw); ``area_m2`` and
+    ``perimeter_m`` are measured on the exact outline."""
     status: Status
     area_m2: float
     perimeter_m: float
@@ -914,10 +917,14 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         sections=sections, specular=specular, outline=outline)
     warnings.extend(imagery.warnings)
     section_of = largest_overlap(polys, [s.geometry for s in sections])
+    # the later stages (margin, files, map, report) take outlines simplified within a
+    # fraction of a pixel; areas, perimeters and every judgement above use the exact ones
+    pixel_m = (tiled.full_rasters.grid if tiled is not None else grid).pixel_m
+    drawn = simplify_outlines(polys, tolerance=SIMPLIFY_TOLERANCE_PX * pixel_m)
     anomalies = tuple(
         Anomaly(
             id=i + 1,
-            geometry=p,
+            geometry=drawn[i],
             status=verdicts.status[i],
             area_m2=float(p.area),
             perimeter_m=float(p.length),
