@@ -432,8 +432,17 @@ def board_takeoff_over_origins(repair: BaseGeometry, *, board_m: tuple[float, fl
         return replace(base, count_range=(0, 0), origins_tried=steps * steps, origin_rule=rule)
     rot_repair = affinity.rotate(repair, -angle_deg, origin=pivot)
     offsets = [(i, j) for i in range(steps) for j in range(steps)]
-    counts = np.array([len(_grid_cells(rot_repair, ox0 + i * w / steps, oy0 + j * h / steps, w, h))
-                       for i, j in offsets])
+
+    def count(offset: tuple[int, int]) -> int:
+        i, j = offset
+        return len(_grid_cells(rot_repair, ox0 + i * w / steps, oy0 + j * h / steps, w, h))
+
+    # the origins are independent and shapely releases the GIL: one thread per core
+    import os
+    from concurrent.futures import ThreadPoolExecutor
+
+    with ThreadPoolExecutor(max(1, min(os.cpu_count() or 1, len(offsets)))) as pool:
+        counts = np.array(list(pool.map(count, offsets)))
     median = int(np.sort(counts)[len(counts) // 2])
     k = int(np.flatnonzero(counts == median)[0])  # offsets run from the default corner outward
     i, j = offsets[k]
