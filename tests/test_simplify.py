@@ -95,6 +95,8 @@ def test_samples_draw_simplified_outlines_and_measure_exact_ones(name, monkeypat
                                     exclusions=result.exclusions)
         bound = tolerance + MARGIN_CHORD_FRACTION * settings_.margin_m
         assert from_exact.hausdorff_distance(result.repair) <= bound * (1 + 1e-9)
+        # and the repair area within that distance times the perimeter
+        assert abs(from_exact.area - result.repair.area) <= bound * from_exact.length
 
 
 @st.composite
