@@ -183,6 +183,7 @@ def machine() -> str:
 
 
 def main() -> int:
+    global QUIET_LOAD
     ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--sizes", type=int, nargs="+", default=[16, 32, 64, 256])
     ap.add_argument("--repeat", type=int, default=1)
@@ -195,7 +196,6 @@ def main() -> int:
                     help="also run `wetmap run --scheduler` on a LocalCluster of 2 workers at this size and "
                          "compare its results with the threaded run's")
     args = ap.parse_args()
-    global QUIET_LOAD
     QUIET_LOAD = args.quiet_load
     OUT.mkdir(exist_ok=True)
     rows = bench(args.sizes, args.repeat, args.whole_up_to)
