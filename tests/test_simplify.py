@@ -166,3 +166,25 @@ def test_margin_corners_within_the_chord_error(margin_m):
     # a lone point: the chord polygon of the circle of radius m
     disc = repair_outline([Point(25, 25).buffer(1e-6, quad_segs=1)], margin_m=margin_m, outline=box(0, 0, 50, 50))
     assert disc.area == pytest.approx(2 * QUAD_SEGS * margin_m**2 * np.sin(np.pi / (2 * QUAD_SEGS)), rel=1e-4)
+
+
+@settings(max_examples=40, deadline=None)
+@given(blobs(), st.sampled_from([(1.2, 2.4), (0.6, 0.6), (1.0, 3.0)]), st.sampled_from([1, 3, 7]))
+def test_board_counts_over_origins_equal_clipping_each_board(blob, board_m, steps):
+    """The take-off counts every origin's boards from fine cells clipped once: the same
+    counts as clipping each board of each origin against the outline."""
+    from wetmap.quantities import _counts_over_origins, _grid_cells
+
+    mask, transform, pixel_m = blob
+    labels, count = label_regions(mask)
+    if not count:
+        return
+    scale = 40.0 * pixel_m  # blobs of metres, boards of about a metre
+    polys = polygonize(labels, count, Affine.scale(scale, scale))
+    repair = shapely.union_all([p.buffer(0.3 * scale, quad_segs=QUAD_SEGS) for p in polys])
+    w, h = board_m
+    ox0, oy0 = repair.bounds[0] - 0.37, repair.bounds[1] - 0.11
+    fine = _counts_over_origins(repair, ox0, oy0, w, h, steps)
+    each = [len(_grid_cells(repair, ox0 + i * w / steps, oy0 + j * h / steps, w, h))
+            for i in range(steps) for j in range(steps)]
+    assert fine.tolist() == each

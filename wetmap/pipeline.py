@@ -920,7 +920,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
     # the later stages (margin, files, map, report) take outlines simplified within a
     # fraction of a pixel; areas, perimeters and every judgement above use the exact ones
     pixel_m = (tiled.full_rasters.grid if tiled is not None else grid).pixel_m
-    drawn = simplify_outlines(polys, tolerance=SIMPLIFY_TOLERANCE_PX * pixel_m)
+    drawn = simplify_outlines(polys, tolerance=SIMPLIFY_TOLERANCE_PX * pixel_m)  # (ring starts normalised)
     anomalies = tuple(
         Anomaly(
             id=i + 1,
@@ -939,8 +939,9 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
 
     _emit(progress, "repair quantities")
     quantities = compute_quantities(
-        [a.geometry for a in anomalies], [a.status for a in anomalies], outline=outline, exclusions=exclusions,
+        polys, [a.status for a in anomalies], outline=outline, exclusions=exclusions,
         sections=sections, settings=survey.repair, prices=survey.prices, kind=survey.survey.kind,
+        drawn=[a.geometry for a in anomalies],
     )
     warnings.extend(quantities.notes)
     if quantities.takeoff.range_note:

@@ -806,8 +806,14 @@ def simplify_outlines(polygons, *, tolerance: float) -> list[shapely.Polygon]:
     polys = np.asarray(list(polygons), dtype=object).reshape(-1)
     if not len(polys) or tolerance == 0:
         return list(polys)
-    simple = shapely.simplify(polys, tolerance / 2.0, preserve_topology=True)  # see above: half
-    bad = ~shapely.is_valid(simple) | (shapely.get_type_id(simple) != shapely.get_type_id(polys))
+    # the same outline whatever ring vertex it starts from (windows or whole array): the
+    # rings in GEOS's normal form, shells then turned back counter-clockwise as drawn
+    flip = np.array([not p.is_empty and not p.exterior.is_ccw for p in polys], dtype=bool)
+    canonical = shapely.orient_polygons(shapely.normalize(polys), exterior_cw=False)
+    simple = shapely.simplify(canonical, tolerance / 2.0, preserve_topology=True)  # see above: half
+    if flip.any():  # keep an outline given clockwise clockwise
+        simple[flip] = shapely.orient_polygons(simple[flip], exterior_cw=True)
+    bad = ~shapely.is_valid(simple) | (shapely.get_type_id(simple) != shapely.get_type_id(polys))  # (rare)
     bad |= shapely.is_empty(simple) != shapely.is_empty(polys)
     simple[bad] = polys[bad]
     return list(simple)  # the kept vertices keep their order: orientation unchanged
