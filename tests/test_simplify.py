@@ -83,7 +83,7 @@ def test_samples_draw_simplified_outlines_and_measure_exact_ones(name, monkeypat
     # fewer vertices overall: the point of the copy
     assert sum(map(shapely.get_num_coordinates, simple)) < 0.7 * sum(map(shapely.get_num_coordinates, exact))
     for a, e, s in zip(result.anomalies, exact, simple):
-        assert a.geometry is s
+        assert a.geometry is s and a.exact is e
         assert a.area_m2 == e.area and a.perimeter_m == e.length  # measured on the exact outline
     # the repair outline grows the copies: within the tolerance plus the margin's chord error
     # (growing two sets by one distance never moves them further apart than they were)

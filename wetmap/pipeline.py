@@ -76,6 +76,9 @@ class Anomaly:
     section: str | None
     flags: str = ""
     """Imagery flags (``"; "``-separated): ``reflection suspect``, ``under-resolved`` (:mod:`wetmap.imagery`)."""
+    exact: Polygon | None = None
+    """The exact outline ``area_m2``, ``perimeter_m`` and the imagery checks are measured on
+    (``geometry`` is its simplified copy); ``None``: ``geometry`` is exact."""
 
 
 @dataclass(frozen=True)
@@ -933,6 +936,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
             confirmations=verdicts.confirmation_ids[i],
             section=sections[section_of[i]].name if section_of[i] >= 0 else None,
             flags=imagery.flags_text(i),
+            exact=p,
         )
         for i, p in enumerate(polys)
     )
