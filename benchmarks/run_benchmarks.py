@@ -125,6 +125,52 @@ def table(rows: list[dict]) -> str:
     return "\n".join(out) + "\n"
 
 
+def _same_results(a: Path, b: Path) -> list[str]:
+    """Names of the figures that differ between two results folders (summary.json, anomalies)."""
+    import json
+
+    import geopandas as gpd
+
+    differ = []
+    sa = json.loads((a / "summary.json").read_text(encoding="utf-8"))
+    sb = json.loads((b / "summary.json").read_text(encoding="utf-8"))
+    volatile = {"processing", "created", "version", "run"}  # run facts, not results
+    differ += [f"summary.json {k}" for k in sorted(set(sa) | set(sb)) if k not in volatile and sa.get(k) != sb.get(k)]
+    ga, gb = gpd.read_file(a / "anomalies.gpkg"), gpd.read_file(b / "anomalies.gpkg")
+    if len(ga) != len(gb):
+        differ.append(f"anomalies.gpkg: {len(ga)} against {len(gb)} rows")
+    else:
+        for col in ga.columns:
+            if col != "geometry" and not ga[col].equals(gb[col]):
+                differ.append(f"anomalies.gpkg {col}")
+        if not all(x.equals(y) for x, y in zip(ga.geometry, gb.geometry)):
+            differ.append("anomalies.gpkg geometry")
+    return differ
+
+
+def cluster_run(size: int) -> str:
+    """``wetmap run --scheduler`` on a LocalCluster of 2 single-threaded workers, against the threaded run."""
+    from dask.distributed import LocalCluster
+
+    folder = make(size)
+    threaded = OUT / f"results_{size}mpx"
+    if not (threaded / "summary.json").is_file():
+        run(commands(size, folder)["wetmap"])
+    res = OUT / f"results_{size}mpx_cluster"
+    start = time.perf_counter()
+    with LocalCluster(n_workers=2, threads_per_worker=1, processes=True, dashboard_address=None) as cluster:
+        up = time.perf_counter() - start
+        seconds, peak, _ = run([sys.executable, "-m", "wetmap_cli.main", "run", str(folder), "--out", str(res),
+                                "--quiet", "--scheduler", cluster.scheduler_address])
+    differ = _same_results(threaded, res)
+    same = "equal to the threaded run (summary.json and anomalies.gpkg)" if not differ else \
+        "DIFFERENT from the threaded run: " + ", ".join(differ)
+    line = (f"LocalCluster (2 workers, 1 thread each) at {size} Mpx: `wetmap run --scheduler` {seconds:.1f} s "
+            f"(client process peak {peak:.0f} MB; the cluster took {up:.1f} s to start, not counted); {same}.\n")
+    print(line, flush=True)
+    return line
+
+
 def machine() -> str:
     import numpy
     import rasterio
@@ -137,15 +183,25 @@ def machine() -> str:
 
 
 def main() -> int:
+    global QUIET_LOAD
     ap = argparse.ArgumentParser(description=__doc__, formatter_class=argparse.RawDescriptionHelpFormatter)
     ap.add_argument("--sizes", type=int, nargs="+", default=[16, 32, 64, 256])
     ap.add_argument("--repeat", type=int, default=1)
     ap.add_argument("--whole-up-to", type=int, default=32, help="also time --tile-px 0 up to this size (Mpx)")
     ap.add_argument("--no-write", action="store_true", help="print the table only (do not write RESULTS.md)")
+    ap.add_argument("--quiet-load", type=float, default=QUIET_LOAD,
+                    help=f"wait for a 1-minute load average below this before each run (default {QUIET_LOAD}; "
+                         "on a shared machine set it high and compare the ratios only)")
+    ap.add_argument("--cluster", type=int, default=0, metavar="MPX",
+                    help="also run `wetmap run --scheduler` on a LocalCluster of 2 workers at this size and "
+                         "compare its results with the threaded run's")
     args = ap.parse_args()
+    QUIET_LOAD = args.quiet_load
     OUT.mkdir(exist_ok=True)
     rows = bench(args.sizes, args.repeat, args.whole_up_to)
     text = table(rows)
+    if args.cluster:
+        text += "\n" + cluster_run(args.cluster)
     print(text)
     if not args.no_write:
         (HERE / "RESULTS.md").write_text(
@@ -154,7 +210,8 @@ def main() -> int:
             f"Machine: {machine()}.\n\n{text}\n"
             "Seconds: wall time of a fresh process (start-up and imports included), median of the repeats; MB: "
             "its peak resident memory. Ratios: wetmap / naive chain. Each run waited for a 1-minute load average "
-            f"below {QUIET_LOAD} (highest at a start: {max(LOADS):.2f}).\n", encoding="utf-8")
+            f"below {QUIET_LOAD} (highest at a start: {max(LOADS):.2f}; the loads at the start of each run are "
+            "in the log).\n", encoding="utf-8")
     return 0
 
 

@@ -47,11 +47,22 @@ def main(folder: Path) -> int:
     import geopandas  # noqa: F401
     import matplotlib  # noqa: F401
 
+    import wetmap.imagery
+    import wetmap.pipeline as pipeline
     from wetmap.export import cad, gis, report as report_html, tables, webmap
     from wetmap.pipeline import process_survey, write_results
     from wetmap.tiles import FullRasters
 
     report("imports", time.perf_counter() - start)
+    # steps inside process_survey (each reported when it ends, before process_survey's total)
+    for module, name, label in [(pipeline, "detect_in_windows", "  windowed detection"),
+                                (pipeline, "detect_anomalies", "  whole-array detection"),
+                                (pipeline, "polygonize", "  outlines (whole array)"),
+                                (pipeline, "simplify_outlines", "  simplified outlines"),
+                                (wetmap.imagery, "assess_imagery", "  imagery checks (focus...)"),
+                                (pipeline, "compute_quantities", "  quantities (repair margin, boards)")]:
+        if hasattr(module, name):
+            setattr(module, name, timed(label, getattr(module, name)))
     for module, name in [(tables, "write_summary"), (tables, "write_quantities"), (gis, "write_anomalies"),
                          (gis, "write_repair"), (cad, "write_dxf"), (gis, "write_raster"), (webmap, "write_map"),
                          (report_html, "write_report"), (FullRasters, "place")]:

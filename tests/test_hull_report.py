@@ -24,6 +24,7 @@ from wetmap.confirm import assign_status
 from wetmap.confirmations import read_confirmations
 from wetmap.errors import InputFileError, SurveyError
 from wetmap.pipeline import run_survey
+from wetmap.quantities import QUAD_SEGS
 from wetmap.wording import wording_for
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -205,7 +206,7 @@ def test_hull_bill_equals_buffered_anomalies(hull_run):
                if f["properties"]["status"] in ("wet", "unverified")]
     outline = shapely.union_all([shape(f["geometry"]) for f in _features(folder / "plan" / "outline.geojson")])
     excl = shapely.union_all([shape(f["geometry"]) for f in _features(folder / "plan" / "exclusions.geojson")])
-    ref = shapely.union_all([g.buffer(margin, quad_segs=16) for g in counted]).intersection(outline).difference(excl)
+    ref = shapely.union_all([g.buffer(margin, quad_segs=QUAD_SEGS) for g in counted]).intersection(outline).difference(excl)
     summary = json.loads((folder / "results" / "summary.json").read_text(encoding="utf-8"))
     lines = {ln["item"]: ln for ln in summary["bill"]["lines"]}
     assert list(lines) == ["remove skin and core", "scarf edge", "re-core", "re-laminate", "fair and finish"]

@@ -147,7 +147,7 @@ def test_small_and_large_anomalies_on_a_sample(warehouse_strict):
     im = r.imagery
     assert im.smallest_reliable_area_m2 == pytest.approx((20 * 0.1) ** 2)
     for a, across in zip(r.anomalies, im.anomaly_pixels_across):
-        width = imagery.feature_width_m(a.geometry)
+        width = imagery.feature_width_m(a.exact)  # measured on the exact outline
         assert across == pytest.approx(width / 0.1, rel=1e-6)
         assert (imagery.UNDER_RESOLVED_FLAG in a.flags) is (across < 20)
     assert any(imagery.UNDER_RESOLVED_FLAG in a.flags for a in r.anomalies)

@@ -88,8 +88,9 @@ def test_margin_of_a_square(a, m):
     parallel set of a convex body: A + P m + pi m^2)."""
     r = repair_outline([box(0, 0, a, a)], margin_m=m, outline=BIG)
     assert r.area == pytest.approx(a * a + 4 * a * m + corner_area(m), rel=1e-12)
-    # the drawn corners fall short of pi m^2 by under 0.2 % of the corner area
-    assert r.area == pytest.approx(a * a + 4 * a * m + math.pi * m * m, abs=0.002 * math.pi * m * m)
+    # the drawn corners fall short of pi m^2 by under 1.2 % of the corner area (QUAD_SEGS = 6,
+    # the fewest segments whose chords stay within 1 % of the margin; 0.2 % with the 16 used before)
+    assert r.area == pytest.approx(a * a + 4 * a * m + math.pi * m * m, abs=0.012 * math.pi * m * m)
     # and the same shape as shapely's own buffer
     assert r.symmetric_difference(box(0, 0, a, a).buffer(m, quad_segs=QUAD_SEGS)).area < 1e-9
 

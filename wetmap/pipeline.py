@@ -30,7 +30,7 @@ from .detect import (EDGE_FLAG, UNIT_FLAG, Detection, anomaly_mask, background_w
 from .errors import InputFileError, ProcessingError, SurveyError
 from .outputs import replacing
 from .passes import PassComparison, align_to_grid, choose_primary, compare_passes, group_passes, pass_contrast_c
-from .polygons import RegionStats, label_regions, polygonize, region_stats
+from .polygons import SIMPLIFY_TOLERANCE_PX, RegionStats, label_regions, polygonize, region_stats, simplify_outlines
 from .quantities import BoardTakeoff, Quantities, SectionTotals, compute_quantities, largest_overlap
 from .rasters import PlanGrid, inspect_raster, plan_grid_for, read_onto_grid
 from .register import SUSPECT_MIN_PX, FrameReport, Registration
@@ -67,6 +67,9 @@ class Anomaly:
 
     id: int
     geometry: Polygon
+    """The outline simplified within :data:`wetmap.polygons.SIMPLIFY_TOLERANCE_PX` of a pixel
+    (what the repair margin, the files, the map and the report draw); ``area_m2`` and
+    ``perimeter_m`` are measured on the exact outline."""
     status: Status
     area_m2: float
     perimeter_m: float
@@ -76,6 +79,9 @@ class Anomaly:
     section: str | None
     flags: str = ""
     """Imagery flags (``"; "``-separated): ``reflection suspect``, ``under-resolved`` (:mod:`wetmap.imagery`)."""
+    exact: Polygon | None = None
+    """The exact outline ``area_m2``, ``perimeter_m`` and the imagery checks are measured on
+    (``geometry`` is its simplified copy); ``None``: ``geometry`` is exact."""
 
 
 @dataclass(frozen=True)
@@ -1169,10 +1175,14 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
             warnings.append(f"anomal{'y' if len(ids) == 1 else 'ies'} {', '.join(ids)}: a narrow band {where} "
                             f"(flag \"{label}\"): often flashing, parapet or unit heat rather than wet insulation; "
                             f"check in daylight and by a core, or leave the band out with [detect] {setting}")
+    # the later stages (margin, files, map, report) take outlines simplified within a
+    # fraction of a pixel; areas, perimeters and every judgement above use the exact ones
+    pixel_m = (tiled.full_rasters.grid if tiled is not None else grid).pixel_m
+    drawn = simplify_outlines(polys, tolerance=SIMPLIFY_TOLERANCE_PX * pixel_m)  # (ring starts normalised)
     anomalies = tuple(
         Anomaly(
             id=i + 1,
-            geometry=p,
+            geometry=drawn[i],
             status=verdicts.status[i],
             area_m2=float(p.area),
             perimeter_m=float(p.length),
@@ -1181,14 +1191,16 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
             confirmations=verdicts.confirmation_ids[i],
             section=sections[section_of[i]].name if section_of[i] >= 0 else None,
             flags="; ".join(f for f in (imagery.flags_text(i), *place_flags[i]) if f),
+            exact=p,
         )
         for i, p in enumerate(polys)
     )
 
     _emit(progress, "repair quantities")
     quantities = compute_quantities(
-        [a.geometry for a in anomalies], [a.status for a in anomalies], outline=outline, exclusions=exclusions,
+        polys, [a.status for a in anomalies], outline=outline, exclusions=exclusions,
         sections=sections, settings=survey.repair, prices=survey.prices, kind=survey.survey.kind,
+        drawn=[a.geometry for a in anomalies],
     )
     warnings.extend(quantities.notes)
     if quantities.takeoff.range_note:

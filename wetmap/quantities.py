@@ -54,6 +54,7 @@ __all__ = [
     "FT2_PER_SQUARE",
     "M2_PER_SQUARE",
     "QUAD_SEGS",
+    "MARGIN_CHORD_FRACTION",
     "OUTSIDE_SECTIONS",
     "convert_area",
     "dominant_angle_deg",
@@ -85,10 +86,18 @@ FT2_PER_SQUARE = 100.0
 #: One roofing square in square metres (9.290304).
 M2_PER_SQUARE = FT2_PER_SQUARE * M2_PER_FT2
 
-#: Segments per quarter circle of the margin's rounded corners. The buffer of a square
-#: of side ``a`` by ``m`` then has area ``a**2 + 4*a*m + 2*QUAD_SEGS*m**2*sin(pi/(2*QUAD_SEGS))``,
-#: 0.16 % short of ``pi*m**2`` on the corners (an inscribed polygon).
-QUAD_SEGS = 16
+#: Largest chord error of the margin's rounded corners, as a fraction of the margin: the
+#: chords of a corner arc of radius ``m`` stay within ``MARGIN_CHORD_FRACTION * m`` of the arc
+#: (3 mm on the common 0.3 m margin, a tenth of a 3 cm pixel).
+MARGIN_CHORD_FRACTION = 0.01
+
+#: Segments per quarter circle of the margin's rounded corners: the fewest whose chord error
+#: ``m * (1 - cos(pi / (4 * QUAD_SEGS)))`` stays within :data:`MARGIN_CHORD_FRACTION` of the
+#: margin (6: 0.86 %). Every segment of every rounded corner is a vertex that the merge, the
+#: clip, the board take-off and every file pay for. The buffer of a square of side ``a`` by
+#: ``m`` has area ``a**2 + 4*a*m + 2*QUAD_SEGS*m**2*sin(pi/(2*QUAD_SEGS))``, 1.1 % short of
+#: ``pi*m**2`` on the corners (an inscribed polygon).
+QUAD_SEGS = int(np.ceil(np.pi / (4.0 * np.arccos(1.0 - MARGIN_CHORD_FRACTION))))
 
 #: Name given to the part of the roof that lies in no section.
 OUTSIDE_SECTIONS = "(outside sections)"
@@ -207,8 +216,8 @@ def repair_outline(wet: Sequence[BaseGeometry], *, margin_m: float, outline: Bas
     --------
     >>> from shapely.geometry import box
     >>> r = repair_outline([box(4, 4, 6, 6)], margin_m=1.0, outline=box(0, 0, 100, 100))
-    >>> round(r.area, 2)  # a^2 + 4 a m + pi m^2 (buffered square), less 0.16 % of the corners
-    15.14
+    >>> round(r.area, 2)  # a^2 + 4 a m + pi m^2 (buffered square), less 1.1 % of the corners
+    15.11
     """
     if not len(wet):
         return Polygon()
@@ -373,6 +382,43 @@ def _grid_cells(rot_repair: BaseGeometry, ox: float, oy: float, w: float, h: flo
     return cells[overlap_areas(cells, rot_repair) > _TOUCH_M2]
 
 
+def _counts_over_origins(rot_repair: BaseGeometry, ox0: float, oy0: float, w: float, h: float,
+                         steps: int) -> np.ndarray:
+    """Boards counted by ``_grid_cells`` for each origin ``(ox0 + i w / steps, oy0 + j h / steps)``.
+
+    Every board of every one of those grids is a block of ``steps`` x ``steps`` cells of
+    the fine grid of ``w / steps`` by ``h / steps`` from ``(ox0, oy0)``: the repair outline
+    is clipped against the fine cells once, and each origin's boards add up their cells'
+    areas (the same overlaps as clipping each board, to rounding), instead of clipping
+    every board crossing the outline once per origin. Returned in the order
+    ``[(i, j) for i in range(steps) for j in range(steps)]``.
+    """
+    fw, fh = w / steps, h / steps
+    cand = []
+    for xmin, ymin, xmax, ymax in shapely.bounds(shapely.get_parts(rot_repair)):
+        i0, i1 = math.floor((xmin - ox0) / fw), math.ceil((xmax - ox0) / fw)
+        j0, j1 = math.floor((ymin - oy0) / fh), math.ceil((ymax - oy0) / fh)
+        ii, jj = np.meshgrid(np.arange(i0, i1), np.arange(j0, j1), indexing="ij")
+        cand.append(np.column_stack([ii.ravel(), jj.ravel()]))
+    fine = np.unique(np.concatenate(cand), axis=0)
+    areas = np.zeros(len(fine))
+    for start in range(0, len(fine), 1 << 17):  # batches bound the memory of the cell boxes
+        part = fine[start:start + (1 << 17)]
+        x0, y0 = ox0 + part[:, 0] * fw, oy0 + part[:, 1] * fh
+        areas[start:start + len(part)] = overlap_areas(shapely.box(x0, y0, x0 + fw, y0 + fh), rot_repair)
+    used = areas > 0
+    fine, areas = fine[used], areas[used]
+    counts = np.zeros(steps * steps, dtype=np.int64)
+    for k, (i, j) in enumerate((i, j) for i in range(steps) for j in range(steps)):
+        bi, bj = np.floor_divide(fine[:, 0] - i, steps), np.floor_divide(fine[:, 1] - j, steps)
+        if not len(bi):
+            continue
+        bi, bj = bi - bi.min(), bj - bj.min()
+        board = bi * (int(bj.max()) + 1) + bj  # one number per board of this grid
+        counts[k] = int(np.count_nonzero(np.bincount(board, weights=areas) > _TOUCH_M2))
+    return counts
+
+
 def board_takeoff_over_origins(repair: BaseGeometry, *, board_m: tuple[float, float], roof: BaseGeometry,
                                angle_deg: float | None = None, grid_of: BaseGeometry | None = None,
                                steps: int = ORIGIN_STEPS) -> BoardTakeoff:
@@ -423,8 +469,7 @@ def board_takeoff_over_origins(repair: BaseGeometry, *, board_m: tuple[float, fl
         return replace(base, count_range=(0, 0), origins_tried=steps * steps, origin_rule=rule)
     rot_repair = affinity.rotate(repair, -angle_deg, origin=pivot)
     offsets = [(i, j) for i in range(steps) for j in range(steps)]
-    counts = np.array([len(_grid_cells(rot_repair, ox0 + i * w / steps, oy0 + j * h / steps, w, h))
-                       for i, j in offsets])
+    counts = _counts_over_origins(rot_repair, ox0, oy0, w, h, steps)
     median = int(np.sort(counts)[len(counts) // 2])
     k = int(np.flatnonzero(counts == median)[0])  # offsets run from the default corner outward
     i, j = offsets[k]
@@ -818,13 +863,15 @@ def _replace_note(where: str, fraction: float, threshold_pct: float, kind: str) 
 def compute_quantities(anomalies: Sequence[BaseGeometry], status: Sequence[Status], *,
                        outline: BaseGeometry, exclusions: BaseGeometry | None = None,
                        sections: Sequence["Section"] = (), settings: "Repair",
-                       prices: "Prices | None" = None, kind: str = "roof") -> Quantities:
+                       prices: "Prices | None" = None, kind: str = "roof",
+                       drawn: Sequence[BaseGeometry] | None = None) -> Quantities:
     """Repair outline, whole boards, section totals and the bill for one survey.
 
     Parameters
     ----------
     anomalies, status
-        Anomaly polygons (plan coordinates) and their statuses, same length.
+        Anomaly polygons (plan coordinates) and their statuses, same length; the section
+        figures are measured on them.
     outline, exclusions
         The roof outline and what is cut out of it.
     sections
@@ -837,11 +884,16 @@ def compute_quantities(anomalies: Sequence[BaseGeometry], status: Sequence[Statu
     kind
         ``"roof"`` or ``"hull"``: a hull has no board take-off (a ``board_m`` given is noted
         and not used) and its own bill (:func:`hull_bill`); the replace note's words differ.
+    drawn
+        The same anomalies with fewer vertices (simplified within a fraction of a pixel,
+        :func:`wetmap.polygons.simplify_outlines`), grown into the repair outline instead
+        of ``anomalies``; ``None``: grow ``anomalies``.
     """
     excl = exclusions if exclusions is not None and not exclusions.is_empty else None
     roof = outline.difference(excl) if excl is not None else outline
     counted = {"wet", "unverified"} if settings.include_unverified else {"wet"}
-    repair = repair_outline([g for g, s in zip(anomalies, status) if s in counted],
+    grow = anomalies if drawn is None else drawn
+    repair = repair_outline([g for g, s in zip(grow, status) if s in counted],
                             margin_m=settings.margin_m, outline=outline, exclusions=excl)
     notes: list[str] = []
     hull = kind == "hull"
