@@ -206,3 +206,19 @@ def test_section_block_statistics_equal_one_section_at_a_time(seed):
         ref = block_statistics(values, usable & (labels == g), 7)
         np.testing.assert_array_equal(median[g], ref.median)
         np.testing.assert_array_equal(sigma[g], ref.sigma)
+
+
+def test_trend_ignores_a_cluster_of_cold_blocks():
+    """A fifth of the blocks 30 K colder (misplaced sky pixels, a sky reflection) is no dry
+    surface: the trend follows the other blocks, a 1 K gradient (the cold-outlier rule is
+    common practice: a dry section varies by a few kelvin and wet only warms it)."""
+    from wetmap.detect import fit_trend
+
+    rows, cols = np.mgrid[0:20, 0:30].astype(float)
+    rows, cols = rows.ravel() * 10 + 5, cols.ravel() * 10 + 5
+    rng = np.random.default_rng(3)
+    dry = 14.0 + cols / 300.0 + rng.normal(0, 0.02, rows.size)
+    values = np.where(rows < 40, -17.0 + rng.normal(0, 0.005, rows.size), dry)
+    fit = fit_trend(values, rows, cols, delta_c=0.6)
+    warm = rows >= 40
+    np.testing.assert_allclose(fit.at(rows[warm], cols[warm]), 14.0 + cols[warm] / 300.0, atol=0.05)

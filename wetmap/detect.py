@@ -289,6 +289,14 @@ MAD_TO_SIGMA = 1.4826
 #: Smallest dry spread the block trimming assumes, degC (block medians of flat synthetic data).
 MIN_BLOCK_SPREAD_C = 1e-3
 
+#: Blocks colder than the section's median block by more than this, degC, are left out of
+#: the trend fit: a dry surface varies by a few kelvin across a section and wet only warms
+#: it, so a block this far below is no dry surface of the section (a sky reflection,
+#: misplaced pixels of sky or ground, evaporating ponding). Without this rule a cluster of
+#: uniform cold blocks would give the least-scattered plane and call the rest wet.
+#: Common practice (no published value): far above the 1-3 K of a natural gradient.
+COLD_OUTLIER_C = 8.0
+
 
 @dataclass(frozen=True)
 class TrendFit:
@@ -374,6 +382,8 @@ def fit_trend(values_c: np.ndarray, rows_px: np.ndarray, cols_px: np.ndarray, *,
               max_degree: int = TREND_MAX_DEGREE, iterations: int = 40) -> TrendFit | None:
     """Fit a dry surface to block medians, knowing that wet only warms.
 
+    0. blocks more than ``COLD_OUTLIER_C`` below the median block are left out (sky
+       reflections or misplaced pixels, not the dry surface);
     1. robust low starts: the ``TREND_START_QUANTILE`` plane of the blocks (quantile
        regression), so a section 45 % wet does not pull the start up; a level at half that
        quantile; and the plane of each half, outer third and quadrant of the section (a wet
@@ -414,6 +424,8 @@ def fit_trend(values_c: np.ndarray, rows_px: np.ndarray, cols_px: np.ndarray, *,
     wet = np.zeros(n, bool) if wet is None else np.asarray(wet, bool)
     dry = np.zeros(n, bool) if dry is None else np.asarray(dry, bool) & ~wet
     usable = ~wet
+    if usable.any():  # cold outliers are no dry surface of the section (COLD_OUTLIER_C)
+        usable &= y >= float(np.median(y[usable])) - COLD_OUTLIER_C
     if usable.sum() < TREND_MIN_BLOCKS[1]:
         return None
     rows_px = np.asarray(rows_px, dtype=np.float64)
