@@ -104,7 +104,8 @@ _PROBE = """
     cores: count('path.wetmap-core'), coresWet: count('path.wetmap-core-wet'),
     uncovered: count('path.wetmap-uncovered'), exclusions: count('path.wetmap-exclusion'),
     repair: count('path.wetmap-repair'), boards: count('path.wetmap-board'),
-    labels: [...document.querySelectorAll('.wetmap-label')].map(e => e.textContent.trim()),
+    labels: [...document.querySelectorAll('.wetmap-label:not(.wetmap-section-label)')].map(e => e.textContent.trim()),
+    sectionLabels: [...document.querySelectorAll('.wetmap-section-label')].map(e => e.textContent.trim()),
     layers: [...document.querySelectorAll('.leaflet-control-layers-overlays label')].map(e => e.textContent.trim()),
     scale: (document.querySelector('.leaflet-control-scale-line') || {}).textContent || null,
     title: (document.querySelector('.wetmap-header h1') || {}).textContent || null,
@@ -345,6 +346,8 @@ def test_browser_draws_the_georeferenced_map_offline(sample_run, tmp_path):
     assert probe["cores"] == len(result.confirmations) > 0
     assert probe["coresWet"] == int(result.confirmations.wet.sum())
     assert sorted(probe["labels"]) == sorted(result.confirmations.ids)
+    # each roof section named on the plan, apart from the core labels
+    assert sorted(probe["sectionLabels"]) == sorted(f"section {s.name}" for s in result.sections)
     assert probe["repair"] >= 1 and probe["exclusions"] >= 1
     assert probe["boards"] == 0  # the boards layer is off until asked for
     assert any(name.startswith("Whole boards") for name in probe["layers"])

@@ -534,6 +534,7 @@ html, body { display: flex; flex-direction: column; }
 .wetmap-display .note { margin-top: 3px; font-size: 11px; color: #333; max-width: 240px; }
 .wetmap-label { background: rgba(255,255,255,0.88); border: 1px solid #555; padding: 0 3px;
   font: bold 11px/1.2 system-ui, sans-serif; box-shadow: none; }
+.wetmap-section-label { font-style: italic; font-weight: normal; border-style: dashed; }
 .leaflet-container { background: #f4f4f4; }
 .foliumpopup th { text-align: left; padding-right: 8px; }
 """
@@ -651,8 +652,12 @@ def _polygon_parts(geom: BaseGeometry) -> list[BaseGeometry]:
 
 def _add_geojson(parent, name: str, features: list[dict[str, Any]], style: Callable[[dict], dict], *,
                  show: bool = True, popup: tuple[list[str], list[str]] | None = None,
-                 tooltip: str | None = None, permanent_tooltip: bool = False, marker=None) -> None:
-    """One toggleable layer (an empty, named group when there is nothing to draw)."""
+                 tooltip: str | None = None, permanent_tooltip: bool = False, marker=None,
+                 label_class: str = "wetmap-label") -> None:
+    """One toggleable layer (an empty, named group when there is nothing to draw).
+
+    With a permanent tooltip every feature carries its own label, of CSS class ``label_class``.
+    """
     import folium
 
     if not features:
@@ -664,7 +669,7 @@ def _add_geojson(parent, name: str, features: list[dict[str, Any]], style: Calla
 
         label_each = JsCode("function (feature, layer) { layer.bindTooltip(String(feature.properties["
                             + json.dumps(tooltip) + "]), {permanent: true, direction: 'right', offset: [7, 0], "
-                            "className: 'wetmap-label'}); }")
+                            "className: " + json.dumps(label_class) + "}); }")
     layer = folium.GeoJson(_collection(features), name=name, show=show, style_function=style, marker=marker,
                            smooth_factor=0.5, on_each_feature=label_each)
     if popup is not None:
@@ -1087,7 +1092,8 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
         "fillOpacity": 0.0, "className": "wetmap-section"},
         popup=(["name", "assembly", "insulation", "area", "wet", "fraction"],
                ["Section", "Assembly", words.wet_material.capitalize(), "Area", "Wet area", "Wet fraction"]),
-        tooltip="label", permanent_tooltip=len(feats) <= 40)  # each section named on the plan
+        tooltip="label", permanent_tooltip=len(feats) <= 40,  # each section named on the plan
+        label_class="wetmap-label wetmap-section-label")
 
     # Repair outlines and boards.
     feats = [_feature(p, proj, f"r{i}", {"label": f"repair outline {i + 1}: {_sq(p.area)}"})
