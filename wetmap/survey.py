@@ -705,14 +705,34 @@ _TOP = ("survey", "conditions", "camera", "plan", "mosaic", "frame", "detect", "
         "limits", "cooldown", "report")
 
 
+def _iso_date(t: _Table, key: str, *, example: str) -> str | None:
+    """An ISO calendar date ``YYYY-MM-DD`` (quoted, or an unquoted TOML date) as its ISO text.
+
+    Free text ("mid November", "12/11/2024") is refused: day and month order differ by
+    country, and the sun times are computed from this date.
+    """
+    raw = t.data.get(key)
+    if raw is None:
+        return None
+    if isinstance(raw, date_type) and not hasattr(raw, "hour"):  # date = 2024-11-12, unquoted
+        return raw.isoformat()
+    if isinstance(raw, str):
+        text = raw.strip()
+        if re.fullmatch(r"\d{4}-\d{2}-\d{2}", text):
+            try:
+                return date_type.fromisoformat(text).isoformat()
+            except ValueError:
+                pass
+    t.problem(key, f'= {_short(raw)}: expected an ISO date "YYYY-MM-DD", e.g. {example}')
+    return None
+
+
 def _read_survey_info(t: _Table) -> SurveyInfo | None:
     title = t.text("title", required=True, example='"Main roof"')
     kind = t.choice("kind", get_args(Kind), required=True)
     crs = _check_crs(t, t.text("crs", required=True, example='"EPSG:32633"'))
     site, surveyor = t.text("site"), t.text("surveyor")
-    raw_date = t.data.get("date")
-    # an unquoted TOML date (date = 2024-11-12) is as good as the text "2024-11-12"
-    date = raw_date.isoformat() if isinstance(raw_date, date_type) else t.text("date")
+    date = _iso_date(t, "date", example='date = "2024-11-12"')
     side = t.choice("side", get_args(Side))
     if side is not None and kind == "roof":
         t.problem("side", f'= "{side}": applies to hull surveys only; remove it or set kind = "hull"')
@@ -1018,17 +1038,7 @@ def _read_report(t: _Table, folder: Path) -> tuple[ReportInfo, bool]:
     if logo is not None and logo.suffix.lower() not in _LOGO_SUFFIXES:
         t.problem("logo", f'= "{logo.name}": expected a {", ".join(_LOGO_SUFFIXES)} image')
         logo = None
-    raw = t.data.get("issue_date")
-    issue: str | None = None
-    if isinstance(raw, date_type):  # an unquoted TOML date
-        issue = raw.isoformat()
-    elif raw is not None:
-        try:
-            issue = date_type.fromisoformat(raw).isoformat() if isinstance(raw, str) and len(raw) == 10 else None
-        except ValueError:
-            issue = None
-        if issue is None:
-            t.problem("issue_date", f'= {_short(raw)}: expected an ISO date "YYYY-MM-DD", e.g. issue_date = "2024-11-20"')
+    issue = _iso_date(t, "issue_date", example='issue_date = "2024-11-20"')
     paper = t.choice("paper", get_args(Paper))
     units = t.choice("units", get_args(UnitSystem))
     info = ReportInfo(**texts, logo=logo, issue_date=issue, paper=paper or "A4", units=units or "metric")
