@@ -75,6 +75,7 @@ Kind = Literal["roof", "hull"]
 Units = Literal["C", "K", "F"]
 Sky = Literal["clear", "partly", "overcast"]
 Side = Literal["port", "starboard"]
+DampRule = Literal["wet", "dry"]
 
 #: Plausible sizes (common practice): thermal pixels on roofs and hulls run from about a
 #: millimetre (a frame from a metre away) to a few metres (a high flight); insulation boards and
@@ -227,6 +228,9 @@ class Cores:
     path: Path
     wet_above: float | None = None
     wet_above_pct: float | None = None
+    damp_counts_as: DampRule = "wet"
+    """How a core graded ``damp`` in cores.csv counts: as ``"wet"`` (the default: damp
+    insulation has lost part of its insulating value and rarely dries in place) or ``"dry"``."""
 
 
 @dataclass(frozen=True)
@@ -889,9 +893,10 @@ def _read_cores(t: _Table, folder: Path) -> Cores | None:
     path = t.path("path", folder, required=True, example='"cores.csv"')
     wet_above = t.number("wet_above", example="30", plausible=(-1e6, 1e6))
     wet_above_pct = t.number("wet_above_pct", low=0, example="5.0", plausible=(0, 10_000))
+    damp = t.choice("damp_counts_as", get_args(DampRule))
     if path is None:
         return None
-    return Cores(path=path, wet_above=wet_above, wet_above_pct=wet_above_pct)
+    return Cores(path=path, wet_above=wet_above, wet_above_pct=wet_above_pct, damp_counts_as=damp or "wet")
 
 
 def _read_repair(t: _Table) -> Repair:
@@ -1063,7 +1068,7 @@ _KEYS: dict[str, tuple[str, ...]] = {
     "frame": ("path", "units", "points", "time", "scale", "offset"),
     "detect": ("delta_c", "background_m", "min_area_m2", "tile_px", "background", "edge_buffer_m",
                "exclusion_buffer_m"),
-    "cores": ("path", "wet_above", "wet_above_pct"),
+    "cores": ("path", "wet_above", "wet_above_pct", "damp_counts_as"),
     "repair": ("margin_m", "board_m", "include_unverified", "board_angle_deg", "board_origin",
                "replace_above_pct", "area_units"),
     "prices": ("currency", "tearoff_per_m2", "tearoff_per_ft2", "tearoff_per_square", "replace_per_m2",
