@@ -67,7 +67,7 @@ def test_core_log_in_the_geopackage_and_the_map(sample_run):
     cores = gpd.read_file(out / "repair.gpkg", layer="cores")
     assert set(cores["grade"]) <= {"wet", "damp", "dry"} and "thickness_mm" in cores.columns
     page = (out / "map.html").read_text(encoding="utf-8")
-    assert "Graded" in page and "Layers (build-up)" in page and "Wet thickness (mm)" in page
+    assert "Graded" in page and "Layers (build-up)" in page and "Wet thickness" in page and "75 mm" in page
 
 
 def _damp(rule: str | None):

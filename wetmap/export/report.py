@@ -718,6 +718,18 @@ def _keyed_value(key: str, value: Any, u: DisplayUnits | None, depth: int) -> st
     return _generic_html(value, depth, u)
 
 
+def _flat(record: dict[str, Any], prefix: str = "") -> dict[str, Any]:
+    """Nested dictionaries of a record as columns ``"outer: inner"`` (lists stay values)."""
+    out: dict[str, Any] = {}
+    for k, v in record.items():
+        name = f"{prefix}{k}"
+        if isinstance(v, dict) and v:
+            out.update(_flat(v, f"{name}: "))
+        else:
+            out[name] = v
+    return out
+
+
 def _generic_html(value: Any, depth: int = 0, u: DisplayUnits | None = None) -> str:
     value = _plain(value)
     if isinstance(value, dict):
@@ -730,14 +742,23 @@ def _generic_html(value: Any, depth: int = 0, u: DisplayUnits | None = None) -> 
         if not value:
             return "none"
         if all(isinstance(v, dict) for v in value):
+            value = [_flat(v) for v in value]  # nested records become columns "a: b"
             cols: list[str] = []
             for v in value:
                 cols += [k for k in v if k not in cols]
-            head = "".join(f"<th>{_esc(_key_label(c, u))}</th>" for c in cols)
-            body = "".join("<tr>" + "".join(f"<td>{_keyed_value(c, v.get(c), u, depth + 1)}</td>" for c in cols)
-                           + "</tr>" for v in value[:500])
             more = f"<p class='small'>… {len(value) - 500} more rows in summary.json</p>" if len(value) > 500 else ""
-            return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>{more}"
+            # wide records are split into tables of at most 7 columns, the first column repeated in each,
+            # so that no table runs off the printed page
+            key, rest = cols[0], cols[1:]
+            groups = [rest[i:i + 6] for i in range(0, len(rest), 6)] or [[]]
+            tables = []
+            for group in groups:
+                shown = [key, *group]
+                head = "".join(f"<th>{_esc(_key_label(c, u))}</th>" for c in shown)
+                body = "".join("<tr>" + "".join(f"<td>{_keyed_value(c, v.get(c), u, depth + 1)}</td>" for c in shown)
+                               + "</tr>" for v in value[:500])
+                tables.append(f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>")
+            return "".join(tables) + more
         return ", ".join(_generic_html(v, depth + 1, u) for v in value)
     if isinstance(value, float):
         return _fmt(value, ",.2f" if abs(value) >= 1000 else ".4g")
@@ -978,12 +999,14 @@ def _imagery(result: "SurveyResult", summary: dict[str, Any]) -> str:
                     f"<td class='num'>{g(lo)}-{g(hi)}</td><td class='num'>{g(src.get('optics_gsd_m'))}</td>"
                     f"{_cell(src.get('sharpness'), None, '.2f')}{_cell(src.get('sharpness_vs_survey'), None, '.2f')}"
                     f"<td>{_esc(flags)}</td></tr>")
-    out.append(f'<table id="imagery-sources" class="data"><thead>{head}</thead><tbody>{"".join(body)}</tbody></table>')
+    keep = len(body) <= 12  # a short table and its note stay on one page
+    out.append(("<div class='keep'>" if keep else "")
+               + f'<table id="imagery-sources" class="data"><thead>{head}</thead><tbody>{"".join(body)}</tbody></table>')
     out.append(f"<p class='small'>GSD: ground sampling distance, plan {'feet' if u.imperial else 'metres'} per image pixel (a mosaic's from its "
                "transform; a frame's from its control-point fit, its range across the image); optics: "
                "[camera] ifov_mrad x distance_m when given. Sharpness: the share of the image's gradient energy at "
                "the finest scale, noise taken out (0 = blurred, 1 = sharp); frames are compared with the median of "
-               "the other frames, mosaic tiles with the median tile.</p>")
+               "the other frames, mosaic tiles with the median tile.</p>" + ("</div>" if keep else ""))
     suspects = summary.get("reflection_suspect") or []
     if suspects:
         head = "<tr><th>Anomaly</th><th>Rule</th><th>Finding</th></tr>"
@@ -1193,6 +1216,25 @@ def _position_cells(result: "SurveyResult", u: DisplayUnits, x: float, y: float,
     return f"<td class='num'>{u.span(x - x0, 'm', 2)}</td><td class='num'>{u.span(y - y0, 'm', 2)}</td>"
 
 
+#: Unit suffixes of cores.csv's extra columns -> metric unit (depth_mm, thickness_mm, height_m).
+_EXTRA_UNITS = (("_mm", "mm"), ("_m2", "m²"), ("_m", "m"))
+
+
+def _extra_unit(column: str) -> str | None:
+    return next((unit for suffix, unit in _EXTRA_UNITS if column.endswith(suffix)), None)
+
+
+def _is_number(text: str) -> bool:
+    try:
+        return math.isfinite(float(text))
+    except ValueError:
+        return False
+
+
+def _decimals(text: str) -> int:
+    return len(text.split(".")[1]) if "." in text else 0
+
+
 def _confirmations(result: "SurveyResult") -> str:
     c = result.confirmations
     w = _words(result)
@@ -1200,12 +1242,17 @@ def _confirmations(result: "SurveyResult") -> str:
         return (f"<p id='cores'>No {w.confirmations_any} were given: every anomaly is <b>unverified</b>. Infrared "
                 f"alone does not establish {w.wet_words}.</p>")
     u = display_units(result)
+    # numeric extras with a unit in their name get a column each (converted in imperial units);
+    # the text extras (layers, notes, ...) share one "Log" column so the table fits the page
     extra = [k for k in c.extra if k != "photo"]  # photos are shown beside the thermal view
-    labels = {"layers": "Layers (build-up)", "thickness_mm": "Wet thickness (in)" if u.imperial
-              else "Wet thickness (mm)"}
-    head = ("<tr><th>Id</th>" + _position_heads(result, u) + "<th>Graded</th><th>Counted as</th><th>Basis</th>"
-            f"<th>ΔT there ({u.unit_of('K')})</th>"
-            "<th>In anomaly</th>" + "".join(f"<th>{_esc(labels.get(k, k))}</th>" for k in extra) + "</tr>")
+    numeric = [k for k in extra if _extra_unit(k) and all(_is_number(v) for v in c.extra[k] if v)]
+    texts = [k for k in extra if k not in numeric]
+    labels = {"thickness_mm": "Wet thickness"}
+    head = ("<tr><th>Id</th>" + _position_heads(result, u) + "<th>Graded (counted as)</th><th>Basis</th>"
+            f"<th>ΔT there ({u.unit_of('K')})</th><th>In anomaly</th>"
+            + "".join(f"<th>{_esc(labels.get(k, k[: k.rindex('_')].replace('_', ' ')))} "
+                      f"({u.unit_of(_extra_unit(k))})</th>" for k in numeric)
+            + ("<th>Log</th>" if texts else "") + "</tr>")
     rows = []
     for i, cid in enumerate(c.ids):
         basis = c.basis[i]
@@ -1216,21 +1263,20 @@ def _confirmations(result: "SurveyResult") -> str:
             shown = "result" if basis == "result" or not np.isfinite(value) else f"{basis} = {value:g}"
         anomaly = int(result.verdicts.anomaly_of[i])
         d = float(result.confirmation_delta_c[i])
-        cells = []
-        for k in extra:
-            v = c.extra[k][i]
-            if k == "thickness_mm" and v and u.imperial:  # 1 in = 25.4 mm exactly (NIST SP 811)
-                cells.append(f'<td class="num"><span class="conv" data-metric="{float(v)!r}" data-from="mm">'
-                             f"{float(v) / 25.4:.2f}</span></td>")
-            else:
-                cells.append(f"<td{' class=num' if k == 'thickness_mm' else ''}>{_esc(v)}</td>")
+        cells = "".join(
+            f"<td class='num'>{u.span(float(c.extra[k][i]), _extra_unit(k), _decimals(c.extra[k][i])) if c.extra[k][i] else '–'}"
+            "</td>" for k in numeric)
+        log = "; ".join(f"{'layers' if k == 'layers' else k.replace('_', ' ')}: {c.extra[k][i]}"
+                        for k in texts if c.extra[k][i])
+        grade = c.grade[i] + ("" if c.grade[i] == ("wet" if c.wet[i] else "dry") else
+                              f" ({'wet' if c.wet[i] else 'dry'})")
         rows.append(
             f"<tr data-grade='{_esc(c.grade[i])}'><td>{_esc(cid)}</td>"
             + _position_cells(result, u, float(c.xs[i]), float(c.ys[i]))
-            + f"<td>{_esc(c.grade[i])}</td><td>{'wet' if c.wet[i] else 'dry'}</td><td>{_esc(shown)}</td>"
+            + f"<td>{_esc(grade)}</td><td>{_esc(shown)}</td>"
             f"<td class='num'>{u.span(d, 'K', 2, signed=True) if math.isfinite(d) else _fmt(d)}</td>"
             f"<td>{'#' + str(anomaly + 1) if anomaly >= 0 else 'outside'}</td>"
-            + "".join(cells) + "</tr>")
+            + cells + (f"<td class='log'>{u.html(_esc(log)) or '–'}</td>" if texts else "") + "</tr>")
     damp = sum(1 for g in c.grade if g == "damp")
     rule = "" if "result" not in c.basis else (
         "<p id='damp-rule'>Results are graded with the trade's words wet, damp and dry. A <b>damp</b> result "
@@ -1311,8 +1357,11 @@ def _photo_pairs(result: "SurveyResult", dpi: int = 110) -> str:
     for p, (ai, dist) in zip(photos, near):
         if p.core is not None:
             i = index[p.core]
-            bits = [f"graded {c.grade[i]}", *(f"{k.replace('_', ' ')} {c.extra[k][i]}"
-                                              for k in ("layers", "thickness_mm") if k in c.extra and c.extra[k][i])]
+            bits = [f"graded {c.grade[i]}"]
+            if "layers" in c.extra and c.extra["layers"][i]:
+                bits.append(f"layers {c.extra['layers'][i]}")
+            if "thickness_mm" in c.extra and _is_number(c.extra["thickness_mm"][i]):
+                bits.append(f"wet thickness {c.extra['thickness_mm'][i]} mm")
             what = f"{w.confirmation.capitalize()} {p.core} ({'; '.join(bits)})"
             half = 0.6 if hull else 3.0
         else:
@@ -1457,6 +1506,7 @@ tr, img, figure, .notice, .signature, .keep { break-inside: avoid; page-break-in
 figure { margin: 3mm 0 5mm; }
 figure img { display: block; width: 100%; max-width: 182mm; height: auto; border: 1px solid #ccc; }
 figcaption { font-size: 8.5pt; margin-top: 1mm; }
+table#cores { font-size: 8pt; } table#cores td.log { font-size: 7.5pt; }
 table.pair { border: none; margin: 0; table-layout: fixed; } table.pair td { border: none; padding: 0 1mm 0 0;
   width: 50%; vertical-align: middle; } table.pair img { width: 100%; height: auto; display: block; }
 ul.warnings li { margin-bottom: 1mm; }
@@ -1466,7 +1516,7 @@ ul.warnings li { margin-bottom: 1mm; }
 .signature th { width: 34%; background: #f2f2f2; }
 .signature td { height: 10mm; }
 .signature td.tall { height: 22mm; }
-.further table { font-size: 8.5pt; }
+.further table { font-size: 8.5pt; table-layout: fixed; } .further th, .further td { overflow-wrap: anywhere; }
 .cover img.logo { display: block; max-height: 22mm; max-width: 70mm; margin-bottom: 4mm; }
 table.client { width: auto; min-width: 60%; }
 table.client th { width: auto; min-width: 35mm; }
@@ -1539,7 +1589,7 @@ def build_report(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> str:
         "<section id='s-conditions'><h2>2. Site, survey and conditions</h2>", _conditions(result),
         "<h3>Warnings from the checks</h3>", _warnings(summary), "</section>",
         "<section id='s-method'><h2>3. Method</h2>", _method(result, summary), "</section>",
-        "<section id='s-figures' class='newpage'><h2>4. Figures</h2>", _figures(result, dpi), "</section>",
+        "<section id='s-figures'><h2>4. Figures</h2>", _figures(result, dpi), "</section>",
         "<section id='s-anomalies'><h2>5. Anomalies</h2>", _anomaly_table(result, summary), "</section>",
         "<section id='s-quantities'><h2>6. Repair quantities</h2>", _quantities(result, summary), "</section>",
         f"<section id='s-cores'><h2>7. {_esc(w.confirmations_title)}</h2>", _confirmations(result), _photo_pairs(result), "</section>",

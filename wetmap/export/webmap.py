@@ -484,7 +484,7 @@ def _photo_html(result: "SurveyResult", units=None) -> tuple[dict[str, str], dic
 
 
 #: Popup labels of the core log's optional columns.
-_EXTRA_LABELS = {"layers": "Layers (build-up)", "thickness_mm": "Wet thickness (mm)", "photo": "Photo"}
+_EXTRA_LABELS = {"layers": "Layers (build-up)", "thickness_mm": "Wet thickness", "photo": "Photo"}
 
 
 def _core_basis(result: "SurveyResult", i: int) -> str:
@@ -1204,7 +1204,11 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
                 "label": _esc(cid),
             }
             for k, v in conf.extra.items():
-                props[f"extra_{k}"] = _esc(v[i]) if v[i] not in ("", None) else "-"
+                text = _esc(v[i]) if v[i] not in ("", None) else "-"
+                unit = next((un for suffix, un in (("_mm", "mm"), ("_m", "m")) if k.endswith(suffix)), None)
+                if unit and text != "-" and re.fullmatch(r"[-+]?\d+(\.\d+)?", text):
+                    text = f"{text} {unit}"  # the unit of the column name shown, converted in imperial units
+                props[f"extra_{k}"] = text
             if cid in core_photos:
                 props["extra_photo"] = core_photos[cid]
             feats.append({"type": "Feature", "id": f"c{i}", "properties": props,
@@ -1220,7 +1224,7 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
         add_layer(m, f"{words.confirmations_title} ({len(conf)})", feats, core_style,
                      popup=(["id", "grade", "judged", "basis", "delta", "anomaly", *[f"extra_{k}" for k in extra]],
                             [words.confirmation_label, "Graded", "Counted as", "Basis", "ΔT there", "Lies in",
-                             *[_EXTRA_LABELS.get(k, k) for k in extra]]),
+                             *[_EXTRA_LABELS.get(k, re.sub(r"_(mm|m)$", "", k).replace("_", " ")) for k in extra]]),
                      tooltip="label", permanent_tooltip=len(conf) <= 25, marker=folium.CircleMarker(radius=6))
 
     # Where a further core would help most (added by the confirmation stage when it has any).
