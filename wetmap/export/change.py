@@ -154,7 +154,7 @@ def build_change_report(comparison: "Comparison", *, old_name: str, new_name: st
     rows = [("Wet area before", f"{s['old_wet_area_m2']:,.2f} m²", "old_wet_area_m2"),
             ("Wet area now", f"{s['new_wet_area_m2']:,.2f} m²", "new_wet_area_m2"),
             ("Growth", f"{s['growth_m2']:+,.2f} m² ({pct})", "growth_m2")]
-    rows += [(f"{k.capitalize()}: {CHANGE_STYLES[k][3]}", f"{s[f'{k}_m2']:,.2f} m² in {s['counts'][k]} parts",
+    rows += [(f"{k.capitalize()}: {CHANGE_STYLES[k][3]}", f"{s[f'{k}_m2']:,.2f} m² in {s['counts'][k]} part{'' if s['counts'][k] == 1 else 's'}",
               f"{k}_m2") for k in CHANGE_STYLES]
     totals = "".join(f"<tr><th>{_esc(a)}</th><td class='num' data-key='{key}'>{_esc(b)}</td></tr>"
                      for a, b, key in rows)
