@@ -534,7 +534,7 @@ def test_dxf_colours_and_hatch_with_islands(tmp_path, metric_run):
 
 #: A figure with a metric-only unit in running text: a number then m, m², m2, mm, cm, km, °C,
 #: m/s; or a unit header such as "(m)", "(m²)", "(°C)", "(mm)".
-METRIC_ONLY = re.compile(r"\d\s?(?:m²|m2|mm|cm|km|°C|m/s|m)(?![\w²/])|\((?:m|m²|°C|mm|m/s)\)")
+METRIC_ONLY = re.compile(r"\d\s?(?:m²|m2|m³|m3|mm|cm|km|°C|m/s|m)(?![\w²³/])|\((?:m|m²|m³|°C|mm|m/s)\)")
 
 
 def _visible_text(page: str) -> str:
@@ -577,6 +577,7 @@ BACK = {
     "m²": lambda v: v * M2_PER_FT2,
     "m/s": lambda v: v * M_S_PER_MPH,
     "mm": lambda v: v * 25.4,
+    "m³": lambda v: v * M_PER_FT ** 3,  # 1 ft3 = 0.028316846592 m3
     "°C": lambda v: (v - 32.0) / 1.8,
     "K": lambda v: v / 1.8,
 }
@@ -660,3 +661,21 @@ def test_imperial_map_popups_and_scale(imperial_run):
     assert '"imperial": true' in page.replace("imperial: true", '"imperial": true')
     assert "ft\\u00b2" in page or "ft²" in page
     assert not re.search(r"\d (?:m\\u00b2|m²) ", page)
+
+
+def test_removal_volume_from_the_logged_wet_thickness(metric_run, tmp_path):
+    """The sample's wet cores log 75 and 80 mm: median 77.5 mm; volume = tear-off area x 0.0775 m."""
+    import csv
+
+    _, out = metric_run
+    s = json.loads((out / "summary.json").read_text())
+    rows = {r["bill_item"]: r for r in csv.DictReader((out / "bill.csv").open(encoding="utf-8"))}
+    line = rows["removal volume"]
+    assert line["bill_unit"] == "m3" and "77.5 mm" in line["description"]
+    assert float(line["bill_quantity"]) == pytest.approx(round(s["tearoff_area_m2"] * 0.0775, 2), abs=0.005)
+    priced = copy_sample(tmp_path / "p", '\n[prices]\ncurrency = "EUR"\ndisposal_per_m3 = 60.0\n')
+    result = run_survey(priced)
+    rows = {r["bill_item"]: r for r in csv.DictReader((priced / "results" / "bill.csv").open(encoding="utf-8"))}
+    qty = float(rows["removal volume"]["bill_quantity"])
+    assert float(rows["removal volume"]["amount"]) == pytest.approx(round(qty * 60.0, 2))  # quantity x rate
+    assert result.survey.prices.disposal_per_m3 == 60.0

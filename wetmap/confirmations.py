@@ -93,6 +93,19 @@ class Confirmations:
         return self.grades if len(self.grades) == len(self.ids) else tuple(
             "wet" if w else "dry" for w in np.asarray(self.wet, dtype=bool))
 
+    @property
+    def wet_thickness_mm(self) -> float | None:
+        """Median ``thickness_mm`` of the rows counted wet that log one (mm), or ``None``.
+
+        >>> c = Confirmations(("C1", "C2", "C3"), np.zeros(3), np.zeros(3), np.array([True, True, False]),
+        ...                   ("result",) * 3, np.full(3, np.nan), {"thickness_mm": ("75", "", "90")})
+        >>> c.wet_thickness_mm
+        75.0
+        """
+        logged = self.extra.get("thickness_mm", ())
+        values = [float(t) for t, w in zip(logged, np.asarray(self.wet, dtype=bool)) if t and w]
+        return float(np.median(values)) if values else None
+
     def __len__(self) -> int:
         return len(self.ids)
 

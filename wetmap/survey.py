@@ -296,6 +296,8 @@ class Prices:
     board_each: float | None = None
     cut_edge_per_m: float | None = None
     mobilisation: float | None = None
+    disposal_per_m3: float | None = None
+    """Rate per cubic metre of wet material removed (the removal-volume line of a roof bill)."""
     #: Hull repair rates (``kind = "hull"``): per area (``*_per_m2`` or ``*_per_ft2``) and per
     #: metre of scarfed edge.
     remove_rate: float | None = None
@@ -972,6 +974,11 @@ def _read_prices(t: _Table, kind: str | None = None) -> Prices | None:
     edge = t.number("cut_edge_per_m", low=0, example="4.00", plausible=(0, RATE_MAX))
     scarf = t.number("scarf_per_m", low=0, example="15.00", plausible=(0, RATE_MAX))
     mobilisation = t.number("mobilisation", low=0, example="350.00", plausible=(0, RATE_MAX * 1000))
+    disposal = t.number("disposal_per_m3", low=0, example="60.00", plausible=(0, RATE_MAX))
+    if disposal is not None and hull:
+        t.problem("disposal_per_m3", "is a rate of the roof bill (the wet layer's volume); a hull survey's bill is "
+                  f"priced with {own} (and mobilisation)")
+        disposal = None
     if currency is None:
         return None
     return Prices(
@@ -982,7 +989,7 @@ def _read_prices(t: _Table, kind: str | None = None) -> Prices | None:
         remove_rate=rates["remove"][0], remove_unit=rates["remove"][1],
         recore_rate=rates["recore"][0], recore_unit=rates["recore"][1],
         relaminate_rate=rates["relaminate"][0], relaminate_unit=rates["relaminate"][1],
-        fair_rate=rates["fair"][0], fair_unit=rates["fair"][1], scarf_per_m=scarf,
+        fair_rate=rates["fair"][0], fair_unit=rates["fair"][1], scarf_per_m=scarf, disposal_per_m3=disposal,
     )
 
 
@@ -1075,7 +1082,7 @@ _KEYS: dict[str, tuple[str, ...]] = {
                "replace_per_ft2", "replace_per_square", "board_each", "cut_edge_per_m", "mobilisation",
                "remove_per_m2", "remove_per_ft2", "remove_per_square", "recore_per_m2", "recore_per_ft2",
                "recore_per_square", "relaminate_per_m2", "relaminate_per_ft2", "relaminate_per_square",
-               "fair_per_m2", "fair_per_ft2", "fair_per_square", "scarf_per_m"),
+               "fair_per_m2", "fair_per_ft2", "fair_per_square", "scarf_per_m", "disposal_per_m3"),
 }
 
 

@@ -1165,13 +1165,19 @@ def _bill_line_cells(ln: dict[str, Any], u: DisplayUnits) -> str:
     """Quantity, unit and rate of a bill line; in imperial units a m2 or m line is shown per ft2 or ft
     (the quantity converted, the rate per the new unit, the amount unchanged)."""
     unit, qty, rate = ln.get("unit"), ln.get("quantity"), ln.get("rate")
+    if u.imperial and unit == "m3" and isinstance(qty, (int, float)):  # 1 ft3 = 0.3048**3 m3 exactly
+        per = M_PER_FT_EXACT ** 3
+        rate_cell = (_cell(None) if not isinstance(rate, (int, float)) else
+                     f'<td class="num" data-rate-metric="{float(rate)!r}">{rate * per:,.4f}</td>')
+        return (f'<td class="num"><span class="conv" data-metric="{float(qty)!r}" data-from="m³">'
+                f"{qty / per:,.2f}</span></td><td>ft³</td>{rate_cell}")
     if u.imperial and unit in ("m2", "m") and isinstance(qty, (int, float)):
         metric = "m²" if unit == "m2" else "m"
         per = M2_PER_FT2_EXACT if unit == "m2" else M_PER_FT_EXACT  # metres (squared) in one foot (squared)
         rate_cell = (_cell(None) if not isinstance(rate, (int, float)) else
                      f'<td class="num" data-rate-metric="{float(rate)!r}">{rate * per:,.4f}</td>')
         return (f'<td class="num">{u.span(float(qty), metric, 2)}</td><td>{u.unit_of(metric)}</td>{rate_cell}')
-    shown = {"m2": "m²"}.get(unit, unit)
+    shown = {"m2": "m²", "m3": "m³"}.get(unit, unit)
     return f"{_cell(qty)}<td>{_esc(shown)}</td>{_cell(rate)}"
 
 

@@ -98,7 +98,8 @@ def quantities_of(result: "SurveyResult") -> Quantities:
     s = result.survey
     return compute_quantities([a.geometry for a in result.anomalies], [a.status for a in result.anomalies],
                               outline=result.outline, exclusions=result.exclusions, sections=result.sections,
-                              settings=s.repair, prices=s.prices, kind=s.survey.kind)
+                              settings=s.repair, prices=s.prices, kind=s.survey.kind,
+                              wet_thickness_mm=result.confirmations.wet_thickness_mm)
 
 
 #: Hull columns: roof names renamed, board and tear-off columns dropped (``None``).
