@@ -661,6 +661,8 @@ def test_imperial_map_popups_and_scale(imperial_run):
     assert '"imperial": true' in page.replace("imperial: true", '"imperial": true')
     assert "ft\\u00b2" in page or "ft²" in page
     assert not re.search(r"\d (?:m\\u00b2|m²) ", page)
+    # the thermal layer and its colour bar in °F; the in-browser display control alone stays in °C
+    assert "Surface temperature, \\u00b0F" in page or "Surface temperature, °F" in page
 
 
 def test_removal_volume_from_the_logged_wet_thickness(metric_run, tmp_path):

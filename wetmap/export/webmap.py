@@ -287,8 +287,9 @@ def png_data_uri(png: bytes) -> str:
 
 
 def colour_bar_png(vmin: float, vmax: float, *, label: str, cmap: str = THERMAL_CMAP,
-                   width_in: float = 2.8, height_in: float = 0.62, dpi: int = 100) -> bytes:
-    """A horizontal colour bar with ticks in degC, as PNG bytes (matplotlib Agg).
+                   width_in: float = 2.8, height_in: float = 0.62, dpi: int = 100,
+                   fahrenheit: str | None = None) -> bytes:
+    """A horizontal colour bar with ticks in degC (or degF), as PNG bytes (matplotlib Agg).
 
     Parameters
     ----------
@@ -298,6 +299,8 @@ def colour_bar_png(vmin: float, vmax: float, *, label: str, cmap: str = THERMAL_
         Text under the bar (say the unit).
     width_in, height_in, dpi
         Size: the PNG is ``round(width_in * dpi) x round(height_in * dpi)`` pixels.
+    fahrenheit
+        ``"temperature"`` or ``"difference"``: ticks at round degF values (the range stays degC).
     """
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.cm import ScalarMappable
@@ -309,6 +312,10 @@ def colour_bar_png(vmin: float, vmax: float, *, label: str, cmap: str = THERMAL_
     ax = fig.add_axes((0.05, 0.55, 0.9, 0.3))
     bar = fig.colorbar(ScalarMappable(Normalize(vmin, vmax), cmap), cax=ax, orientation="horizontal")
     bar.ax.tick_params(labelsize=7, length=2, pad=1)
+    if fahrenheit is not None:
+        from .report import _ticks_in
+
+        _ticks_in(bar.ax.xaxis, vmin, vmax, scale=1.8, offset=32.0 if fahrenheit == "temperature" else 0.0)
     bar.set_label(label, fontsize=7, labelpad=1)
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=dpi)
@@ -548,6 +555,7 @@ html, body { display: flex; flex-direction: column; }
   font: 13px/1.35 system-ui, -apple-system, "Segoe UI", Roboto, "DejaVu Sans", sans-serif; color: #111; }
 .wetmap-header h1 { font-size: 17px; margin: 0 12px 0 0; display: inline; white-space: nowrap; }
 .wetmap-header .facts span { margin-right: 14px; white-space: nowrap; }
+.wetmap-header .facts span.conv { margin-right: 0; }
 .wetmap-header .note { font-size: 12px; color: #333; }
 .wetmap-panel { background: #ffffff; padding: 5px 8px; border-radius: 5px;
   box-shadow: 0 1px 5px rgba(0,0,0,0.4); font: 12px/1.3 system-ui, -apple-system, "Segoe UI", Roboto,
@@ -1088,16 +1096,18 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
 
     bars: list[tuple[str, bytes]] = []
     recolour: list[tuple[Any, dict[str, Any]]] = []  # (layer, data) for the in-browser display control
-    for name, values, lo, hi, show, cls in (
-        ("Surface temperature, °C", small_surface, s_lo, s_hi, True, "wetmap-overlay wetmap-surface"),
-        ("ΔT above the dry background, °C", small_delta, d_lo, d_hi, False, "wetmap-overlay wetmap-delta"),
+    for name, values, lo, hi, show, cls, kind in (
+        ("Surface temperature, °C", small_surface, s_lo, s_hi, True, "wetmap-overlay wetmap-surface", "temperature"),
+        ("ΔT above the dry background, °C", small_delta, d_lo, d_hi, False, "wetmap-overlay wetmap-delta",
+         "difference"),
     ):
         placed, bounds = _overlay(values, result, factor, proj)
         uri = png_data_uri(png_bytes(colourise(placed, vmin=lo, vmax=hi)))
-        layer = folium.raster_layers.ImageOverlay(image=uri, bounds=bounds, name=name, show=show, opacity=0.95,
+        shown = name.replace("°C", "°F") if units.imperial else name  # the display control below stays in °C
+        layer = folium.raster_layers.ImageOverlay(image=uri, bounds=bounds, name=shown, show=show, opacity=0.95,
                                                   interactive=False, pixelated=True, className=cls)
         layer.add_to(m)
-        bars.append((name, colour_bar_png(lo, hi, label=name)))
+        bars.append((shown, colour_bar_png(lo, hi, label=shown, fahrenheit=kind if units.imperial else None)))
         recolour.append((layer, {"label": name, "lo": round(lo, 2), "hi": round(hi, 2), **data_png(placed)}))
     words = wording_of(result.survey)
     m.add_child(_recolour_class()(recolour, basis=_range_basis(result), area=words.area_short))
