@@ -251,7 +251,8 @@ def compare(old_dir: Path, new_dir: Path, out: str | None, confirmed_only: bool)
             check_out_dir(out)  # refused before the comparison is made
         target = out if out is not None else (new_dir / "results" if (new_dir / "results").is_dir() else new_dir)
         comparison = compare_results(old_dir, new_dir, counted=("wet",) if confirmed_only else ("wet", "unverified"))
-        gpkg, _ = write_change(comparison, target)
+        gpkg, _ = write_change(comparison, target, old_name=Path(old_dir).resolve().name,
+                               new_name=Path(new_dir).resolve().name)
     except WetmapError as err:
         _fail(err)
         return
@@ -261,7 +262,7 @@ def compare(old_dir: Path, new_dir: Path, out: str | None, confirmed_only: bool)
         f"wet area {s['old_wet_area_m2']:.2f} -> {s['new_wet_area_m2']:.2f} m2, growth {s['growth_m2']:+.2f} m2{pct}: "
         f"new {s['new_m2']:.2f}, grown {s['grown_m2']:.2f}, shrunk {s['shrunk_m2']:.2f}, gone {s['gone_m2']:.2f} m2"
     )
-    click.echo(f"change: {gpkg}")
+    click.echo(f"change: {gpkg}, change_map.html and change_report.html beside it")
 
 
 if __name__ == "__main__":  # pragma: no cover

@@ -73,6 +73,8 @@ def test_cli_writes_change_files_and_refuses_another_plan(tmp_path):
     summary = json.loads((b / "results" / "change.json").read_text())
     assert summary["growth_m2"] == 0.0
     assert (b / "results" / "change.gpkg").is_file()
+    assert (b / "results" / "change_map.html").is_file() and (b / "results" / "change_report.html").is_file()
+    assert "change_map.html" in res.output
     # another plan: edit b's summary roof area as if the outline had changed
     s = json.loads((b / "results" / "summary.json").read_text())
     s["roof_area_m2"] *= 1.2
@@ -81,3 +83,31 @@ def test_cli_writes_change_files_and_refuses_another_plan(tmp_path):
         compare_results(a, b)
     res = CliRunner().invoke(main, ["compare", str(a), str(tmp_path / "nothing")])
     assert res.exit_code == 1 and "run `wetmap run`" in res.output
+
+
+def test_change_map_and_report_written_offline(tmp_path):
+    """The worked example of test_kinds_by_hand: new 1, grown 4, shrunk 4, gone 4 m2 (by hand)."""
+    import re
+
+    from wetmap.compare import write_change
+    from wetmap.export.webmap import remote_references
+
+    old = [box(0, 0, 4, 4), box(10, 0, 12, 2), box(20, 0, 24, 4)]
+    new = [box(0, 0, 5, 4), box(30, 0, 31, 1), box(20, 0, 24, 3)]
+    c = compare_areas(old, new)
+    write_change(c, tmp_path / "out", old_name="2023", new_name="2024")
+    page = (tmp_path / "out" / "change_map.html").read_text(encoding="utf-8")
+    assert remote_references(page) == [] and "L.map" in page  # Leaflet inlined, nothing loaded
+    for kind in ("new", "grown", "shrunk", "gone"):
+        assert f"wetmap-change-{kind}" in page
+    report = (tmp_path / "out" / "change_report.html").read_text(encoding="utf-8")
+    assert remote_references(report) == []
+    cells = dict(re.findall(r"data-key='(\w+)'>([^<]+)<", report))
+    assert cells["old_wet_area_m2"] == "36.00 m²" and cells["new_wet_area_m2"] == "33.00 m²"  # 16+4+16, 20+1+12
+    assert cells["grown_m2"].startswith("4.00 m²") and cells["gone_m2"].startswith("4.00 m²")
+    assert len(re.findall(r"<tr data-kind=", report)) == len(c.changes) == 4
+    pdf = tmp_path / "out" / "change_report.pdf"
+    if pdf.exists():  # WeasyPrint installed
+        pypdf = pytest.importorskip("pypdf")
+        text = "\n".join(p.extract_text() for p in pypdf.PdfReader(str(pdf)).pages)
+        assert "36.00 m²" in text and "33.00 m²" in text

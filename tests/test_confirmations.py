@@ -92,8 +92,33 @@ def test_row_without_any_judgement(tmp_path):
 
 
 def test_bad_result_word(tmp_path):
-    message = error_of(write(tmp_path, "id,x,y,result\nC1,0,0,damp\n"))
-    assert "row 2, column 'result' = 'damp'" in message and "expected wet or dry" in message
+    message = error_of(write(tmp_path, "id,x,y,result\nC1,0,0,soggy\n"))
+    assert "row 2, column 'result' = 'soggy'" in message and "expected wet, damp or dry" in message
+
+
+@pytest.mark.parametrize("rule, damp_wet", [("wet", True), ("dry", False)])
+def test_graded_core_log_damp_counts_as_chosen(tmp_path, rule, damp_wet):
+    """The trade's grades wet / damp / dry (common practice); damp counts as the survey says."""
+    path = write(tmp_path, "id,x,y,result,layers,thickness_mm,photo\n"
+                           "C1,0,0,wet,membrane / 80 mm PIR / deck,80,photos/c1.png\n"
+                           "C2,1,1,Damp,membrane / 80 mm PIR / deck,60,\n"
+                           "C3,2,2,dry,,,\n")
+    conf = read_confirmations(path, damp_counts_as=rule)
+    assert conf.grade == ("wet", "damp", "dry")
+    assert conf.wet.tolist() == [True, damp_wet, False]
+    assert conf.extra["thickness_mm"] == ("80", "60", "") and conf.extra["photo"][0] == "photos/c1.png"
+    assert conf.damp_counts_as == rule
+
+
+def test_wet_dry_log_without_grades_still_reads(tmp_path):
+    conf = read_confirmations(write(tmp_path, "id,x,y,result\nC1,0,0,wet\nC2,1,1,dry\n"))
+    assert conf.grade == ("wet", "dry") and conf.wet.tolist() == [True, False]
+
+
+@pytest.mark.parametrize("value", ["thick", "0", "-5", "2500"])
+def test_bad_thickness_named_with_its_fix(tmp_path, value):
+    message = error_of(write(tmp_path, f"id,x,y,result,thickness_mm\nC1,0,0,wet,{value}\n"))
+    assert "row 2, column 'thickness_mm'" in message and ("millimetres" in message or "expected a number" in message)
 
 
 # --------------------------------------------------------------------------------------
@@ -182,7 +207,7 @@ def test_blank_lines_skipped_and_rows_counted_as_lines(tmp_path, invalid):
     assert conf.ids == ("C1", "C2")
     # the bad word is on line 4 of the file (a spreadsheet's row 4), after a blank line 3
     message = error_of(invalid("cores_bad_result_after_blank.csv"))
-    assert "row 4, column 'result' = 'damp'" in message
+    assert "row 4, column 'result' = 'moist'" in message
 
 
 def test_extra_columns_kept_as_text(tmp_path):

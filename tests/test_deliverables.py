@@ -62,6 +62,9 @@ def copy_sample(dest: Path, extra: str = "", repair_extra: str = "") -> Path:
     for name in ("plan", "thermal"):
         shutil.copytree(SAMPLE / name, dest / name)
     shutil.copy(SAMPLE / "cores.csv", dest / "cores.csv")
+    if (SAMPLE / "photos").is_dir():  # the core log's photos and photos.csv (invented images)
+        shutil.copytree(SAMPLE / "photos", dest / "photos")
+        shutil.copy(SAMPLE / "photos.csv", dest / "photos.csv")
     text = (SAMPLE / "survey.toml").read_text(encoding="utf-8")
     if repair_extra:
         text = text.replace("[repair]\n", "[repair]\n" + repair_extra)
@@ -297,7 +300,7 @@ def test_takeoff_workbook_totals_equal_the_summary(metric_run):
     s = json.loads((out / "summary.json").read_text())
     wb = openpyxl.load_workbook(out / "takeoff.xlsx")
     assert wb.sheetnames == ["anomalies", "sections", "wet area range",
-                             *(["board range"] if s.get("boards_range") else []), "bill"]
+                             *(["board range"] if s.get("boards_range") else []), "bill", "cores"]
     if s.get("boards_range"):
         ws = wb["board range"]
         assert [ws.cell(row=r, column=3).value for r in (2, 3)] == list(s["boards_range"])
@@ -523,3 +526,158 @@ def test_dxf_colours_and_hatch_with_islands(tmp_path, metric_run):
     assert area == pytest.approx(ring.area, abs=1e-6) and ring.area == pytest.approx(100 - 9)
     assert first.rgb == OKABE_ITO[a0.status]
 
+
+
+# --------------------------------------------------------------------------------------
+# Imperial everywhere: no metric-only figure left in the report
+# --------------------------------------------------------------------------------------
+
+#: A figure with a metric-only unit in running text: a number then m, m², m2, mm, cm, km, °C,
+#: m/s; or a unit header such as "(m)", "(m²)", "(°C)", "(mm)".
+METRIC_ONLY = re.compile(r"\d\s?(?:m²|m2|m³|m3|mm|cm|km|°C|m/s|m)(?![\w²³/])|\((?:m|m²|m³|°C|mm|m/s)\)")
+
+
+def _visible_text(page: str) -> str:
+    """The text a reader sees in report.html: style sheet, tags and attribute values left out."""
+    page = re.sub(r"<style>.*?</style>", " ", page, flags=re.S)
+    import html as html_lib
+
+    return html_lib.unescape(re.sub(r"<[^>]+>", " ", page))
+
+
+def test_imperial_report_text_holds_no_metric_only_figure(imperial_run):
+    _, out = imperial_run
+    text = _visible_text((out / "report.html").read_text(encoding="utf-8"))
+    assert "ft²" in text and "°F" in text and " ft" in text
+    left = [text[max(0, m.start() - 40):m.end() + 10] for m in METRIC_ONLY.finditer(text)]
+    assert not left, left
+
+
+@needs_pdf
+def test_imperial_pdf_text_holds_no_metric_only_figure(imperial_run):
+    _, out = imperial_run
+    text = _text(_pdf(out / "report.pdf"))
+    left = [text[max(0, m.start() - 40):m.end() + 10] for m in METRIC_ONLY.finditer(text)]
+    assert not left, left
+    assert "squares" in text and "mph" in text
+
+
+def test_metric_report_keeps_metric_figures(metric_run):
+    _, out = metric_run
+    page = (out / "report.html").read_text(encoding="utf-8")
+    assert 'class="conv"' not in page and "°F" not in page and "ft²" not in page
+    assert "0.3 m beyond the anomaly outline" in _visible_text(page)
+
+
+#: data-from unit -> (shown value -> metric value), NIST SP 811 appendix B factors:
+#: 1 ft = 0.3048 m, 1 ft2 = 0.09290304 m2, 1 mph = 0.44704 m/s, 1 in = 25.4 mm,
+#: t/°C = (t/°F - 32) / 1.8, a difference of 1 °F = 1/1.8 K.
+BACK = {
+    "m": lambda v: v * M_PER_FT,
+    "m²": lambda v: v * M2_PER_FT2,
+    "m/s": lambda v: v * M_S_PER_MPH,
+    "mm": lambda v: v * 25.4,
+    "m³": lambda v: v * M_PER_FT ** 3,  # 1 ft3 = 0.028316846592 m3
+    "°C": lambda v: (v - 32.0) / 1.8,
+    "K": lambda v: v / 1.8,
+}
+
+
+class _Spans(HTMLParser):
+    """Every ``<span class="conv">``: (metric value, metric unit, shown text)."""
+
+    def __init__(self) -> None:
+        super().__init__()
+        self.spans: list[list] = []
+        self._open = False
+
+    def handle_starttag(self, tag, attrs):
+        a = dict(attrs)
+        if tag == "span" and a.get("class") == "conv":
+            self.spans.append([float(a["data-metric"]), a["data-from"], ""])
+            self._open = True
+
+    def handle_endtag(self, tag):
+        if tag == "span":
+            self._open = False
+
+    def handle_data(self, data):
+        if self._open:
+            self.spans[-1][2] += data
+
+
+def test_every_converted_figure_converts_back_with_nist_factors(imperial_run):
+    _, out = imperial_run
+    parser = _Spans()
+    parser.feed((out / "report.html").read_text(encoding="utf-8"))
+    spans = parser.spans
+    kinds = {unit for _, unit, _ in spans}
+    assert {"m", "m²", "°C", "K", "mm"} <= kinds, kinds  # lengths, areas, temperatures, differences, thickness
+    for metric, unit, shown in spans:
+        value = float(shown.replace(",", ""))
+        decimals = len(shown.split(".")[1]) if "." in shown else 0
+        half_step = 0.5 * 10.0 ** -decimals  # the rounding of the shown figure
+        tolerance = abs(BACK[unit](half_step) - BACK[unit](0.0)) + 1e-9
+        assert BACK[unit](value) == pytest.approx(metric, abs=tolerance), (metric, unit, shown)
+    # a known pair: the sample's repair margin 0.3 m is 0.98 ft (0.3 / 0.3048 = 0.984)
+    assert [0.3, "m", "0.98"] in spans
+    # the air temperature 6 °C is 42.8 °F (NIST SP 811: t/°F = 1.8 t/°C + 32)
+    assert "42.8 °F" in _visible_text((out / "report.html").read_text(encoding="utf-8"))
+
+
+def test_imperial_figures_are_drawn_in_feet_and_fahrenheit(imperial_run):
+    """The figures' axes read feet and °F (the PNGs' matplotlib text is checked on the artists)."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg  # noqa: F401 - the report draws with Agg
+
+    from wetmap.export import report
+
+    result, _ = imperial_run
+    labels: list[str] = []
+    real = report._png
+
+    def capture(fig):
+        for ax in fig.axes:
+            labels.extend([ax.get_xlabel(), ax.get_ylabel()])
+            labels.extend(ax.get_legend_handles_labels()[1])
+        labels.extend(t.get_text() for leg in fig.legends for t in leg.get_texts())
+        return real(fig)
+
+    try:
+        report._png = capture
+        report.thermal_figure(result, dpi=40)
+        report.delta_histogram_figure(result, dpi=40)
+        report.repair_plan_figure(result, dpi=40)
+    finally:
+        report._png = real
+    text = " | ".join(labels)
+    assert "ft east of the lower-left corner" in text and "(°F)" in text and "(ft²)" in text
+    assert "threshold +1.80 °F" in text  # 1 K threshold = 1.8 °F (NIST SP 811)
+    assert not METRIC_ONLY.search(text.replace(" m, EPSG", "").replace(" m)", ")")), text
+
+
+def test_imperial_map_popups_and_scale(imperial_run):
+    _, out = imperial_run
+    page = (out / "map.html").read_text(encoding="utf-8")
+    assert '"imperial": true' in page.replace("imperial: true", '"imperial": true')
+    assert "ft\\u00b2" in page or "ft²" in page
+    assert not re.search(r"\d (?:m\\u00b2|m²) ", page)
+    # the thermal layer and its colour bar in °F; the in-browser display control alone stays in °C
+    assert "Surface temperature, \\u00b0F" in page or "Surface temperature, °F" in page
+
+
+def test_removal_volume_from_the_logged_wet_thickness(metric_run, tmp_path):
+    """The sample's wet cores log 75 and 80 mm: median 77.5 mm; volume = tear-off area x 0.0775 m."""
+    import csv
+
+    _, out = metric_run
+    s = json.loads((out / "summary.json").read_text())
+    rows = {r["bill_item"]: r for r in csv.DictReader((out / "bill.csv").open(encoding="utf-8"))}
+    line = rows["removal volume"]
+    assert line["bill_unit"] == "m3" and "77.5 mm" in line["description"]
+    assert float(line["bill_quantity"]) == pytest.approx(round(s["tearoff_area_m2"] * 0.0775, 2), abs=0.005)
+    priced = copy_sample(tmp_path / "p", '\n[prices]\ncurrency = "EUR"\ndisposal_per_m3 = 60.0\n')
+    result = run_survey(priced)
+    rows = {r["bill_item"]: r for r in csv.DictReader((priced / "results" / "bill.csv").open(encoding="utf-8"))}
+    qty = float(rows["removal volume"]["bill_quantity"])
+    assert float(rows["removal volume"]["amount"]) == pytest.approx(round(qty * 60.0, 2))  # quantity x rate
+    assert result.survey.prices.disposal_per_m3 == 60.0

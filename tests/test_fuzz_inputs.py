@@ -153,5 +153,5 @@ def test_known_bad_cores_file_lists_every_problem(invalid, name):
     assert len(problems) == 4, problems
     assert any("row 2, column 'x' = 'east'" in p for p in problems)
     assert any("row 3, column 'id' is empty" in p for p in problems)
-    assert any("row 4, column 'result' = 'damp'" in p for p in problems)
+    assert any("row 4, column 'result' = 'moist'" in p for p in problems)
     assert any("row 5 is judged by column 'moisture_pct'" in p for p in problems)

@@ -106,7 +106,7 @@ def test_roof_sample_still_speaks_roof(tmp_path):
     header = next(csv.reader(out["quantities.csv"].splitlines()))
     assert {"roof_area_m2", "boards", "tearoff_area_m2"} <= set(header)
     items = [line["item"] for line in json.loads(out["summary.json"])["bill"]["lines"]]
-    assert items[:2] == ["tear-off", "replace"]
+    assert items[0] == "tear-off" and "replace" in items
 
 
 def test_vocabulary_is_one_table_per_kind():

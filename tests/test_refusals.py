@@ -324,12 +324,12 @@ def test_check_refuses_a_core_far_off_the_roof_and_lists_every_cores_problem(dem
     assert any("'C1'" in p and "m from the outline" in p for p in problems), problems
     # three bad rows: all three reported at once
     rows[2][2] = "four"
-    rows[3][3] = "damp"
+    rows[3][3] = "moist"
     rows[4][0] = "C1"
     path.write_text("\n".join(",".join(r) for r in rows) + "\n")
     problems = problems_of(check_survey, demo)
     assert any("row 3, column 'y' = 'four'" in p for p in problems), problems
-    assert any("row 4, column 'result' = 'damp'" in p for p in problems), problems
+    assert any("row 4, column 'result' = 'moist'" in p for p in problems), problems
     assert any("row 5, column 'id' = 'C1' repeats" in p for p in problems), problems
 
 

@@ -84,10 +84,24 @@ def test_nothing_computed_without_position_or_date(tmp_path):
                    lambda t: re.sub(r'(?m)^(sunset|date) = .*\n', "", t))
     survey = load_survey(folder)
     assert survey_sun_times(survey) is None and with_sun_times(survey).conditions.sunset is None
+
+
+@pytest.mark.parametrize("written", ['"mid November"', '"12/11/2024"', '"2024-13-01"', '2024-11-12T20:00:00'])
+def test_survey_date_in_free_text_is_refused_with_the_iso_form(tmp_path, written):
+    from wetmap.errors import SurveyError
+
     folder = _copy(SAMPLES / "warehouse_roof", tmp_path / "freetext",
-                   lambda t: re.sub(r'(?m)^(sunset) = .*\n', "", t).replace('date = "2024-11-12"',
-                                                                             'date = "mid November"'))
-    assert survey_sun_times(load_survey(folder)) is None
+                   lambda t: t.replace('date = "2024-11-12"', f"date = {written}"))
+    with pytest.raises(SurveyError) as err:
+        load_survey(folder)
+    lines = [ln for ln in str(err.value).splitlines() if "[survey] date" in ln]
+    assert len(lines) == 1 and "YYYY-MM-DD" in lines[0] and lines[0].startswith(str(folder / "survey.toml"))
+
+
+def test_survey_date_unquoted_toml_date_is_read_as_iso(tmp_path):
+    folder = _copy(SAMPLES / "warehouse_roof", tmp_path / "bare",
+                   lambda t: t.replace('date = "2024-11-12"', "date = 2024-11-12"))
+    assert load_survey(folder).survey.date == "2024-11-12"
 
 
 def test_checks_and_window_use_the_computed_sunset(tmp_path):

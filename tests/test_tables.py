@@ -32,6 +32,7 @@ replace_per_square = 290.00
 board_each = 18.40
 cut_edge_per_m = 4.20
 mobilisation = 350.00
+disposal_per_m3 = 60.00
 """
 
 
@@ -90,7 +91,9 @@ def test_summary_has_the_quantities(plain):
     assert s["repair_perimeter_m"] == pytest.approx(q.repair.length, abs=1e-4)
     assert [t["name"] for t in s["sections"]] == ["A", "B"]
     assert s["bill"]["currency"] is None and s["bill"]["total"] is None
-    assert [line["item"] for line in s["bill"]["lines"]] == ["tear-off", "replace", "boards", "cut edge"]
+    # the sample's wet cores log their wet thickness: a removal-volume line follows the tear-off
+    assert [line["item"] for line in s["bill"]["lines"]] == ["tear-off", "removal volume", "replace", "boards",
+                                                             "cut edge"]
     assert s["method"]["replace_above_pct"] == 25.0
     assert s["method"]["area_units"] == ["m2"]
     # the sample's roof is axis-aligned: the grid runs along x; with no board_origin given its
@@ -144,7 +147,7 @@ def test_priced_bill_arithmetic(priced):
     bill = json.loads((out / "summary.json").read_text(encoding="utf-8"))["bill"]
     assert bill["currency"] == "EUR"
     lines = {line["item"]: line for line in bill["lines"]}
-    assert list(lines) == ["tear-off", "replace", "boards", "cut edge", "mobilisation"]
+    assert list(lines) == ["tear-off", "removal volume", "replace", "boards", "cut edge", "mobilisation"]
     tear = result.quantities.takeoff.tearoff_area_m2
     # quantities rounded to 0.01 first (half up), then amount = quantity x rate, half up
     cent = Decimal("0.01")
@@ -164,6 +167,10 @@ def test_priced_bill_arithmetic(priced):
     # = 184.32 m2; 184.32 x 12.50 = 2304.00; 64 x 18.40 = 1177.60
     assert lines["tear-off"]["quantity"] == 184.32 and lines["tear-off"]["amount"] == 2304.00
     assert lines["boards"]["amount"] == 1177.60
+    # removal volume: 184.32 m2 x 77.5 mm (median of the wet cores' 75 and 80 mm) = 14.2848 -> 14.28 m3;
+    # 14.28 x 60.00 = 856.80 (by hand)
+    assert lines["removal volume"]["unit"] == "m3" and lines["removal volume"]["quantity"] == 14.28
+    assert lines["removal volume"]["amount"] == 856.80
 
 
 def test_priced_csv_matches_the_summary(priced):

@@ -47,6 +47,12 @@ class Comparison:
     old_wet_m2: float
     new_wet_m2: float
     crs: str | None
+    old_areas: tuple[BaseGeometry, ...] = ()
+    """The earlier survey's areas counted as wet (for the change map and report)."""
+    new_areas: tuple[BaseGeometry, ...] = ()
+    """The later survey's areas counted as wet."""
+    counted: tuple[str, ...] = COUNTED_DEFAULT
+    """The statuses counted as wet."""
 
     def totals(self) -> dict[str, float]:
         by = {k: 0.0 for k in ("new", "grown", "shrunk", "gone")}
@@ -103,7 +109,8 @@ def compare_areas(old: list[BaseGeometry], new: list[BaseGeometry], *, min_part_
             source = next((s for s in sources if s.intersection(part).area > 0.5 * part.area), part)
             kind = touching if source.intersection(other).area > 0 else alone
             changes.append(Change(kind=kind, geometry=part, area_m2=float(part.area)))  # type: ignore[arg-type]
-    return Comparison(changes=tuple(changes), old_wet_m2=float(old_u.area), new_wet_m2=float(new_u.area), crs=crs)
+    return Comparison(changes=tuple(changes), old_wet_m2=float(old_u.area), new_wet_m2=float(new_u.area), crs=crs,
+                      old_areas=tuple(_parts(old_u)), new_areas=tuple(_parts(new_u)))
 
 
 def _results_dir(path: Path) -> Path:
@@ -155,11 +162,16 @@ def compare_results(old: Path, new: Path, *, counted: tuple[str, ...] = COUNTED_
             f"{new}: roof area {new_roof:.1f} m2 differs from {old}'s {old_roof:.1f} m2 by more than 1 %; "
             "compare surveys drawn on the same plan (same outline and exclusions)"
         )
-    return compare_areas(old_geoms, new_geoms, min_part_m2=min_part_m2, crs=new_crs)
+    from dataclasses import replace
+
+    return replace(compare_areas(old_geoms, new_geoms, min_part_m2=min_part_m2, crs=new_crs), counted=counted)
 
 
-def write_change(comparison: Comparison, out_dir: Path) -> tuple[Path, Path]:
-    """Write ``change.gpkg`` (layer ``change``: kind, area_m2) and ``change.json`` into ``out_dir``.
+def write_change(comparison: Comparison, out_dir: Path, *, old_name: str = "earlier survey",
+                 new_name: str = "later survey") -> tuple[Path, Path]:
+    """Write ``change.gpkg`` (layer ``change``: kind, area_m2) and ``change.json`` into ``out_dir``,
+    with ``change_map.html`` (offline) and ``change_report.html`` (and ``change_report.pdf``
+    when WeasyPrint is installed) from :mod:`wetmap.export.change`.
 
     Written through :func:`wetmap.outputs.write_folder`: the other files of ``out_dir`` are
     carried over and the folder is swapped in one step; ``out_dir`` must be missing, empty
@@ -181,6 +193,9 @@ def write_change(comparison: Comparison, out_dir: Path) -> tuple[Path, Path]:
             warnings.filterwarnings("ignore", message="'crs' was not provided")
             frame.to_file(folder / "change.gpkg", layer="change", driver="GPKG", engine="pyogrio")
         (folder / "change.json").write_text(json.dumps(comparison.summary(), indent=2) + "\n", encoding="utf-8")
+        from .export.change import write_change_outputs
+
+        write_change_outputs(comparison, folder, old_name=old_name, new_name=new_name, counted=comparison.counted)
 
     out = write_folder(out_dir, write, keep=None)
     return out / "change.gpkg", out / "change.json"

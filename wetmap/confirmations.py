@@ -2,7 +2,9 @@
 
 Columns ``id,x,y`` (plan coordinates) and at least one of
 
-- ``result``: ``wet`` or ``dry`` (a core cut and inspected);
+- ``result``: ``wet``, ``damp`` or ``dry`` (a core cut and inspected, graded with the
+  trade's words); a ``damp`` core counts as wet or as dry as ``[cores] damp_counts_as``
+  says (wet by default), and keeps its grade for the map, the tables and the report;
 - ``moisture_pct``: moisture content by weight (ASTM C1616: (wet - dry) / dry x 100 %),
   judged wet above ``[cores] wet_above_pct``;
 - ``reading``: a meter reading on the meter's own scale, judged wet above
@@ -12,6 +14,10 @@ Columns ``id,x,y`` (plan coordinates) and at least one of
   reading. ``solid`` is judged dry but is weaker than a core or reading: a well-bonded
   skin over wet core still sounds solid, so a solid sounding never refutes an anomaly on
   its own (see :attr:`Confirmations.decisive` and :func:`wetmap.confirm.assign_status`).
+
+Optional columns of the core log: ``layers`` (the build-up found, free text),
+``thickness_mm`` (thickness of the wet layer removed, millimetres, a number above 0 and
+up to 1000) and ``photo`` (an image in the survey folder, e.g. ``photos/c1.jpg``).
 
 On each row the first of these that holds a value decides (so a sounding decides only a
 row with no core result, moisture content or reading). Other columns are kept
@@ -32,14 +38,16 @@ import numpy as np
 
 from .errors import InputFileError
 
-__all__ = ["Confirmations", "read_confirmations", "Basis", "JUDGED_COLUMNS"]
+__all__ = ["Confirmations", "read_confirmations", "Basis", "JUDGED_COLUMNS", "GRADES"]
 
 Basis = Literal["result", "moisture_pct", "reading", "sound"]
 
 #: The judgement columns, in the order in which they decide a row.
 JUDGED_COLUMNS: tuple[Basis, ...] = ("result", "moisture_pct", "reading", "sound")
 
-_RESULT_WORDS = {"wet": True, "dry": False}
+_RESULT_WORDS = {"wet": True, "damp": True, "dry": False}  # damp: as [cores] damp_counts_as says
+#: Grades of a core, wettest first (the trade's words).
+GRADES = ("wet", "damp", "dry")
 #: Percussion soundings: a dull note says wet (void, debonded skin, soft core); solid says dry.
 _SOUND_WORDS = {"dull": True, "solid": False}
 
@@ -62,6 +70,11 @@ class Confirmations:
         The number judged (``moisture_pct`` or ``reading``), NaN for a ``result`` row.
     extra
         Other columns, name -> texts.
+    grades
+        Per row, ``"wet"``, ``"damp"`` or ``"dry"``: the grade as written for a ``result``
+        row, the judgement for the other columns. Empty: taken from ``wet``.
+    damp_counts_as
+        How a damp core was counted (``wet`` holds the outcome).
     """
 
     ids: tuple[str, ...]
@@ -71,6 +84,27 @@ class Confirmations:
     basis: tuple[Basis, ...]
     values: np.ndarray
     extra: dict[str, tuple[str, ...]] = field(default_factory=dict)
+    grades: tuple[str, ...] = ()
+    damp_counts_as: str = "wet"
+
+    @property
+    def grade(self) -> tuple[str, ...]:
+        """Per row ``"wet"``, ``"damp"`` or ``"dry"`` (see ``grades``)."""
+        return self.grades if len(self.grades) == len(self.ids) else tuple(
+            "wet" if w else "dry" for w in np.asarray(self.wet, dtype=bool))
+
+    @property
+    def wet_thickness_mm(self) -> float | None:
+        """Median ``thickness_mm`` of the rows counted wet that log one (mm), or ``None``.
+
+        >>> c = Confirmations(("C1", "C2", "C3"), np.zeros(3), np.zeros(3), np.array([True, True, False]),
+        ...                   ("result",) * 3, np.full(3, np.nan), {"thickness_mm": ("75", "", "90")})
+        >>> c.wet_thickness_mm
+        75.0
+        """
+        logged = self.extra.get("thickness_mm", ())
+        values = [float(t) for t, w in zip(logged, np.asarray(self.wet, dtype=bool)) if t and w]
+        return float(np.median(values)) if values else None
 
     def __len__(self) -> int:
         return len(self.ids)
@@ -91,7 +125,7 @@ class Confirmations:
 
 
 def read_confirmations(path: Path, *, wet_above: float | None = None,
-                       wet_above_pct: float | None = None) -> Confirmations:
+                       wet_above_pct: float | None = None, damp_counts_as: str = "wet") -> Confirmations:
     """Read and judge ``cores.csv`` (columns ``result``, ``moisture_pct``, ``reading``, ``sound``).
 
     Parameters
@@ -102,6 +136,8 @@ def read_confirmations(path: Path, *, wet_above: float | None = None,
         Threshold for the ``reading`` column (meter scale); required if any row is judged by it.
     wet_above_pct
         Threshold for the ``moisture_pct`` column; required if any row is judged by it.
+    damp_counts_as
+        ``"wet"`` or ``"dry"``: how a ``result`` of ``damp`` counts.
 
     Raises
     ------
@@ -162,6 +198,7 @@ def read_confirmations(path: Path, *, wet_above: float | None = None,
     xs: list[float] = []
     ys: list[float] = []
     wet: list[bool] = []
+    grades: list[str] = []
     basis: list[Basis] = []
     values: list[float] = []
     extra_cols = [c for c in header if c not in ("id", "x", "y", *JUDGED_COLUMNS)]
@@ -200,6 +237,16 @@ def read_confirmations(path: Path, *, wet_above: float | None = None,
         if x is None or y is None:
             ok = False
         decided: tuple[bool, float, Basis] | None = None
+        grade = ""
+        thickness = (row.get("thickness_mm") or "").strip()
+        if thickness:
+            t_mm = number(row_no, "thickness_mm", thickness)
+            if t_mm is not None and not 0 < t_mm <= 1000:
+                problems.append(f"{path}: row {row_no}, column 'thickness_mm' = {_shown(thickness)}: expected the "
+                                "thickness of the wet layer in millimetres, above 0 and up to 1000")
+                ok = False
+            elif t_mm is None:
+                ok = False
         for col in judged:
             raw = (row.get(col) or "").strip()
             if not raw:
@@ -207,10 +254,12 @@ def read_confirmations(path: Path, *, wet_above: float | None = None,
             if col == "result":
                 word = raw.lower()
                 if word not in _RESULT_WORDS:
-                    problems.append(f"{path}: row {row_no}, column 'result' = {_shown(raw)}: expected wet or dry")
+                    problems.append(f"{path}: row {row_no}, column 'result' = {_shown(raw)}: expected wet, damp "
+                                    "or dry")
                     ok = False
                 else:
-                    decided = (_RESULT_WORDS[word], math.nan, "result")
+                    decided = (word == "wet" or (word == "damp" and damp_counts_as == "wet"), math.nan, "result")
+                    grade = word
             elif col == "sound":
                 word = raw.lower()
                 if word not in _SOUND_WORDS:
@@ -248,6 +297,7 @@ def read_confirmations(path: Path, *, wet_above: float | None = None,
         xs.append(x)  # type: ignore[arg-type]
         ys.append(y)  # type: ignore[arg-type]
         wet.append(decided[0])
+        grades.append(grade or ("wet" if decided[0] else "dry"))
         values.append(decided[1])
         basis.append(decided[2])
         for c in extra_cols:
@@ -262,6 +312,8 @@ def read_confirmations(path: Path, *, wet_above: float | None = None,
         basis=tuple(basis),
         values=np.asarray(values, dtype=float),
         extra={c: tuple(v) for c, v in extra.items()},
+        grades=tuple(grades),
+        damp_counts_as=damp_counts_as,
     )
 
 

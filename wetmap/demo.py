@@ -132,6 +132,64 @@ _CORES_UV = (
     ("C5", 54.0, 22.0, "dry", 80, "dry field in section B (invented)"),
 )
 
+# The core log's optional columns per core: layers found (build-up), thickness of the wet
+# layer removed (mm; wet cores only) and a photo (invented demo data, drawn by _write_photos).
+_CORE_LOG = {
+    "C1": ("membrane / 75 mm perlite board / steel deck", "75", "photos/c1.jpg"),
+    "C2": ("membrane / 80 mm wood fibreboard / concrete deck", "80", ""),
+    "C3": ("membrane + 4 extra plies / 90 mm perlite board / steel deck", "", "photos/c3.jpg"),
+    "C4": ("membrane / 75 mm perlite board / steel deck", "", ""),
+    "C5": ("membrane / 80 mm wood fibreboard / concrete deck", "", ""),
+}
+# photos.csv: a site photo taken beside a core (plan metres from it), tied to the nearest
+# anomaly (invented demo data).
+_SITE_PHOTOS = (("photos/site1.jpg", "C2", -0.5, -1.5, "stained membrane over the wet area (invented)"),)
+
+
+def _write_photos(folder: Path, cores: "list[DemoCore]") -> None:
+    """Small invented photos of the demo roof (drawn here; no real photo): two core sections and
+    one site view, JPEG, written under ``photos/`` with ``photos.csv``."""
+    from PIL import Image, ImageDraw, ImageFilter
+
+    rng = np.random.default_rng(17)
+    out = folder / "photos"
+    out.mkdir(parents=True, exist_ok=True)
+    w, h = 480, 360
+    for cid, wet in (("C1", True), ("C3", False)):
+        im = Image.new("RGB", (w, h), (214, 206, 190))  # a cut core lying on a cloth
+        d = ImageDraw.Draw(im)
+        x0, x1 = 150, 330
+        layers = [(40, 70, (60, 60, 64))] + ([(70, 96, (45, 45, 48))] if not wet else [])
+        top = layers[-1][1]
+        ins = (150, 128, 96) if wet else (226, 204, 160)  # wet perlite is darker
+        layers += [(top, top + 150, ins), (top + 150, top + 175, (150, 158, 170))]
+        for y0, y1, colour in layers:
+            d.rectangle((x0, y0, x1, y1), fill=colour)
+        if wet:  # droplets on the cut face
+            for _ in range(40):
+                cx, cy = rng.uniform(x0 + 8, x1 - 8), rng.uniform(top + 10, top + 140)
+                d.ellipse((cx - 3, cy - 3, cx + 3, cy + 3), fill=(95, 82, 62))
+        d.text((12, 12), f"core {cid} (invented demo image)", fill=(20, 20, 20))
+        noise = rng.normal(0, 6, (h, w, 1))
+        arr = np.clip(np.asarray(im, dtype=float) + noise, 0, 255).astype(np.uint8)
+        Image.fromarray(arr).filter(ImageFilter.GaussianBlur(0.6)).save(out / f"{cid.lower()}.jpg", quality=80)
+    base = np.full((h, w, 3), (150, 152, 150), dtype=float) + rng.normal(0, 9, (h, w, 1))  # grey membrane
+    yy, xx = np.mgrid[0:h, 0:w]
+    stain = np.exp(-(((xx - 250) / 120.0) ** 2 + ((yy - 200) / 70.0) ** 2))
+    base -= stain[..., None] * np.array([55.0, 50.0, 40.0])
+    im = Image.fromarray(np.clip(base, 0, 255).astype(np.uint8))
+    d = ImageDraw.Draw(im)
+    d.ellipse((360, 80, 400, 120), fill=(70, 70, 72), outline=(30, 30, 30))  # a drain
+    d.text((12, 12), "site view (invented demo image)", fill=(20, 20, 20))
+    im.filter(ImageFilter.GaussianBlur(0.8)).save(out / "site1.jpg", quality=80)
+    with open(folder / "photos.csv", "w", newline="", encoding="utf-8") as f:
+        writer = csv.writer(f, lineterminator="\n")
+        writer.writerow(["photo", "x", "y", "caption"])
+        at = {c.id: (c.x, c.y) for c in cores}
+        for name, cid, dx, dy, caption in _SITE_PHOTOS:
+            if cid in at:
+                writer.writerow([name, f"{at[cid][0] + dx:.3f}", f"{at[cid][1] + dy:.3f}", caption])
+
 
 @dataclass(frozen=True)
 class RoofScene:
@@ -580,9 +638,12 @@ def write_roof_survey(
     # --- cores ---
     with open(folder / "cores.csv", "w", newline="", encoding="utf-8") as f:
         writer = csv.writer(f, lineterminator="\n")
-        writer.writerow(["id", "x", "y", "result", "depth_mm", "notes"])
+        writer.writerow(["id", "x", "y", "result", "depth_mm", "notes", "layers", "thickness_mm", "photo"])
         for c in truth.cores:
-            writer.writerow([spreadsheet_cell(v) for v in (c.id, f"{c.x:.3f}", f"{c.y:.3f}", c.result, c.depth_mm, c.notes)])
+            log = _CORE_LOG.get(c.id, ("", "", ""))
+            writer.writerow([spreadsheet_cell(v) for v in (c.id, f"{c.x:.3f}", f"{c.y:.3f}", c.result, c.depth_mm,
+                                                           c.notes, *log)])
+    _write_photos(folder, truth.cores)
 
     # --- survey.toml ---
     scale, offset = scene.scale_offset

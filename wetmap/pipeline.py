@@ -1200,7 +1200,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
     quantities = compute_quantities(
         polys, [a.status for a in anomalies], outline=outline, exclusions=exclusions,
         sections=sections, settings=survey.repair, prices=survey.prices, kind=survey.survey.kind,
-        drawn=[a.geometry for a in anomalies],
+        drawn=[a.geometry for a in anomalies], wet_thickness_mm=conf.wet_thickness_mm,
     )
     warnings.extend(quantities.notes)
     if quantities.takeoff.range_note:

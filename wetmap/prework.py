@@ -169,9 +169,14 @@ def prepare_survey(survey: Survey) -> Prepared:
     confirmations = None
     if survey.cores is not None:
         confirmations = attempt(read_confirmations, survey.cores.path, wet_above=survey.cores.wet_above,
-                                wet_above_pct=survey.cores.wet_above_pct)
+                                wet_above_pct=survey.cores.wet_above_pct,
+                                damp_counts_as=survey.cores.damp_counts_as)
         if confirmations is not None and outline is not None and len(confirmations):
             _check_cores_near(survey, confirmations, outline, problems)
+    from .photos import check_photos  # a missing or unreadable photo: one warning naming the file, row and fix
+
+    warnings.extend(f"{line} (left out of the report and the map until then)" for line in
+                    check_photos(survey.folder, survey.cores.path if survey.cores else None, confirmations))
 
     if roof is not None and survey.repair.board_m is not None and roof.area > 0:
         along, across = survey.repair.board_m

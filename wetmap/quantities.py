@@ -666,7 +666,7 @@ class Bill:
 
 def bill_of_quantities(*, tearoff_area_m2: float, cut_edge_m: float, boards: int | None = None,
                        prices: "Prices | None" = None, area_units: Sequence["AreaUnit"] = ("m2",),
-                       area_basis: str = "tear-off area") -> Bill:
+                       area_basis: str = "tear-off area", wet_thickness_mm: float | None = None) -> Bill:
     """Lines for tear-off, replacement, boards, cut edge and mobilisation, priced if asked.
 
     Quantities are rounded to 0.01 first; each amount is then ``quantity * rate``
@@ -687,6 +687,10 @@ def bill_of_quantities(*, tearoff_area_m2: float, cut_edge_m: float, boards: int
         Units in which the area lines are also given (``"m2"`` always).
     area_basis
         Words saying what the area is.
+    wet_thickness_mm
+        Thickness of the wet layer removed (the cores' logged ``thickness_mm``); with it a
+        ``removal volume`` line (m3 = tear-off area x thickness) follows the tear-off,
+        priced by ``[prices] disposal_per_m3``.
 
     Examples
     --------
@@ -713,6 +717,11 @@ def bill_of_quantities(*, tearoff_area_m2: float, cut_edge_m: float, boards: int
         area_line("replace", "new insulation and membrane over the torn-off area",
                   p.replace_rate if p else None, p.replace_unit if p else "m2"),
     ]
+    if wet_thickness_mm is not None:
+        lines.insert(1, _priced(BillLine("removal volume", f"wet layer removed: the tear-off area x {wet_thickness_mm:g} mm "
+                                         "(median wet thickness logged in the cores)", "m3",
+                                         _round2(tearoff_area_m2 * wet_thickness_mm / 1000.0)),
+                                getattr(p, "disposal_per_m3", None) if p else None))
     if boards is not None:
         lines.append(_priced(BillLine("boards", "whole insulation boards", "board", float(boards)),
                              p.board_each if p else None))
@@ -864,7 +873,8 @@ def compute_quantities(anomalies: Sequence[BaseGeometry], status: Sequence[Statu
                        outline: BaseGeometry, exclusions: BaseGeometry | None = None,
                        sections: Sequence["Section"] = (), settings: "Repair",
                        prices: "Prices | None" = None, kind: str = "roof",
-                       drawn: Sequence[BaseGeometry] | None = None) -> Quantities:
+                       drawn: Sequence[BaseGeometry] | None = None,
+                       wet_thickness_mm: float | None = None) -> Quantities:
     """Repair outline, whole boards, section totals and the bill for one survey.
 
     Parameters
@@ -888,6 +898,8 @@ def compute_quantities(anomalies: Sequence[BaseGeometry], status: Sequence[Statu
         The same anomalies with fewer vertices (simplified within a fraction of a pixel,
         :func:`wetmap.polygons.simplify_outlines`), grown into the repair outline instead
         of ``anomalies``; ``None``: grow ``anomalies``.
+    wet_thickness_mm
+        The wet layer's thickness logged in the cores (a roof's removal-volume line).
     """
     excl = exclusions if exclusions is not None and not exclusions.is_empty else None
     roof = outline.difference(excl) if excl is not None else outline
@@ -968,7 +980,7 @@ def compute_quantities(anomalies: Sequence[BaseGeometry], status: Sequence[Statu
         bill = bill_of_quantities(
             tearoff_area_m2=takeoff.tearoff_area_m2 if settings.board_m else repair.area,
             cut_edge_m=perimeter, boards=takeoff.count if settings.board_m else None, prices=prices,
-            area_units=settings.area_units, area_basis=basis,
+            area_units=settings.area_units, area_basis=basis, wet_thickness_mm=wet_thickness_mm,
         )
     return Quantities(repair=repair, repair_perimeter_m=perimeter, takeoff=takeoff, sections=totals,
                       outside=outside, board_section=tuple(int(k) for k in board_section), bill=bill,

@@ -75,6 +75,7 @@ Kind = Literal["roof", "hull"]
 Units = Literal["C", "K", "F"]
 Sky = Literal["clear", "partly", "overcast"]
 Side = Literal["port", "starboard"]
+DampRule = Literal["wet", "dry"]
 
 #: Plausible sizes (common practice): thermal pixels on roofs and hulls run from about a
 #: millimetre (a frame from a metre away) to a few metres (a high flight); insulation boards and
@@ -227,6 +228,9 @@ class Cores:
     path: Path
     wet_above: float | None = None
     wet_above_pct: float | None = None
+    damp_counts_as: DampRule = "wet"
+    """How a core graded ``damp`` in cores.csv counts: as ``"wet"`` (the default: damp
+    insulation has lost part of its insulating value and rarely dries in place) or ``"dry"``."""
 
 
 @dataclass(frozen=True)
@@ -292,6 +296,8 @@ class Prices:
     board_each: float | None = None
     cut_edge_per_m: float | None = None
     mobilisation: float | None = None
+    disposal_per_m3: float | None = None
+    """Rate per cubic metre of wet material removed (the removal-volume line of a roof bill)."""
     #: Hull repair rates (``kind = "hull"``): per area (``*_per_m2`` or ``*_per_ft2``) and per
     #: metre of scarfed edge.
     remove_rate: float | None = None
@@ -705,14 +711,34 @@ _TOP = ("survey", "conditions", "camera", "plan", "mosaic", "frame", "detect", "
         "limits", "cooldown", "report")
 
 
+def _iso_date(t: _Table, key: str, *, example: str) -> str | None:
+    """An ISO calendar date ``YYYY-MM-DD`` (quoted, or an unquoted TOML date) as its ISO text.
+
+    Free text ("mid November", "12/11/2024") is refused: day and month order differ by
+    country, and the sun times are computed from this date.
+    """
+    raw = t.data.get(key)
+    if raw is None:
+        return None
+    if isinstance(raw, date_type) and not hasattr(raw, "hour"):  # date = 2024-11-12, unquoted
+        return raw.isoformat()
+    if isinstance(raw, str):
+        text = raw.strip()
+        if re.fullmatch(r"\d{4}-\d{2}-\d{2}", text):
+            try:
+                return date_type.fromisoformat(text).isoformat()
+            except ValueError:
+                pass
+    t.problem(key, f'= {_short(raw)}: expected an ISO date "YYYY-MM-DD", e.g. {example}')
+    return None
+
+
 def _read_survey_info(t: _Table) -> SurveyInfo | None:
     title = t.text("title", required=True, example='"Main roof"')
     kind = t.choice("kind", get_args(Kind), required=True)
     crs = _check_crs(t, t.text("crs", required=True, example='"EPSG:32633"'))
     site, surveyor = t.text("site"), t.text("surveyor")
-    raw_date = t.data.get("date")
-    # an unquoted TOML date (date = 2024-11-12) is as good as the text "2024-11-12"
-    date = raw_date.isoformat() if isinstance(raw_date, date_type) else t.text("date")
+    date = _iso_date(t, "date", example='date = "2024-11-12"')
     side = t.choice("side", get_args(Side))
     if side is not None and kind == "roof":
         t.problem("side", f'= "{side}": applies to hull surveys only; remove it or set kind = "hull"')
@@ -869,9 +895,10 @@ def _read_cores(t: _Table, folder: Path) -> Cores | None:
     path = t.path("path", folder, required=True, example='"cores.csv"')
     wet_above = t.number("wet_above", example="30", plausible=(-1e6, 1e6))
     wet_above_pct = t.number("wet_above_pct", low=0, example="5.0", plausible=(0, 10_000))
+    damp = t.choice("damp_counts_as", get_args(DampRule))
     if path is None:
         return None
-    return Cores(path=path, wet_above=wet_above, wet_above_pct=wet_above_pct)
+    return Cores(path=path, wet_above=wet_above, wet_above_pct=wet_above_pct, damp_counts_as=damp or "wet")
 
 
 def _read_repair(t: _Table) -> Repair:
@@ -947,6 +974,11 @@ def _read_prices(t: _Table, kind: str | None = None) -> Prices | None:
     edge = t.number("cut_edge_per_m", low=0, example="4.00", plausible=(0, RATE_MAX))
     scarf = t.number("scarf_per_m", low=0, example="15.00", plausible=(0, RATE_MAX))
     mobilisation = t.number("mobilisation", low=0, example="350.00", plausible=(0, RATE_MAX * 1000))
+    disposal = t.number("disposal_per_m3", low=0, example="60.00", plausible=(0, RATE_MAX))
+    if disposal is not None and hull:
+        t.problem("disposal_per_m3", "is a rate of the roof bill (the wet layer's volume); a hull survey's bill is "
+                  f"priced with {own} (and mobilisation)")
+        disposal = None
     if currency is None:
         return None
     return Prices(
@@ -957,7 +989,7 @@ def _read_prices(t: _Table, kind: str | None = None) -> Prices | None:
         remove_rate=rates["remove"][0], remove_unit=rates["remove"][1],
         recore_rate=rates["recore"][0], recore_unit=rates["recore"][1],
         relaminate_rate=rates["relaminate"][0], relaminate_unit=rates["relaminate"][1],
-        fair_rate=rates["fair"][0], fair_unit=rates["fair"][1], scarf_per_m=scarf,
+        fair_rate=rates["fair"][0], fair_unit=rates["fair"][1], scarf_per_m=scarf, disposal_per_m3=disposal,
     )
 
 
@@ -1018,17 +1050,7 @@ def _read_report(t: _Table, folder: Path) -> tuple[ReportInfo, bool]:
     if logo is not None and logo.suffix.lower() not in _LOGO_SUFFIXES:
         t.problem("logo", f'= "{logo.name}": expected a {", ".join(_LOGO_SUFFIXES)} image')
         logo = None
-    raw = t.data.get("issue_date")
-    issue: str | None = None
-    if isinstance(raw, date_type):  # an unquoted TOML date
-        issue = raw.isoformat()
-    elif raw is not None:
-        try:
-            issue = date_type.fromisoformat(raw).isoformat() if isinstance(raw, str) and len(raw) == 10 else None
-        except ValueError:
-            issue = None
-        if issue is None:
-            t.problem("issue_date", f'= {_short(raw)}: expected an ISO date "YYYY-MM-DD", e.g. issue_date = "2024-11-20"')
+    issue = _iso_date(t, "issue_date", example='issue_date = "2024-11-20"')
     paper = t.choice("paper", get_args(Paper))
     units = t.choice("units", get_args(UnitSystem))
     info = ReportInfo(**texts, logo=logo, issue_date=issue, paper=paper or "A4", units=units or "metric")
@@ -1053,14 +1075,14 @@ _KEYS: dict[str, tuple[str, ...]] = {
     "frame": ("path", "units", "points", "time", "scale", "offset"),
     "detect": ("delta_c", "background_m", "min_area_m2", "tile_px", "background", "edge_buffer_m",
                "exclusion_buffer_m"),
-    "cores": ("path", "wet_above", "wet_above_pct"),
+    "cores": ("path", "wet_above", "wet_above_pct", "damp_counts_as"),
     "repair": ("margin_m", "board_m", "include_unverified", "board_angle_deg", "board_origin",
                "replace_above_pct", "area_units"),
     "prices": ("currency", "tearoff_per_m2", "tearoff_per_ft2", "tearoff_per_square", "replace_per_m2",
                "replace_per_ft2", "replace_per_square", "board_each", "cut_edge_per_m", "mobilisation",
                "remove_per_m2", "remove_per_ft2", "remove_per_square", "recore_per_m2", "recore_per_ft2",
                "recore_per_square", "relaminate_per_m2", "relaminate_per_ft2", "relaminate_per_square",
-               "fair_per_m2", "fair_per_ft2", "fair_per_square", "scarf_per_m"),
+               "fair_per_m2", "fair_per_ft2", "fair_per_square", "scarf_per_m", "disposal_per_m3"),
 }
 
 

@@ -85,6 +85,7 @@ def confirmation_frame(result: "SurveyResult"):
     rows = {
         "id": list(c.ids),
         "judged": ["wet" if w else "dry" for w in c.wet],
+        "grade": list(c.grade),  # wet / damp / dry as logged; "judged" is how it counted
         "basis": list(c.basis),
         "value": [None if np.isnan(v) else float(v) for v in c.values],
         "delta_c": [None if np.isnan(v) else round(float(v), 3) for v in result.confirmation_delta_c],

@@ -27,6 +27,7 @@ import dataclasses
 import html
 import io
 import math
+import re
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -111,6 +112,9 @@ def _cell(value: Any, key: str | None = None, fmt: str = ",.2f", suffix: str = "
     return f'<td class="num"{attr}>{_fmt(value, fmt)}{suffix}</td>'
 
 
+#: One foot in metres and one square foot in square metres, exactly (NIST SP 811, appendix B).
+M_PER_FT_EXACT = 0.3048
+M2_PER_FT2_EXACT = 0.09290304
 #: One mile per hour in metres per second, exactly (NIST SP 811, appendix B: 0.44704).
 M_S_PER_MPH = 0.44704
 
@@ -182,6 +186,76 @@ class DisplayUnits:
         text = self.area_text(area_m2, fmt) if unit else _fmt(self.area(area_m2), fmt)
         return f'<td class="num"{attr}>{text}</td>'
 
+    def span(self, value: float, unit: str, decimals: int, *, signed: bool = False) -> str:
+        """One converted figure as HTML: ``<span data-metric=".." data-from="unit">shown</span>``.
+
+        ``unit`` is the metric unit of ``value``: ``"m"``, ``"m²"``, ``"m/s"``, ``"°C"`` (a
+        temperature) or ``"K"`` (a temperature difference). Metric: the value as it is.
+        """
+        sign = "+" if signed else ""
+        if not self.imperial:
+            return f"{value:{sign},.{decimals}f}"
+        if unit == "m":
+            shown, d = self.length(value), decimals if decimals >= 2 else decimals + 1
+        elif unit == "m²":
+            shown, d = self.area(value), decimals
+        elif unit == "m/s":
+            shown, d = value / M_S_PER_MPH, max(decimals, 1)
+        elif unit == "mm":  # 1 in = 25.4 mm exactly (NIST SP 811)
+            shown, d = value / 25.4, decimals + 2
+        elif unit == "°C":
+            shown, d = self.temp(value), max(decimals, 1)
+        else:  # "K": a difference
+            shown, d = self.delta(value), max(decimals, 1)
+        return (f'<span class="conv" data-metric="{value!r}" data-from="{unit}">'
+                f"{shown:{sign},.{d}f}</span>")
+
+    def unit_of(self, unit: str) -> str:
+        """The unit shown for a metric ``unit`` (``"K"``: a temperature difference)."""
+        if not self.imperial:
+            return "°C" if unit == "K" else unit
+        return {"m": "ft", "m²": "ft²", "m2": "ft²", "m/s": "mph", "°C": "°F", "K": "°F", "mm": "in"}.get(unit, unit)
+
+    def html(self, fragment: str, *, differences: bool = False) -> str:
+        """Every metric figure in the text of an HTML ``fragment`` in the report's units.
+
+        Used on the report's prose and on messages written by other stages ("0.3 m",
+        "192.96 m2", "-2.59 to +2.59 °C"): in imperial units each number becomes a
+        :meth:`span` carrying its metric value and the unit follows the system. A
+        temperature in °C is a difference (1 K = 1.8 °F) when ``differences`` is set, when
+        it carries an explicit sign or ``±``, or when the words before it say so (ΔT,
+        threshold, within, limit, ...); otherwise a temperature (°F = 1.8 °C + 32). Tags
+        and the page's style sheet are left alone. Metric: ``fragment`` unchanged.
+        """
+        if not self.imperial:
+            return fragment
+        parts = re.split(r"(<style>.*?</style>|<[^>]*>)", fragment, flags=re.S)
+        for i in range(0, len(parts), 2):  # text between tags
+            text = parts[i]
+
+            def one(m: re.Match, text: str = text) -> str:
+                unit = "m²" if m.group("unit") == "m2" else m.group("unit")
+                if unit == "°C":
+                    before = text[max(0, m.start() - 48):m.start()].lower()
+                    diff = (differences or (m.group("b") or "").startswith(("+", "±"))
+                            or (m.group("a") or "").startswith("+") or before.rstrip().endswith("±")
+                            or any(w in before for w in _DIFFERENCE_WORDS))
+                    unit = "K" if diff else "°C"
+                out = []
+                for key in ("a", "b"):
+                    raw = m.group(key)
+                    if raw is None:
+                        continue
+                    value = float(raw.replace(",", "").replace("−", "-"))
+                    decimals = len(raw.split(".")[1]) if "." in raw else 0
+                    out.append(self.span(value, unit, decimals, signed=raw.startswith("+")))
+                    if key == "a":
+                        out.append(m.group("sep"))
+                return "".join(out) + " " + self.unit_of(unit)
+
+            parts[i] = _METRIC_FIGURE.sub(one, text)
+        return "".join(parts)
+
     def length_cell(self, length_m: Any, key: str | None = None, fmt: str = ",.2f") -> str:
         attr = f' data-key="{_esc(key)}"' if key else ""
         if self.imperial and isinstance(length_m, (int, float)) and not isinstance(length_m, bool):
@@ -189,6 +263,16 @@ class DisplayUnits:
         value = self.length(length_m)
         suffix = f" {self.length_unit}" if isinstance(value, (int, float)) else ""
         return f'<td class="num"{attr}>{_fmt(value, fmt)}{suffix}</td>'
+
+
+_NUM = r"[-+−]?\d[\d,]*(?:\.\d+)?"
+#: A metric figure in prose: a number (or a range "a to b", "a–b") and its unit.
+_METRIC_FIGURE = re.compile(
+    rf"(?<![\w.,/:#-])(?:(?P<a>{_NUM})(?P<sep>\s(?:down\s)?to\s|\s?–\s?))?(?P<b>{_NUM})\s?"
+    r"(?P<unit>°C|m²|m2|m/s|mm|m)(?![\w²/])")
+#: Words before a °C figure that make it a temperature difference (1 K = 1.8 °F).
+_DIFFERENCE_WORDS = ("δt", "delta", "threshold", "within", "scatter", "limit", "spread", "warmer", "colder",
+                     "cooler", "contrast", "noise", "above the dry", "background by", "about the", "smooth up")
 
 
 def display_units(result: "SurveyResult") -> DisplayUnits:
@@ -202,13 +286,31 @@ def display_units(result: "SurveyResult") -> DisplayUnits:
 
 def _axis_labels(result: "SurveyResult") -> tuple[str, str]:
     s = result.survey.survey
+    u = display_units(result)
+    lu = u.length_unit
     if s.kind == "hull":
-        return "station along the hull (m)", "girth from the keel (m)"
+        return f"station along the hull ({lu})", f"girth from the keel ({lu})"
     if s.is_local:
-        return "plan x (m)", "plan y (m)"
+        return f"plan x ({lu})", f"plan y ({lu})"
     x0, y0 = _corner(result)
+    if u.imperial:  # the corner's projected coordinates stay those of the CRS
+        return (f"ft east of the lower-left corner (easting {x0:,.1f} m, {s.crs})",
+                f"ft north of the corner (northing {y0:,.1f} m)")
     return (f"m east of the lower-left corner (easting {x0:,.1f}, {s.crs})",
             f"m north of the corner (northing {y0:,.1f})")
+
+
+def _ticks_in(axis, lo: float, hi: float, *, scale: float, offset: float = 0.0, origin: float = 0.0) -> None:
+    """Ticks of a metric axis at round values of another unit: ``shown = (value - origin) * scale + offset``.
+
+    The data stay metric; only where the ticks sit and what they read changes.
+    """
+    from matplotlib.ticker import FixedFormatter, FixedLocator, MaxNLocator
+
+    a, b = sorted(((lo - origin) * scale + offset, (hi - origin) * scale + offset))
+    shown = [t for t in MaxNLocator(nbins=7, steps=[1, 2, 2.5, 5, 10]).tick_values(a, b) if a <= t <= b]
+    axis.set_major_locator(FixedLocator([(t - offset) / scale + origin for t in shown]))
+    axis.set_major_formatter(FixedFormatter([f"{t:g}" for t in shown]))
 
 
 def _corner(result: "SurveyResult") -> tuple[float, float]:
@@ -327,7 +429,14 @@ def _plan_axes(ax, result: "SurveyResult") -> None:
     ax.set_aspect("equal")
     ax.ticklabel_format(useOffset=False, style="plain")
     s = result.survey.survey
-    if not s.is_local and s.kind != "hull":  # metres from the corner, not full projected coordinates
+    georef = not s.is_local and s.kind != "hull"
+    if display_units(result).imperial:  # feet (from the corner on a map), at round values of feet
+        from ..quantities import M_PER_FT
+
+        cx, cy = _corner(result) if georef else (0.0, 0.0)
+        _ticks_in(ax.xaxis, x0 - pad, x1 + pad, scale=1 / M_PER_FT, origin=cx)
+        _ticks_in(ax.yaxis, y0 - pad, y1 + pad, scale=1 / M_PER_FT, origin=cy)
+    elif georef:  # metres from the corner, not full projected coordinates
         from matplotlib.ticker import FuncFormatter
 
         cx, cy = _corner(result)
@@ -438,7 +547,10 @@ def thermal_figure(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> bytes:
     _draw_cores(ax, result, labels=True)
     _plan_axes(ax, result)
     bar = fig.colorbar(ScalarMappable(Normalize(lo, hi), THERMAL_CMAP), ax=ax, shrink=0.85, pad=0.01)
-    bar.set_label("surface temperature (°C)", fontsize=8)
+    u = display_units(result)
+    bar.set_label(f"surface temperature ({u.temp_unit})", fontsize=8)
+    if u.imperial:
+        _ticks_in(bar.ax.yaxis, lo, hi, scale=1.8, offset=32.0)
     bar.ax.tick_params(labelsize=7)
     fig.legend(handles=_legend_handles(result, plan=False), loc="outside lower center", ncols=4, fontsize=7,
                frameon=False)
@@ -485,12 +597,14 @@ def delta_histogram_figure(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> 
     hi = max([hi, 2 * thr, *finite_cores.tolist()]) + 0.1
     edges = np.linspace(lo, hi, 121)
     counts = _histogram(delta, edges)
+    u = display_units(result)
     if counts.sum():
-        ax.stairs(counts * result.grid.pixel_area_m2, edges, fill=True, color="#777777", label=f"{w.area_short} area per bin")
+        ax.stairs(u.area(float(result.grid.pixel_area_m2)) * counts, edges, fill=True, color="#777777", label=f"{w.area_short} area per bin")
         ax.set_yscale("log")
     else:
         ax.text(0.5, 0.5, f"no thermal data on the {w.area_short}", transform=ax.transAxes, ha="center")
-    ax.axvline(thr, color="black", linestyle="--", linewidth=1.4, label=f"threshold {thr:+g} °C")
+    ax.axvline(thr, color="black", linestyle="--", linewidth=1.4,
+               label=f"threshold {u.delta(thr):+.2f} °F" if u.imperial else f"threshold {thr:+g} °C")
     c = result.confirmations
     last_d, level = -np.inf, 0
     for i in np.argsort(core_d):  # NaN sort last
@@ -512,8 +626,10 @@ def delta_histogram_figure(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> 
                     Line2D([], [], color=CORE_COLOURS["dry"], linestyle=":", label=f"ΔT at a {w.confirmation} judged dry")]
     fig.legend(handles=handles, loc="outside lower center", ncols=4, fontsize=7, frameon=False)
     ax.set_xlim(lo, hi)
-    ax.set_xlabel("ΔT: surface temperature above the dry background (°C)", fontsize=8)
-    ax.set_ylabel(f"{w.area_short} area per bin (m²)", fontsize=8)
+    if u.imperial:
+        _ticks_in(ax.xaxis, lo, hi, scale=1.8)
+    ax.set_xlabel(f"ΔT: surface temperature above the dry background ({u.temp_unit})", fontsize=8)
+    ax.set_ylabel(f"{w.area_short} area per bin ({u.area_unit})", fontsize=8)
     ax.tick_params(labelsize=7)
     return _png(fig)
 
@@ -572,26 +688,78 @@ def _plain(value: Any) -> Any:
     return value
 
 
-def _generic_html(value: Any, depth: int = 0) -> str:
+#: Unit suffixes of result keys (``area_m2``, ``edge_m``, ``delta_c``, ``wind_m_s``) -> metric unit.
+_KEY_UNITS = (("_m2", "m²"), ("_m_s", "m/s"), ("_m", "m"), ("_c", "K"))
+
+
+def _key_unit(key: str) -> str | None:
+    return next((unit for suffix, unit in _KEY_UNITS if key.endswith(suffix)), None)
+
+
+def _key_label(key: str, u: DisplayUnits | None) -> str:
+    """A result key for a header: ``repair_perimeter_m`` -> ``repair perimeter (ft)`` in imperial units."""
+    unit = _key_unit(key) if u is not None and u.imperial else None
+    if unit is None:
+        return key
+    stem = key[: -len(next(s for s, v in _KEY_UNITS if key.endswith(s)))]
+    return f"{stem} ({u.unit_of(unit)})"  # type: ignore[union-attr]
+
+
+def _keyed_value(key: str, value: Any, u: DisplayUnits | None, depth: int) -> str:
+    """A value under ``key``: converted when the key names a metric unit and the report is imperial.
+
+    A ``_c`` key is taken as a temperature difference unless it names a temperature.
+    """
+    unit = _key_unit(key) if u is not None and u.imperial else None
+    if unit is not None and isinstance(value, (int, float)) and not isinstance(value, bool) and math.isfinite(value):
+        if unit == "K" and any(w in key for w in ("air", "surface", "reflected", "dew", "frost", "temp")):
+            unit = "°C"
+        return u.span(float(value), unit, 2) + " " + u.unit_of(unit)  # type: ignore[union-attr]
+    return _generic_html(value, depth, u)
+
+
+def _flat(record: dict[str, Any], prefix: str = "") -> dict[str, Any]:
+    """Nested dictionaries of a record as columns ``"outer: inner"`` (lists stay values)."""
+    out: dict[str, Any] = {}
+    for k, v in record.items():
+        name = f"{prefix}{k}"
+        if isinstance(v, dict) and v:
+            out.update(_flat(v, f"{name}: "))
+        else:
+            out[name] = v
+    return out
+
+
+def _generic_html(value: Any, depth: int = 0, u: DisplayUnits | None = None) -> str:
     value = _plain(value)
     if isinstance(value, dict):
         if not value:
             return "–"
-        rows = "".join(f"<tr><th>{_esc(k)}</th><td>{_generic_html(v, depth + 1)}</td></tr>" for k, v in value.items())
+        rows = "".join(f"<tr><th>{_esc(_key_label(k, u))}</th><td>{_keyed_value(k, v, u, depth + 1)}</td></tr>"
+                       for k, v in value.items())
         return f'<table class="kv">{rows}</table>'
     if isinstance(value, list):
         if not value:
             return "none"
         if all(isinstance(v, dict) for v in value):
+            value = [_flat(v) for v in value]  # nested records become columns "a: b"
             cols: list[str] = []
             for v in value:
                 cols += [k for k in v if k not in cols]
-            head = "".join(f"<th>{_esc(c)}</th>" for c in cols)
-            body = "".join("<tr>" + "".join(f"<td>{_generic_html(v.get(c), depth + 1)}</td>" for c in cols) + "</tr>"
-                           for v in value[:500])
             more = f"<p class='small'>… {len(value) - 500} more rows in summary.json</p>" if len(value) > 500 else ""
-            return f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>{more}"
-        return ", ".join(_generic_html(v, depth + 1) for v in value)
+            # wide records are split into tables of at most 7 columns, the first column repeated in each,
+            # so that no table runs off the printed page
+            key, rest = cols[0], cols[1:]
+            groups = [rest[i:i + 6] for i in range(0, len(rest), 6)] or [[]]
+            tables = []
+            for group in groups:
+                shown = [key, *group]
+                head = "".join(f"<th>{_esc(_key_label(c, u))}</th>" for c in shown)
+                body = "".join("<tr>" + "".join(f"<td>{_keyed_value(c, v.get(c), u, depth + 1)}</td>" for c in shown)
+                               + "</tr>" for v in value[:500])
+                tables.append(f"<table><thead><tr>{head}</tr></thead><tbody>{body}</tbody></table>")
+            return "".join(tables) + more
+        return ", ".join(_generic_html(v, depth + 1, u) for v in value)
     if isinstance(value, float):
         return _fmt(value, ",.2f" if abs(value) >= 1000 else ".4g")
     return _fmt(value)
@@ -742,7 +910,9 @@ def _method(result: "SurveyResult", summary: dict[str, Any]) -> str:
         ("Perimeter", _esc(m.get("perimeter", "length of the outline"))),
         ("Repair margin", f"{s.repair.margin_m:g} m beyond the anomaly outline"),
         *([("Board size", "not given (no board take-off)" if not s.repair.board_m
-            else f"{s.repair.board_m[0]:g} x {s.repair.board_m[1]:g} m")] if w.whole_boards else []),
+            else f"{s.repair.board_m[0]:g} x {s.repair.board_m[1]:g} m" if not display_units(result).imperial
+            else " x ".join(display_units(result).span(v, "m", 2) for v in s.repair.board_m) + " ft")]
+          if w.whole_boards else []),
         ("Counted as wet for the repair", "wet and unverified anomalies" if s.repair.include_unverified
          else "confirmed wet anomalies only"),
     ]
@@ -808,7 +978,13 @@ def _imagery(result: "SurveyResult", summary: dict[str, Any]) -> str:
                                       f"{_fmt(d_hi, '+.2f')} °C ({_esc(dr.get('basis'))})"))
     out.append('<table class="kv" id="imagery-summary">'
                + "".join(f"<tr><th>{k}</th><td>{v}</td></tr>" for k, v in rows) + "</table>")
-    head = ("<tr><th>Imagery</th><th>Kind</th><th>GSD (m)</th><th>GSD range (m)</th><th>Optics GSD (m)</th>"
+    u = display_units(result)
+    lu = u.unit_of("m")
+
+    def g(v: Any) -> str:
+        return _fmt(v, ".4f") if not isinstance(v, (int, float)) else u.span(float(v), "m", 4)
+
+    head = (f"<tr><th>Imagery</th><th>Kind</th><th>GSD ({lu})</th><th>GSD range ({lu})</th><th>Optics GSD ({lu})</th>"
             "<th>Sharpness</th><th>vs survey</th><th>Flags</th></tr>")
     body = []
     for src in im.get("sources", []):
@@ -819,16 +995,18 @@ def _imagery(result: "SurveyResult", summary: dict[str, Any]) -> str:
         elif src.get("blending") and src.get("flags"):
             flags += f" ({src['blending']})"
         body.append(f"<tr data-path=\"{_esc(src.get('path'))}\"><td>{_esc(src.get('path'))}</td>"
-                    f"<td>{_esc(src.get('kind'))}</td>{_cell(src.get('gsd_m'), None, '.4f')}"
-                    f"<td class='num'>{_fmt(lo, '.4f')}-{_fmt(hi, '.4f')}</td>{_cell(src.get('optics_gsd_m'), None, '.4f')}"
+                    f"<td>{_esc(src.get('kind'))}</td><td class='num'>{g(src.get('gsd_m'))}</td>"
+                    f"<td class='num'>{g(lo)}-{g(hi)}</td><td class='num'>{g(src.get('optics_gsd_m'))}</td>"
                     f"{_cell(src.get('sharpness'), None, '.2f')}{_cell(src.get('sharpness_vs_survey'), None, '.2f')}"
                     f"<td>{_esc(flags)}</td></tr>")
-    out.append(f'<table id="imagery-sources" class="data"><thead>{head}</thead><tbody>{"".join(body)}</tbody></table>')
-    out.append("<p class='small'>GSD: ground sampling distance, plan metres per image pixel (a mosaic's from its "
+    keep = len(body) <= 12  # a short table and its note stay on one page
+    out.append(("<div class='keep'>" if keep else "")
+               + f'<table id="imagery-sources" class="data"><thead>{head}</thead><tbody>{"".join(body)}</tbody></table>')
+    out.append(f"<p class='small'>GSD: ground sampling distance, plan {'feet' if u.imperial else 'metres'} per image pixel (a mosaic's from its "
                "transform; a frame's from its control-point fit, its range across the image); optics: "
                "[camera] ifov_mrad x distance_m when given. Sharpness: the share of the image's gradient energy at "
                "the finest scale, noise taken out (0 = blurred, 1 = sharp); frames are compared with the median of "
-               "the other frames, mosaic tiles with the median tile.</p>")
+               "the other frames, mosaic tiles with the median tile.</p>" + ("</div>" if keep else ""))
     suspects = summary.get("reflection_suspect") or []
     if suspects:
         head = "<tr><th>Anomaly</th><th>Rule</th><th>Finding</th></tr>"
@@ -969,7 +1147,7 @@ def _quantities(result: "SurveyResult", summary: dict[str, Any]) -> str:
                 f"wet boundary with {w.confirmations} before deciding.</p>")
     bill = _bill_of(result, summary)
     if bill is not None:
-        out += "<h3>Bill of quantities</h3>" + _bill_html(bill)
+        out += "<h3>Bill of quantities</h3>" + _bill_html(bill, u)
     return out
 
 
@@ -983,7 +1161,27 @@ def _bill_of(result: "SurveyResult", summary: dict[str, Any]) -> Any:
     return bill
 
 
-def _bill_html(bill: Any) -> str:
+def _bill_line_cells(ln: dict[str, Any], u: DisplayUnits) -> str:
+    """Quantity, unit and rate of a bill line; in imperial units a m2 or m line is shown per ft2 or ft
+    (the quantity converted, the rate per the new unit, the amount unchanged)."""
+    unit, qty, rate = ln.get("unit"), ln.get("quantity"), ln.get("rate")
+    if u.imperial and unit == "m3" and isinstance(qty, (int, float)):  # 1 ft3 = 0.3048**3 m3 exactly
+        per = M_PER_FT_EXACT ** 3
+        rate_cell = (_cell(None) if not isinstance(rate, (int, float)) else
+                     f'<td class="num" data-rate-metric="{float(rate)!r}">{rate * per:,.4f}</td>')
+        return (f'<td class="num"><span class="conv" data-metric="{float(qty)!r}" data-from="m³">'
+                f"{qty / per:,.2f}</span></td><td>ft³</td>{rate_cell}")
+    if u.imperial and unit in ("m2", "m") and isinstance(qty, (int, float)):
+        metric = "m²" if unit == "m2" else "m"
+        per = M2_PER_FT2_EXACT if unit == "m2" else M_PER_FT_EXACT  # metres (squared) in one foot (squared)
+        rate_cell = (_cell(None) if not isinstance(rate, (int, float)) else
+                     f'<td class="num" data-rate-metric="{float(rate)!r}">{rate * per:,.4f}</td>')
+        return (f'<td class="num">{u.span(float(qty), metric, 2)}</td><td>{u.unit_of(metric)}</td>{rate_cell}')
+    shown = {"m2": "m²", "m3": "m³"}.get(unit, unit)
+    return f"{_cell(qty)}<td>{_esc(shown)}</td>{_cell(rate)}"
+
+
+def _bill_html(bill: Any, u: DisplayUnits = DisplayUnits()) -> str:
     data = _plain(bill)
     if not isinstance(data, dict) or not isinstance(data.get("lines"), list):
         return _generic_html(data)
@@ -991,8 +1189,8 @@ def _bill_html(bill: Any) -> str:
     head = (f"<tr><th>Item</th><th>Description</th><th>Quantity</th><th>Unit</th>"
             f"<th>Rate{f' ({_esc(cur)})' if cur else ''}</th><th>Amount{f' ({_esc(cur)})' if cur else ''}</th></tr>")
     rows = "".join(
-        f"<tr><td>{_esc(ln.get('item'))}</td><td>{_esc(ln.get('description'))}</td>{_cell(ln.get('quantity'))}"
-        f"<td>{_esc(ln.get('unit'))}</td>{_cell(ln.get('rate'))}{_cell(ln.get('amount'))}</tr>"
+        f"<tr><td>{_esc(ln.get('item'))}</td><td>{_esc(ln.get('description'))}</td>{_bill_line_cells(ln, u)}"
+        f"{_cell(ln.get('amount'))}</tr>"
         for ln in data["lines"] if isinstance(ln, dict))
     total = data.get("total")
     foot = (f'<tr class="total"><th colspan="5">Total{f" ({_esc(cur)})" if cur else ""}</th>'
@@ -1003,15 +1201,64 @@ def _bill_html(bill: Any) -> str:
             f"</table>{basis}{note}")
 
 
+def _position_heads(result: "SurveyResult", u: DisplayUnits) -> str:
+    """Header cells of a plan position: plan metres (metric), or feet from the figures' origin."""
+    if not u.imperial:
+        return "<th>x (m)</th><th>y (m)</th>"
+    s = result.survey.survey
+    if s.kind == "hull":
+        return "<th>station (ft)</th><th>girth (ft)</th>"
+    if s.is_local:
+        return "<th>x (ft)</th><th>y (ft)</th>"
+    return "<th>ft east of the corner</th><th>ft north of the corner</th>"
+
+
+def _position_cells(result: "SurveyResult", u: DisplayUnits, x: float, y: float, fmt: str = ".2f") -> str:
+    """A plan position as two cells: plan metres, or in imperial feet from the figures' axes' origin."""
+    if not u.imperial:
+        return f"<td class='num'>{x:{fmt}}</td><td class='num'>{y:{fmt}}</td>"
+    s = result.survey.survey
+    x0, y0 = (0.0, 0.0) if s.kind == "hull" or s.is_local else _corner(result)
+    return f"<td class='num'>{u.span(x - x0, 'm', 2)}</td><td class='num'>{u.span(y - y0, 'm', 2)}</td>"
+
+
+#: Unit suffixes of cores.csv's extra columns -> metric unit (depth_mm, thickness_mm, height_m).
+_EXTRA_UNITS = (("_mm", "mm"), ("_m2", "m²"), ("_m", "m"))
+
+
+def _extra_unit(column: str) -> str | None:
+    return next((unit for suffix, unit in _EXTRA_UNITS if column.endswith(suffix)), None)
+
+
+def _is_number(text: str) -> bool:
+    try:
+        return math.isfinite(float(text))
+    except ValueError:
+        return False
+
+
+def _decimals(text: str) -> int:
+    return len(text.split(".")[1]) if "." in text else 0
+
+
 def _confirmations(result: "SurveyResult") -> str:
     c = result.confirmations
     w = _words(result)
     if not len(c):
         return (f"<p id='cores'>No {w.confirmations_any} were given: every anomaly is <b>unverified</b>. Infrared "
                 f"alone does not establish {w.wet_words}.</p>")
-    extra = list(c.extra)
-    head = ("<tr><th>Id</th><th>x (m)</th><th>y (m)</th><th>Judged</th><th>Basis</th><th>ΔT there (°C)</th>"
-            "<th>In anomaly</th>" + "".join(f"<th>{_esc(k)}</th>" for k in extra) + "</tr>")
+    u = display_units(result)
+    # numeric extras with a unit in their name get a column each (converted in imperial units);
+    # the text extras (layers, notes, ...) share one "Log" column so the table fits the page
+    extra = [k for k in c.extra if k != "photo"]  # photos are shown beside the thermal view
+    numeric = [k for k in extra if _extra_unit(k) and all(_is_number(v) for v in c.extra[k] if v)]
+    texts = [k for k in extra if k not in numeric]
+    labels = {"thickness_mm": "Wet thickness"}
+    head = ("<tr><th>Id</th>" + _position_heads(result, u) + "<th>Graded (counted as)</th><th>Basis</th>"
+            f"<th>ΔT there ({u.unit_of('K')})</th><th>In anomaly</th>"
+            + "".join(f"<th>{_esc(labels.get(k, k[: k.rindex('_')].replace('_', ' ')))} "
+                      f"({u.unit_of(_extra_unit(k))})</th>" for k in numeric)
+            + ("<th>Log</th>" if texts else "") + "</tr>")
     rows = []
     for i, cid in enumerate(c.ids):
         basis = c.basis[i]
@@ -1021,16 +1268,128 @@ def _confirmations(result: "SurveyResult") -> str:
         else:
             shown = "result" if basis == "result" or not np.isfinite(value) else f"{basis} = {value:g}"
         anomaly = int(result.verdicts.anomaly_of[i])
+        d = float(result.confirmation_delta_c[i])
+        cells = "".join(
+            f"<td class='num'>{u.span(float(c.extra[k][i]), _extra_unit(k), _decimals(c.extra[k][i])) if c.extra[k][i] else '–'}"
+            "</td>" for k in numeric)
+        log = "; ".join(f"{'layers' if k == 'layers' else k.replace('_', ' ')}: {c.extra[k][i]}"
+                        for k in texts if c.extra[k][i])
+        grade = c.grade[i] + ("" if c.grade[i] == ("wet" if c.wet[i] else "dry") else
+                              f" ({'wet' if c.wet[i] else 'dry'})")
         rows.append(
-            f"<tr><td>{_esc(cid)}</td><td class='num'>{c.xs[i]:.2f}</td><td class='num'>{c.ys[i]:.2f}</td>"
-            f"<td>{'wet' if c.wet[i] else 'dry'}</td><td>{_esc(shown)}</td>"
-            f"<td class='num'>{_fmt(float(result.confirmation_delta_c[i]), '+.2f')}</td>"
+            f"<tr data-grade='{_esc(c.grade[i])}'><td>{_esc(cid)}</td>"
+            + _position_cells(result, u, float(c.xs[i]), float(c.ys[i]))
+            + f"<td>{_esc(grade)}</td><td>{_esc(shown)}</td>"
+            f"<td class='num'>{u.span(d, 'K', 2, signed=True) if math.isfinite(d) else _fmt(d)}</td>"
             f"<td>{'#' + str(anomaly + 1) if anomaly >= 0 else 'outside'}</td>"
-            + "".join(f"<td>{_esc(c.extra[k][i])}</td>" for k in extra) + "</tr>")
-    return f'<table id="cores" class="data"><thead>{head}</thead><tbody>{"".join(rows)}</tbody></table>'
+            + cells + (f"<td class='log'>{u.html(_esc(log)) or '–'}</td>" if texts else "") + "</tr>")
+    damp = sum(1 for g in c.grade if g == "damp")
+    rule = "" if "result" not in c.basis else (
+        "<p id='damp-rule'>Results are graded with the trade's words wet, damp and dry. A <b>damp</b> result "
+        f"counts as <b>{_esc(c.damp_counts_as)}</b> for the statuses and quantities ([cores] damp_counts_as"
+        f"{'' if c.damp_counts_as != 'wet' else ', the default: damp material has lost part of its value and rarely dries in place'}"
+        f"); {damp} of the {len(c)} {_esc(w.confirmations)} here {'is' if damp == 1 else 'are'} damp.</p>")
+    return (rule + f'<table id="cores" class="data"><thead>{head}</thead><tbody>{"".join(rows)}</tbody></table>'
+            )
 
 
-def _calibration(summary: dict[str, Any], w: Wording) -> str:
+_PHOTO_IN = (3.3, 2.6)  # each half of a photo pair, inches
+
+
+def thermal_crop_figure(result: "SurveyResult", x: float, y: float, half_m: float, *,
+                        dpi: int = FIGURE_DPI) -> bytes:
+    """The thermal view of the square ``2 half_m`` wide around plan ``(x, y)``, outlines and cores drawn.
+
+    Returns
+    -------
+    bytes
+        A PNG of ``_PHOTO_IN`` inches at ``dpi``.
+    """
+    from matplotlib.cm import ScalarMappable
+    from matplotlib.colors import Normalize
+
+    g = result.grid
+    px = g.pixel_m
+    rows, cols = result.surface_c.shape
+    gx0, _, _, gy1 = g.bounds
+    c0, c1 = max(0, int((x - half_m - gx0) / px)), min(cols, math.ceil((x + half_m - gx0) / px))
+    r0, r1 = max(0, int((gy1 - y - half_m) / px)), min(rows, math.ceil((gy1 - y + half_m) / px))
+    fig = _figure(_PHOTO_IN, dpi)
+    ax = fig.add_subplot()
+    imagery = getattr(result, "imagery", None)
+    crop = result.surface_c[r0:max(r1, r0 + 1), c0:max(c1, c0 + 1)]
+    if imagery is not None:
+        lo, hi = imagery.surface_range.low_c, imagery.surface_range.high_c
+    else:
+        lo, hi = display_range(crop[np.isfinite(crop)] if np.isfinite(crop).any() else np.zeros(1))
+    if r1 > r0 and c1 > c0:
+        ax.imshow(colourise(crop, vmin=lo, vmax=hi, cmap=THERMAL_CMAP),
+                  extent=(gx0 + c0 * px, gx0 + c1 * px, gy1 - r1 * px, gy1 - r0 * px),
+                  interpolation="nearest", origin="upper", zorder=1)
+    _draw(ax, result.outline, facecolor="none", edgecolor="black", linewidth=1.0, zorder=2)
+    _draw_anomalies(ax, result, filled=False, labels=False)
+    _draw_cores(ax, result, labels=True)
+    ax.set_xlim(x - half_m, x + half_m)
+    ax.set_ylim(y - half_m, y + half_m)
+    ax.set_aspect("equal")
+    ax.set_xticks([])
+    ax.set_yticks([])
+    u = display_units(result)
+    side = 2 * half_m
+    ax.set_xlabel(f"{u.length(side):.0f} {u.length_unit} across", fontsize=7)
+    bar = fig.colorbar(ScalarMappable(Normalize(lo, hi), THERMAL_CMAP), ax=ax, shrink=0.8, pad=0.02)
+    bar.set_label(f"surface ({u.temp_unit})", fontsize=7)
+    bar.ax.tick_params(labelsize=6)
+    if u.imperial:
+        _ticks_in(bar.ax.yaxis, lo, hi, scale=1.8, offset=32.0)
+    return _png(fig)
+
+
+def _photo_pairs(result: "SurveyResult", dpi: int = 110) -> str:
+    """Each photo beside the thermal view of the same place (cores.csv ``photo``; photos.csv by the
+    nearest anomaly), both embedded; nothing when the survey has no photos."""
+    from ..photos import nearest_anomalies, survey_photos, thumbnail_uri
+
+    s = result.survey
+    photos = survey_photos(s.folder, s.cores.path if s.cores else None, result.confirmations)
+    if not photos:
+        return ""
+    w = _words(result)
+    c = result.confirmations
+    index = {cid: i for i, cid in enumerate(c.ids)}
+    near = nearest_anomalies(photos, [a.geometry for a in result.anomalies])
+    hull = s.survey.kind == "hull"
+    out = ["<h3 id='photos'>Photos beside the thermal view</h3>"]
+    for p, (ai, dist) in zip(photos, near):
+        if p.core is not None:
+            i = index[p.core]
+            bits = [f"graded {c.grade[i]}"]
+            if "layers" in c.extra and c.extra["layers"][i]:
+                bits.append(f"layers {c.extra['layers'][i]}")
+            if "thickness_mm" in c.extra and _is_number(c.extra["thickness_mm"][i]):
+                bits.append(f"wet thickness {c.extra['thickness_mm'][i]} mm")
+            what = f"{w.confirmation.capitalize()} {p.core} ({'; '.join(bits)})"
+            half = 0.6 if hull else 3.0
+        else:
+            a = result.anomalies[ai] if ai >= 0 else None
+            what = (f"Photo near anomaly #{a.id} ({a.status}, {dist:.1f} m from its outline)" if a is not None
+                    else "Photo (no anomaly found)") + (f": {p.caption}" if p.caption else "")
+            half = 0.6 if hull else 3.0
+            if a is not None:
+                x0, y0, x1, y1 = a.geometry.bounds
+                half = max(half, 0.6 * max(x1 - x0, y1 - y0) + dist)
+        png = thermal_crop_figure(result, p.x, p.y, half, dpi=dpi)
+        out.append(
+            f"<figure class='photo-pair' data-photo='{_esc(p.written)}'><table class='pair'><tr>"
+            f"<td><img src='{png_data_uri(png)}' alt='thermal view at {_esc(p.written)}'></td>"
+            f"<td><img src='{thumbnail_uri(p.path)}' alt='{_esc(p.written)}'></td></tr></table>"
+            f"<figcaption>{_esc(what)}. Left: corrected surface temperature around the "
+            f"{'core' if p.core else 'place the photo was taken'} (same colours as Figure 1); right: "
+            f"{_esc(p.written)}.</figcaption></figure>")
+    return "".join(out)
+
+
+def _calibration(summary: dict[str, Any], w: Wording, result: "SurveyResult | None" = None) -> str:
     """The threshold against the cores, the wet-area range and where the next cores are worth most."""
     parts = []
     n = w.confirmations
@@ -1069,11 +1428,14 @@ def _calibration(summary: dict[str, Any], w: Wording) -> str:
     cores = summary.get("suggested_cores") or []
     if cores:
         rows = "".join(
-            f"<tr><td class='num'>{i}</td><td class='num'>{_fmt(c['x'])}</td><td class='num'>{_fmt(c['y'])}</td>"
-            f"<td>{_esc(c['kind'])}</td><td>{_esc(c['reason'])}</td></tr>" for i, c in enumerate(cores, 1))
+            f"<tr><td class='num'>{i}</td>"
+            + (f"<td class='num'>{_fmt(c['x'])}</td><td class='num'>{_fmt(c['y'])}</td>" if result is None else
+               _position_cells(result, display_units(result), float(c['x']), float(c['y']), ",.2f"))
+            + f"<td>{_esc(c['kind'])}</td><td>{_esc(c['reason'])}</td></tr>" for i, c in enumerate(cores, 1))
         parts.append(
             f"<h3>Where the next {n} are worth most</h3><table id='suggested-cores' class='data'><thead><tr>"
-            "<th>No.</th><th>x (m)</th><th>y (m)</th><th>Kind</th><th>Why</th></tr></thead>"
+            "<th>No.</th>" + ("<th>x (m)</th><th>y (m)</th>" if result is None else
+                              _position_heads(result, display_units(result))) + "<th>Kind</th><th>Why</th></tr></thead>"
             f"<tbody>{rows}</tbody></table><p class='small'>{_esc(w.next_sample)}</p>")
     return "".join(parts)
 
@@ -1083,13 +1445,14 @@ def _further(result: "SurveyResult", summary: dict[str, Any]) -> str:
     for key, value in summary.items():
         if key in _SHOWN_KEYS or key == "bill":  # the bill is shown with the repair quantities
             continue
-        parts.append(f"<h3>{_esc(key.replace('_', ' '))}</h3><div class='further' data-summary-key='{_esc(key)}'>"
-                     f"{_generic_html(value)}</div>")
+        u = display_units(result)
+        parts.append(f"<h3>{_esc(_key_label(key, u).replace('_', ' '))}</h3><div class='further' "
+                     f"data-summary-key='{_esc(key)}'>{_keyed_value(key, value, u, 0)}</div>")
     for attr, title in (("passes", "Passes"), ("registration", "Frame registration")):
         value = getattr(result, attr, None)
         if value is None or (hasattr(value, "__len__") and not len(value)) or attr in summary:
             continue
-        parts.append(f"<h3>{title}</h3><div class='further'>{_generic_html(value)}</div>")
+        parts.append(f"<h3>{title}</h3><div class='further'>{_generic_html(value, 0, display_units(result))}</div>")
     return "".join(parts)
 
 
@@ -1149,6 +1512,9 @@ tr, img, figure, .notice, .signature, .keep { break-inside: avoid; page-break-in
 figure { margin: 3mm 0 5mm; }
 figure img { display: block; width: 100%; max-width: 182mm; height: auto; border: 1px solid #ccc; }
 figcaption { font-size: 8.5pt; margin-top: 1mm; }
+table#cores { font-size: 8pt; } table#cores td.log { font-size: 7.5pt; }
+table.pair { border: none; margin: 0; table-layout: fixed; } table.pair td { border: none; padding: 0 1mm 0 0;
+  width: 50%; vertical-align: middle; } table.pair img { width: 100%; height: auto; display: block; }
 ul.warnings li { margin-bottom: 1mm; }
 .small { font-size: 8.5pt; color: #333; }
 .newpage { break-before: page; page-break-before: always; }
@@ -1156,7 +1522,7 @@ ul.warnings li { margin-bottom: 1mm; }
 .signature th { width: 34%; background: #f2f2f2; }
 .signature td { height: 10mm; }
 .signature td.tall { height: 22mm; }
-.further table { font-size: 8.5pt; }
+.further table { font-size: 8.5pt; table-layout: fixed; } .further th, .further td { overflow-wrap: anywhere; }
 .cover img.logo { display: block; max-height: 22mm; max-width: 70mm; margin-bottom: 4mm; }
 table.client { width: auto; min-width: 60%; }
 table.client th { width: auto; min-width: 35mm; }
@@ -1229,11 +1595,11 @@ def build_report(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> str:
         "<section id='s-conditions'><h2>2. Site, survey and conditions</h2>", _conditions(result),
         "<h3>Warnings from the checks</h3>", _warnings(summary), "</section>",
         "<section id='s-method'><h2>3. Method</h2>", _method(result, summary), "</section>",
-        "<section id='s-figures' class='newpage'><h2>4. Figures</h2>", _figures(result, dpi), "</section>",
+        "<section id='s-figures'><h2>4. Figures</h2>", _figures(result, dpi), "</section>",
         "<section id='s-anomalies'><h2>5. Anomalies</h2>", _anomaly_table(result, summary), "</section>",
         "<section id='s-quantities'><h2>6. Repair quantities</h2>", _quantities(result, summary), "</section>",
-        f"<section id='s-cores'><h2>7. {_esc(w.confirmations_title)}</h2>", _confirmations(result), "</section>",
-        "<section id='s-calibration'><h2>8. Threshold check and wet-area range</h2>", _calibration(summary, w),
+        f"<section id='s-cores'><h2>7. {_esc(w.confirmations_title)}</h2>", _confirmations(result), _photo_pairs(result), "</section>",
+        "<section id='s-calibration'><h2>8. Threshold check and wet-area range</h2>", _calibration(summary, w, result),
         "</section>",
     ]
     n = 9
@@ -1257,7 +1623,7 @@ def build_report(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> str:
         "surface_c.tif, delta_c.tif, map.html.</p></footer>",
         "</body></html>",
     ]
-    page = "\n".join(parts)
+    page = display_units(result).html("\n".join(parts))  # imperial: every metric figure of the prose converted
     remote = remote_references(page)
     if remote:
         raise ProcessingError(f"report.html: the page would load {remote[0]} from the network; "

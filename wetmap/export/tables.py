@@ -34,6 +34,8 @@ import re
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
+import numpy as np
+
 from ..quantities import OUTSIDE_SECTIONS, Quantities, SectionTotals, compute_quantities, convert_area
 
 if TYPE_CHECKING:
@@ -96,7 +98,8 @@ def quantities_of(result: "SurveyResult") -> Quantities:
     s = result.survey
     return compute_quantities([a.geometry for a in result.anomalies], [a.status for a in result.anomalies],
                               outline=result.outline, exclusions=result.exclusions, sections=result.sections,
-                              settings=s.repair, prices=s.prices, kind=s.survey.kind)
+                              settings=s.repair, prices=s.prices, kind=s.survey.kind,
+                              wet_thickness_mm=result.confirmations.wet_thickness_mm)
 
 
 #: Hull columns: roof names renamed, board and tear-off columns dropped (``None``).
@@ -252,18 +255,53 @@ def quantity_tables(result: "SurveyResult") -> dict[str, tuple[tuple[str, ...], 
         return [{name: v for name, v in ((_hull_name(k), v) for k, v in r.items()) if name is not None}
                 for r in table]
 
+    cores_columns, core_rows = core_log(result)
     return {
         "quantities": (quantity_columns(("m2", *units), kind=kind), renamed(rows)),
         "sections": (_with_units(SECTION_COLUMNS, ("m2", *units), kind), renamed(sections)),
         "wet_area_range": (_with_units(RANGE_COLUMNS, ("m2", *units), kind), ranges),
         "board_range": (BOARD_RANGE_COLUMNS, [] if hull else board_range),
         "bill": (bill_columns, bill_rows),
+        "cores": (cores_columns, core_rows),
     }
+
+
+#: Leading columns of the core log (core_log.csv, the takeoff's "cores" sheet); the
+#: columns of cores.csv beyond the judged ones follow (layers, thickness_mm, photo, ...).
+CORE_LOG_COLUMNS = ("id", "x", "y", "grade", "counted_as", "basis", "value", "delta_c", "anomaly")
+
+
+def core_log(result: "SurveyResult") -> tuple[tuple[str, ...], list[dict[str, Any]]]:
+    """The cores as judged: one row per row of cores.csv, texts.
+
+    ``grade`` is the trade's word (``wet``, ``damp``, ``dry``; a reading or sounding gives
+    ``wet`` or ``dry``), ``counted_as`` what the statuses and quantities used (a damp core
+    counts as ``[cores] damp_counts_as`` says). With imperial units a ``thickness_in``
+    column follows ``thickness_mm`` (1 in = 25.4 mm, NIST SP 811).
+    """
+    c = result.confirmations
+    extra = list(c.extra)
+    imperial = getattr(getattr(result.survey, "report", None), "units", "metric") == "imperial"
+    columns = list(CORE_LOG_COLUMNS) + extra
+    if imperial and "thickness_mm" in extra:
+        columns.insert(columns.index("thickness_mm") + 1, "thickness_in")
+    rows = []
+    for i, cid in enumerate(c.ids):
+        row = {"id": cid, "x": _f(float(c.xs[i]), 3), "y": _f(float(c.ys[i]), 3), "grade": c.grade[i],
+               "counted_as": "wet" if c.wet[i] else "dry", "basis": c.basis[i],
+               "value": "" if not np.isfinite(c.values[i]) else _f(float(c.values[i]), 3),
+               "delta_c": _f(float(result.confirmation_delta_c[i]), 3),
+               "anomaly": str(int(result.verdicts.anomaly_of[i]) + 1) if result.verdicts.anomaly_of[i] >= 0 else ""}
+        row.update({k: c.extra[k][i] for k in extra})
+        if "thickness_in" in columns and c.extra["thickness_mm"][i]:
+            row["thickness_in"] = _f(float(c.extra["thickness_mm"][i]) / 25.4, 2)
+        rows.append(row)
+    return tuple(columns), rows
 
 
 #: The files of :func:`write_quantities`, beside quantities.csv.
 TAKEOFF_FILES = {"sections": "sections.csv", "wet_area_range": "wet_area_range.csv",
-                 "board_range": "board_range.csv", "bill": "bill.csv"}
+                 "board_range": "board_range.csv", "bill": "bill.csv", "cores": "core_log.csv"}
 
 
 def _write_csv(path: Path, columns: tuple[str, ...], rows: list[dict[str, Any]]) -> None:
@@ -314,7 +352,7 @@ def write_takeoff(result: "SurveyResult", path: Path) -> None:
     wb.remove(wb.active)
     bold = Font(bold=True)
     sheet_names = {"quantities": "anomalies", "sections": "sections", "wet_area_range": "wet area range",
-                   "board_range": "board range", "bill": "bill"}
+                   "board_range": "board range", "bill": "bill", "cores": "cores"}
     for name, (columns, rows) in tables.items():
         if not rows and name != "quantities":
             continue

@@ -287,8 +287,9 @@ def png_data_uri(png: bytes) -> str:
 
 
 def colour_bar_png(vmin: float, vmax: float, *, label: str, cmap: str = THERMAL_CMAP,
-                   width_in: float = 2.8, height_in: float = 0.62, dpi: int = 100) -> bytes:
-    """A horizontal colour bar with ticks in degC, as PNG bytes (matplotlib Agg).
+                   width_in: float = 2.8, height_in: float = 0.62, dpi: int = 100,
+                   fahrenheit: str | None = None) -> bytes:
+    """A horizontal colour bar with ticks in degC (or degF), as PNG bytes (matplotlib Agg).
 
     Parameters
     ----------
@@ -298,6 +299,8 @@ def colour_bar_png(vmin: float, vmax: float, *, label: str, cmap: str = THERMAL_
         Text under the bar (say the unit).
     width_in, height_in, dpi
         Size: the PNG is ``round(width_in * dpi) x round(height_in * dpi)`` pixels.
+    fahrenheit
+        ``"temperature"`` or ``"difference"``: ticks at round degF values (the range stays degC).
     """
     from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.cm import ScalarMappable
@@ -309,6 +312,10 @@ def colour_bar_png(vmin: float, vmax: float, *, label: str, cmap: str = THERMAL_
     ax = fig.add_axes((0.05, 0.55, 0.9, 0.3))
     bar = fig.colorbar(ScalarMappable(Normalize(vmin, vmax), cmap), cax=ax, orientation="horizontal")
     bar.ax.tick_params(labelsize=7, length=2, pad=1)
+    if fahrenheit is not None:
+        from .report import _ticks_in
+
+        _ticks_in(bar.ax.xaxis, vmin, vmax, scale=1.8, offset=32.0 if fahrenheit == "temperature" else 0.0)
     bar.set_label(label, fontsize=7, labelpad=1)
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=dpi)
@@ -458,6 +465,35 @@ def _counted_statuses(result: "SurveyResult") -> set[str]:
     return {"wet", "unverified"} if result.survey.repair.include_unverified else {"wet"}
 
 
+def _photo_html(result: "SurveyResult", units=None) -> tuple[dict[str, str], dict[int, str]]:
+    """Popup HTML of the survey's photos: by core id, and by anomaly id (photos.csv, nearest anomaly)."""
+    from ..photos import nearest_anomalies, survey_photos, thumbnail_uri
+
+    s = result.survey
+    photos = survey_photos(s.folder, s.cores.path if s.cores else None, result.confirmations)
+    by_core: dict[str, str] = {}
+    by_anomaly: dict[int, str] = {}
+    near = nearest_anomalies(photos, [a.geometry for a in result.anomalies])
+    for p, (ai, dist) in zip(photos, near):
+        img = (f'<img class="wetmap-photo" src="{thumbnail_uri(p.path, max_px=480)}" alt="{_esc(p.written)}" '
+               f'style="display:block;max-width:300px;height:auto"><span>{_esc(p.written)}'
+               + (f": {_esc(p.caption)}" if p.caption else "") + "</span>")
+        if units is not None:
+            img = units.html(img)
+        if p.core is not None:
+            by_core[p.core] = img
+        elif ai >= 0:
+            a = result.anomalies[ai]
+            away = f"{dist:.1f} m from the outline"
+            by_anomaly[a.id] = (by_anomaly.get(a.id, "") + img
+                                + f"<span> ({units.html(away) if units is not None else away})</span>")
+    return by_core, by_anomaly
+
+
+#: Popup labels of the core log's optional columns.
+_EXTRA_LABELS = {"layers": "Layers (build-up)", "thickness_mm": "Wet thickness", "photo": "Photo"}
+
+
 def _core_basis(result: "SurveyResult", i: int) -> str:
     c = result.confirmations
     basis = c.basis[i]
@@ -466,7 +502,7 @@ def _core_basis(result: "SurveyResult", i: int) -> str:
         return ("percussion sounding: dull (counted as wet)" if c.wet[i]
                 else "percussion sounding: solid (does not refute an anomaly alone)")
     if basis == "result" or not np.isfinite(value):
-        return "core result (wet/dry as entered)"
+        return "core result (graded wet/damp/dry as entered)"
     if basis == "moisture_pct":
         limit = result.survey.cores.wet_above_pct if result.survey.cores else None
         return f"moisture {value:g} % by weight (wet above {_num(limit, 'g', ' %')})"
@@ -519,6 +555,7 @@ html, body { display: flex; flex-direction: column; }
   font: 13px/1.35 system-ui, -apple-system, "Segoe UI", Roboto, "DejaVu Sans", sans-serif; color: #111; }
 .wetmap-header h1 { font-size: 17px; margin: 0 12px 0 0; display: inline; white-space: nowrap; }
 .wetmap-header .facts span { margin-right: 14px; white-space: nowrap; }
+.wetmap-header .facts span.conv { margin-right: 0; }
 .wetmap-header .note { font-size: 12px; color: #333; }
 .wetmap-panel { background: #ffffff; padding: 5px 8px; border-radius: 5px;
   box-shadow: 0 1px 5px rgba(0,0,0,0.4); font: 12px/1.3 system-ui, -apple-system, "Segoe UI", Roboto,
@@ -652,13 +689,20 @@ def _polygon_parts(geom: BaseGeometry) -> list[BaseGeometry]:
 
 def _add_geojson(parent, name: str, features: list[dict[str, Any]], style: Callable[[dict], dict], *,
                  show: bool = True, popup: tuple[list[str], list[str]] | None = None,
-                 tooltip: str | None = None, permanent_tooltip: bool = False, marker=None,
+                 tooltip: str | None = None, permanent_tooltip: bool = False, marker=None, units=None,
                  label_class: str = "wetmap-label") -> None:
     """One toggleable layer (an empty, named group when there is nothing to draw).
 
     With a permanent tooltip every feature carries its own label, of CSS class ``label_class``.
+    ``units``: the report's :class:`~wetmap.export.report.DisplayUnits`; in imperial units
+    the metric figures of the layer name and of every text property are converted.
     """
     import folium
+
+    if units is not None and units.imperial:
+        name = _plain_text(units.html(name))
+        features = [{**f, "properties": {k: (units.html(v) if isinstance(v, str) and "<img" not in v else v)
+                                         for k, v in f.get("properties", {}).items()}} for f in features]
 
     if not features:
         folium.FeatureGroup(name=name, show=show).add_to(parent)
@@ -685,6 +729,11 @@ def _add_geojson(parent, name: str, features: list[dict[str, Any]], style: Calla
 # --------------------------------------------------------------------------------------
 
 
+def _plain_text(fragment: str) -> str:
+    """Converted figures without their ``<span>`` wrappers (layer names are plain text)."""
+    return re.sub(r'<span class="conv"[^>]*>(.*?)</span>', r"\1", fragment)
+
+
 def _furniture_class():
     from branca.element import MacroElement
     from jinja2 import Template
@@ -699,7 +748,7 @@ def _furniture_class():
         _template = Template("""
             {% macro script(this, kwargs) %}
             (function (map) {
-              L.control.scale({metric: true, imperial: false, maxWidth: 220, position: "bottomleft"}).addTo(map);
+              L.control.scale({metric: {{ this.metric|tojson }}, imperial: {{ this.imperial|tojson }}, maxWidth: 220, position: "bottomleft"}).addTo(map);
               {% for position, cls, content in this.panels %}
               (function () {
                 var c = L.control({position: {{ position|tojson }}});
@@ -1007,6 +1056,12 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
     summary = result.summary()
     survey = result.survey.survey
     proj = _Projection(None if survey.is_local else result.grid.crs)
+    from .report import display_units  # the report's units setting, one for every output
+
+    units = display_units(result)
+
+    def add_layer(*args, **kwargs) -> None:
+        _add_geojson(*args, units=units, **kwargs)
     rows, cols = result.grid.shape
     factor = max(1, math.ceil(max(rows, cols) / max_overlay_px))
 
@@ -1027,7 +1082,7 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
 
     fig = Figure(title=html.escape(f"{survey.title}: thermal survey map (wetmap)"))
     header = Element("{{ this.text }}")
-    header.text = _header_html(result, summary)
+    header.text = units.html(_header_html(result, summary))  # imperial: figures converted
     fig.html.add_child(header, name="wetmap_header")  # before the map, so it sits above it
     if proj.local:
         m = folium.Map(location=[0.0, 0.0], tiles=None, crs="Simple", zoom_start=0, control_scale=False,
@@ -1044,16 +1099,18 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
 
     bars: list[tuple[str, bytes]] = []
     recolour: list[tuple[Any, dict[str, Any]]] = []  # (layer, data) for the in-browser display control
-    for name, values, lo, hi, show, cls in (
-        ("Surface temperature, °C", small_surface, s_lo, s_hi, True, "wetmap-overlay wetmap-surface"),
-        ("ΔT above the dry background, °C", small_delta, d_lo, d_hi, False, "wetmap-overlay wetmap-delta"),
+    for name, values, lo, hi, show, cls, kind in (
+        ("Surface temperature, °C", small_surface, s_lo, s_hi, True, "wetmap-overlay wetmap-surface", "temperature"),
+        ("ΔT above the dry background, °C", small_delta, d_lo, d_hi, False, "wetmap-overlay wetmap-delta",
+         "difference"),
     ):
         placed, bounds = _overlay(values, result, factor, proj)
         uri = png_data_uri(png_bytes(colourise(placed, vmin=lo, vmax=hi)))
-        layer = folium.raster_layers.ImageOverlay(image=uri, bounds=bounds, name=name, show=show, opacity=0.95,
+        shown = name.replace("°C", "°F") if units.imperial else name  # the display control below stays in °C
+        layer = folium.raster_layers.ImageOverlay(image=uri, bounds=bounds, name=shown, show=show, opacity=0.95,
                                                   interactive=False, pixelated=True, className=cls)
         layer.add_to(m)
-        bars.append((name, colour_bar_png(lo, hi, label=name)))
+        bars.append((shown, colour_bar_png(lo, hi, label=shown, fahrenheit=kind if units.imperial else None)))
         recolour.append((layer, {"label": name, "lo": round(lo, 2), "hi": round(hi, 2), **data_png(placed)}))
     words = wording_of(result.survey)
     m.add_child(_recolour_class()(recolour, basis=_range_basis(result), area=words.area_short))
@@ -1063,16 +1120,16 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
     if uncovered is not None:
         feats = [_feature(p, proj, f"u{i}", {"label": f"no thermal data: not surveyed, not dry ({p.area:,.1f} m²)"})
                  for i, p in enumerate(_polygon_parts(uncovered))]
-        _add_geojson(m, "No thermal data (not surveyed)", feats, lambda f: {
+        add_layer(m, "No thermal data (not surveyed)", feats, lambda f: {
             "color": "#777777", "weight": 1, "dashArray": "3 3", "fillColor": LAYER_COLOURS["uncovered"],
             "fillOpacity": 0.75, "className": "wetmap-uncovered"}, tooltip="label")
     feats = [_feature(p, proj, f"x{i}", {"label": f"exclusion ({p.area:,.1f} m²): not surveyed"})
              for i, p in enumerate(_polygon_parts(result.exclusions))]
-    _add_geojson(m, "Exclusions", feats, lambda f: {
+    add_layer(m, "Exclusions", feats, lambda f: {
         "color": "#666666", "weight": 1, "fillColor": LAYER_COLOURS["exclusions"], "fillOpacity": 0.8,
         "className": "wetmap-exclusion"}, tooltip="label")
     outline_name = f"{words.area_title} outline"
-    _add_geojson(m, outline_name, [_feature(result.outline, proj, "outline", {})], lambda f: {
+    add_layer(m, outline_name, [_feature(result.outline, proj, "outline", {})], lambda f: {
         "color": LAYER_COLOURS["outline"], "weight": 2, "fill": False, "interactive": False,
         "className": "wetmap-outline"})
     totals = {t["name"]: t for t in summary.get("sections", [])}
@@ -1087,7 +1144,7 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
             "fraction": _num(100 * t["wet_fraction"], ".1f", " %") if t.get("wet_fraction") is not None else "n/a",
             "label": _esc(f"section {sec.name}"),
         }))
-    _add_geojson(m, "Sections", feats, lambda f: {
+    add_layer(m, "Sections", feats, lambda f: {
         "color": LAYER_COLOURS["sections"], "weight": 1, "dashArray": "10 4 2 4", "fill": True,
         "fillOpacity": 0.0, "className": "wetmap-section"},
         popup=(["name", "assembly", "insulation", "area", "wet", "fraction"],
@@ -1098,23 +1155,28 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
     # Repair outlines and boards.
     feats = [_feature(p, proj, f"r{i}", {"label": f"repair outline {i + 1}: {_sq(p.area)}"})
              for i, p in enumerate(_polygon_parts(result.repair))]
-    _add_geojson(m, f"Repair outline (margin {result.survey.repair.margin_m:g} m)", feats, lambda f: {
+    add_layer(m, f"Repair outline (margin {result.survey.repair.margin_m:g} m)", feats, lambda f: {
         "color": LAYER_COLOURS["repair"], "weight": 2, "dashArray": "6 4", "fillColor": "#000000",
         "fillOpacity": 0.05, "className": "wetmap-repair"}, tooltip="label")
     board_m = result.survey.repair.board_m
     feats = [_feature(b, proj, f"b{i}", {"label": f"board {i + 1}"}) for i, b in enumerate(result.takeoff.boards)]
     board_words = f"{board_m[0]:g} x {board_m[1]:g} m" if board_m else ""
+    if board_m and units.imperial:  # both sides converted (the prose converter sees only the last)
+        board_words = " x ".join(f"{units.length(v):.2f}" for v in board_m) + " ft"
     if words.whole_boards:  # a hull is cut back to dry core: no board layer
-        _add_geojson(m, f"Whole boards ({result.takeoff.count} x {board_words})".replace(" x )", ")"), feats,
+        add_layer(m, f"Whole boards ({result.takeoff.count} x {board_words})".replace(" x )", ")"), feats,
                      lambda f: {"color": LAYER_COLOURS["boards"], "weight": 1, "fillOpacity": 0.0,
                                 "className": "wetmap-board"}, show=False)
+
+    # Photos: embedded (downscaled JPEG), tied to cores (cores.csv photo) and to the nearest anomaly (photos.csv).
+    core_photos, anomaly_photos = _photo_html(result, units)
 
     # Anomalies, one layer per status.
     counted = _counted_statuses(result)
     fields = ["anomaly", "status", "area", "perimeter", "delta_mean", "delta_max", "confirmations", "section",
-              "counted", "flags"]
+              "counted", "flags"] + (["photos"] if anomaly_photos else [])
     aliases = ["Anomaly", "Status", "Area", "Perimeter", "Mean ΔT", "Max ΔT", "Confirmations", "Section",
-               "Counted in repair", "Flags"]
+               "Counted in repair", "Flags"] + (["Photos"] if anomaly_photos else [])
     for status, st in STATUS_STYLES.items():
         feats = [
             _feature(a.geometry, proj, f"a{a.id}", {
@@ -1125,6 +1187,7 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
                 "counted": "yes" if a.status in counted else "no", "label": f"anomaly {a.id} ({a.status})"
                 + (f": {a.flags}" if getattr(a, "flags", "") else ""),
                 "flags": _esc(getattr(a, "flags", "") or "none"),
+                **({"photos": anomaly_photos.get(a.id, "none")} if anomaly_photos else {}),
             })
             for a in result.anomalies if a.status == status
         ]
@@ -1136,7 +1199,7 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
                 out["dashArray"] = st.dash
             return out
 
-        _add_geojson(m, f"Anomalies: {status} ({len(feats)})", feats, style, popup=(fields, aliases),
+        add_layer(m, f"Anomalies: {status} ({len(feats)})", feats, style, popup=(fields, aliases),
                      tooltip="label")
 
     # Cores and readings.
@@ -1149,12 +1212,19 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
             anomaly = int(result.verdicts.anomaly_of[i])
             props = {
                 "id": _esc(cid), "judged": judged, "basis": _esc(_core_basis(result, i)),
+                "grade": _esc(conf.grade[i] if conf.grade[i] != "damp" else f"damp (counted as {judged})"),
                 "delta": _num(float(result.confirmation_delta_c[i]), "+.2f", " °C"),
                 "anomaly": f"anomaly {anomaly + 1}" if anomaly >= 0 else "outside every anomaly",
                 "label": _esc(cid),
             }
             for k, v in conf.extra.items():
-                props[f"extra_{k}"] = _esc(v[i]) if v[i] not in ("", None) else "-"
+                text = _esc(v[i]) if v[i] not in ("", None) else "-"
+                unit = next((un for suffix, un in (("_mm", "mm"), ("_m", "m")) if k.endswith(suffix)), None)
+                if unit and text != "-" and re.fullmatch(r"[-+]?\d+(\.\d+)?", text):
+                    text = f"{text} {unit}"  # the unit of the column name shown, converted in imperial units
+                props[f"extra_{k}"] = text
+            if cid in core_photos:
+                props["extra_photo"] = core_photos[cid]
             feats.append({"type": "Feature", "id": f"c{i}", "properties": props,
                           "geometry": {"type": "Point", "coordinates": [float(xs[i]), float(ys[i])]}})
         extra = list(conf.extra)
@@ -1165,9 +1235,10 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
                     "fillColor": CORE_COLOURS["wet"] if wet else "#FFFFFF", "fillOpacity": 1.0, "opacity": 1.0,
                     "className": f"wetmap-core wetmap-core-{f['properties']['judged']}"}
 
-        _add_geojson(m, f"{words.confirmations_title} ({len(conf)})", feats, core_style,
-                     popup=(["id", "judged", "basis", "delta", "anomaly", *[f"extra_{k}" for k in extra]],
-                            [words.confirmation_label, "Judged", "Basis", "ΔT there", "Lies in", *extra]),
+        add_layer(m, f"{words.confirmations_title} ({len(conf)})", feats, core_style,
+                     popup=(["id", "grade", "judged", "basis", "delta", "anomaly", *[f"extra_{k}" for k in extra]],
+                            [words.confirmation_label, "Graded", "Counted as", "Basis", "ΔT there", "Lies in",
+                             *[_EXTRA_LABELS.get(k, re.sub(r"_(mm|m)$", "", k).replace("_", " ")) for k in extra]]),
                      tooltip="label", permanent_tooltip=len(conf) <= 25, marker=folium.CircleMarker(radius=6))
 
     # Where a further core would help most (added by the confirmation stage when it has any).
@@ -1180,16 +1251,18 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
                                  "why": _esc(getattr(c, "reason", "") or "-"),
                                  "label": f"suggested {words.confirmation} {i + 1}"}}
                  for i, (c, x, y) in enumerate(zip(suggested, xs, ys)) if np.isfinite(x) and np.isfinite(y)]
-        _add_geojson(m, f"Suggested next {words.confirmations} ({len(feats)})", feats, lambda f: {
+        add_layer(m, f"Suggested next {words.confirmations} ({len(feats)})", feats, lambda f: {
             "radius": 7, "weight": 2, "dashArray": "3 3", "color": "#000000", "fill": True, "fillColor": "#F0E442",
             "fillOpacity": 0.9, "className": "wetmap-suggested"},
             popup=(["n", "why"], ["Suggestion", "Why here"]), tooltip="label", marker=folium.CircleMarker(radius=7))
 
     # Legend, scale bar, layer list; fit to the outline.
-    panels = [("bottomleft", "wetmap-panel wetmap-legend", _legend_html(bars, result))]
+    panels = [("bottomleft", "wetmap-panel wetmap-legend", units.html(_legend_html(bars, result)))]
     if not survey.is_local and survey.kind != "hull":  # the page is drawn north-up (Web Mercator)
         panels.insert(0, ("topleft", "wetmap-panel wetmap-north", NORTH_ARROW_SVG))
-    m.add_child(_furniture_class()(panels))
+    furniture = _furniture_class()(panels)
+    furniture.metric, furniture.imperial = not units.imperial, units.imperial  # the scale bar follows [report] units
+    m.add_child(furniture)
     folium.LayerControl(collapsed=False, position="topright").add_to(m)
     # Room for the legend (left, at most 300 px wide plus its margin) and the layer list (right)
     # when the page opens, so neither covers the plan; the legend also folds away (<details>).

@@ -1,0 +1,218 @@
+"""``change_map.html`` and ``change_report.html`` / ``.pdf``: what ``wetmap compare`` found.
+
+The map opens with no network (Leaflet inlined, as ``map.html``): the earlier and the
+later wet areas as outlines, and the changed parts filled by kind. The report is one
+printable HTML page with the totals, a plan figure (matplotlib, embedded as a PNG) and
+one row per changed part; WeasyPrint lays the same page out as a PDF when it is
+installed. Colours are Okabe-Ito (colour-blind safe), each kind also with its own line
+pattern: new (vermillion, solid), grown (orange, dashed), shrunk (sky blue, dotted), gone
+(bluish green, dash-dot).
+"""
+
+from __future__ import annotations
+
+import html
+import io
+from pathlib import Path
+from typing import TYPE_CHECKING
+
+import numpy as np
+
+if TYPE_CHECKING:
+    from ..compare import Comparison
+
+__all__ = ["CHANGE_STYLES", "build_change_map", "build_change_report", "change_figure", "write_change_outputs"]
+
+#: kind -> (colour, Leaflet dash pattern, matplotlib line style, words)
+CHANGE_STYLES = {
+    "new": ("#D55E00", None, "-", "counted wet now where nothing was before"),
+    "grown": ("#E69F00", "8 4", "--", "added to an area already counted wet"),
+    "shrunk": ("#56B4E9", "2 4", ":", "no longer counted wet, beside an area that still is"),
+    "gone": ("#009E73", "8 3 2 3", "-.", "counted wet before, nothing of it now"),
+}
+
+
+def _esc(value) -> str:
+    return html.escape("" if value is None else str(value))
+
+
+def build_change_map(comparison: "Comparison", *, old_name: str, new_name: str) -> str:
+    """The text of ``change_map.html`` (self-contained, no network references)."""
+    import folium
+    from branca.element import Element, Figure
+    from shapely.geometry import MultiPolygon, Polygon
+
+    from ..errors import ProcessingError
+    from .webmap import _PAGE_CSS, _Projection, _add_geojson, _feature, _leaflet_assets, remote_references
+
+    proj = _Projection(comparison.crs)
+    fig = Figure(title=_esc(f"Change between {old_name} and {new_name} (wetmap)"))
+    s = comparison.summary()
+    header = Element("{{ this.text }}")
+    header.text = (f'<div class="wetmap-header"><h1>Change in the wet area: {_esc(old_name)} → {_esc(new_name)}</h1>'
+                   f"<div>Wet area {s['old_wet_area_m2']:,.2f} → {s['new_wet_area_m2']:,.2f} m² "
+                   f"(growth {s['growth_m2']:+,.2f} m²); new {s['new_m2']:,.2f}, grown {s['grown_m2']:,.2f}, "
+                   f"shrunk {s['shrunk_m2']:,.2f}, gone {s['gone_m2']:,.2f} m². <span class='note'>Apparent "
+                   "thermal anomalies compared, not measured moisture.</span></div></div>")
+    fig.html.add_child(header, name="wetmap_header")
+    if proj.local:
+        m = folium.Map(location=[0.0, 0.0], tiles=None, crs="Simple", zoom_start=0, control_scale=False,
+                       zoomSnap=0.25, minZoom=-8, maxZoom=10)
+    else:
+        m = folium.Map(location=[0.0, 0.0], tiles=None, crs="EPSG3857", zoom_start=2, control_scale=True,
+                       zoomSnap=0.25, maxZoom=26)
+    m.default_js = []
+    m.default_css = []
+    m.add_to(fig)
+    for name, areas, colour in ((f"Counted wet before ({old_name})", comparison.old_areas, "#555555"),
+                                (f"Counted wet now ({new_name})", comparison.new_areas, "#000000")):
+        feats = [_feature(g, proj, f"{name[:3]}{i}", {"label": name}) for i, g in enumerate(areas)]
+        _add_geojson(m, name, feats, lambda f, c=colour: {"color": c, "weight": 1.5, "fillOpacity": 0.0},
+                     tooltip="label")
+    for kind, (colour, dash, _, words) in CHANGE_STYLES.items():
+        parts = [c for c in comparison.changes if c.kind == kind]
+        feats = [_feature(c.geometry, proj, f"{kind}{i}", {"kind": kind, "area": f"{c.area_m2:,.2f} m²",
+                                                           "what": words, "label": f"{kind}: {c.area_m2:,.2f} m²"})
+                 for i, c in enumerate(parts)]
+
+        def style(f, colour=colour, dash=dash, kind=kind):
+            out = {"color": colour, "weight": 2.5, "fillColor": colour, "fillOpacity": 0.45,
+                   "className": f"wetmap-change wetmap-change-{kind}"}
+            if dash:
+                out["dashArray"] = dash
+            return out
+
+        _add_geojson(m, f"{kind.capitalize()} ({len(parts)})", feats, style,
+                     popup=(["kind", "area", "what"], ["Change", "Area", "Meaning"]), tooltip="label")
+    every = [g for g in (*comparison.old_areas, *comparison.new_areas, *(c.geometry for c in comparison.changes))]
+    if every:
+        bounds = MultiPolygon([p for g in every for p in (g.geoms if hasattr(g, "geoms") else [g])
+                               if isinstance(p, Polygon)]).bounds
+        m.fit_bounds(proj.latlng_bounds(bounds), padding=(20, 20))
+    folium.LayerControl(collapsed=False, position="topright").add_to(m)
+    css = Element("{{ this.text }}")
+    css.text = f"<style>{_PAGE_CSS}</style>"
+    fig.header.add_child(css, name="wetmap_css")
+    page = fig.render()
+    js, style_text = _leaflet_assets()
+    head = page.index("<head>") + len("<head>") if "<head>" in page else 0
+    page = page[:head] + f"\n<style>{style_text}</style>\n<script>{js}</script>\n" + page[head:]
+    remote = remote_references(page)
+    if remote:
+        raise ProcessingError(f"change_map.html: the page would load {remote[0]} from the network; "
+                              "this is a wetmap bug, please report it")
+    return page
+
+
+def change_figure(comparison: "Comparison", *, dpi: int = 130) -> bytes:
+    """A plan of the changes (PNG bytes): earlier and later wet outlines, changed parts by kind."""
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
+    from matplotlib.figure import Figure
+    from matplotlib.lines import Line2D
+    from matplotlib.patches import Patch
+
+    from .report import _draw
+
+    fig = Figure(figsize=(6.7, 4.6), dpi=dpi, layout="constrained")
+    FigureCanvasAgg(fig)
+    ax = fig.add_subplot()
+    for kind, (colour, _, ls, _) in CHANGE_STYLES.items():
+        geoms = [c.geometry for c in comparison.changes if c.kind == kind]
+        if geoms:
+            _draw(ax, geoms, facecolor=colour, edgecolor=colour, alpha=0.5, linewidth=1.8, linestyle=ls, zorder=3)
+    _draw(ax, list(comparison.old_areas), facecolor="none", edgecolor="#555555", linewidth=1.0, linestyle="--", zorder=4)
+    _draw(ax, list(comparison.new_areas), facecolor="none", edgecolor="black", linewidth=1.2, zorder=5)
+    every = [*comparison.old_areas, *comparison.new_areas, *(c.geometry for c in comparison.changes)]
+    if every:
+        import shapely
+
+        x0, y0, x1, y1 = shapely.total_bounds(np.asarray(every, dtype=object))
+        pad = 0.05 * max(x1 - x0, y1 - y0, 1.0)
+        ax.set_xlim(x0 - pad, x1 + pad)
+        ax.set_ylim(y0 - pad, y1 + pad)
+    ax.set_aspect("equal")
+    ax.ticklabel_format(useOffset=False, style="plain")
+    ax.tick_params(labelsize=7)
+    ax.set_xlabel("plan x (m)", fontsize=8)
+    ax.set_ylabel("plan y (m)", fontsize=8)
+    handles = [Patch(facecolor=c, edgecolor=c, alpha=0.6, linestyle=ls, label=k) for k, (c, _, ls, _) in
+               CHANGE_STYLES.items()]
+    handles += [Line2D([], [], color="#555555", linestyle="--", label="wet before"),
+                Line2D([], [], color="black", label="wet now")]
+    fig.legend(handles=handles, loc="outside lower center", ncols=6, fontsize=7, frameon=False)
+    buf = io.BytesIO()
+    fig.savefig(buf, format="png", dpi=dpi)
+    return buf.getvalue()
+
+
+def build_change_report(comparison: "Comparison", *, old_name: str, new_name: str, counted: tuple[str, ...]) -> str:
+    """The text of ``change_report.html``: totals, a plan figure and one row per changed part."""
+    from .webmap import png_data_uri
+
+    s = comparison.summary()
+    pct = "n/a" if s["growth_pct"] is None else f"{s['growth_pct']:+.1f} %"
+    rows = [("Wet area before", f"{s['old_wet_area_m2']:,.2f} m²", "old_wet_area_m2"),
+            ("Wet area now", f"{s['new_wet_area_m2']:,.2f} m²", "new_wet_area_m2"),
+            ("Growth", f"{s['growth_m2']:+,.2f} m² ({pct})", "growth_m2")]
+    rows += [(f"{k.capitalize()}: {CHANGE_STYLES[k][3]}", f"{s[f'{k}_m2']:,.2f} m² in {s['counts'][k]} part{'' if s['counts'][k] == 1 else 's'}",
+              f"{k}_m2") for k in CHANGE_STYLES]
+    totals = "".join(f"<tr><th>{_esc(a)}</th><td class='num' data-key='{key}'>{_esc(b)}</td></tr>"
+                     for a, b, key in rows)
+    parts = sorted(comparison.changes, key=lambda c: (list(CHANGE_STYLES).index(c.kind), -c.area_m2))
+    body = "".join(
+        f"<tr data-kind='{c.kind}'><td class='num'>{i}</td><td>{c.kind}</td><td class='num'>{c.area_m2:,.2f}</td>"
+        f"<td class='num'>{c.geometry.centroid.x:,.2f}</td><td class='num'>{c.geometry.centroid.y:,.2f}</td></tr>"
+        for i, c in enumerate(parts, 1)) or "<tr><td colspan='5'>No change.</td></tr>"
+    png = change_figure(comparison)
+    counted_words = " and ".join(counted)
+    css = ("@page { margin: 16mm 14mm; } html { font: 10pt/1.4 'DejaVu Sans', sans-serif; color: #111; } "
+           "body { max-width: 182mm; margin: 8mm auto; } h1 { font-size: 16pt; } h2 { font-size: 12pt; "
+           "border-bottom: 1px solid #000; break-after: avoid; } table { border-collapse: collapse; width: 100%; "
+           "font-size: 9pt; margin: 2mm 0 4mm; } th, td { border: 1px solid #999; padding: 0.8mm 1.5mm; "
+           "text-align: left; } th { background: #f2f2f2; } td.num { text-align: right; white-space: nowrap; } "
+           "tr, figure { break-inside: avoid; } thead { display: table-header-group; } figure { margin: 3mm 0; } "
+           "figure img { width: 100%; height: auto; border: 1px solid #ccc; } .small { font-size: 8.5pt; }")
+    return (
+        '<!DOCTYPE html><html lang="en"><head><meta charset="utf-8">'
+        f"<title>Change report: {_esc(old_name)} → {_esc(new_name)}</title><style>{css}</style></head><body>"
+        f"<h1>Change in the wet area: {_esc(old_name)} → {_esc(new_name)}</h1>"
+        f"<p>Areas counted as wet ({_esc(counted_words)} anomalies) in the earlier survey <b>{_esc(old_name)}</b> "
+        f"and the later survey <b>{_esc(new_name)}</b>, both on the same plan, compared part by part. "
+        "These are apparent thermal anomalies, not measured moisture; a change may also come from other "
+        "survey conditions or another threshold: compare the two reports' conditions before concluding.</p>"
+        f"<h2>Totals</h2><table id='change-totals'>{totals}</table>"
+        f"<h2>Plan</h2><figure><img src='{png_data_uri(png)}' alt='plan of the changes'><figcaption class='small'>"
+        "Changed parts filled by kind; earlier wet outlines dashed grey, later ones solid black. The interactive "
+        "version is change_map.html.</figcaption></figure>"
+        "<h2>Changed parts</h2><table id='change-parts'><thead><tr><th>No.</th><th>Kind</th><th>Area (m²)</th>"
+        f"<th>Centre x (m)</th><th>Centre y (m)</th></tr></thead><tbody>{body}</tbody></table>"
+        "<p class='small'>Files: change.gpkg (layer change: kind, area_m2), change.json (these totals), "
+        "change_map.html, change_report.html / .pdf. Prepared with wetmap compare.</p></body></html>")
+
+
+def write_change_outputs(comparison: "Comparison", folder: Path, *, old_name: str, new_name: str,
+                         counted: tuple[str, ...]) -> list[Path]:
+    """Write the change map and report into ``folder`` (a staging folder of the safe writer).
+
+    Returns the files written; ``change_report.pdf`` only when WeasyPrint can start.
+    """
+    folder = Path(folder)
+    written = []
+    (folder / "change_map.html").write_text(build_change_map(comparison, old_name=old_name, new_name=new_name),
+                                            encoding="utf-8")
+    written.append(folder / "change_map.html")
+    text = build_change_report(comparison, old_name=old_name, new_name=new_name, counted=counted)
+    (folder / "change_report.html").write_text(text, encoding="utf-8")
+    written.append(folder / "change_report.html")
+    try:
+        import logging
+
+        from weasyprint import HTML
+
+        logging.getLogger("weasyprint").setLevel(logging.ERROR)
+        logging.getLogger("fontTools").setLevel(logging.ERROR)
+    except (ImportError, OSError):  # WeasyPrint or Pango missing: the HTML report stands alone
+        return written
+    HTML(string=text).write_pdf(folder / "change_report.pdf")
+    written.append(folder / "change_report.pdf")
+    return written
