@@ -201,7 +201,7 @@ def test_parapet_band_is_flagged_or_left_out(tmp_path):
     assert len(buffered.anomalies) == 0
     outline = shapely.box(0, 0, 50.35, 30.45)
     band = outline.area - outline.buffer(-1.2, join_style="mitre").area
-    assert buffered.coverage["edge_band_m2"] == pytest.approx(band, rel=1e-9)
+    assert buffered.coverage.edge_band_m2 == pytest.approx(band, rel=1e-9)
     assert any("not surveyed" in w and "edge_buffer_m" in w for w in buffered.warnings)
     out = tmp_path / "out"
     run_survey(tmp_path / "buffer", out=out)
@@ -220,7 +220,7 @@ def test_unit_halo_is_flagged_or_left_out(tmp_path):
     assert "next to a rooftop unit" in (folder / "results" / "report.html").read_text(encoding="utf-8")
     buffered = _run(sr.unit_scene(detect="delta_c = 1.0\nexclusion_buffer_m = 1.0"), tmp_path / "buffer")
     assert len(buffered.anomalies) == 0
-    assert buffered.coverage["exclusion_band_m2"] == pytest.approx(5.0 ** 2 - 3.0 ** 2, rel=1e-6)
+    assert buffered.coverage.exclusion_band_m2 == pytest.approx(5.0 ** 2 - 3.0 ** 2, rel=1e-6)
 
 
 def test_large_wet_area_at_the_edge_is_not_an_edge_band(tmp_path):
@@ -314,7 +314,7 @@ def test_model_windows_equal_the_whole_array():
     for trend and local sections alike."""
     scene = sr.step_scene("diagonal")
     surface = scene.surface().astype(np.float32)
-    from wetmap.tiles import pixel_edges, section_label_raster, section_labels
+    from wetmap.windows import pixel_edges, section_label_raster, section_labels
 
     edges = [pixel_edges(g, scene.transform) for _, g, _ in scene.sections]
     labels = section_label_raster(edges, surface.shape)

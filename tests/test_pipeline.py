@@ -266,7 +266,7 @@ def test_partial_coverage_is_reported_not_called_dry(tmp_path):
     east = shapely.box(x_cut, ymin - 1, xmax + 1, ymax + 1)
     roof = truth.outline.difference(shapely.union_all(truth.exclusions))
     expected = roof.intersection(east).area
-    assert result.coverage["uncovered_m2"] == pytest.approx(expected, rel=0.02)
+    assert result.coverage.uncovered_m2 == pytest.approx(expected, rel=0.02)
     assert any("not surveyed" in w for w in result.warnings)
 
 

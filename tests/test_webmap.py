@@ -360,7 +360,7 @@ def test_browser_draws_the_georeferenced_map_offline(sample_run, tmp_path):
 
 def test_browser_draws_a_local_plan_with_its_uncovered_area(local_run, tmp_path):
     result, out = local_run
-    assert result.coverage["uncovered_m2"] == pytest.approx(30.0, abs=1.0)  # the 6 x 5 m hole
+    assert result.coverage.uncovered_m2 == pytest.approx(30.0, abs=1.0)  # the 6 x 5 m hole
     probe, errors = _browse(out / "map.html", tmp_path / "profile")
     assert errors == []
     assert probe["anomalies"] == len(result.anomalies) > 0

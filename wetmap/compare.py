@@ -12,6 +12,7 @@ areas counted as wet (``wet`` and ``unverified`` by default) are compared:
 
 from __future__ import annotations
 
+import warnings
 import json
 from dataclasses import dataclass
 from pathlib import Path
@@ -22,12 +23,14 @@ import shapely
 from shapely.geometry import Polygon
 from shapely.geometry.base import BaseGeometry
 
+from .confirm import STATUSES, counted_statuses
 from .errors import InputFileError, MissingFileError
+from .outputs import write_folder
 
 __all__ = ["ChangeKind", "Change", "Comparison", "compare_areas", "read_counted", "compare_results", "write_change"]
 
 ChangeKind = Literal["new", "grown", "shrunk", "gone"]
-COUNTED_DEFAULT = ("wet", "unverified")
+COUNTED_DEFAULT = tuple(sorted(counted_statuses(include_unverified=True), key=STATUSES.index))
 
 
 @dataclass(frozen=True)
@@ -167,7 +170,6 @@ def write_change(comparison: Comparison, out_dir: Path) -> tuple[Path, Path]:
     """
     import geopandas as gpd
 
-    from .outputs import write_folder
 
     frame = gpd.GeoDataFrame(
         {"kind": [c.kind for c in comparison.changes], "area_m2": [round(c.area_m2, 4) for c in comparison.changes]},
@@ -175,8 +177,6 @@ def write_change(comparison: Comparison, out_dir: Path) -> tuple[Path, Path]:
     )
 
     def write(folder: Path) -> None:
-        import warnings
-
         with warnings.catch_warnings():
             warnings.filterwarnings("ignore", message="'crs' was not provided")
             frame.to_file(folder / "change.gpkg", layer="change", driver="GPKG", engine="pyogrio")

@@ -12,290 +12,56 @@ from __future__ import annotations
 
 import logging
 from collections.abc import Callable
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 import shapely
+from pyproj import CRS
 from shapely.geometry import Polygon
 from shapely.geometry.base import BaseGeometry
 
-from . import __version__
-from .confirm import (AreaRange, Status, SuggestedCore, ThresholdCheck, Verdicts, assign_status,
-                      sample_at_points, suggest_cores, threshold_check, wet_area_range)
+from .conditions import check_conditions, estimate_reflected_c
+from .confirm import (ThresholdCheck, Verdicts, assign_status, counted_statuses, sample_at_points, suggest_cores,
+                      threshold_check, wet_area_range)
 from .confirmations import Confirmations
+from .cooldown import plan_survey_window
 from .detect import (EDGE_FLAG, UNIT_FLAG, Detection, anomaly_mask, background_warnings, default_background_m,
-                     detect_anomalies, edge_flags, large_share)
-from .errors import InputFileError, ProcessingError, SurveyError
+                     detect_anomalies, edge_flags)
+from .errors import InputFileError, ProcessingError, SurveyError, WetmapError
+from .export import cad, gis, report, tables, webmap
+from .frames import read_frame
+from .imagery import assess_imagery, frame_views
 from .outputs import replacing
 from .passes import PassComparison, align_to_grid, choose_primary, compare_passes, group_passes, pass_contrast_c
 from .polygons import SIMPLIFY_TOLERANCE_PX, RegionStats, label_regions, polygonize, region_stats, simplify_outlines
-from .quantities import BoardTakeoff, Quantities, SectionTotals, compute_quantities, largest_overlap
+from .prework import prepare_survey
+from .quantities import Quantities, compute_quantities, largest_overlap
+from .radiometry import (Radiometry, apparent_from_surface, atmospheric_transmittance, section_emissivity_correction,
+                         surface_from_apparent, to_surface_k)
 from .rasters import PlanGrid, inspect_raster, plan_grid_for, read_onto_grid
-from .register import SUSPECT_MIN_PX, FrameReport, Registration
+from .register import (GIRTH_STRETCH_MAX, MAX_VIEW_ANGLE_DEG, SUSPECT_MIN_PX, FrameReport, Registration,
+                       blend_frames, choose_pixel_m, frame_gsd_m, fresnel_emissivity, girth_stretch, placement_ranks,
+                       register_points, resample_frame)
+from .results import (OUTSIDE_SECTIONS, RESULT_FILES, Anomaly, CoresThreshold, Coverage, SurveyResult, area_word,
+                      large_wet_shares)
 from .sun import with_sun_times
-from .survey import Survey, load_survey
-from .tiles import FullRasters, WindowProgress, detect_in_windows
+from .survey import Limits, Survey, load_survey
+from .tiles import WindowProgress, detect_in_windows
+from .windows import pixel_edges, roof_mask, section_label_raster
 from .vectors import Section
 from .wording import wording_of
 
-__all__ = ["Anomaly", "SurveyResult", "process_survey", "write_results", "run_survey", "check_survey", "RESULT_FILES"]
+__all__ = ["process_survey", "write_results", "run_survey", "check_survey",
+           # the result model, importable from here too (wetmap.results)
+           "Anomaly", "SurveyResult", "RESULT_FILES"]
 
 log = logging.getLogger(__name__)
 
 Progress = Callable[[str], None]
 
-#: Files every run writes (map.html and report.html are added by their exporters).
-RESULT_FILES = (
-    "summary.json",
-    "anomalies.gpkg",
-    "anomalies.geojson",
-    "repair.gpkg",
-    "repair.dxf",
-    "quantities.csv",
-    "bill.csv",
-    "takeoff.xlsx",
-    "surface_c.tif",
-    "delta_c.tif",
-)
 
-
-@dataclass(frozen=True)
-class Anomaly:
-    """One anomaly polygon with its attributes (names as in the output format)."""
-
-    id: int
-    geometry: Polygon
-    """The outline simplified within :data:`wetmap.polygons.SIMPLIFY_TOLERANCE_PX` of a pixel
-    (what the repair margin, the files, the map and the report draw); ``area_m2`` and
-    ``perimeter_m`` are measured on the exact outline."""
-    status: Status
-    area_m2: float
-    perimeter_m: float
-    delta_mean_c: float
-    delta_max_c: float
-    confirmations: tuple[str, ...]
-    section: str | None
-    flags: str = ""
-    """Imagery flags (``"; "``-separated): ``reflection suspect``, ``under-resolved`` (:mod:`wetmap.imagery`)."""
-    exact: Polygon | None = None
-    """The exact outline ``area_m2``, ``perimeter_m`` and the imagery checks are measured on
-    (``geometry`` is its simplified copy); ``None``: ``geometry`` is exact."""
-
-
-@dataclass(frozen=True)
-class Radiometry:
-    """How apparent temperature was turned into surface temperature."""
-
-    band_um: tuple[float, float]
-    emissivity: float
-    reflected_c: float
-    reflected_source: str
-    transmittance: float
-    transmittance_source: str
-    atmosphere_c: float
-
-
-@dataclass(frozen=True)
-class SurveyResult:
-    """Everything a run computed; exporters read only this."""
-
-    survey: Survey
-    grid: PlanGrid
-    surface_c: np.ndarray
-    detection: Detection
-    outline: BaseGeometry
-    exclusions: BaseGeometry
-    roof: BaseGeometry
-    sections: tuple[Section, ...]
-    anomalies: tuple[Anomaly, ...]
-    confirmations: Confirmations
-    verdicts: Verdicts
-    confirmation_delta_c: np.ndarray
-    repair: BaseGeometry
-    takeoff: BoardTakeoff
-    section_totals: tuple[SectionTotals, ...]
-    radiometry: Radiometry
-    coverage: dict[str, float]
-    warnings: tuple[str, ...] = field(default_factory=tuple)
-    passes: PassComparison | None = None
-    """Several passes of one night compared (``None`` for a single pass)."""
-    quantities: Quantities | None = None
-    """The whole quantities step (outside-sections figures, board sections, bill)."""
-    threshold: ThresholdCheck | None = None
-    """The chosen threshold against the confirmations."""
-    area_range: AreaRange | None = None
-    """The counted wet area with its range."""
-    suggested_cores: tuple[SuggestedCore, ...] = ()
-    """Where one more core is worth most."""
-    registration: tuple[FrameReport, ...] = ()
-    """Registration figures of each ``[[frame]]`` of the primary pass."""
-    full_rasters: FullRasters | None = None
-    """Processed in windows (:mod:`wetmap.tiles`): the full-resolution ``surface_c.tif`` and
-    ``delta_c.tif`` on disk and the full grid. ``grid``, ``surface_c`` and ``detection``'s
-    arrays are then a preview (block means, :data:`wetmap.tiles.PREVIEW_MAX_SIDE`); the
-    anomalies and their statistics are exact. ``None``: the whole array is in memory."""
-    imagery: Any = None
-    """Resolution, focus, reflection and display-range findings (:class:`wetmap.imagery.ImageryReport`)."""
-    cores_threshold: Any = None
-    """``[detect] delta_c = "cores"``: the range the cores allowed and the threshold taken (:class:`CoresThreshold`)."""
-    section_checks: tuple = ()
-    """``(section name, ThresholdCheck)``: the threshold against the cores inside each section."""
-
-    def summary(self) -> dict[str, Any]:
-        """The ``summary.json`` content (areas in m2)."""
-        by: dict[str, float] = {"wet": 0.0, "dry": 0.0, "unverified": 0.0}
-        for a in self.anomalies:
-            by[a.status] += a.area_m2
-        roof_area = self.roof.area
-        wet = by["wet"] + by["unverified"]
-        d, s = self.detection, self.survey
-        bg = self.background_entries()
-        return {
-            "title": s.survey.title,
-            "kind": s.survey.kind,
-            "crs": s.survey.crs,
-            "side": s.survey.side,
-            "area_label": _area_word(s),
-            **({"plan_axes": dict(HULL_AXES)} if s.survey.kind == "hull" else {}),
-            "roof_area_m2": round(roof_area, 4),
-            "anomaly_count": len(self.anomalies),
-            "wet_area_m2": round(wet, 4),
-            "confirmed_wet_area_m2": round(by["wet"], 4),
-            "unverified_area_m2": round(by["unverified"], 4),
-            "confirmed_dry_area_m2": round(by["dry"], 4),
-            "wet_fraction": round(wet / roof_area, 6) if roof_area > 0 else 0.0,
-            "repair_area_m2": round(self.repair.area, 4),
-            "boards": self.takeoff.count,
-            "boards_range": list(self.takeoff.count_range) if self.takeoff.count_range is not None else None,
-            "board_area_m2": round(self.takeoff.board_area_m2, 4),
-            "tearoff_area_m2": round(self.takeoff.tearoff_area_m2, 4),
-            **self._quantity_entries(),
-            "warnings": list(self.warnings),
-            **({"passes": self.passes.summary()} if self.passes is not None else {}),
-            **self._calibration_entries(),
-            **({"imagery": self.imagery.as_dict(),
-                "reflection_suspect": [r.as_dict() for r in self.imagery.reflections]}
-               if self.imagery is not None else {}),
-            "sections": [
-                {**{k: (round(v, 4) if isinstance(v, float) else v) for k, v in vars(t).items()},
-                 **({"background": bg[t.name]["method"]} if t.name in bg else {})}
-                for t in self.section_totals
-            ],
-            "background": list(bg.values()),
-            "large_wet_share": [{"where": w, "wet_fraction": round(f, 6)}
-                                for w, f in large_wet_shares(self.quantities, s)],
-            "coverage": {k: round(v, 4) for k, v in self.coverage.items()},
-            "registration": [r.as_dict() for r in self.registration],
-            "confirmations": {
-                "count": len(self.confirmations),
-                "wet": int(self.confirmations.wet.sum()),
-                "dry": int((~self.confirmations.wet).sum()),
-                "outside_anomalies": int((self.verdicts.anomaly_of < 0).sum()),
-            },
-            "method": {
-                "band_um": list(self.radiometry.band_um),
-                "emissivity": self.radiometry.emissivity,
-                **({"section_emissivity": {sec.name: sec.emissivity for sec in self.sections
-                                           if sec.emissivity is not None}}
-                   if any(sec.emissivity is not None for sec in self.sections) else {}),
-                "reflected_c": round(self.radiometry.reflected_c, 3),
-                "reflected_source": self.radiometry.reflected_source,
-                "reflected_estimated": not self.radiometry.reflected_source.startswith("measured"),
-                "transmittance": round(self.radiometry.transmittance, 5),
-                "transmittance_source": self.radiometry.transmittance_source,
-                "delta_c": d.threshold_c,
-                "delta_c_source": ("the middle of the range the cores allow" if self.cores_threshold is not None
-                                   else "[detect] delta_c"),
-                **({"delta_c_cores": {"dry_max_c": self.cores_threshold.low_c, "wet_min_c": self.cores_threshold.high_c,
-                                      "wet_cores": self.cores_threshold.wet, "dry_cores": self.cores_threshold.dry}}
-                   if self.cores_threshold is not None else {}),
-                "background": s.detect.background,
-                "background_m": round(d.background_m, 3),
-                "min_area_m2": s.detect.min_area_m2,
-                "pixel_m": (self.full_rasters.grid if self.full_rasters is not None else self.grid).pixel_m,
-                "pixel_m_source": _pixel_source(s),
-                "perimeter": "length of the smoothed outline (mid-edge rule), not the pixel staircase",
-                "margin_m": s.repair.margin_m,
-                "board_m": list(s.repair.board_m) if s.repair.board_m else None,
-                "include_unverified": s.repair.include_unverified,
-                "board_angle_deg": round(self.takeoff.angle_deg, 6) if s.repair.board_m else None,
-                "board_origin": [round(v, 4) for v in self.takeoff.origin_xy] if s.repair.board_m else None,
-                "board_origin_rule": self.takeoff.origin_rule if s.repair.board_m else None,
-                "replace_above_pct": s.repair.replace_above_pct,
-                "area_units": list(s.repair.area_units),
-                "processing": self._processing(),
-            },
-            "wetmap_version": __version__,
-        }
-
-    def background_entries(self) -> dict[str, dict[str, Any]]:
-        """The dry background of each section (method, reason, trend figures), by section name.
-
-        The rest of the roof outside every section is listed only when it has thermal data.
-        """
-        model = getattr(self.detection, "background", None)
-        if model is None:
-            return {}
-        return {e.name: e.as_dict() for e in model.sections
-                if not (e.method == "none" and e.name == OUTSIDE_SECTIONS)}
-
-    def _processing(self) -> dict[str, Any]:
-        """summary.json ``method.processing``: whole array, or windows and what used the preview."""
-        if self.full_rasters is None:
-            return {"mode": "whole array"}
-        return {**self.full_rasters.as_dict(),
-                "preview": (f"block means of {self.full_rasters.preview_factor} x {self.full_rasters.preview_factor} "
-                            "pixels: the wet-area range, the suggested boundary cores, the figures and the map "
-                            "overlays; anomalies, their statistics, confirmation delta-T and the rasters are full "
-                            "resolution")}
-
-    def _calibration_entries(self) -> dict[str, Any]:
-        """summary.json entries of the threshold check, the area range and the suggested cores."""
-        out: dict[str, Any] = {}
-        if self.area_range is not None:
-            r = self.area_range
-            out["wet_area_range_m2"] = [round(r.low_m2, 4), round(r.high_m2, 4)]
-            out["wet_area_range"] = {
-                "likely_m2": round(r.likely_m2, 4), "low_m2": round(r.low_m2, 4), "high_m2": round(r.high_m2, 4),
-                "threshold_low_c": r.threshold_low_c, "threshold_high_c": r.threshold_high_c,
-                "geometric_m2": round(r.geometric_m2, 4),
-            }
-        if self.section_checks:
-            out["threshold_check_by_section"] = [
-                {"section": name, "range_c": [t.low_c, t.high_c], "range_bounded_by": list(t.bounded_by),
-                 "separable": t.separable, "confusion": t.confusion, "misclassified": list(t.misclassified),
-                 "wet_cores": t.n_wet, "dry_cores": t.n_dry}
-                for name, t in self.section_checks]
-        if self.threshold is not None:
-            t = self.threshold
-            out["threshold_check"] = {
-                "chosen_c": t.chosen_c, "range_c": [t.low_c, t.high_c], "range_bounded_by": list(t.bounded_by),
-                "errors_at_best": t.errors, "separable": t.separable, "confusion": t.confusion,
-                "misclassified": list(t.misclassified), "wet_cores": t.n_wet, "dry_cores": t.n_dry,
-            }
-        out["suggested_cores"] = [
-            {"x": c.x, "y": c.y, "kind": c.kind, "anomaly": c.anomaly, "reason": c.reason}
-            for c in self.suggested_cores
-        ]
-        return out
-
-    def _quantity_entries(self) -> dict[str, Any]:
-        """summary.json entries of the quantities step (areas m2, lengths m)."""
-        q = self.quantities
-        if q is None:
-            return {}
-        out: dict[str, Any] = {"repair_perimeter_m": round(q.repair_perimeter_m, 4), "replace_flag": q.replace_flag}
-        if q.outside is not None:
-            out["outside_sections"] = {k: (round(v, 4) if isinstance(v, float) else v)
-                                       for k, v in vars(q.outside).items() if k not in ("assembly", "insulation")}
-        out["bill"] = q.bill.as_dict()
-        return out
-
-
-#: What plan x and y mean on a hull side (``summary.json`` ``plan_axes``).
-HULL_AXES = (("x", "station (m along the hull)"), ("y", "girth (m up from the keel)"))
 
 
 def _sounding_notes(conf: Confirmations, verdicts: Verdicts) -> list[str]:
@@ -320,19 +86,6 @@ def _sounding_notes(conf: Confirmations, verdicts: Verdicts) -> list[str]:
     return notes
 
 
-def _area_word(survey: Survey) -> str:
-    """``"roof"``, or ``"hull side"`` (with its side when given): the surveyed area in words."""
-    return wording_of(survey).area
-
-
-def _pixel_source(survey: Survey) -> str:
-    if survey.plan.pixel_m is not None:
-        return "[plan] pixel_m"
-    if survey.mosaics:
-        return "the finest mosaic's pixel size"
-    return "the frames' median ground sampling distance, rounded down (1-1.5-2-2.5-3-4-5-6-8 series)"
-
-
 def _emit(progress: Progress | None, message: str) -> None:
     log.info(message)
     if progress is not None:
@@ -344,9 +97,6 @@ def _union(geoms) -> BaseGeometry:
 
 
 def _radiometry(survey: Survey, warnings: list[str]) -> Radiometry:
-    from .conditions import estimate_reflected_c
-    from .radiometry import atmospheric_transmittance
-
     cond, cam = survey.conditions, survey.camera
     if cond.reflected_c is not None:
         reflected, source = cond.reflected_c, "measured (as entered in [conditions] reflected_c)"
@@ -370,43 +120,8 @@ def _radiometry(survey: Survey, warnings: list[str]) -> Radiometry:
 
 def _mask_of(geoms: BaseGeometry, grid: PlanGrid) -> np.ndarray:
     """Pixels whose centre lies inside ``geoms`` (the pixel-centre rule, computed as every window of
-    :mod:`wetmap.tiles` computes it, so whole-array and windowed runs give the same pixels)."""
-    from .tiles import roof_mask
-
+    :mod:`wetmap.windows` computes it, so whole-array and windowed runs give the same pixels)."""
     return roof_mask(geoms, grid.transform, grid.shape)
-
-
-def section_emissivity_correction(surface_k: np.ndarray, apparent_k: np.ndarray, labels: np.ndarray | None,
-                                  sections, radiometry: Radiometry) -> np.ndarray:
-    """Surface temperature (K) of each section with its own ``emissivity`` (sections.geojson),
-    from the apparent temperature (K); other pixels keep ``surface_k``. ``labels`` as
-    :func:`wetmap.tiles.section_labels` (label ``k`` = ``sections[k]``)."""
-    if labels is None:
-        return surface_k
-    for k, sec in enumerate(sections):
-        if sec.emissivity is None or sec.emissivity == radiometry.emissivity:
-            continue
-        sel = labels == k
-        if sel.any():
-            surface_k[sel] = _to_surface_k(apparent_k[sel], replace(radiometry, emissivity=sec.emissivity))
-    return surface_k
-
-
-def _to_surface_k(apparent_k: np.ndarray, radiometry: Radiometry) -> np.ndarray:
-    """Apparent -> surface temperature, K: the measurement equation inverted (NaN stays NaN).
-
-    The same call for mosaics (on the plan grid) and frames (per frame, before resampling).
-    """
-    from .radiometry import surface_from_apparent
-
-    return surface_from_apparent(
-        apparent_k,
-        emissivity=radiometry.emissivity,
-        reflected_k=radiometry.reflected_c + 273.15,
-        transmittance=radiometry.transmittance,
-        atmosphere_k=radiometry.atmosphere_c + 273.15,
-        band_um=radiometry.band_um,
-    )
 
 
 @dataclass(frozen=True)
@@ -421,10 +136,6 @@ class _RegisteredFrame:
 def _register_frames(survey: Survey, radiometry: Radiometry, warnings: list[str],
                      progress: Progress | None) -> list[_RegisteredFrame]:
     """Read each frame, correct it to surface temperature and fit its control points."""
-    from .errors import SurveyError
-    from .frames import read_frame
-    from .register import register_points
-
     out = []
     for i, f in enumerate(survey.frames):
         try:
@@ -446,7 +157,7 @@ def _register_frames(survey: Survey, radiometry: Radiometry, warnings: list[str]
                 "check that each point is [col, row, x, y]"
             )
         reg = register_points(pts[:, :2], pts[:, 2:], where=where, piecewise=True)
-        surface = _to_surface_k(image.values_k, radiometry)
+        surface = to_surface_k(image.values_k, radiometry)
         lost = int(np.count_nonzero(np.isnan(surface) & ~np.isnan(image.values_k)))
         if lost:
             warnings.append(f"{name}: {lost} pixels could not be corrected (apparent temperature too low for the "
@@ -468,8 +179,6 @@ def _register_frames(survey: Survey, radiometry: Radiometry, warnings: list[str]
             warnings.append(f"{name} ([[frame]] #{i + 1}): the control points fit to {fit.rms_px:.1f} px RMS "
                             f"({fit.rms_m:.3g} m): placement is uncertain; check them")
         if survey.survey.kind == "hull":
-            from .register import GIRTH_STRETCH_MAX, girth_stretch
-
             stretch = girth_stretch(pts[:, :2], pts[:, 2:])
             if stretch is not None and stretch.ratio > GIRTH_STRETCH_MAX:
                 warnings.append(
@@ -496,10 +205,6 @@ def _frames_onto_grid(frames: list[_RegisteredFrame], grid: PlanGrid, outline: B
     (``[limits] exclude_blurred``; :mod:`wetmap.imagery`); ``views``, when given, receives
     each placed frame as a :class:`wetmap.imagery.FrameView`.
     """
-    from .imagery import frame_views
-    from .register import MAX_VIEW_ANGLE_DEG, blend_frames, frame_gsd_m, placement_ranks, resample_frame
-    from .survey import Limits
-
     parts, placed = [], []
     for fr in frames:
         part = resample_frame(fr.surface_k, fr.registration.mapping, grid_transform=grid.transform,
@@ -558,9 +263,6 @@ def _emissivity_by_angle(part, radiometry: Radiometry, refractive_index: float):
     angle (Fresnel, :func:`wetmap.register.fresnel_emissivity`, scaled to ``[camera] emissivity``
     square-on): its apparent temperature is recovered with the square-on emissivity, then
     corrected again with the pixel's own."""
-    from .radiometry import apparent_from_surface, surface_from_apparent
-    from .register import fresnel_emissivity
-
     common = dict(reflected_k=radiometry.reflected_c + 273.15, transmittance=radiometry.transmittance,
                   atmosphere_k=radiometry.atmosphere_c + 273.15, band_um=radiometry.band_um)
     good = np.isfinite(part.values) & np.isfinite(part.view_angle_deg)
@@ -592,14 +294,10 @@ def _surface_on_grid(survey: Survey, outline: BaseGeometry, radiometry: Radiomet
     ``registration``, when given, receives one :class:`FrameReport` per frame; ``views`` one
     :class:`wetmap.imagery.FrameView` per placed frame.
     """
-    from .register import choose_pixel_m, frame_gsd_m
-
     crs = None if survey.survey.is_local else survey.survey.crs
     infos = [inspect_raster(m.path, origin=m.origin, pixel_m=m.pixel_m, survey_crs=crs) for m in survey.mosaics]
     for m, info in zip(survey.mosaics, infos):
         if info.crs is not None and crs is not None:
-            from pyproj import CRS
-
             if not CRS(info.crs).equals(CRS(crs)):
                 warnings.append(f"{m.path.name}: CRS {info.crs} differs from the survey's {crs}; resampled")
     frames = _register_frames(survey, radiometry, warnings, progress) if survey.frames else []
@@ -627,7 +325,7 @@ def _surface_on_grid(survey: Survey, outline: BaseGeometry, radiometry: Radiomet
     surface: np.ndarray | None = None
     if apparent is not None:
         _emit(progress, "correcting apparent to surface temperature")
-        surface = _to_surface_k(apparent, radiometry)
+        surface = to_surface_k(apparent, radiometry)
         if any(sec.emissivity is not None for sec in sections):
             labels = _section_labels([sec.geometry for sec in sections], grid)
             surface = section_emissivity_correction(surface, apparent, labels, sections, radiometry)
@@ -658,8 +356,6 @@ def _surface_on_grid(survey: Survey, outline: BaseGeometry, radiometry: Radiomet
 
 def _condition_warnings(survey: Survey, sections, *, surface_c: float | None = None) -> list[str]:
     """The survey-condition checks (:func:`wetmap.conditions.check_conditions`) as warning lines."""
-    from .conditions import check_conditions
-
     times = list(dict.fromkeys(item.time for item in (*survey.mosaics, *survey.frames) if item.time is not None))
     found = check_conditions(survey.conditions, survey.camera, survey.survey, limits=survey.limits,
                              sections=sections, surface_c=surface_c, pass_times=times,
@@ -750,9 +446,6 @@ def _fade_models(survey: Survey, sections, polys, hours: list[float],
     ``None`` (fading then judged on raw deltas, with a note) when the model cannot run: a
     hull, no sunset, no insulation named.
     """
-    from .cooldown import plan_survey_window
-    from .errors import WetmapError
-
     if not polys:
         return None
     section_of = largest_overlap(polys, [s.geometry for s in sections])
@@ -813,9 +506,6 @@ def _compare_passes(survey: Survey, groups, images: list[_PassImage], choice: tu
     return result
 
 
-#: Name of the roof outside every section when sections are given (a background group of its own).
-OUTSIDE_SECTIONS = "(outside the sections)"
-
 
 def _group_names(sections, area_word: str) -> tuple[str, ...]:
     """One name per section label: the sections in order, then the rest of the roof; or the whole roof."""
@@ -825,11 +515,9 @@ def _group_names(sections, area_word: str) -> tuple[str, ...]:
 
 
 def _section_labels(geoms, grid: PlanGrid) -> np.ndarray | None:
-    """Section label of every pixel (pixel-centre rule of :mod:`wetmap.tiles`), or ``None`` with no sections."""
+    """Section label of every pixel (pixel-centre rule of :mod:`wetmap.windows`), or ``None`` with no sections."""
     if not geoms:
         return None
-    from .tiles import pixel_edges, section_label_raster
-
     return section_label_raster([pixel_edges(g, grid.transform) for g in geoms], grid.shape)
 
 
@@ -860,19 +548,6 @@ def _surveyed_part(roof: BaseGeometry, outline: BaseGeometry, exclusions: BaseGe
         areas["exclusion_band_m2"] = float(surveyed.area - cut.area)
         surveyed = cut
     return surveyed, areas
-
-
-@dataclass(frozen=True)
-class CoresThreshold:
-    """``[detect] delta_c = "cores"``: the range the cores allow and its middle, degC."""
-
-    low_c: float
-    """Largest delta-T at a dry core."""
-    high_c: float
-    """Smallest delta-T at a wet core."""
-    chosen_c: float
-    wet: int
-    dry: int
 
 
 def threshold_from_cores(ids, core_delta_c: np.ndarray, wet: np.ndarray, *, file: Path) -> CoresThreshold:
@@ -906,22 +581,6 @@ def threshold_from_cores(ids, core_delta_c: np.ndarray, wet: np.ndarray, *, file
                           "give delta_c a number and check those cores")
     return CoresThreshold(low_c=round(low, 4), high_c=round(high, 4), chosen_c=round(0.5 * (low + high), 4),
                           wet=int((ok & w).sum()), dry=int((ok & ~w).sum()))
-
-
-def large_wet_shares(quantities: Quantities | None, survey: Survey) -> list[tuple[str, float]]:
-    """``(where, wet fraction)`` of each section (or the whole roof, or the roof outside every
-    section) whose anomalies fill more than ``[repair] replace_above_pct`` of it (roofs only)."""
-    above = survey.repair.replace_above_pct
-    if quantities is None or above is None or survey.survey.kind != "roof":
-        return []
-    out = [(f"section {t.name}", t.wet_fraction) for t in quantities.sections
-           if large_share(t.wet_fraction, above_pct=above)]
-    if quantities.outside is not None and quantities.outside.area_m2 > 0 and large_share(
-            quantities.outside.wet_fraction, above_pct=above):
-        out.append(("the roof outside every section", quantities.outside.wet_fraction))
-    if not quantities.sections and large_share(quantities.wet_fraction, above_pct=above):
-        out.append(("the whole roof", quantities.wet_fraction))
-    return out
 
 
 def _large_share_warnings(quantities: Quantities, survey: Survey) -> list[str]:
@@ -959,8 +618,6 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
     WetmapError
         On any invalid input; the message names the file, key or row and the fix.
     """
-    from .prework import prepare_survey
-
     survey = with_sun_times(load_survey(folder))  # sunset from place and date when not typed in
     warnings: list[str] = []
 
@@ -982,7 +639,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
     if survey.frames and any(sec.emissivity is not None for sec in sections):
         warnings.append("sections.geojson gives emissivities per section: they correct the mosaics' pixels; "
                         "[[frame]] pixels are corrected with [camera] emissivity")
-    group_names = _group_names(sections, _area_word(survey))
+    group_names = _group_names(sections, area_word(survey))
     detect_on = _DetectOn(section_geoms=tuple(section_geoms), names=group_names, conf=conf)
     threshold_from = None
     from_cores: list[CoresThreshold] = []
@@ -998,7 +655,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
     warnings.extend(notes)
     frame_reports: list[FrameReport] = []
     frame_views: list = []  # the placed frames, for the imagery checks (wetmap.imagery)
-    area_word = _area_word(survey)
+    words_area = area_word(survey)
     x0, y0, x1, y1 = outline.bounds
     background_m = sdt.background_m or default_background_m(survey.survey.kind, max(x1 - x0, y1 - y0))
     pass_images: list[_PassImage] | None = None
@@ -1047,30 +704,24 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
                 f"{tiled.lost_px} pixels could not be corrected (apparent temperature too low for the emissivity and "
                 "reflected temperature given): check [camera] emissivity and [conditions] reflected_c"
             )
-    coverage = {
-        "roof_pixels_m2": roof_px * px_area,
-        "covered_m2": covered_px * px_area,
-        "uncovered_m2": (roof_px - covered_px) * px_area,
-        "uncovered_pct": 100.0 * (roof_px - covered_px) / roof_px if roof_px else 100.0,
-        **band_m2,
-    }
+    coverage = Coverage.of_pixels(roof_px, covered_px, px_area, bands_m2=band_m2)
     for key, what, setting in (("edge_band_m2", "along the outline", "edge_buffer_m"),
                                ("exclusion_band_m2", "around the exclusions", "exclusion_buffer_m")):
         if key in band_m2:
             warnings.append(f"{band_m2[key]:.1f} m2 in the band {what} ([detect] {setting} = "
                             f"{getattr(sdt, setting):g}) is left out: not surveyed, which does not mean dry")
     if covered_px == 0:  # nothing to detect on: a confident empty answer would be wrong
-        raise ProcessingError(f"{survey.file}: no usable thermal data on the {area_word} (all nodata, the imagery "
+        raise ProcessingError(f"{survey.file}: no usable thermal data on the {words_area} (all nodata, the imagery "
                               "misses the outline, or every pixel lost in the apparent-to-surface correction): check "
                               "the imagery's placement and nodata, [camera] emissivity and [conditions] reflected_c; "
                               "earlier results are kept")
-    if coverage["uncovered_pct"] > 0.5:
+    if coverage.uncovered_pct > 0.5:
         warnings.append(
-            f"{coverage['uncovered_m2']:.1f} m2 ({coverage['uncovered_pct']:.1f} %) of the {area_word} has no thermal data: "
+            f"{coverage.uncovered_m2:.1f} m2 ({coverage.uncovered_pct:.1f} %) of the {words_area} has no thermal data: "
             "it is not surveyed, which does not mean dry"
         )
     if constant:
-        warnings.append(f"the thermal data on the {area_word} are constant: no contrast, nothing can be detected")
+        warnings.append(f"the thermal data on the {words_area} are constant: no contrast, nothing can be detected")
     if tiled is None:
         _emit(progress, "estimating the dry background and thresholding")
         core_px = _core_pixels(conf, grid)
@@ -1142,7 +793,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
                                                                  conf.wet[inside], chosen_c=detection.threshold_c,
                                                                  words=words)))
     core_cols, core_rows = ~grid.transform @ (conf.xs[decisive], conf.ys[decisive])
-    counted = ("wet", "unverified") if survey.repair.include_unverified else ("wet",)
+    counted = counted_statuses(include_unverified=survey.repair.include_unverified)
     counted_polys = [p for p, st in zip(polys, verdicts.status) if st in counted]
     area_range, band = wet_area_range(
         detection.delta_c, check, likely_m2=float(sum(p.area for p in counted_polys)),
@@ -1155,8 +806,6 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
                                 words=words)
 
     _emit(progress, "checking the imagery: resolution, focus, reflections, display range")
-    from .imagery import assess_imagery
-
     imagery = assess_imagery(
         primary, grid_transform=grid.transform, grid_shape=grid.shape,
         grid_pixel_m=(tiled.full_rasters.grid if tiled is not None else grid).pixel_m, surface_c=surface_c,
@@ -1229,8 +878,6 @@ def _write_files(result: SurveyResult, folder: Path, *,
                  extra_writers: tuple[Callable[[SurveyResult, Path], None], ...] = (),
                  map_html: bool = True, report_html: bool = True) -> None:
     """Write every result file into ``folder`` (a staging folder of :func:`wetmap.outputs.replacing`)."""
-    from .export import cad, gis, report, tables, webmap
-
     tables.write_summary(result, folder / "summary.json")
     tables.write_quantities(result, folder / "quantities.csv")
     tables.write_takeoff(result, folder / "takeoff.xlsx")
@@ -1309,8 +956,6 @@ def check_survey(folder: str | Path) -> tuple[Survey, tuple[str, ...]]:
     :class:`WetmapError` listing every problem found (every survey.toml problem at once,
     then every pre-work problem at once).
     """
-    from .prework import prepare_survey
-
     survey = with_sun_times(load_survey(folder))  # sunset from place and date when not typed in
     prepared = prepare_survey(survey)  # the same pre-work checks as a run, every problem at once
     warnings: list[str] = list(prepared.warnings)

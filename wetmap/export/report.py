@@ -23,9 +23,11 @@ colours plus line patterns for the statuses, fill versus ring for wet and dry co
 
 from __future__ import annotations
 
+import base64
 import dataclasses
 import html
 import io
+import logging
 import math
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
@@ -35,21 +37,15 @@ import shapely
 from shapely.geometry.base import BaseGeometry
 
 from .. import __version__
+from ..conditions import dew_point_c, frost_point_c
+from ..errors import ProcessingError
+from ..quantities import M2_PER_FT2, M2_PER_SQUARE, M_PER_FT
+from ..style import CORE_COLOURS, LAYER_COLOURS, STATUS_STYLES, THERMAL_CMAP, display_range
 from ..wording import Wording, wording_of
-from .webmap import (
-    CORE_COLOURS,
-    LAYER_COLOURS,
-    STATUS_STYLES,
-    THERMAL_CMAP,
-    colourise,
-    decimate,
-    display_range,
-    png_data_uri,
-    remote_references,
-)
+from .webmap import colourise, decimate, png_data_uri, remote_references
 
 if TYPE_CHECKING:
-    from ..pipeline import SurveyResult
+    from ..results import SurveyResult
 
 __all__ = [
     "FIGURE_DPI",
@@ -144,13 +140,9 @@ class DisplayUnits:
         return "°F" if self.imperial else "°C"
 
     def area(self, area_m2: Any) -> Any:
-        from ..quantities import M2_PER_FT2
-
         return area_m2 / M2_PER_FT2 if self.imperial and isinstance(area_m2, (int, float)) else area_m2
 
     def length(self, length_m: Any) -> Any:
-        from ..quantities import M_PER_FT
-
         return length_m / M_PER_FT if self.imperial and isinstance(length_m, (int, float)) else length_m
 
     def temp(self, temp_c: float) -> float:
@@ -169,8 +161,6 @@ class DisplayUnits:
             return _fmt(area_m2, fmt)
         text = f"{_fmt(self.area(area_m2), fmt)} {self.area_unit}"
         if self.imperial and self.squares:
-            from ..quantities import M2_PER_SQUARE
-
             text += f" ({area_m2 / M2_PER_SQUARE:,.2f} squares)"
         return text
 
@@ -680,8 +670,6 @@ def _conditions(result: "SurveyResult") -> str:
     rows.append(("Air temperature", f"{u.temp(c.air_c):.1f} {u.temp_unit}" if u.imperial else f"{c.air_c:g} °C"))
     rows.append(("Relative humidity", f"{c.humidity_pct:g} % (over water)"))
     try:
-        from ..conditions import dew_point_c, frost_point_c
-
         rows.append(("Dew point (computed, Magnus formula)", f"{u.temp(dew_point_c(c.air_c, c.humidity_pct)):.1f} {u.temp_unit}"))
         frost = frost_point_c(c.air_c, c.humidity_pct)
         if frost < 0.0:
@@ -869,7 +857,7 @@ def _figures(result: "SurveyResult", dpi: int) -> str:
 
 
 def _anomaly_table(result: "SurveyResult", summary: dict[str, Any]) -> str:
-    counted = {"wet", "unverified"} if result.survey.repair.include_unverified else {"wet"}
+    counted = result.counted_statuses
     inside = _words(result).confirmations.capitalize()
     u = display_units(result)
     head = (f"<tr><th>No.</th><th>Status</th><th>Section</th><th>Area ({u.area_unit})</th>"
@@ -1170,8 +1158,6 @@ _LOGO_TYPES = {".png": "image/png", ".jpg": "image/jpeg", ".jpeg": "image/jpeg",
 
 def _cover(result: "SurveyResult", title: str, sub: str) -> str:
     """The cover: logo, title and the client block of ``[report]`` (rows not given are left out)."""
-    import base64
-
     info = getattr(result.survey, "report", None)
     sv = result.survey.survey
     logo = ""
@@ -1204,8 +1190,6 @@ def build_report(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> str:
     str
         A self-contained HTML page (UTF-8) with no network references.
     """
-    from ..errors import ProcessingError
-
     summary = result.summary()
     sv = result.survey.survey
     w = _words(result)
@@ -1315,8 +1299,6 @@ def write_pdf(result: "SurveyResult", path: Path, *, dpi: int = FIGURE_DPI, html
         False when WeasyPrint or its system libraries are missing (a warning is logged and
         no PDF is written); True when written.
     """
-    import logging
-
     log = logging.getLogger(__name__)
     try:
         from weasyprint import CSS, HTML

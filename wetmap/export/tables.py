@@ -37,7 +37,7 @@ from typing import TYPE_CHECKING, Any
 from ..quantities import OUTSIDE_SECTIONS, Quantities, SectionTotals, compute_quantities, convert_area
 
 if TYPE_CHECKING:
-    from ..pipeline import SurveyResult
+    from ..results import SurveyResult
 
 __all__ = ["write_summary", "write_quantities", "write_takeoff", "quantity_tables", "quantity_columns",
            "quantities_of", "spreadsheet_cell", "QUANTITY_COLUMNS", "SECTION_COLUMNS", "BILL_COLUMNS",
@@ -166,7 +166,7 @@ def quantity_tables(result: "SurveyResult") -> dict[str, tuple[tuple[str, ...], 
     units = tuple(u for u in result.survey.repair.area_units if u != "m2")
     kind = result.survey.survey.kind
     hull = kind == "hull"
-    counted = {"wet", "unverified"} if result.survey.repair.include_unverified else {"wet"}
+    counted = result.counted_statuses
 
     def converted(row: dict[str, Any], **areas_m2: float | None) -> None:
         for name, value in areas_m2.items():

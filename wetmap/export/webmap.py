@@ -41,7 +41,6 @@ import math
 import re
 import warnings
 from collections.abc import Callable
-from dataclasses import dataclass
 from functools import lru_cache
 from importlib import resources
 from pathlib import Path
@@ -51,12 +50,14 @@ import numpy as np
 import shapely
 from shapely.geometry import mapping
 from shapely.geometry.base import BaseGeometry
+from affine import Affine
 
 from ..errors import ProcessingError
+from ..style import CORE_COLOURS, LAYER_COLOURS, STATUS_STYLES, THERMAL_CMAP, StatusStyle, display_range
 from ..wording import Wording, wording_of
 
 if TYPE_CHECKING:
-    from ..pipeline import SurveyResult
+    from ..results import SurveyResult
 
 __all__ = [
     "THERMAL_CMAP",
@@ -78,95 +79,14 @@ __all__ = [
     "write_map",
 ]
 
-#: Colour map of the thermal images (map and report).
-THERMAL_CMAP = "cividis"
-
-
-@dataclass(frozen=True)
-class StatusStyle:
-    """How one anomaly status is drawn.
-
-    Attributes
-    ----------
-    colour
-        Line colour, ``#rrggbb`` (Okabe & Ito 2008 palette).
-    dash
-        Leaflet ``dashArray`` (SVG stroke pattern in screen pixels); ``None`` = solid.
-    linestyle
-        The same pattern for matplotlib.
-    label
-        Words for the legend.
-    """
-
-    colour: str
-    dash: str | None
-    linestyle: Any
-    label: str
-
-
-STATUS_STYLES: dict[str, StatusStyle] = {
-    "wet": StatusStyle("#D55E00", None, "-", "wet: a core inside says wet"),
-    "unverified": StatusStyle("#CC79A7", "8 5", (0, (5, 3)), "unverified: no core inside"),
-    "dry": StatusStyle("#0072B2", "2 5", (0, (1, 2)), "dry: every core inside says dry"),
-}
-
-#: Fill of a confirmation judged wet / ring of one judged dry.
-CORE_COLOURS = {"wet": "#D55E00", "dry": "#0072B2"}
-
-#: Colours of the other layers.
-LAYER_COLOURS = {
-    "outline": "#000000",
-    "sections": "#000000",
-    "exclusions": "#999999",
-    "repair": "#000000",
-    "boards": "#009E73",
-    "uncovered": "#BBBBBB",
-}
-
 _ASSETS = "assets/leaflet"
 _GEO_DIGITS = 8  # decimal places of longitude/latitude in the file (about 1 mm)
 _PLAN_DIGITS = 3  # decimal places of plan metres
-_RANGE_SAMPLE = 4_000_000  # at most this many values enter a display range's percentiles
 
 
 # --------------------------------------------------------------------------------------
 # Raster helpers (shared with the report)
 # --------------------------------------------------------------------------------------
-
-
-def display_range(values: np.ndarray, *, low_pct: float = 1.0, high_pct: float = 99.0) -> tuple[float, float]:
-    """A robust colour range: the ``low_pct`` and ``high_pct`` percentiles of the finite values.
-
-    A few very hot or cold pixels (a vent, a cold sky reflection) do not stretch the
-    range. Inputs of more than 4 million values are subsampled regularly first. Returns ``(0.0, 1.0)`` when nothing is finite, and widens a constant image by
-    0.5 either way.
-
-    Parameters
-    ----------
-    values
-        Any shape, degC; NaN ignored.
-
-    Examples
-    --------
-    >>> v = np.r_[np.linspace(10.0, 20.0, 1001), 500.0]   # one hot pixel
-    >>> lo, hi = display_range(v)
-    >>> round(lo, 2), round(hi, 2)
-    (10.1, 19.91)
-    >>> display_range(np.full(4, np.nan))
-    (0.0, 1.0)
-    >>> display_range(np.full(4, 3.0))
-    (2.5, 3.5)
-    """
-    v = np.asarray(values).ravel()
-    if v.size > _RANGE_SAMPLE:  # a regular subsample is plenty for percentiles of a display range
-        v = v[:: v.size // _RANGE_SAMPLE]
-    finite = v[np.isfinite(v)]
-    if finite.size == 0:
-        return (0.0, 1.0)
-    lo, hi = (float(x) for x in np.percentile(finite, [low_pct, high_pct]))
-    if not hi > lo:
-        lo, hi = lo - 0.5, hi + 0.5
-    return (lo, hi)
 
 
 def decimate(values: np.ndarray, factor: int) -> np.ndarray:
@@ -332,7 +252,6 @@ def uncovered_area(result: "SurveyResult", *, factor: int = 1) -> BaseGeometry:
         every roof pixel has data.
     """
     from rasterio.features import shapes
-    from affine import Affine
 
     surface = result.surface_c if factor <= 1 else decimate(result.surface_c, factor)
     nodata = ~np.isfinite(surface)
@@ -398,8 +317,6 @@ def _overlay(values: np.ndarray, result: "SurveyResult", factor: int, proj: _Pro
     Web Mercator grid, the plane Leaflet draws in, so the image lines up with the
     reprojected outlines; its bounds are given as longitude/latitude.
     """
-    from affine import Affine
-
     transform = result.grid.transform @ Affine.scale(factor)
     rows, cols = values.shape
     x0, y1 = transform.c, transform.f
@@ -452,10 +369,6 @@ def _status_legend(status: str, w: Wording) -> str:
     return {"wet": f"wet: a {c1} inside says wet", "unverified": f"unverified: no {c1} inside",
             "dry": f"dry: every {c1} inside says dry"}.get(status, STATUS_STYLES[status].label if status in
                                                         STATUS_STYLES else status)
-
-
-def _counted_statuses(result: "SurveyResult") -> set[str]:
-    return {"wet", "unverified"} if result.survey.repair.include_unverified else {"wet"}
 
 
 def _core_basis(result: "SurveyResult", i: int) -> str:
@@ -612,7 +525,7 @@ def _legend_html(bars: list[tuple[str, bytes]], result: "SurveyResult") -> str:
     if not result.exclusions.is_empty:
         parts.append(f'<div class="row">{_line_sample("#666666", None, width=1, fill=LAYER_COLOURS["exclusions"])}'
                      "<span>exclusions (not surveyed)</span></div>")
-    if result.coverage.get("uncovered_m2", 0.0) > 0:
+    if result.coverage.uncovered_m2 > 0:
         parts.append(f'<div class="row">{_line_sample("#777777", "3 3", width=1, fill=LAYER_COLOURS["uncovered"])}'
                      "<span>no thermal data (not surveyed, not dry)</span></div>")
     for label, png in bars:
@@ -1054,7 +967,7 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
     m.add_child(_recolour_class()(recolour, basis=_range_basis(result), area=words.area_short))
 
     # Uncovered roof, exclusions, outline, sections.
-    uncovered = uncovered_area(result, factor=factor) if result.coverage.get("uncovered_m2", 0.0) > 0 else None
+    uncovered = uncovered_area(result, factor=factor) if result.coverage.uncovered_m2 > 0 else None
     if uncovered is not None:
         feats = [_feature(p, proj, f"u{i}", {"label": f"no thermal data: not surveyed, not dry ({p.area:,.1f} m²)"})
                  for i, p in enumerate(_polygon_parts(uncovered))]
@@ -1104,7 +1017,7 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
                                 "className": "wetmap-board"}, show=False)
 
     # Anomalies, one layer per status.
-    counted = _counted_statuses(result)
+    counted = result.counted_statuses
     fields = ["anomaly", "status", "area", "perimeter", "delta_mean", "delta_max", "confirmations", "section",
               "counted", "flags"]
     aliases = ["Anomaly", "Status", "Area", "Perimeter", "Mean ΔT", "Max ΔT", "Confirmations", "Section",
