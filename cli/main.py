@@ -147,7 +147,7 @@ the others; a table of outcomes is printed and the exit status is non-zero when 
               help=_SCHEDULER_HELP + " On a cluster every survey is a task, so many run at once.")
 def batch(survey_dirs: tuple[Path, ...], out_root: str | None, quiet: bool, no_map: bool, no_report: bool,
           scheduler: str | None) -> None:
-    from wetmap.tiles import run_batch
+    from wetmap.batch import run_batch
 
     bars = _Progress(quiet)
 

@@ -352,7 +352,7 @@ def test_display_range_ignores_the_40c_rooftop_unit():
     """The warehouse sample's raster (invented demo data): the rooftop unit (40 °C) is an exclusion."""
     import rasterio
 
-    from wetmap.tiles import roof_mask
+    from wetmap.windows import roof_mask
     from wetmap.vectors import read_layer, read_outline
 
     with rasterio.open(WAREHOUSE / "thermal" / "roof_pass1.tif") as ds:

@@ -24,7 +24,8 @@ import rasterio
 import shapely
 from affine import Affine
 
-from wetmap import tiles
+from wetmap import seams, tiles
+from wetmap import windows as win
 from wetmap.detect import anomaly_mask, upsample_window
 from wetmap.pipeline import process_survey, run_survey
 from wetmap.polygons import label_regions, polygonize, region_stats, smooth_pixel_polygons
@@ -241,7 +242,7 @@ def test_rasters_equal_bit_for_bit(scene, tmp_path):
 def test_preview_mode_keeps_exact_anomalies(scene, tmp_path, monkeypatch):
     """With a coarse preview (4 x 4 blocks) the anomalies stay exact; the figures use the preview."""
     folder, whole = scene
-    monkeypatch.setattr(tiles, "PREVIEW_MAX_SIDE", 100)
+    monkeypatch.setattr(win, "PREVIEW_MAX_SIDE", 100)
     tiled = process_survey(folder, tile_px=64, scratch=tmp_path)
     assert tiled.full_rasters.preview_factor == 4
     assert tiled.grid.shape == (80, 100) and tiled.surface_c.shape == (80, 100)
@@ -323,11 +324,11 @@ def test_merged_pieces_equal_the_raster_clean_up(seed):
     labels, count = label_regions(mask)
     expected = polygonize(labels, count, Affine.identity(), outline="pixel")
     stats = region_stats(labels, count, delta)
-    windows = tiles.windows_of(shape, tile_px)
-    pieces = [tiles.tile_pieces(delta[r:r + h, c:c + w], row0=r, col0=c, grid_shape=shape, threshold_c=1.0,
+    windows = win.windows_of(shape, tile_px)
+    pieces = [seams.tile_pieces(delta[r:r + h, c:c + w], row0=r, col0=c, grid_shape=shape, threshold_c=1.0,
                                 min_pixels=min_pixels) for r, c, h, w in windows]
 
-    merged = tiles.merge_pieces(pieces, windows, grid_shape=shape, tile_px=tile_px, min_pixels=min_pixels,
+    merged = seams.merge_pieces(pieces, windows, grid_shape=shape, tile_px=tile_px, min_pixels=min_pixels,
                                 read_delta=lambda rows, cols: delta[rows, cols])
     assert len(merged.polygons) == count
     for i in range(count):
@@ -356,15 +357,15 @@ def test_rasterize_window_pixel_centre_rule(seed):
     holes = [shapely.Point(100 + rng.uniform(2, 18), 200 - rng.uniform(2, 13)).buffer(rng.uniform(0.5, 2), 5)
              for _ in range(4)]
     geom = shapely.union_all(blobs).difference(shapely.union_all(holes))
-    edges = tiles.pixel_edges(geom, transform)
-    whole = tiles.rasterize_window(edges, row0=0, col0=0, shape=shape)
+    edges = win.pixel_edges(geom, transform)
+    whole = win.rasterize_window(edges, row0=0, col0=0, shape=shape)
     rr, cc = np.mgrid[0:shape[0], 0:shape[1]]
     xs, ys = transform @ (cc + 0.5, rr + 0.5)
     inside = shapely.contains_xy(geom, xs, ys)
     near_edge = shapely.distance(geom.boundary, shapely.points(xs, ys)) < 1e-9
     np.testing.assert_array_equal(whole[~near_edge], inside[~near_edge])
-    for r0, c0, h, w in tiles.windows_of(shape, int(rng.integers(5, 30))):
-        np.testing.assert_array_equal(tiles.rasterize_window(edges, row0=r0, col0=c0, shape=(h, w)),
+    for r0, c0, h, w in win.windows_of(shape, int(rng.integers(5, 30))):
+        np.testing.assert_array_equal(win.rasterize_window(edges, row0=r0, col0=c0, shape=(h, w)),
                                       whole[r0:r0 + h, c0:c0 + w])
 
 
@@ -375,7 +376,7 @@ def test_rasterize_matches_gdal_off_the_edges():
     transform = Affine(0.1, 0.0, 0.0, 0.0, -0.1, 10.0)
     geom = shapely.Polygon([(0.33, 0.27), (9.61, 1.13), (8.77, 9.42), (4.04, 6.66), (0.52, 9.71)],
                            [[(3.03, 3.07), (5.11, 3.29), (4.47, 5.02)]])
-    ours = tiles.roof_mask(geom, transform, (100, 100))
+    ours = win.roof_mask(geom, transform, (100, 100))
     gdal = geometry_mask([geom], out_shape=(100, 100), transform=transform, invert=True)
     np.testing.assert_array_equal(ours, gdal)
 
@@ -385,20 +386,20 @@ def test_rasterize_matches_gdal_off_the_edges():
 def test_fast_upsampling_is_bit_identical(row0, col0, shape):
     rng = np.random.default_rng(3)
     grid = rng.normal(10.0, 2.0, (7, 9))
-    fast = tiles.upsample_window_fast(grid, 8, shape=shape, row0=row0, col0=col0)
+    fast = win.upsample_window_fast(grid, 8, shape=shape, row0=row0, col0=col0)
     ref = upsample_window(grid, 8, shape=shape, row0=row0, col0=col0)
     assert fast.dtype == ref.dtype == np.float32
     assert np.array_equal(fast.view(np.uint32), ref.view(np.uint32))
 
 
 def test_tile_size_rounding_and_switch():
-    assert tiles.choose_tile_px(8, 64, (10, 10)) == 64
-    assert tiles.choose_tile_px(8, 3, (10, 10)) == 8  # at least one block
-    assert tiles.choose_tile_px(89, None, (100, 100)) == 0  # small: whole array
-    big = tiles.choose_tile_px(89, None, (20000, 20000))
-    assert big % 89 == 0 and 0.75 * tiles.TILE_TARGET_PX - 89 <= big <= 1.33 * tiles.TILE_TARGET_PX + 89
-    need = math.ceil(20000 / tiles.PREVIEW_MAX_SIDE)
-    assert tiles.preview_factor(big, need) == need  # preview cells never straddle windows
+    assert win.choose_tile_px(8, 64, (10, 10)) == 64
+    assert win.choose_tile_px(8, 3, (10, 10)) == 8  # at least one block
+    assert win.choose_tile_px(89, None, (100, 100)) == 0  # small: whole array
+    big = win.choose_tile_px(89, None, (20000, 20000))
+    assert big % 89 == 0 and 0.75 * win.TILE_TARGET_PX - 89 <= big <= 1.33 * win.TILE_TARGET_PX + 89
+    need = math.ceil(20000 / win.PREVIEW_MAX_SIDE)
+    assert win.preview_factor(big, need) == need  # preview cells never straddle windows
 
 
 def test_unknown_scheduler_is_a_clean_error():

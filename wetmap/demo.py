@@ -41,6 +41,8 @@ True
 
 from __future__ import annotations
 
+import warnings
+import argparse
 import csv
 import json
 import math
@@ -55,6 +57,8 @@ from shapely import affinity
 from shapely.geometry import Polygon, box
 
 from .export.tables import spreadsheet_cell
+from .conditions import estimate_reflected_c
+from .radiometry import apparent_from_surface
 
 __all__ = [
     "RoofScene",
@@ -226,7 +230,6 @@ class RoofScene:
         """
         if self.reflected_c is not None:
             return self.reflected_c
-        from .conditions import estimate_reflected_c
 
         return estimate_reflected_c(self.air_c, self.humidity_pct, self.sky).reflected_c
 
@@ -401,8 +404,6 @@ def render_roof(scene: RoofScene) -> tuple[np.ndarray, RoofTruth]:
     :func:`wetmap.radiometry.apparent_from_surface` (transmittance 1, reflected
     apparent temperature :attr:`RoofScene.reflected_render_c`).
     """
-    from .radiometry import apparent_from_surface
-
     rows, cols = scene.grid_shape
     uv = _scene_uv(scene)
     w, h = scene.size_m
@@ -749,7 +750,6 @@ def render_frame(station: CameraStation, field_c: np.ndarray, field_transform: a
     """
     from scipy import ndimage
 
-    from .radiometry import apparent_from_surface
 
     cols, rows = station.size_px
     g_scene = station.scene_to_image()
@@ -806,8 +806,6 @@ def _pick_points(plan_to_image: np.ndarray, marks_xy: np.ndarray, size_px: tuple
 
 def _write_frame(folder: Path, frame: DemoFrame, *, decimal_comma: bool = False) -> dict:
     """Write one frame file; returns its ``[[frame]]`` items (path, units, scale, offset)."""
-    import warnings
-
     import rasterio
     from rasterio.errors import NotGeoreferencedWarning
 
@@ -1226,8 +1224,6 @@ class HullScene:
     @property
     def reflected_render_c(self) -> float:
         """Reflected temperature used to render: the hull estimate (sky view 0.5), degC."""
-        from .conditions import estimate_reflected_c
-
         return estimate_reflected_c(self.air_c, self.humidity_pct, self.sky, sky_view=0.5).reflected_c
 
     def cameras(self) -> list[CameraStation]:
@@ -1379,8 +1375,6 @@ def main(argv: list[str] | None = None) -> int:
     invented workshop roof surveyed with frames and control points; ``hull`` the invented
     yacht's port side with meter readings.
     """
-    import argparse
-
     parser = argparse.ArgumentParser(
         prog="python -m wetmap.demo",
         description="Write an invented demo survey (invented demo data).",

@@ -52,6 +52,7 @@ from typing import Literal
 
 import numpy as np
 from scipy import ndimage
+import shapely
 
 from .polygons import fill_small_holes, remove_small_regions
 
@@ -219,7 +220,7 @@ def warm_cut(delta_c: float, sigma: float) -> float:
     return max(0.5 * delta_c, 3.0 * sigma)
 
 
-def _interp_axis(start: int, n_out: int, n_in: int, block: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def interp_axis(start: int, n_out: int, n_in: int, block: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Bilinear weights from block centres to pixel centres ``start .. start + n_out - 1``."""
     u = (np.arange(start, start + n_out) + 0.5) / block - 0.5
     u = np.clip(u, 0.0, n_in - 1)
@@ -250,8 +251,8 @@ def upsample_window(grid: np.ndarray, block: int, *, shape: tuple[int, int], row
         float32 ``shape``.
     """
     rows, cols = shape
-    r0, r1, wr = _interp_axis(row0, rows, grid.shape[0], block)
-    c0, c1, wc = _interp_axis(col0, cols, grid.shape[1], block)
+    r0, r1, wr = interp_axis(row0, rows, grid.shape[0], block)
+    c0, c1, wc = interp_axis(col0, cols, grid.shape[1], block)
     g = grid.astype(np.float32)
     by_row = g[r0] * (1 - wr)[:, None] + g[r1] * wr[:, None]  # (rows, block cols)
     out = np.empty(shape, dtype=np.float32)
@@ -983,8 +984,6 @@ def edge_flags(polygons, *, outline, exclusions, band_m: float = EDGE_BAND_M,
     ...            exclusions=shapely.Polygon())
     [('edge band',), ()]
     """
-    import shapely
-
     polys = np.asarray(list(polygons), dtype=object)
     out: list[tuple[str, ...]] = [() for _ in range(len(polys))]
     if not len(polys):
