@@ -56,7 +56,7 @@ def main(folder: Path) -> int:
     report("imports", time.perf_counter() - start)
     # steps inside process_survey (each reported when it ends, before process_survey's total)
     for module, name, label in [(pipeline, "detect_in_windows", "  windowed detection"),
-                                (pipeline, "detect_anomalies", "  whole-array detection"),
+                                (pipeline, "detect_array", "  whole-array detection (one window)"),
                                 (pipeline, "polygonize", "  outlines (whole array)"),
                                 (pipeline, "simplify_outlines", "  simplified outlines"),
                                 (wetmap.imagery, "assess_imagery", "  imagery checks (focus...)"),

@@ -21,7 +21,8 @@ from scipy import constants
 
 import scene_render as sr
 from wetmap.confirm import sample_at_points
-from wetmap.detect import BackgroundModel, estimate_background, fit_trend, block_centres
+from wetmap.detect import BackgroundModel, fit_trend, block_centres
+from wetmap.tiles import detect_array
 from wetmap.errors import SurveyError
 from wetmap.pipeline import process_survey, run_survey
 
@@ -319,8 +320,9 @@ def test_model_windows_equal_the_whole_array():
     edges = [pixel_edges(g, scene.transform) for _, g, _ in scene.sections]
     labels = section_label_raster(edges, surface.shape)
     for choice in ("trend", "local"):
-        model = estimate_background(surface, np.ones(surface.shape, bool), pixel_m=0.1, background_m=12.0,
-                                    delta_c=1.0, labels=labels, names=("West", "East", "rest"), choice=choice)
+        model = detect_array(surface, np.ones(surface.shape, bool), pixel_m=0.1, background_m=12.0, delta_c=1.0,
+                             min_area_m2=0.0, labels=labels, names=("West", "East", "rest"),
+                             choice=choice).detection.background
         assert isinstance(model, BackgroundModel)
         whole = model.evaluate(labels)
         part = model.evaluate(section_labels(edges, row0=80, col0=160, shape=(97, 131)), row0=80, col0=160)

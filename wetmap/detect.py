@@ -29,9 +29,11 @@ when there are none), on a grid of square blocks of ``block_px`` pixels:
    measured on the first pass) are left out and steps 1-3 are repeated (three estimates).
 
 Steps 1 and 4 are per block, step 2 on the small block grid and step 3 per pixel from the
-model, so the windowed engine (:mod:`wetmap.tiles`) computes the block statistics in
-windows that start at multiples of the block size, fits the same model with the same
-functions and gets the same background, bit for bit, as the whole array.
+model, so the one detection engine (:mod:`wetmap.tiles`: one window for an array in
+memory, :func:`wetmap.tiles.detect_array`; many for large mosaics) computes the block
+statistics in windows that start at multiples of the block size and fits the model with
+the functions of this module: the background is the same, bit for bit, whatever the
+windows.
 
 A smoothed (mean or Gaussian) background is pulled up by large warm areas and loses
 detections; a full-resolution median filter metres wide costs thousands of seconds per
@@ -51,8 +53,8 @@ from dataclasses import dataclass
 from typing import Literal
 
 import numpy as np
-from scipy import ndimage
 import shapely
+from scipy import ndimage
 
 from .polygons import fill_small_holes, remove_small_regions
 
@@ -60,10 +62,8 @@ __all__ = [
     "BackgroundGrid",
     "background_grid",
     "default_background_m",
-    "dry_background",
     "anomaly_mask",
     "Detection",
-    "detect_anomalies",
     "BACKGROUND_CHOICES",
     "TrendFit",
     "fit_trend",
@@ -73,7 +73,6 @@ __all__ = [
     "section_block_statistics",
     "fit_background",
     "core_blocks",
-    "estimate_background",
     "EDGE_BAND_M",
     "EDGE_FLAG",
     "UNIT_FLAG",
@@ -785,86 +784,6 @@ def section_medians(values: np.ndarray, usable: np.ndarray, labels: np.ndarray |
     return out
 
 
-def estimate_background(surface_c: np.ndarray, usable: np.ndarray, *, pixel_m: float, background_m: float,
-                        delta_c: float, iterations: int = 3, labels: np.ndarray | None = None,
-                        names: tuple[str, ...] = ("roof",), choice: str = "auto",
-                        cores: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None) -> BackgroundModel:
-    """The dry-background model of the whole array (the windowed engine computes the same).
-
-    Parameters
-    ----------
-    surface_c
-        Surface temperature, degC, shape ``(rows, cols)``; NaN where unknown.
-    usable
-        Bool ``(rows, cols)``: pixels on the roof, outside exclusions, with data.
-    pixel_m
-        Pixel side, metres.
-    background_m
-        Scale of the local method (about the median footprint), metres; also sets the block size.
-    delta_c
-        The detection threshold, degC (sets the warm-outlier cut).
-    iterations
-        Estimate / exclude warm pixels / re-estimate, this many estimates in all.
-    labels
-        Section label of every pixel (int, ``0 .. len(names) - 1``), or ``None``: one section.
-    names
-        Section names, one per label.
-    choice
-        ``"auto"``, ``"trend"`` or ``"local"`` (see :func:`fit_background`).
-    cores
-        ``(rows_px, cols_px, wet)`` of the confirmations (pixel indices, judgement), or ``None``.
-    """
-    usable = usable & np.isfinite(surface_c)
-    spec = background_grid(pixel_m, background_m)
-    count = len(names)
-    block = spec.block_px
-    shape = surface_c.shape
-    block_shape = (-(-shape[0] // block), -(-shape[1] // block))
-    wet_b = dry_b = None
-    if cores is not None and len(cores[0]):
-        r, c, w = (np.asarray(a) for a in cores)
-        inside = (r >= 0) & (r < shape[0]) & (c >= 0) & (c < shape[1])
-        lab = np.full(len(r), -1)
-        lab[inside] = 0 if labels is None else labels[r[inside], c[inside]]
-        wet_b, dry_b = core_blocks(r, c, lab, w, count=count, block=block, block_shape=block_shape)
-    fallback = None
-    keep = usable
-    model: BackgroundModel | None = None
-    cut = noise = 0.0
-    for estimate in range(max(1, iterations)):
-        median, sigma = section_block_statistics(surface_c, keep, labels, count, block)
-        if model is None:  # the noise is measured once, on the first (all usable) pass
-            noise = noise_sigma(sigma)
-            cut = warm_cut(delta_c, noise)
-            if not np.isfinite(median).reshape(count, -1).any(axis=1).all():
-                fallback = section_medians(surface_c, usable, labels, count)
-        model = fit_background(median, block_px=block, grid_shape=shape, footprint=spec.footprint,
-                               delta_c=delta_c, noise_c=noise, names=names, choice=choice, fallback_c=fallback,
-                               previous=model, wet_blocks=wet_b, dry_blocks=dry_b)
-        if estimate == max(1, iterations) - 1:
-            break
-        background = model.evaluate(labels, shape=shape)
-        keep = usable & ~(surface_c - background > cut)
-    assert model is not None  # the first estimate always sets it
-    return model
-
-
-def dry_background(surface_c: np.ndarray, usable: np.ndarray, *, pixel_m: float, background_m: float,
-                   delta_c: float, iterations: int = 3, labels: np.ndarray | None = None,
-                   names: tuple[str, ...] = ("roof",), choice: str = "auto",
-                   cores: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None) -> np.ndarray:
-    """Robust dry-background temperature at every pixel (:func:`estimate_background`, evaluated).
-
-    Returns
-    -------
-    numpy.ndarray
-        float32 ``(rows, cols)`` background in degC; NaN where a section has no usable pixel.
-    """
-    model = estimate_background(surface_c, usable, pixel_m=pixel_m, background_m=background_m, delta_c=delta_c,
-                                iterations=iterations, labels=labels, names=names, choice=choice, cores=cores)
-    return model.evaluate(labels, shape=surface_c.shape)
-
-
 def anomaly_mask(delta_c: np.ndarray, threshold_c: float, *, min_pixels: int) -> np.ndarray:
     """Apply the threshold: ``delta > threshold_c``, small regions dropped, small holes filled.
 
@@ -894,46 +813,6 @@ class Detection:
     min_pixels: int
     background: BackgroundModel | None = None
     """The dry-background model per section (method, reason, trend)."""
-
-
-def detect_anomalies(surface_c: np.ndarray, usable: np.ndarray, *, pixel_m: float, delta_c: float,
-                     background_m: float, min_area_m2: float, labels: np.ndarray | None = None,
-                     names: tuple[str, ...] = ("roof",), choice: str = "auto",
-                     cores: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None,
-                     threshold_c: float | None = None) -> Detection:
-    """Background, delta and cleaned anomaly mask.
-
-    Parameters
-    ----------
-    surface_c
-        Surface temperature, degC, ``(rows, cols)``.
-    usable
-        Pixels on the roof, outside exclusions, with data.
-    pixel_m
-        Pixel side, metres.
-    delta_c
-        Threshold above the dry background, degC (also sets the background's warm cut).
-    background_m
-        Background scale, metres.
-    min_area_m2
-        Smallest anomaly kept, square metres (also the largest hole filled).
-    labels, names, choice, cores
-        Sections and the background choice (:func:`estimate_background`).
-    threshold_c
-        Threshold applied when it differs from ``delta_c`` (a threshold taken from the cores
-        after a background estimated with ``delta_c``); ``None``: ``delta_c``.
-    """
-    usable = usable & np.isfinite(surface_c)
-    model = estimate_background(surface_c, usable, pixel_m=pixel_m, background_m=background_m, delta_c=delta_c,
-                                labels=labels, names=names, choice=choice, cores=cores)
-    background = model.evaluate(labels, shape=surface_c.shape)
-    delta = surface_c - background
-    delta[~usable] = np.nan
-    min_pixels = max(1, int(math.ceil(min_area_m2 / (pixel_m * pixel_m) - 1e-9)))
-    threshold = delta_c if threshold_c is None else threshold_c
-    mask = anomaly_mask(delta, threshold, min_pixels=min_pixels)
-    return Detection(background_c=background, delta_c=delta, mask=mask, background_m=background_m,
-                     threshold_c=threshold, min_pixels=min_pixels, background=model)
 
 
 # --------------------------------------------------------------------------------------

@@ -27,15 +27,14 @@ from .confirm import (ThresholdCheck, Verdicts, assign_status, counted_statuses,
                       threshold_check, wet_area_range)
 from .confirmations import Confirmations
 from .cooldown import plan_survey_window
-from .detect import (EDGE_FLAG, UNIT_FLAG, Detection, anomaly_mask, background_warnings, default_background_m,
-                     detect_anomalies, edge_flags)
+from .detect import EDGE_FLAG, UNIT_FLAG, Detection, background_warnings, default_background_m, edge_flags
 from .errors import InputFileError, ProcessingError, SurveyError, WetmapError
 from .export import cad, gis, report, tables, webmap
 from .frames import read_frame
 from .imagery import assess_imagery, frame_views
 from .outputs import replacing
 from .passes import PassComparison, align_to_grid, choose_primary, compare_passes, group_passes, pass_contrast_c
-from .polygons import SIMPLIFY_TOLERANCE_PX, RegionStats, label_regions, polygonize, region_stats, simplify_outlines
+from .polygons import SIMPLIFY_TOLERANCE_PX, RegionStats, label_regions, simplify_outlines
 from .prework import prepare_survey
 from .quantities import Quantities, compute_quantities, largest_overlap
 from .radiometry import (Radiometry, apparent_from_surface, atmospheric_transmittance, section_emissivity_correction,
@@ -48,7 +47,7 @@ from .results import (OUTSIDE_SECTIONS, RESULT_FILES, Anomaly, CoresThreshold, C
                       large_wet_shares)
 from .sun import with_sun_times
 from .survey import Limits, Survey, load_survey
-from .tiles import WindowProgress, detect_in_windows
+from .tiles import WindowProgress, detect_array, detect_in_windows
 from .windows import pixel_edges, roof_mask, section_label_raster
 from .vectors import Section
 from .wording import wording_of
@@ -410,10 +409,11 @@ def _detect_pass(image: _PassImage, grid: PlanGrid, in_roof: np.ndarray, survey:
     sdt = survey.detect
     g_surface = align_to_grid(image.surface_c, image.grid.transform, grid.transform, grid.shape)
     g_usable = in_roof & np.isfinite(g_surface)
-    det = detect_anomalies(g_surface, g_usable, pixel_m=grid.pixel_m, delta_c=sdt.delta_c,
-                           background_m=background_m, min_area_m2=sdt.min_area_m2,
-                           labels=_section_labels(detect_on.section_geoms, grid), names=detect_on.names,
-                           choice=sdt.background, cores=_core_pixels(detect_on.conf, grid), threshold_c=threshold_c)
+    det = detect_array(g_surface, g_usable, pixel_m=grid.pixel_m, delta_c=sdt.delta_c,
+                       background_m=background_m, min_area_m2=sdt.min_area_m2,
+                       labels=_section_labels(detect_on.section_geoms, grid), names=detect_on.names,
+                       choice=sdt.background, cores=_core_pixels(detect_on.conf, grid),
+                       threshold_c=threshold_c).detection
     lab, n = label_regions(det.mask)
     return np.where(g_usable, g_surface, np.nan), det.delta_c, lab, n
 
@@ -724,18 +724,16 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         warnings.append(f"the thermal data on the {words_area} are constant: no contrast, nothing can be detected")
     if tiled is None:
         _emit(progress, "estimating the dry background and thresholding")
-        core_px = _core_pixels(conf, grid)
-        detection = detect_anomalies(surface_c, usable, pixel_m=grid.pixel_m, delta_c=sdt.delta_c,
-                                     background_m=background_m, min_area_m2=sdt.min_area_m2, labels=labels_px,
-                                     names=group_names, choice=sdt.background, cores=core_px)
-        if threshold_from is not None:
-            t = threshold_from(sample_at_points(detection.delta_c, grid.transform, conf.xs, conf.ys))
-            detection = replace(detection, threshold_c=t,
-                                mask=anomaly_mask(detection.delta_c, t, min_pixels=detection.min_pixels))
+        # the windowed engine with one window (wetmap.tiles.detect_array)
+        found = detect_array(surface_c, usable, pixel_m=grid.pixel_m, delta_c=sdt.delta_c,
+                             background_m=background_m, min_area_m2=sdt.min_area_m2, labels=labels_px,
+                             names=group_names, choice=sdt.background, cores=_core_pixels(conf, grid),
+                             threshold_from=threshold_from)
+        detection = found.detection
         _emit(progress, "outlining anomalies")
         labels, count = label_regions(detection.mask)
-        stats = region_stats(labels, count, detection.delta_c)
-        polys = polygonize(labels, count, grid.transform)
+        stats = RegionStats(pixel_count=found.pixels, mean=found.delta_mean, max=found.delta_max)
+        polys = found.polygons(grid.transform)
         dry_c = detection.background_c[usable]
         range_min_pixels = detection.min_pixels
     else:  # exact polygons and statistics; the preview's background and delta-T

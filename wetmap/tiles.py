@@ -79,7 +79,7 @@ import tempfile
 import time
 import weakref
 from collections.abc import Callable, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -93,12 +93,16 @@ from .errors import ProcessingError
 from .polygons import smooth_pixel_polygons
 from .radiometry import Radiometry, section_emissivity_correction, to_surface_k
 from .rasters import GDAL_CACHE_BYTES, PlanGrid, RasterInfo, aligned, inspect_raster, plan_grid_for, read_onto_grid
-from .seams import TilePieces, merge_pieces, tile_pieces
+from .seams import MergedRegions, TilePieces, merge_pieces, tile_pieces
 from .survey import Survey
 from .windows import (PixelEdges, block_mean, choose_tile_px, labels_at, pixel_edges, preview_factor, preview_need,
                       rasterize_window, section_labels, upsample_window_fast, windows_of)
 
 __all__ = [
+    "ArraySource",
+    "ArrayDetection",
+    "detect_array",
+    "detect_anomalies",
     "Progress",
     "WindowProgress",
     "Engine",
@@ -160,6 +164,10 @@ class SurfaceSource:
     section_emissivity: tuple[float | None, ...] = ()
     """Each section's own emissivity (``None``: the camera's)."""
 
+    @property
+    def has_sections(self) -> bool:
+        return bool(self.section_edges)
+
     def labels(self, row0: int, col0: int, rows: int, cols: int) -> np.ndarray:
         """The window's section labels (:func:`section_labels`)."""
         return section_labels(self.section_edges, row0=row0, col0=col0, shape=(rows, cols))
@@ -189,6 +197,30 @@ class SurfaceSource:
         surface -= np.float32(273.15)
         in_roof = rasterize_window(self.roof_edges, row0=row0, col0=col0, shape=(rows, cols))
         return surface, in_roof, lost
+
+
+@dataclass(frozen=True, eq=False)
+class ArraySource:
+    """Windows of a surface temperature already on the plan grid (frames blended, mosaics
+    resampled, a pass aligned to another's grid): ``surface_c`` (degC), ``usable`` (bool:
+    on the roof with data) and the section ``labels`` (int, or ``None``)."""
+
+    surface_c: np.ndarray
+    usable: np.ndarray
+    section_labels: np.ndarray | None = None
+
+    @property
+    def has_sections(self) -> bool:
+        return self.section_labels is not None
+
+    def labels(self, row0: int, col0: int, rows: int, cols: int) -> np.ndarray:
+        assert self.section_labels is not None
+        return self.section_labels[row0:row0 + rows, col0:col0 + cols].astype(np.int16, copy=False)
+
+    def read(self, row0: int, col0: int, rows: int, cols: int) -> tuple[np.ndarray, np.ndarray, int]:
+        """``(surface_c float32, usable, 0)``: the pixels were corrected before."""
+        sl = (slice(row0, row0 + rows), slice(col0, col0 + cols))
+        return self.surface_c[sl].astype(np.float32, copy=False), self.usable[sl] & np.isfinite(self.surface_c[sl]), 0
 
 
 # --------------------------------------------------------------------------------------
@@ -253,6 +285,14 @@ class _Scratch:
         surface[~roof] = np.nan
         return surface
 
+    def keep_background(self, i: int, background: np.ndarray) -> None:
+        """The window's background is not kept on disk (the previews sample it)."""
+
+    def view(self, kind: str, i: int) -> np.ndarray:
+        """A float32 window of ``kind``, read-only, without reading it all (a memory map)."""
+        _, _, rows, cols = self.windows[i]
+        return np.memmap(self.path(kind, i), dtype=np.float32, mode="r", shape=(rows, cols))
+
     def rect(self, kind: str, row0: int, col0: int, rows: int, cols: int) -> np.ndarray:
         """A rectangle of ``kind`` (``"surface"`` or ``"delta"``) that may span several windows."""
         out = np.empty((rows, cols), dtype=np.float32)
@@ -262,7 +302,7 @@ class _Scratch:
             for tc in range(col0 // tp, (col0 + cols - 1) // tp + 1):
                 i = tr * n_cols + tc
                 wr0, wc0, wr, wc = self.windows[i]
-                part = np.memmap(self.path(kind, i), dtype=np.float32, mode="r", shape=(wr, wc))
+                part = self.view(kind, i)
                 r_a, r_b = max(row0, wr0), min(row0 + rows, wr0 + wr)
                 c_a, c_b = max(col0, wc0), min(col0 + cols, wc0 + wc)
                 out[r_a - row0:r_b - row0, c_a - col0:c_b - col0] = part[r_a - wr0:r_b - wr0, c_a - wc0:c_b - wc0]
@@ -281,10 +321,48 @@ class _Scratch:
             idx = order[a:b]
             i = int(tile[idx[0]])
             r0, c0, h, w = self.windows[i]
-            values = np.memmap(self.path(kind, i), dtype=np.float32, mode="r", shape=(h, w))
+            values = self.view(kind, i)
             out[idx] = values[rows[idx] - r0, cols[idx] - c0]
             del values
         return out
+
+
+@dataclass(frozen=True, eq=False)
+class _MemoryStore(_Scratch):
+    """The same per-window arrays kept in memory (an array already in memory, processed in
+    this process: the whole array is the one-window case)."""
+
+    arrays: dict = field(default_factory=dict)
+
+    def limit_gdal_cache(self) -> None:
+        pass
+
+    def save(self, kind: str, i: int, values: np.ndarray) -> None:
+        self.arrays[kind, i] = values
+
+    def load(self, kind: str, i: int) -> np.ndarray:
+        return self.arrays[kind, i].copy()
+
+    def view(self, kind: str, i: int) -> np.ndarray:
+        return self.arrays[kind, i]
+
+    def save_surface(self, i: int, surface: np.ndarray, in_roof: np.ndarray) -> None:
+        self.arrays["surface", i] = surface.astype(np.float32, copy=False)
+        self.arrays["roof", i] = in_roof
+
+    def save_labels(self, i: int, labels: np.ndarray) -> None:
+        self.arrays["labels", i] = labels
+
+    def keep_background(self, i: int, background: np.ndarray) -> None:
+        self.arrays["background", i] = background
+
+    def labels(self, i: int) -> np.ndarray | None:
+        return self.arrays.get(("labels", i))
+
+    def masked(self, i: int) -> np.ndarray:
+        surface = self.arrays["surface", i].copy()
+        surface[~self.arrays["roof", i]] = np.nan
+        return surface
 
 
 # --------------------------------------------------------------------------------------
@@ -311,10 +389,10 @@ def _surface_task(source: SurfaceSource, scratch: _Scratch, i: int, block: int, 
     surface, in_roof, lost = source.read(row0, col0, rows, cols)
     scratch.save_surface(i, surface, in_roof)
     labels = None
-    if source.section_edges:
+    if source.has_sections:
         labels = source.labels(row0, col0, rows, cols)
         scratch.save_labels(i, labels)
-    preview = block_mean(surface, factor)
+    preview = block_mean(surface, factor) if factor else np.zeros((0, 0), np.float32)
     usable = in_roof & np.isfinite(surface)
     median, sigma = section_block_statistics(surface, usable, labels, count, block)
     covered = int(np.count_nonzero(usable))
@@ -365,11 +443,17 @@ def _final_task(scratch: _Scratch, i: int, block: int, model: Any, threshold_c: 
     delta = masked - bg
     del masked
     scratch.save("delta", i, delta)
-    delta_preview = block_mean(delta, factor)
-    # the background at each preview cell's central pixel, where the cell has usable pixels
-    h = factor // 2
-    bg_preview = np.where(np.isfinite(delta_preview), bg[h::factor, h::factor][:delta_preview.shape[0],
-                                                                               :delta_preview.shape[1]], np.nan)
+    scratch.keep_background(i, bg)
+    if factor:
+        delta_preview = block_mean(delta, factor)
+        # the background at each preview cell's central pixel (the last pixel of a partial
+        # cell too short to hold its centre), where the cell has usable pixels
+        h = factor // 2
+        at_r = np.minimum(np.arange(delta_preview.shape[0]) * factor + h, rows - 1)
+        at_c = np.minimum(np.arange(delta_preview.shape[1]) * factor + h, cols - 1)
+        bg_preview = np.where(np.isfinite(delta_preview), bg[np.ix_(at_r, at_c)], np.nan)
+    else:  # no preview: the caller keeps the full arrays
+        delta_preview = bg_preview = np.zeros((0, 0), np.float32)
     del bg
     pieces = tile_pieces(delta, row0=row0, col0=col0, grid_shape=scratch.shape, threshold_c=threshold_c,
                          min_pixels=min_pixels)
@@ -453,6 +537,13 @@ class Engine:
             return []
         if self.kind == "distributed":
             return self._map_distributed(fn, shared, items, label, progress)
+        if self.kind == "sync":  # one thread, in order: no graph needed
+            out = []
+            for item in items:
+                out.append(fn(*shared, *item))
+                if progress is not None:
+                    progress(label, len(out), total)
+            return out
         import dask
         from dask.callbacks import Callback
 
@@ -690,82 +781,29 @@ def detect_in_windows(survey: "Survey", *, outline, roof, radiometry: "Radiometr
 
     env = rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_BYTES)  # bounds the block cache of every thread's reads
     env.__enter__()
-    writer: _Background | None = None
+    writer: list[_Background] = []
+
+    def write_surface() -> None:
+        # surface_c.tif is complete on disk: write it while the next passes run (GDAL compresses
+        # without the GIL, so the writer uses what the window tasks leave idle)
+        writer.append(_Background(_write_tiff, store, "surface", rasters.surface_c, grid, None))
+
     try:
         _emit(progress, f"{len(windows)} windows of {tp} px on {engine.describe()}: reading and correcting the "
                         "mosaics, background estimate 1")
-        first = engine.map(_surface_task, (source, store), [(i, block, factor, count) for i in range(len(windows))],
-                           label="surface temperature", progress=window_progress)
-        median = np.full((count, nbr, nbc), np.nan)
-        sigma = np.full((count, nbr, nbc), np.nan)
-        for (r0, c0, _, _), f in zip(windows, first):
-            br, bc = r0 // block, c0 // block
-            median[:, br:br + f.median.shape[1], bc:bc + f.median.shape[2]] = f.median
-            sigma[:, br:br + f.sigma.shape[1], bc:bc + f.sigma.shape[2]] = f.sigma
-        roof_px = sum(f.roof_px for f in first)
-        covered_px = sum(f.covered_px for f in first)
-        lost_px = sum(f.lost_px for f in first)
-        low = min(f.low_c for f in first)
-        high = max(f.high_c for f in first)
-        preview_grid = PlanGrid(transform=grid.transform @ Affine.scale(factor), rows=-(-grid.rows // factor),
-                                cols=-(-grid.cols // factor), crs=grid.crs)
-        surface_preview = _assemble_preview([f.preview for f in first], windows, factor, preview_grid.shape)
-        del first
-        # surface_c.tif is complete on disk: write it while the next passes run (GDAL compresses
-        # without the GIL, so the writer uses what the window tasks leave idle)
-        writer = _Background(_write_tiff, store, "surface", rasters.surface_c, grid, None)
-
-        model = None
-        if covered_px:
-            noise = noise_sigma(sigma)
-            cut = warm_cut(sdt.delta_c, noise)
-            fallback = None
-            if not np.isfinite(median).reshape(count, -1).any(axis=1).all():
-                parts = engine.map(_usable_values_task, (store,), [(i,) for i in range(len(windows))])
-                values = np.concatenate([p[0] for p in parts])
-                labs = None if not section_edges else np.concatenate([p[1] for p in parts])
-                fallback = section_medians(values, np.ones(values.shape, bool), labs, count)
-                del parts, values, labs
-            for estimate in range(3):  # as wetmap.detect.estimate_background: three estimates
-                if estimate:
-                    _emit(progress, f"background estimate {estimate + 1} of 3")
-                    parts = engine.map(_keep_task, (store,), [(i, block, model, cut, count) for i in range(len(windows))],
-                                       label=f"background estimate {estimate + 1}", progress=window_progress)
-                    median = np.full((count, nbr, nbc), np.nan)
-                    for (r0, c0, _, _), m in zip(windows, parts):
-                        median[:, r0 // block:r0 // block + m.shape[1], c0 // block:c0 // block + m.shape[2]] = m
-                    del parts
-                model = fit_background(median, block_px=block, grid_shape=grid.shape, footprint=spec.footprint,
-                                       delta_c=sdt.delta_c, noise_c=noise, names=names, choice=choice,
-                                       fallback_c=fallback, previous=model, wet_blocks=wet_b, dry_blocks=dry_b)
-
-        threshold_c = sdt.delta_c
-        if threshold_from is not None:
-            threshold_c = float(threshold_from(_core_deltas(store, model, core_rc, block)))
-
-        _emit(progress, "delta-T and anomaly outlines in windows")
-        final = engine.map(_final_task, (store,),
-                           [(i, block, model, threshold_c, min_pixels, factor) for i in range(len(windows))],
-                           label="anomaly outlines", progress=window_progress)
-        delta_preview = _assemble_preview([f.delta_preview for f in final], windows, factor, preview_grid.shape)
-        bg_preview = _assemble_preview([f.background_preview for f in final], windows, factor, preview_grid.shape)
-        pieces = [f.pieces for f in final]
-        del final
-
-        _emit(progress, "merging outlines across window seams; small regions and holes")
-
-        merged = merge_pieces(pieces, windows, grid_shape=grid.shape, tile_px=tp, min_pixels=min_pixels,
-                              read_delta=lambda rows, cols: store.gather("delta", rows, cols))
-        del pieces
-
-        polygons = tuple(smooth_pixel_polygons(merged.polygons, grid.transform))
+        run = _run_windows(engine, source, store, spec=spec, count=count, names=names, choice=choice,
+                           delta_c=sdt.delta_c, min_pixels=min_pixels, factor=factor, core_rc=core_rc,
+                           wet_blocks=wet_b, dry_blocks=dry_b, threshold_from=threshold_from, progress=progress,
+                           window_progress=window_progress, surface_done=write_surface)
+        polygons = tuple(smooth_pixel_polygons(run.merged.polygons, grid.transform))
 
         _emit(progress, "writing delta_c.tif (and finishing surface_c.tif) by bands of blocks")
         _write_tiff(store, "delta", rasters.delta_c, grid, window_progress)
-        writer.join()
+        for w in writer:
+            w.join()
     except BaseException:
-        if writer is not None:
-            writer.join(reraise=False)
+        for w in writer:
+            w.join(reraise=False)
         shutil.rmtree(folder, ignore_errors=True)
         raise
     finally:
@@ -775,15 +813,201 @@ def detect_in_windows(survey: "Survey", *, outline, roof, radiometry: "Radiometr
         for p in folder.glob("*.raw"):
             p.unlink(missing_ok=True)
 
+    preview_grid = PlanGrid(transform=grid.transform @ Affine.scale(factor), rows=-(-grid.rows // factor),
+                            cols=-(-grid.cols // factor), crs=grid.crs)
+    merged = run.merged
     preview_mask = _preview_mask(merged.polygons, factor, preview_grid.shape)
-    detection = Detection(background_c=bg_preview, delta_c=delta_preview, mask=preview_mask,
-                          background_m=background_m, threshold_c=threshold_c, min_pixels=min_pixels, background=model)
+    detection = Detection(background_c=run.background_preview, delta_c=run.delta_preview, mask=preview_mask,
+                          background_m=background_m, threshold_c=run.threshold_c, min_pixels=min_pixels,
+                          background=run.model)
     return TiledDetection(
-        grid=preview_grid, surface_c=surface_preview, detection=detection, polygons=polygons,
-        pixels=merged.pixels, delta_mean=merged.delta_mean, delta_max=merged.delta_max, roof_px=roof_px,
-        covered_px=covered_px, lost_px=lost_px, constant=bool(covered_px and low == high), full_rasters=rasters,
+        grid=preview_grid, surface_c=run.surface_preview, detection=detection, polygons=polygons,
+        pixels=merged.pixels, delta_mean=merged.delta_mean, delta_max=merged.delta_max, roof_px=run.roof_px,
+        covered_px=run.covered_px, lost_px=run.lost_px, constant=run.constant, full_rasters=rasters,
         preview_min_pixels=max(1, math.ceil(min_pixels / (factor * factor))),
     )
+
+
+@dataclass(frozen=True)
+class _WindowsRun:
+    """What the passes over the windows found (previews: block means of ``factor`` pixels)."""
+
+    model: Any
+    threshold_c: float
+    merged: MergedRegions
+    surface_preview: np.ndarray
+    delta_preview: np.ndarray
+    background_preview: np.ndarray
+    roof_px: int
+    covered_px: int
+    lost_px: int
+    constant: bool
+
+
+def _run_windows(engine: Engine, source, store: _Scratch, *, spec, count: int, names: tuple[str, ...], choice: str,
+                 delta_c: float, min_pixels: int, factor: int, core_rc=None, wet_blocks=None, dry_blocks=None,
+                 threshold_from: Callable[[np.ndarray], float] | None = None, threshold_c: float | None = None,
+                 progress: Progress | None = None, window_progress: WindowProgress | None = None,
+                 surface_done: Callable[[], None] | None = None) -> _WindowsRun:
+    """The detection itself, the same for one window or many: surface and background
+    estimate 1, estimates 2 and 3, the threshold, delta-T and the pieces of each window,
+    merged across the seams with the clean-up in vector space (:func:`wetmap.seams.merge_pieces`)."""
+    windows = store.windows
+    block = spec.block_px
+    rows, cols = store.shape
+    nbr, nbc = -(-rows // block), -(-cols // block)
+    first = engine.map(_surface_task, (source, store), [(i, block, factor, count) for i in range(len(windows))],
+                       label="surface temperature", progress=window_progress)
+    median = np.full((count, nbr, nbc), np.nan)
+    sigma = np.full((count, nbr, nbc), np.nan)
+    for (r0, c0, _, _), f in zip(windows, first):
+        br, bc = r0 // block, c0 // block
+        median[:, br:br + f.median.shape[1], bc:bc + f.median.shape[2]] = f.median
+        sigma[:, br:br + f.sigma.shape[1], bc:bc + f.sigma.shape[2]] = f.sigma
+    roof_px = sum(f.roof_px for f in first)
+    covered_px = sum(f.covered_px for f in first)
+    lost_px = sum(f.lost_px for f in first)
+    low = min(f.low_c for f in first)
+    high = max(f.high_c for f in first)
+    preview_shape = (-(-rows // factor), -(-cols // factor)) if factor else (0, 0)
+    surface_preview = _assemble_preview([f.preview for f in first], windows, factor, preview_shape)
+    del first
+    if surface_done is not None:
+        surface_done()
+
+    model = None
+    if covered_px:
+        noise = noise_sigma(sigma)
+        cut = warm_cut(delta_c, noise)
+        fallback = None
+        if not np.isfinite(median).reshape(count, -1).any(axis=1).all():
+            parts = engine.map(_usable_values_task, (store,), [(i,) for i in range(len(windows))])
+            values = np.concatenate([p[0] for p in parts])
+            labs = None if not source.has_sections else np.concatenate([p[1] for p in parts])
+            fallback = section_medians(values, np.ones(values.shape, bool), labs, count)
+            del parts, values, labs
+        for estimate in range(3):  # three estimates: estimate, leave out the warm pixels, re-estimate
+            if estimate:
+                _emit(progress, f"background estimate {estimate + 1} of 3")
+                parts = engine.map(_keep_task, (store,), [(i, block, model, cut, count) for i in range(len(windows))],
+                                   label=f"background estimate {estimate + 1}", progress=window_progress)
+                median = np.full((count, nbr, nbc), np.nan)
+                for (r0, c0, _, _), m in zip(windows, parts):
+                    median[:, r0 // block:r0 // block + m.shape[1], c0 // block:c0 // block + m.shape[2]] = m
+                del parts
+            model = fit_background(median, block_px=block, grid_shape=store.shape, footprint=spec.footprint,
+                                   delta_c=delta_c, noise_c=noise, names=names, choice=choice,
+                                   fallback_c=fallback, previous=model, wet_blocks=wet_blocks, dry_blocks=dry_blocks)
+
+    threshold = delta_c if threshold_c is None else threshold_c
+    if threshold_from is not None:
+        threshold = float(threshold_from(_core_deltas(store, model, core_rc, block)))
+
+    _emit(progress, "delta-T and anomaly outlines in windows")
+    final = engine.map(_final_task, (store,),
+                       [(i, block, model, threshold, min_pixels, factor) for i in range(len(windows))],
+                       label="anomaly outlines", progress=window_progress)
+    delta_preview = _assemble_preview([f.delta_preview for f in final], windows, factor, preview_shape)
+    bg_preview = _assemble_preview([f.background_preview for f in final], windows, factor, preview_shape)
+    pieces = [f.pieces for f in final]
+    del final
+
+    _emit(progress, "merging outlines across window seams; small regions and holes")
+    merged = merge_pieces(pieces, windows, grid_shape=store.shape, tile_px=store.tile_px, min_pixels=min_pixels,
+                          read_delta=lambda rr, cc: store.gather("delta", rr, cc))
+    return _WindowsRun(model=model, threshold_c=threshold, merged=merged, surface_preview=surface_preview,
+                       delta_preview=delta_preview, background_preview=bg_preview, roof_px=roof_px,
+                       covered_px=covered_px, lost_px=lost_px, constant=bool(covered_px and low == high))
+
+
+@dataclass(frozen=True)
+class ArrayDetection:
+    """The detection of an array in memory: :class:`wetmap.detect.Detection` (full arrays)
+    and the anomaly regions in raster order of their first pixel, exact, with statistics."""
+
+    detection: Detection
+    pixel_polygons: np.ndarray
+    """The regions as pixel polygons (integer pixel corners of the grid)."""
+    pixels: np.ndarray
+    delta_mean: np.ndarray
+    delta_max: np.ndarray
+
+    def polygons(self, transform: Affine) -> list:
+        """The regions' smoothed outlines in plan coordinates (:func:`wetmap.polygons.smooth_pixel_polygons`)."""
+        return list(smooth_pixel_polygons(self.pixel_polygons, transform))
+
+
+def detect_array(surface_c: np.ndarray, usable: np.ndarray, *, pixel_m: float, delta_c: float, background_m: float,
+                 min_area_m2: float, labels: np.ndarray | None = None, names: tuple[str, ...] = ("roof",),
+                 choice: str = "auto", cores: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None,
+                 threshold_c: float | None = None, threshold_from: Callable[[np.ndarray], float] | None = None,
+                 tile_px: int | None = None) -> ArrayDetection:
+    """Background, delta, cleaned anomaly regions of an array in memory: the windowed engine
+    with one window (``tile_px`` ``None``) or windows of ``tile_px`` pixels, in this thread.
+
+    Parameters
+    ----------
+    surface_c
+        Surface temperature, degC, ``(rows, cols)``.
+    usable
+        Pixels on the roof, outside exclusions, with data.
+    pixel_m
+        Pixel side, metres.
+    delta_c
+        Threshold above the dry background, degC (also sets the background's warm cut).
+    background_m
+        Background scale, metres.
+    min_area_m2
+        Smallest anomaly kept, square metres (also the largest hole filled).
+    labels, names, choice
+        Section label of every pixel (``0 .. len(names) - 1``; ``None``: one section), one
+        name per label, and the background choice (:func:`wetmap.detect.fit_background`).
+    cores
+        ``(rows_px, cols_px, wet)`` of the confirmations (pixel indices), or ``None``.
+    threshold_c
+        Threshold applied when it differs from ``delta_c`` (the primary pass's applied
+        threshold); ``None``: ``delta_c``.
+    threshold_from
+        Given the confirmations' delta-T (3 x 3 median at each), the threshold to apply.
+    tile_px
+        Window side (a multiple of the background block); ``None``: one window.
+    """
+    shape = surface_c.shape
+    spec = background_grid(pixel_m, background_m)
+    block = spec.block_px
+    tp = tile_px or -(-max(shape) // block) * block
+    windows = tuple(windows_of(shape, tp))
+    store = _MemoryStore(folder=Path("."), windows=windows, tile_px=tp, shape=shape)
+    source = ArraySource(surface_c=surface_c, usable=usable, section_labels=labels)
+    count = len(names)
+    wet_b = dry_b = core_rc = None
+    if cores is not None and len(cores[0]):
+        r, c, w = (np.asarray(a) for a in cores)
+        inside = (r >= 0) & (r < shape[0]) & (c >= 0) & (c < shape[1])
+        lab = np.full(len(r), -1)
+        lab[inside] = 0 if labels is None else labels[r[inside], c[inside]]
+        wet_b, dry_b = core_blocks(r, c, lab, np.asarray(w, bool), count=count, block=block,
+                                   block_shape=(-(-shape[0] // block), -(-shape[1] // block)))
+        core_rc = (r, c)
+    min_pixels = max(1, int(math.ceil(min_area_m2 / (pixel_m * pixel_m) - 1e-9)))
+    run = _run_windows(Engine("sync"), source, store, spec=spec, count=count, names=names, choice=choice,
+                       delta_c=delta_c, min_pixels=min_pixels, factor=0, core_rc=core_rc, wet_blocks=wet_b,
+                       dry_blocks=dry_b, threshold_from=threshold_from, threshold_c=threshold_c)
+    if len(windows) == 1:  # the window is the array
+        delta, background = store.view("delta", 0), store.view("background", 0)
+    else:
+        delta, background = store.rect("delta", 0, 0, *shape), store.rect("background", 0, 0, *shape)
+    merged = run.merged
+    mask = _preview_mask(merged.polygons, 1, shape)
+    detection = Detection(background_c=background, delta_c=delta, mask=mask, background_m=background_m,
+                          threshold_c=run.threshold_c, min_pixels=min_pixels, background=run.model)
+    return ArrayDetection(detection=detection, pixel_polygons=merged.polygons, pixels=merged.pixels,
+                          delta_mean=merged.delta_mean, delta_max=merged.delta_max)
+
+
+def detect_anomalies(surface_c: np.ndarray, usable: np.ndarray, **options: Any) -> Detection:
+    """:func:`detect_array`'s :class:`wetmap.detect.Detection` (background, delta-T, cleaned mask)."""
+    return detect_array(surface_c, usable, **options).detection
 
 
 def _core_deltas(store: _Scratch, model: Any, core_rc: tuple[np.ndarray, np.ndarray] | None,
@@ -868,6 +1092,8 @@ def _preview_mask(polygons: np.ndarray, factor: int, shape: tuple[int, int]) -> 
 
 
 def _assemble_preview(parts: list[np.ndarray], windows, factor: int, shape: tuple[int, int]) -> np.ndarray:
+    if not factor:
+        return np.zeros((0, 0), np.float32)
     out = np.full(shape, np.nan, dtype=np.float32)
     for (r0, c0, _, _), p in zip(windows, parts):
         out[r0 // factor:r0 // factor + p.shape[0], c0 // factor:c0 // factor + p.shape[1]] = p
