@@ -44,7 +44,7 @@ def main(folder: Path, out: Path, tile_px: int | None) -> int:
     else:
         grid, surface = _surface_on_grid(survey, outline, radiometry, [], None)
         usable = _mask_of(roof, grid) & np.isfinite(surface)
-        found = detect_array(surface, usable, pixel_m=grid.pixel_m, delta_c=survey.detect.delta_c,
+        found = detect_array(surface, usable, pixel_m=grid.pixel_m, threshold_c=survey.detect.delta_c,
                              background_m=background_m, min_area_m2=survey.detect.min_area_m2)  # one window
         polys = found.polygons(grid.transform)
         write_raster(surface, grid, out.parent / "surface_c.tif")

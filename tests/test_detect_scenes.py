@@ -282,7 +282,7 @@ def _blocks(shape, block, seed=0, wet=None):
 ])
 def test_trend_recovers_the_dry_plane_under_large_wet_areas(wet):
     values, plane, rr, cc = _blocks((300, 500), 10, wet=wet)
-    fit = fit_trend(values.ravel(), rr.ravel(), cc.ravel(), delta_c=1.0)
+    fit = fit_trend(values.ravel(), rr.ravel(), cc.ravel(), threshold_c=1.0)
     assert fit is not None
     assert np.abs(fit.at(rr, cc) - plane).max() < 0.03
     assert fit.spread_c < 0.02
@@ -293,7 +293,7 @@ def test_dry_core_lowers_the_start_but_never_raises_it():
     values, plane, rr, cc = _blocks((300, 500), 10, wet=lambda r, c: c < 0.6 * c.max())
     dry = np.zeros(values.shape, bool)
     dry[5, 5] = True  # inside the warm part
-    fit = fit_trend(values.ravel(), rr.ravel(), cc.ravel(), delta_c=1.0, dry=dry.ravel())
+    fit = fit_trend(values.ravel(), rr.ravel(), cc.ravel(), threshold_c=1.0, dry=dry.ravel())
     assert np.abs(fit.at(rr, cc) - plane).max() < 0.03
 
 
@@ -304,9 +304,9 @@ def test_dry_core_anchors_the_level_when_almost_everything_is_wet():
     values, plane, rr, cc = _blocks((300, 500), 10, wet=lambda r, c: (r - 150) ** 2 + (c - 250) ** 2 > radius ** 2)
     dry = np.zeros(values.shape, bool)
     dry[15, 25] = True  # the block at the island's centre
-    anchored = fit_trend(values.ravel(), rr.ravel(), cc.ravel(), delta_c=1.0, dry=dry.ravel())
+    anchored = fit_trend(values.ravel(), rr.ravel(), cc.ravel(), threshold_c=1.0, dry=dry.ravel())
     assert np.abs(anchored.at(rr, cc) - plane).max() < 0.03
-    alone = fit_trend(values.ravel(), rr.ravel(), cc.ravel(), delta_c=1.0)
+    alone = fit_trend(values.ravel(), rr.ravel(), cc.ravel(), threshold_c=1.0)
     assert np.abs(alone.at(rr, cc) - plane).max() > 1.0
 
 
@@ -320,7 +320,7 @@ def test_model_windows_equal_the_whole_array():
     edges = [pixel_edges(g, scene.transform) for _, g, _ in scene.sections]
     labels = section_label_raster(edges, surface.shape)
     for choice in ("trend", "local"):
-        model = detect_array(surface, np.ones(surface.shape, bool), pixel_m=0.1, background_m=12.0, delta_c=1.0,
+        model = detect_array(surface, np.ones(surface.shape, bool), pixel_m=0.1, background_m=12.0, threshold_c=1.0,
                              min_area_m2=0.0, labels=labels, names=("West", "East", "rest"),
                              choice=choice).detection.background
         assert isinstance(model, BackgroundModel)

@@ -177,7 +177,7 @@ def test_noise_estimate_recovers_known_noise():
     rng = np.random.default_rng(3)
     img = np.add.outer(np.arange(200.0), np.arange(300.0)) * 0.02
     img[:, 150:] += 3.0
-    assert imagery.noise_sigma(img + rng.normal(0, 0.1, img.shape)) == pytest.approx(0.1, rel=0.05)
+    assert imagery.image_noise_sigma(img + rng.normal(0, 0.1, img.shape)) == pytest.approx(0.1, rel=0.05)
 
 
 def test_blurred_frame_ranks_lower_and_sharpness_is_monotone_in_blur(frames):

@@ -429,7 +429,7 @@ def test_one_window_equals_many_windows_in_memory(blocks):
     usable[70:80, 70:80] = False
     labels = np.zeros(shape, np.int16)
     labels[:, 95:] = 1
-    kw = dict(pixel_m=0.1, delta_c=1.0, background_m=4.0, min_area_m2=0.1, labels=labels, names=("A", "B"))
+    kw = dict(pixel_m=0.1, threshold_c=1.0, background_m=4.0, min_area_m2=0.1, labels=labels, names=("A", "B"))
     one = detect_array(surface, usable, **kw)
     tile_px = blocks * background_grid(0.1, 4.0).block_px
     many = detect_array(surface, usable, tile_px=tile_px, **kw)

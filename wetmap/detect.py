@@ -20,11 +20,11 @@ when there are none), on a grid of square blocks of ``block_px`` pixels:
      a dry surface that is not smooth but takes a wet area of about its footprint for
      background;
    - ``"auto"``: the trend where the kept blocks lie within the larger of the pixel noise
-     and ``SMOOTH_DELTA_FRACTION * delta_c`` of it, else local; the reason is recorded;
+     and ``SMOOTH_DELTA_FRACTION * threshold_c`` of it, else local; the reason is recorded;
 3. :meth:`BackgroundModel.evaluate` gives every pixel its section's background (the
    polynomial at the pixel centre, or the block grid interpolated bilinearly from block
    centres to pixel centres);
-4. pixels warmer than the background by more than ``max(delta_c / 2, 3 sigma)`` (sigma:
+4. pixels warmer than the background by more than ``max(threshold_c / 2, 3 sigma)`` (sigma:
    the pixel noise, the median over blocks of each block's interquartile range / 1.349,
    measured on the first pass) are left out and steps 1-3 are repeated (three estimates).
 
@@ -39,7 +39,7 @@ A smoothed (mean or Gaussian) background is pulled up by large warm areas and lo
 detections; a full-resolution median filter metres wide costs thousands of seconds per
 megapixel: block medians are both robust and cheap.
 
-Thresholding is separate from computing the threshold: ``delta > delta_c`` on usable
+Thresholding is separate from computing the threshold: ``delta > threshold_c`` on usable
 pixels, then regions smaller than the minimum area are dropped and holes up to it are
 filled, unless a hole holds an unusable pixel (an excluded drain, missing data).
 :func:`edge_flags` names the likely cause of anomalies that hug the roof edge or ring an
@@ -208,15 +208,15 @@ def smooth_block_grid(median: np.ndarray, footprint: int) -> np.ndarray:
     return ndimage.median_filter(_fill_nearest(median), size=footprint, mode="nearest")
 
 
-def noise_sigma(sigma: np.ndarray) -> float:
+def block_noise_sigma(sigma: np.ndarray) -> float:
     """The survey's pixel noise, degC: the median of the blocks' robust spreads (0 if none)."""
     finite = sigma[np.isfinite(sigma)]
     return float(np.median(finite)) if finite.size else 0.0
 
 
-def warm_cut(delta_c: float, sigma: float) -> float:
+def warm_cut(threshold_c: float, sigma: float) -> float:
     """Pixels warmer than the background by more than this are left out of the next estimate."""
-    return max(0.5 * delta_c, 3.0 * sigma)
+    return max(0.5 * threshold_c, 3.0 * sigma)
 
 
 def interp_axis(start: int, n_out: int, n_in: int, block: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
@@ -282,7 +282,7 @@ TREND_MIN_BLOCKS: dict[int, int] = {1: 6, 2: 30}
 #: A quadric replaces the plane only when it shrinks the kept blocks' spread by this factor.
 TREND_DEGREE_GAIN = 0.8
 #: Auto choice: the trend is used when the kept blocks lie within
-#: ``max(pixel noise, SMOOTH_DELTA_FRACTION * delta_c)`` (robust spread) of it.
+#: ``max(pixel noise, SMOOTH_DELTA_FRACTION * threshold_c)`` (robust spread) of it.
 SMOOTH_DELTA_FRACTION = 0.1
 #: Normal-consistency factor of the median absolute deviation (1 / 0.6745).
 MAD_TO_SIGMA = 1.4826
@@ -377,7 +377,7 @@ def _quantile_start(x: np.ndarray, y: np.ndarray, tau: float, iterations: int = 
     return beta
 
 
-def fit_trend(values_c: np.ndarray, rows_px: np.ndarray, cols_px: np.ndarray, *, delta_c: float,
+def fit_trend(values_c: np.ndarray, rows_px: np.ndarray, cols_px: np.ndarray, *, threshold_c: float,
               wet: np.ndarray | None = None, dry: np.ndarray | None = None,
               max_degree: int = TREND_MAX_DEGREE, iterations: int = 40) -> TrendFit | None:
     """Fit a dry surface to block medians, knowing that wet only warms.
@@ -392,7 +392,7 @@ def fit_trend(values_c: np.ndarray, rows_px: np.ndarray, cols_px: np.ndarray, *,
        on a warm patch of another cause never raises it);
     2. asymmetric trimming: the dry spread ``s`` is measured on the cold side
        (MAD x 1.4826 of the blocks below the surface); blocks more than
-       ``min(3 s, delta_c / 2)`` above the surface are wet candidates and left out, blocks
+       ``min(3 s, threshold_c / 2)`` above the surface are wet candidates and left out, blocks
        below count fully; least squares on the kept blocks; repeated until the kept set
        stops changing;
     3. of the planes the starts converge to, the one whose kept blocks scatter least (wet
@@ -407,7 +407,7 @@ def fit_trend(values_c: np.ndarray, rows_px: np.ndarray, cols_px: np.ndarray, *,
         Block medians, degC, ``(n,)`` (finite).
     rows_px, cols_px
         Centres of those blocks in pixel coordinates, ``(n,)``.
-    delta_c
+    threshold_c
         The detection threshold, degC (caps the warm cut at half of it).
     wet, dry
         Bool ``(n,)``: blocks holding a wet core (left out) / a dry core (anchor the start).
@@ -436,7 +436,7 @@ def fit_trend(values_c: np.ndarray, rows_px: np.ndarray, cols_px: np.ndarray, *,
     scale = (max(0.5 * (r_hi - r_lo), 1.0), max(0.5 * (c_hi - c_lo), 1.0))
     v = (rows_px - centre[0]) / scale[0]
     u = (cols_px - centre[1]) / scale[1]
-    cap = 0.5 * delta_c
+    cap = 0.5 * threshold_c
 
     def trim(degree: int, fitted: np.ndarray, among: np.ndarray) -> tuple[np.ndarray, np.ndarray, float]:
         """Asymmetric trimming from ``fitted`` (values at every block) over the blocks ``among``."""
@@ -675,7 +675,7 @@ def section_block_statistics(values: np.ndarray, usable: np.ndarray, labels: np.
 
 
 def fit_background(median: np.ndarray, *, block_px: int, grid_shape: tuple[int, int], footprint: int,
-                   delta_c: float, noise_c: float, names: tuple[str, ...], choice: str = "auto",
+                   threshold_c: float, noise_c: float, names: tuple[str, ...], choice: str = "auto",
                    fallback_c: np.ndarray | None = None, previous: BackgroundModel | None = None,
                    wet_blocks: np.ndarray | None = None, dry_blocks: np.ndarray | None = None) -> BackgroundModel:
     """The background model of every section from its block medians (pure, on the block grid).
@@ -688,15 +688,15 @@ def fit_background(median: np.ndarray, *, block_px: int, grid_shape: tuple[int, 
         Block size and the whole grid's ``(rows, cols)`` (block centres in pixel coordinates).
     footprint
         Median-filter footprint of the local method, blocks (odd).
-    delta_c
+    threshold_c
         Detection threshold, degC.
     noise_c
-        Pixel noise, degC (:func:`noise_sigma` of the first estimate).
+        Pixel noise, degC (:func:`block_noise_sigma` of the first estimate).
     names
         Section names, one per label.
     choice
         ``"auto"``: per section, the trend when its kept blocks lie within
-        ``max(noise_c, SMOOTH_DELTA_FRACTION * delta_c)`` of it, else the local method;
+        ``max(noise_c, SMOOTH_DELTA_FRACTION * threshold_c)`` of it, else the local method;
         ``"trend"`` / ``"local"``: that method for every section.
     fallback_c
         Per section, the median of its usable pixels, degC (used when no block has a median;
@@ -709,7 +709,7 @@ def fit_background(median: np.ndarray, *, block_px: int, grid_shape: tuple[int, 
     """
     rows_px, cols_px = block_centres(grid_shape, block_px)
     out: list[SectionBackground] = []
-    limit = max(noise_c, SMOOTH_DELTA_FRACTION * delta_c)
+    limit = max(noise_c, SMOOTH_DELTA_FRACTION * threshold_c)
     for g, name in enumerate(names):
         m = median[g]
         finite = np.isfinite(m)
@@ -729,7 +729,7 @@ def fit_background(median: np.ndarray, *, block_px: int, grid_shape: tuple[int, 
         dry = None if dry_blocks is None else dry_blocks[g][finite]
         trend = None
         if choice != "local":
-            trend = fit_trend(m[finite], rows_px[br], cols_px[bc], delta_c=delta_c, wet=wet, dry=dry)
+            trend = fit_trend(m[finite], rows_px[br], cols_px[bc], threshold_c=threshold_c, wet=wet, dry=dry)
         if choice == "local":
             method, reason = "local", '[detect] background = "local"'
         elif trend is None:

@@ -140,7 +140,7 @@ __all__ = [
     "feature_width_m",
     "pixels_across",
     "smallest_reliable_area_m2",
-    "noise_sigma",
+    "image_noise_sigma",
     "sharpness",
     "tile_sharpness",
     "mosaic_tile_sharpness",
@@ -403,7 +403,7 @@ def smallest_reliable_area_m2(gsd_m: float, *, pixels_across: float = MIN_PIXELS
 _IMMERKAER = np.array([[1.0, -2.0, 1.0], [-2.0, 4.0, -2.0], [1.0, -2.0, 1.0]])
 
 
-def noise_sigma(values: np.ndarray) -> float:
+def image_noise_sigma(values: np.ndarray) -> float:
     """Robust estimate of the standard deviation of an image's pixel noise.
 
     ``1.4826 * median(|N * I|) / 6`` over the pixels whose 3 x 3 neighbourhood has data,
@@ -426,7 +426,7 @@ def noise_sigma(values: np.ndarray) -> float:
     --------
     >>> rng = np.random.default_rng(0)
     >>> ramp = np.add.outer(np.arange(200.0), np.arange(300.0)) * 0.01
-    >>> round(noise_sigma(ramp + rng.normal(0, 0.1, ramp.shape)), 2)
+    >>> round(image_noise_sigma(ramp + rng.normal(0, 0.1, ramp.shape)), 2)
     0.1
     """
     from scipy import ndimage
@@ -517,7 +517,7 @@ def sharpness(values: np.ndarray, *, coarse_sigma_px: float = COARSE_SIGMA_PX,
     ok = np.isfinite(v)
     if ok.sum() < 9:
         return Sharpness(math.nan, math.nan, math.nan)
-    s = noise_sigma(v)
+    s = image_noise_sigma(v)
     if not math.isfinite(s):
         return Sharpness(math.nan, math.nan, math.nan)
     fine = _gradient_energy(v) - 4.0 * s * s

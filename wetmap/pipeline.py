@@ -411,11 +411,11 @@ def _detect_pass(image: _PassImage, grid: PlanGrid, in_roof: np.ndarray, survey:
     sdt = survey.detect
     g_surface = align_to_grid(image.surface_c, image.grid.transform, grid.transform, grid.shape)
     g_usable = in_roof & np.isfinite(g_surface)
-    det = detect_array(g_surface, g_usable, pixel_m=grid.pixel_m, delta_c=sdt.delta_c,
+    det = detect_array(g_surface, g_usable, pixel_m=grid.pixel_m, threshold_c=sdt.delta_c,
                        background_m=background_m, min_area_m2=sdt.min_area_m2,
                        labels=_section_labels(detect_on.section_geoms, grid), names=detect_on.names,
                        choice=sdt.background, cores=_core_pixels(detect_on.conf, grid),
-                       threshold_c=threshold_c).detection
+                       applied_c=threshold_c).detection
     lab, n = label_regions(det.mask)
     return np.where(g_usable, g_surface, np.nan), det.delta_c, lab, n
 
@@ -821,7 +821,7 @@ def detection_stage(plan: Plan, on_grid: OnGrid, *, progress: Progress | None = 
     if tiled is None:
         _emit(progress, "estimating the dry background and thresholding")
         usable = on_grid.in_roof & np.isfinite(on_grid.surface_c)
-        found = detect_array(on_grid.surface_c, usable, pixel_m=grid.pixel_m, delta_c=sdt.delta_c,
+        found = detect_array(on_grid.surface_c, usable, pixel_m=grid.pixel_m, threshold_c=sdt.delta_c,
                              background_m=plan.background_m, min_area_m2=sdt.min_area_m2,
                              labels=on_grid.section_labels, names=plan.group_names, choice=sdt.background,
                              cores=_core_pixels(plan.confirmations, grid), threshold_from=threshold_from)

@@ -87,7 +87,7 @@ import numpy as np
 import shapely
 from affine import Affine
 
-from .detect import (Detection, background_grid, core_blocks, fit_background, noise_sigma, section_block_statistics,
+from .detect import (Detection, background_grid, core_blocks, fit_background, block_noise_sigma, section_block_statistics,
                      section_medians, warm_cut)
 from .errors import ProcessingError
 from .polygons import smooth_pixel_polygons
@@ -792,7 +792,7 @@ def detect_in_windows(survey: "Survey", *, outline, roof, radiometry: "Radiometr
         _emit(progress, f"{len(windows)} windows of {tp} px on {engine.describe()}: reading and correcting the "
                         "mosaics, background estimate 1")
         run = _run_windows(engine, source, store, spec=spec, count=count, names=names, choice=choice,
-                           delta_c=sdt.delta_c, min_pixels=min_pixels, factor=factor, core_rc=core_rc,
+                           threshold_c=sdt.delta_c, min_pixels=min_pixels, factor=factor, core_rc=core_rc,
                            wet_blocks=wet_b, dry_blocks=dry_b, threshold_from=threshold_from, progress=progress,
                            window_progress=window_progress, surface_done=write_surface)
         polygons = tuple(smooth_pixel_polygons(run.merged.polygons, grid.transform))
@@ -845,8 +845,8 @@ class _WindowsRun:
 
 
 def _run_windows(engine: Engine, source, store: _Scratch, *, spec, count: int, names: tuple[str, ...], choice: str,
-                 delta_c: float, min_pixels: int, factor: int, core_rc=None, wet_blocks=None, dry_blocks=None,
-                 threshold_from: Callable[[np.ndarray], float] | None = None, threshold_c: float | None = None,
+                 threshold_c: float, min_pixels: int, factor: int, core_rc=None, wet_blocks=None, dry_blocks=None,
+                 threshold_from: Callable[[np.ndarray], float] | None = None, applied_c: float | None = None,
                  progress: Progress | None = None, window_progress: WindowProgress | None = None,
                  surface_done: Callable[[], None] | None = None) -> _WindowsRun:
     """The detection itself, the same for one window or many: surface and background
@@ -877,8 +877,8 @@ def _run_windows(engine: Engine, source, store: _Scratch, *, spec, count: int, n
 
     model = None
     if covered_px:
-        noise = noise_sigma(sigma)
-        cut = warm_cut(delta_c, noise)
+        noise = block_noise_sigma(sigma)
+        cut = warm_cut(threshold_c, noise)
         fallback = None
         if not np.isfinite(median).reshape(count, -1).any(axis=1).all():
             parts = engine.map(_usable_values_task, (store,), [(i,) for i in range(len(windows))])
@@ -896,10 +896,10 @@ def _run_windows(engine: Engine, source, store: _Scratch, *, spec, count: int, n
                     median[:, r0 // block:r0 // block + m.shape[1], c0 // block:c0 // block + m.shape[2]] = m
                 del parts
             model = fit_background(median, block_px=block, grid_shape=store.shape, footprint=spec.footprint,
-                                   delta_c=delta_c, noise_c=noise, names=names, choice=choice,
+                                   threshold_c=threshold_c, noise_c=noise, names=names, choice=choice,
                                    fallback_c=fallback, previous=model, wet_blocks=wet_blocks, dry_blocks=dry_blocks)
 
-    threshold = delta_c if threshold_c is None else threshold_c
+    threshold = threshold_c if applied_c is None else applied_c
     if threshold_from is not None:
         threshold = float(threshold_from(_core_deltas(store, model, core_rc, block)))
 
@@ -937,10 +937,10 @@ class ArrayDetection:
         return list(smooth_pixel_polygons(self.pixel_polygons, transform))
 
 
-def detect_array(surface_c: np.ndarray, usable: np.ndarray, *, pixel_m: float, delta_c: float, background_m: float,
+def detect_array(surface_c: np.ndarray, usable: np.ndarray, *, pixel_m: float, threshold_c: float, background_m: float,
                  min_area_m2: float, labels: np.ndarray | None = None, names: tuple[str, ...] = ("roof",),
                  choice: str = "auto", cores: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None,
-                 threshold_c: float | None = None, threshold_from: Callable[[np.ndarray], float] | None = None,
+                 applied_c: float | None = None, threshold_from: Callable[[np.ndarray], float] | None = None,
                  tile_px: int | None = None) -> ArrayDetection:
     """Background, delta, cleaned anomaly regions of an array in memory: the windowed engine
     with one window (``tile_px`` ``None``) or windows of ``tile_px`` pixels, in this thread.
@@ -953,7 +953,7 @@ def detect_array(surface_c: np.ndarray, usable: np.ndarray, *, pixel_m: float, d
         Pixels on the roof, outside exclusions, with data.
     pixel_m
         Pixel side, metres.
-    delta_c
+    threshold_c
         Threshold above the dry background, degC (also sets the background's warm cut).
     background_m
         Background scale, metres.
@@ -964,9 +964,9 @@ def detect_array(surface_c: np.ndarray, usable: np.ndarray, *, pixel_m: float, d
         name per label, and the background choice (:func:`wetmap.detect.fit_background`).
     cores
         ``(rows_px, cols_px, wet)`` of the confirmations (pixel indices), or ``None``.
-    threshold_c
-        Threshold applied when it differs from ``delta_c`` (the primary pass's applied
-        threshold); ``None``: ``delta_c``.
+    applied_c
+        Threshold applied when it differs from ``threshold_c`` (the primary pass's applied
+        threshold); ``None``: ``threshold_c``.
     threshold_from
         Given the confirmations' delta-T (3 x 3 median at each), the threshold to apply.
     tile_px
@@ -991,8 +991,8 @@ def detect_array(surface_c: np.ndarray, usable: np.ndarray, *, pixel_m: float, d
         core_rc = (r, c)
     min_pixels = max(1, int(math.ceil(min_area_m2 / (pixel_m * pixel_m) - 1e-9)))
     run = _run_windows(Engine("sync"), source, store, spec=spec, count=count, names=names, choice=choice,
-                       delta_c=delta_c, min_pixels=min_pixels, factor=0, core_rc=core_rc, wet_blocks=wet_b,
-                       dry_blocks=dry_b, threshold_from=threshold_from, threshold_c=threshold_c)
+                       threshold_c=threshold_c, min_pixels=min_pixels, factor=0, core_rc=core_rc, wet_blocks=wet_b,
+                       dry_blocks=dry_b, threshold_from=threshold_from, applied_c=applied_c)
     if len(windows) == 1:  # the window is the array
         delta, background = store.view("delta", 0), store.view("background", 0)
     else:
