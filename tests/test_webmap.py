@@ -46,14 +46,6 @@ CHROMIUM_FLAGS = (
 
 
 @pytest.fixture(scope="module")
-def sample_run(tmp_path_factory):
-    """The bundled sample run into a temporary folder: ``(result, results folder)``."""
-    out = tmp_path_factory.mktemp("webmap") / "r"
-    result = run_survey(SAMPLE, out=out)
-    return result, out
-
-
-@pytest.fixture(scope="module")
 def local_run(tmp_path_factory):
     """A copy of the sample as a ``local`` plan with a 6 x 5 m hole in its thermal data.
 
