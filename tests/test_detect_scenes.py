@@ -20,7 +20,7 @@ import shapely
 from scipy import constants
 
 import scene_render as sr
-from wetmap.confirm import sample_at_points
+from wetmap.verdicts import sample_at_points
 from wetmap.detect import BackgroundModel, fit_trend, block_centres
 from wetmap.tiles import detect_array
 from wetmap.errors import SurveyError

@@ -205,7 +205,7 @@ def test_report_carries_method_warnings_cautions_and_signature(sample_run):
 
 def test_report_without_cores(sample_run):
     """A run with no confirmations: every anomaly unverified, the report says so."""
-    from wetmap.confirm import Verdicts
+    from wetmap.verdicts import Verdicts
     from wetmap.confirmations import Confirmations
 
     result, _ = sample_run

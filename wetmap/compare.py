@@ -23,7 +23,7 @@ import shapely
 from shapely.geometry import Polygon
 from shapely.geometry.base import BaseGeometry
 
-from .confirm import STATUSES, counted_statuses
+from .verdicts import STATUSES, counted_statuses
 from .errors import InputFileError, MissingFileError
 from .outputs import write_folder
 

@@ -11,7 +11,7 @@ Columns ``id,x,y`` (plan coordinates) and at least one of
   ``dull`` (a void, debonded skin or soft core under the hammer) says wet, like a wet
   reading. ``solid`` is judged dry but is weaker than a core or reading: a well-bonded
   skin over wet core still sounds solid, so a solid sounding never refutes an anomaly on
-  its own (see :attr:`Confirmations.decisive` and :func:`wetmap.confirm.assign_status`).
+  its own (see :attr:`Confirmations.decisive` and :func:`wetmap.verdicts.assign_status`).
 
 On each row the first of these that holds a value decides (so a sounding decides only a
 row with no core result, moisture content or reading). Other columns are kept

@@ -1384,7 +1384,7 @@ def main(argv: list[str] | None = None) -> int:
                         help="which invented scene (default: warehouse)")
     parser.add_argument("--imagery-faults", action="store_true",
                         help="walked scene only: plant a blurred frame (f05) and a reflection seen by one frame "
-                             "(f03) for the imagery checks (wetmap.imagery)")
+                             "(f03) for the imagery checks (wetmap.image_checks)")
     args = parser.parse_args(argv)
     if args.imagery_faults and args.scene != "walked":
         parser.error("--imagery-faults applies to --scene walked only")

@@ -23,7 +23,7 @@ from shapely.geometry import Polygon
 from shapely.geometry.base import BaseGeometry
 
 from .conditions import check_conditions, estimate_reflected_c
-from .confirm import (ThresholdCheck, Verdicts, assign_status, counted_statuses, sample_at_points, suggest_cores,
+from .verdicts import (ThresholdCheck, Verdicts, assign_status, counted_statuses, sample_at_points, suggest_cores,
                       threshold_check, wet_area_range)
 from .confirmations import Confirmations
 from .cooldown import plan_survey_window
@@ -31,7 +31,7 @@ from .detect import EDGE_FLAG, UNIT_FLAG, Detection, background_warnings, defaul
 from .errors import InputFileError, ProcessingError, SurveyError, WetmapError
 from .export import cad, gis, report, tables, webmap
 from .frames import read_frame
-from .imagery import ImageryReport, assess_imagery, frame_views
+from .image_checks import ImageryReport, assess_imagery, frame_views
 from .outputs import replacing
 from .passes import PassComparison, align_to_grid, choose_primary, compare_passes, group_passes, pass_contrast_c
 from .polygons import SIMPLIFY_TOLERANCE_PX, RegionStats, label_regions, simplify_outlines
@@ -203,8 +203,8 @@ def _frames_onto_grid(frames: list[_RegisteredFrame], grid: PlanGrid, outline: B
     """Resample and blend the frames on the plan grid (surface K, NaN where no frame).
 
     Frames far less sharp than the others are blended only where no sharper frame covers
-    (``[limits] exclude_blurred``; :mod:`wetmap.imagery`); ``views``, when given, receives
-    each placed frame as a :class:`wetmap.imagery.FrameView`.
+    (``[limits] exclude_blurred``; :mod:`wetmap.image_checks`); ``views``, when given, receives
+    each placed frame as a :class:`wetmap.image_checks.FrameView`.
     """
     parts, placed = [], []
     for fr in frames:
@@ -293,7 +293,7 @@ def _surface_on_grid(survey: Survey, outline: BaseGeometry, radiometry: Radiomet
     corrected per frame, resampled and blended (:mod:`wetmap.register`). Mosaics win where
     they have data (the first one first); the frames fill what no mosaic covers.
     ``registration``, when given, receives one :class:`FrameReport` per frame; ``views`` one
-    :class:`wetmap.imagery.FrameView` per placed frame.
+    :class:`wetmap.image_checks.FrameView` per placed frame.
     """
     crs = None if survey.survey.is_local else survey.survey.crs
     infos = [inspect_raster(m.path, origin=m.origin, pixel_m=m.pixel_m, survey_crs=crs) for m in survey.mosaics]
@@ -612,7 +612,7 @@ class Plan:
     bands_m2: dict[str, float]
     sections: tuple[Section, ...]
     specular: Any
-    """``[plan] specular``: surfaces that show reflections (:mod:`wetmap.imagery`)."""
+    """``[plan] specular``: surfaces that show reflections (:mod:`wetmap.image_checks`)."""
     confirmations: Confirmations
     group_names: tuple[str, ...]
     """One background group per section label (:func:`_group_names`)."""
@@ -687,7 +687,7 @@ class OnGrid:
     constant: bool
     registration: tuple[FrameReport, ...]
     views: tuple[Any, ...]
-    """The placed frames (:class:`wetmap.imagery.FrameView`), for the image checks."""
+    """The placed frames (:class:`wetmap.image_checks.FrameView`), for the image checks."""
     pass_groups: tuple[Any, ...]
     pass_images: tuple[_PassImage, ...] | None
     choice: tuple | None
@@ -930,7 +930,7 @@ def verdict_stage(plan: Plan, on_grid: OnGrid, found: Found) -> Judged:
 
 
 def image_check_stage(plan: Plan, on_grid: OnGrid, found: Found) -> ImageryReport:
-    """Resolution, focus, reflections and the display range (:func:`wetmap.imagery.assess_imagery`)."""
+    """Resolution, focus, reflections and the display range (:func:`wetmap.image_checks.assess_imagery`)."""
     grid = on_grid.grid
     return assess_imagery(
         on_grid.primary, grid_transform=grid.transform, grid_shape=grid.shape, grid_pixel_m=on_grid.full_grid.pixel_m,

@@ -44,7 +44,7 @@ from shapely import affinity
 from shapely.geometry import MultiPolygon, Polygon, box
 from shapely.geometry.base import BaseGeometry
 
-from .confirm import NOT_REFUTED, Status, counted_statuses
+from .verdicts import NOT_REFUTED, Status, counted_statuses
 
 if TYPE_CHECKING:
     from .survey import AreaUnit, Prices, Repair

@@ -1215,7 +1215,7 @@ def blend_frames(frames: Sequence[ResampledFrame], grid_shape: tuple[int, int], 
         ``(rows, cols)`` of the plan grid.
     fallback
         One flag per frame: a flagged frame (e.g. one found blurred by
-        :mod:`wetmap.imagery`) gives values only where no unflagged frame does.
+        :mod:`wetmap.image_checks`) gives values only where no unflagged frame does.
     max_view_angle_deg
         Views more oblique than this are used only where no better view covers
         (:func:`placement_ranks`).

@@ -15,10 +15,10 @@ from shapely.geometry import Polygon
 from shapely.geometry.base import BaseGeometry
 
 from . import __version__
-from .confirm import NOT_REFUTED, AreaRange, Status, SuggestedCore, ThresholdCheck, Verdicts, counted_statuses
+from .verdicts import NOT_REFUTED, AreaRange, Status, SuggestedCore, ThresholdCheck, Verdicts, counted_statuses
 from .confirmations import Confirmations
 from .detect import Detection, large_share
-from .imagery import ImageryReport
+from .image_checks import ImageryReport
 from .passes import PassComparison
 from .quantities import BoardTakeoff, Quantities, SectionTotals
 from .radiometry import Radiometry
@@ -64,7 +64,7 @@ class Anomaly:
     confirmations: tuple[str, ...]
     section: str | None
     flags: str = ""
-    """Imagery flags (``"; "``-separated): ``reflection suspect``, ``under-resolved`` (:mod:`wetmap.imagery`)."""
+    """Imagery flags (``"; "``-separated): ``reflection suspect``, ``under-resolved`` (:mod:`wetmap.image_checks`)."""
     exact: Polygon | None = None
     """The exact outline ``area_m2``, ``perimeter_m`` and the imagery checks are measured on
     (``geometry`` is its simplified copy); ``None``: ``geometry`` is exact."""
@@ -166,7 +166,7 @@ class SurveyResult:
     @property
     def counted_statuses(self) -> frozenset[Status]:
         """The statuses counted as wet for the repair (``[repair] include_unverified``;
-        :func:`wetmap.confirm.counted_statuses`). Every table, figure, map and the
+        :func:`wetmap.verdicts.counted_statuses`). Every table, figure, map and the
         repair outline count by this one rule."""
         return counted_statuses(include_unverified=self.survey.repair.include_unverified)
 

@@ -1,7 +1,7 @@
 """How the map and the report draw: colours, line styles and colour ranges.
 
 One module for both outputs (:mod:`wetmap.export.webmap`, :mod:`wetmap.export.report`)
-and for the recommended display range the imagery checks report (:mod:`wetmap.imagery`,
+and for the recommended display range the imagery checks report (:mod:`wetmap.image_checks`,
 ``summary.json`` ``imagery.display_range``). Every colour range is taken from
 percentiles of a regular subsample of the finite values (:func:`_percentiles`):
 

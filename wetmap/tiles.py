@@ -625,7 +625,7 @@ class FullRasters:
                 shutil.copy2(src, dst)
 
     def sample(self, xs: np.ndarray, ys: np.ndarray, *, radius_px: int = 1) -> np.ndarray:
-        """:func:`wetmap.confirm.sample_at_points` of the full-resolution delta-T (small window reads)."""
+        """:func:`wetmap.verdicts.sample_at_points` of the full-resolution delta-T (small window reads)."""
         import rasterio
         from rasterio.windows import Window
 
@@ -734,7 +734,7 @@ def detect_in_windows(survey: "Survey", *, outline, roof, radiometry: "Radiometr
         Each section's own emissivity (``None``: ``[camera] emissivity``).
     threshold_from
         Given the confirmations' delta-T (3 x 3 median at each, as
-        :func:`wetmap.confirm.sample_at_points`), the threshold to apply (``[detect] delta_c =
+        :func:`wetmap.verdicts.sample_at_points`), the threshold to apply (``[detect] delta_c =
         "cores"``); ``None``: ``[detect] delta_c``.
     """
     if survey.frames or not survey.mosaics:
@@ -1013,7 +1013,7 @@ def detect_anomalies(surface_c: np.ndarray, usable: np.ndarray, **options: Any) 
 def _core_deltas(store: _Scratch, model: Any, core_rc: tuple[np.ndarray, np.ndarray] | None,
                  block: int) -> np.ndarray:
     """Delta-T at each confirmation: the median of its 3 x 3 usable pixels (as
-    :func:`wetmap.confirm.sample_at_points`), from the scratch windows and the model."""
+    :func:`wetmap.verdicts.sample_at_points`), from the scratch windows and the model."""
     if core_rc is None:
         return np.zeros(0)
     rows, cols = core_rc

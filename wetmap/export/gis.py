@@ -38,7 +38,7 @@ __all__ = ["anomaly_frame", "write_anomalies", "write_repair", "write_raster", "
 
 ANOMALY_COLUMNS = ("id", "status", "area_m2", "perimeter_m", "delta_mean_c", "delta_max_c", "confirmations", "section",
                    "flags")
-"""The contract's attributes, then ``flags`` (imagery flags, :mod:`wetmap.imagery`; empty text when none)."""
+"""The contract's attributes, then ``flags`` (imagery flags, :mod:`wetmap.image_checks`; empty text when none)."""
 
 
 #: The top-level note of a hull side's ``anomalies.geojson``.

@@ -414,7 +414,7 @@ def thermal_figure(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> bytes:
     usable = np.isfinite(decimate(result.detection.delta_c, factor))  # the roof pixels with data
     lo, hi = display_range(image[usable] if usable.any() else image)
     imagery = getattr(result, "imagery", None)
-    if imagery is not None:  # from the roof alone, centred on the dry background (wetmap.imagery)
+    if imagery is not None:  # from the roof alone, centred on the dry background (wetmap.image_checks)
         lo, hi = imagery.surface_range.low_c, imagery.surface_range.high_c
     gx0, gy0, gx1, gy1 = result.grid.bounds
     # coloured here as 4 bytes a pixel: matplotlib would resample float64 copies of the image
@@ -754,7 +754,7 @@ def _method(result: "SurveyResult", summary: dict[str, Any]) -> str:
 
 
 def _range_words(result: "SurveyResult") -> str:
-    """The thermal figure's colour range and how it was chosen (:mod:`wetmap.imagery`)."""
+    """The thermal figure's colour range and how it was chosen (:mod:`wetmap.image_checks`)."""
     imagery = getattr(result, "imagery", None)
     if imagery is None:
         return ""

@@ -8,7 +8,7 @@ Each CSV holds one kind of row, so that a plain SUM of a column is meaningful:
 - ``sections.csv``: one row per roof section, then ``(outside sections)`` for the part of
   the roof in no section (only when sections were given); these rows add up to the total;
 - ``wet_area_range.csv``: ``low end`` and ``high end`` of the counted wet area
-  (``wet_area_*``) at the thresholds of :func:`wetmap.confirm.area_thresholds`, widened by
+  (``wet_area_*``) at the thresholds of :func:`wetmap.verdicts.area_thresholds`, widened by
   the outline's uncertainty (written when the cores give a range);
 - ``board_range.csv``: without ``[repair] board_origin``, the ``fewest`` and ``most``
   whole ``boards`` over the board-grid origins tried; the total row gives the median

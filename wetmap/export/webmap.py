@@ -929,7 +929,7 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
     d_lo = min(d_lo, -result.detection.threshold_c)
     d_hi = max(d_hi, 2.0 * result.detection.threshold_c)
     imagery = getattr(result, "imagery", None)
-    if imagery is not None:  # from the roof alone, centred on the dry background (wetmap.imagery)
+    if imagery is not None:  # from the roof alone, centred on the dry background (wetmap.image_checks)
         s_lo, s_hi = imagery.surface_range.low_c, imagery.surface_range.high_c
         d_lo, d_hi = imagery.delta_range.low_c, imagery.delta_range.high_c
 

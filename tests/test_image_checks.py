@@ -1,4 +1,4 @@
-"""wetmap.imagery: resolution, focus, reflections and display range.
+"""wetmap.image_checks: resolution, focus, reflections and display range.
 
 Outside values are named beside each check (pinhole geometry, hand-computed Jacobians,
 common practice). Scenes are invented demo data built with :mod:`wetmap.demo`.
@@ -19,7 +19,8 @@ from affine import Affine
 from scipy import ndimage
 from shapely.geometry import box
 
-from wetmap import demo, imagery
+from wetmap import demo
+from wetmap import image_checks as imagery
 from wetmap.errors import SurveyError
 from wetmap.register import blend_frames, ground_sampling_m, resample_frame
 from wetmap.survey import load_survey
