@@ -19,12 +19,11 @@ def main(folder: Path, out: Path, tile_px: int | None) -> int:
     import numpy as np
     from shapely.geometry import Polygon
 
-    from wetmap.detect import default_background_m, detect_anomalies
+    from wetmap.detect import default_background_m
     from wetmap.export.gis import write_raster
     from wetmap.pipeline import _mask_of, _radiometry, _surface_on_grid, _union
-    from wetmap.polygons import label_regions, polygonize
     from wetmap.survey import load_survey
-    from wetmap.tiles import detect_in_windows
+    from wetmap.tiles import detect_array, detect_in_windows
     from wetmap.vectors import read_layer, read_outline
 
     survey = load_survey(folder)
@@ -45,12 +44,11 @@ def main(folder: Path, out: Path, tile_px: int | None) -> int:
     else:
         grid, surface = _surface_on_grid(survey, outline, radiometry, [], None)
         usable = _mask_of(roof, grid) & np.isfinite(surface)
-        det = detect_anomalies(surface, usable, pixel_m=grid.pixel_m, delta_c=survey.detect.delta_c,
-                               background_m=background_m, min_area_m2=survey.detect.min_area_m2)
-        labels, count = label_regions(det.mask)
-        polys = polygonize(labels, count, grid.transform)
+        found = detect_array(surface, usable, pixel_m=grid.pixel_m, threshold_c=survey.detect.delta_c,
+                             background_m=background_m, min_area_m2=survey.detect.min_area_m2)  # one window
+        polys = found.polygons(grid.transform)
         write_raster(surface, grid, out.parent / "surface_c.tif")
-        write_raster(det.delta_c, grid, out.parent / "delta_c.tif")
+        write_raster(found.detection.delta_c, grid, out.parent / "delta_c.tif")
     gpd.GeoDataFrame({"area_m2": [p.area for p in polys]}, geometry=polys, crs=crs).to_file(out, driver="GPKG")
     print(len(polys))
     return 0

@@ -47,7 +47,7 @@ def main(folder: Path) -> int:
     import geopandas  # noqa: F401
     import matplotlib  # noqa: F401
 
-    import wetmap.imagery
+    import wetmap.image_checks
     import wetmap.pipeline as pipeline
     from wetmap.export import cad, gis, report as report_html, tables, webmap
     from wetmap.pipeline import process_survey, write_results
@@ -56,10 +56,10 @@ def main(folder: Path) -> int:
     report("imports", time.perf_counter() - start)
     # steps inside process_survey (each reported when it ends, before process_survey's total)
     for module, name, label in [(pipeline, "detect_in_windows", "  windowed detection"),
-                                (pipeline, "detect_anomalies", "  whole-array detection"),
+                                (pipeline, "detect_array", "  whole-array detection (one window)"),
                                 (pipeline, "polygonize", "  outlines (whole array)"),
                                 (pipeline, "simplify_outlines", "  simplified outlines"),
-                                (wetmap.imagery, "assess_imagery", "  imagery checks (focus...)"),
+                                (wetmap.image_checks, "assess_imagery", "  imagery checks (focus...)"),
                                 (pipeline, "compute_quantities", "  quantities (repair margin, boards)")]:
         if hasattr(module, name):
             setattr(module, name, timed(label, getattr(module, name)))

@@ -147,7 +147,7 @@ the others; a table of outcomes is printed and the exit status is non-zero when 
               help=_SCHEDULER_HELP + " On a cluster every survey is a task, so many run at once.")
 def batch(survey_dirs: tuple[Path, ...], out_root: str | None, quiet: bool, no_map: bool, no_report: bool,
           scheduler: str | None) -> None:
-    from wetmap.tiles import run_batch
+    from wetmap.batch import run_batch
 
     bars = _Progress(quiet)
 
@@ -235,15 +235,18 @@ def window(survey_dir: Path, out: str | None) -> None:
 
 
 @main.command(help="""Compare two surveys of the same roof: write change.gpkg (new, grown, shrunk and gone
-wet areas) and change.json (wet-area growth) into OUT (default NEW_DIR/results).
+wet areas), change.json (wet-area growth), an offline change map (change_map.html) and a
+change report (change_report.html, and .pdf) into OUT (default NEW_DIR/results).
 OLD_DIR and NEW_DIR are survey folders that have been run, or their results folders.""")
 @click.argument("old_dir", type=click.Path(path_type=Path))
 @click.argument("new_dir", type=click.Path(path_type=Path))
 @click.option("--out", "out", type=click.Path(), default=None,
-              help="Folder for change.gpkg and change.json (new, empty, or a results folder wetmap wrote).")
+              help="Folder for change.gpkg, change.json, change_map.html and change_report.html/.pdf "
+                   "(new, empty, or a results folder wetmap wrote).")
 @click.option("--confirmed-only", is_flag=True, help="Compare only anomalies confirmed wet (leave out unverified).")
 def compare(old_dir: Path, new_dir: Path, out: str | None, confirmed_only: bool) -> None:
-    from wetmap.compare import compare_results, write_change
+    from wetmap.compare import compare_results
+    from wetmap.export.change import write_change
     from wetmap.outputs import check_out_dir
 
     try:

@@ -1,4 +1,5 @@
-"""Shared fixtures for the input-side tests (survey, rasters, vectors, confirmations).
+"""Shared fixtures: the input-side tests (survey, rasters, vectors, confirmations) and one
+run of the bundled sample for the session (:func:`sample_run`).
 
 Kept minimal: each fixture builds small files in pytest's ``tmp_path`` and says what
 they hold. Known-bad files that read better as files live in ``tests/data/invalid/``
@@ -13,6 +14,18 @@ import numpy as np
 import pytest
 
 INVALID = Path(__file__).resolve().parent / "data" / "invalid"
+SAMPLE = Path(__file__).resolve().parents[1] / "sample_surveys" / "warehouse_roof"
+
+
+@pytest.fixture(scope="session")
+def sample_run(tmp_path_factory):
+    """sample_surveys/warehouse_roof (an invented warehouse) exactly as bundled, run once for the
+    session into a temporary results folder: ``(result, results folder)``. Tests read it and
+    never write into it."""
+    from wetmap.pipeline import run_survey
+
+    out = tmp_path_factory.mktemp("sample") / "results"
+    return run_survey(SAMPLE, out=out), out
 
 
 @pytest.fixture

@@ -14,7 +14,7 @@ from click.testing import CliRunner
 
 from wetmap.demo import write_roof_survey
 from wetmap.errors import WetmapError
-from wetmap.tiles import BatchOutcome, run_batch
+from wetmap.batch import BatchOutcome, run_batch
 from wetmap_cli.main import main
 
 

@@ -89,7 +89,7 @@ def test_change_map_and_report_written_offline(tmp_path):
     """The worked example of test_kinds_by_hand: new 1, grown 4, shrunk 4, gone 4 m2 (by hand)."""
     import re
 
-    from wetmap.compare import write_change
+    from wetmap.export.change import write_change
     from wetmap.export.webmap import remote_references
 
     old = [box(0, 0, 4, 4), box(10, 0, 12, 2), box(20, 0, 24, 4)]

@@ -86,10 +86,10 @@ def imperial_run(tmp_path_factory):
     return run_survey(folder, out=out), out
 
 
-@pytest.fixture(scope="module")
-def metric_run(tmp_path_factory):
-    out = tmp_path_factory.mktemp("deliver_metric") / "results"
-    return run_survey(SAMPLE, out=out), out
+@pytest.fixture
+def metric_run(sample_run):
+    """The sample exactly as bundled, run once for the session (conftest.py)."""
+    return sample_run
 
 
 def _pdf(path: Path):

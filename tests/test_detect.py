@@ -16,11 +16,15 @@ from wetmap.detect import (
     background_grid,
     block_statistics,
     default_background_m,
-    detect_anomalies,
-    dry_background,
-    noise_sigma,
+    block_noise_sigma,
     upsample_window,
 )
+from wetmap.tiles import detect_anomalies
+
+
+def dry_background(surface, usable, **kw):
+    """The evaluated background of the one engine (one window)."""
+    return detect_anomalies(surface, usable, min_area_m2=0.0, **kw).background_c
 
 
 def slow_block_median(values, usable, block, min_fill=0.25):
@@ -80,7 +84,7 @@ def _roof(shape=(400, 600), pixel_m=0.1, seed=0, noise=0.1):
 def test_background_follows_a_gradient():
     surface, ramp = _roof()
     usable = np.ones(surface.shape, bool)
-    bg = dry_background(surface, usable, pixel_m=0.1, background_m=18.0, delta_c=1.0)
+    bg = dry_background(surface, usable, pixel_m=0.1, background_m=18.0, threshold_c=1.0)
     inner = (slice(20, -20), slice(20, -20))
     assert np.abs(bg[inner] - ramp[inner]).max() < 0.05
 
@@ -88,14 +92,14 @@ def test_background_follows_a_gradient():
 def test_large_wet_area_is_not_absorbed_into_its_background():
     """A 10 x 8 m area +2.5 degC on a 60 x 40 m roof with an 18 m background scale: the iterated
     block median keeps the background dry; a Gaussian background (the naive choice) is pulled up
-    (PERFORMANCE_NOTES.md: a smoothed background loses detections)."""
+    and loses part of the excess (checked at the end)."""
     surface, ramp = _roof()
     surface[150:230, 250:350] += 2.5
     usable = np.ones(surface.shape, bool)
-    bg = dry_background(surface, usable, pixel_m=0.1, background_m=18.0, delta_c=1.0)
+    bg = dry_background(surface, usable, pixel_m=0.1, background_m=18.0, threshold_c=1.0)
     inside = (slice(150, 230), slice(250, 350))
     assert np.abs(bg[inside] - ramp[inside]).max() < 0.15
-    det = detect_anomalies(surface, usable, pixel_m=0.1, delta_c=1.0, background_m=18.0, min_area_m2=0.5)
+    det = detect_anomalies(surface, usable, pixel_m=0.1, threshold_c=1.0, background_m=18.0, min_area_m2=0.5)
     found = det.mask[inside].mean()
     assert found > 0.99
     assert det.mask.sum() == pytest.approx(80 * 100, rel=0.02)
@@ -110,7 +114,7 @@ def test_excluded_and_nodata_pixels_never_anomalous():
     usable = np.ones(surface.shape, bool)
     usable[45:85, 45:85] = False  # ...excluded
     surface[150:160, :] = np.nan  # a strip of nodata
-    det = detect_anomalies(surface, usable & np.isfinite(surface), pixel_m=0.1, delta_c=1.0,
+    det = detect_anomalies(surface, usable & np.isfinite(surface), pixel_m=0.1, threshold_c=1.0,
                            background_m=10.0, min_area_m2=0.05)
     assert not det.mask[45:85, 45:85].any()
     assert not det.mask[150:160].any()
@@ -142,14 +146,14 @@ def test_threshold_and_min_area():
 def test_tiny_rasters_give_a_result(shape):
     surface = np.full(shape, 5.0, dtype=np.float32)
     usable = np.ones(shape, bool)
-    det = detect_anomalies(surface, usable, pixel_m=0.1, delta_c=1.0, background_m=10.0, min_area_m2=0.0)
+    det = detect_anomalies(surface, usable, pixel_m=0.1, threshold_c=1.0, background_m=10.0, min_area_m2=0.0)
     assert not det.mask.any()
     assert np.allclose(det.delta_c, 0.0)
 
 
 def test_all_unusable_gives_nan_background():
     surface = np.full((20, 20), np.nan, dtype=np.float32)
-    det = detect_anomalies(surface, np.zeros((20, 20), bool), pixel_m=0.1, delta_c=1.0, background_m=5.0,
+    det = detect_anomalies(surface, np.zeros((20, 20), bool), pixel_m=0.1, threshold_c=1.0, background_m=5.0,
                            min_area_m2=0.1)
     assert np.isnan(det.background_c).all()
     assert not det.mask.any()
@@ -186,7 +190,7 @@ def test_block_sigma_measures_pixel_noise_and_ignores_wet_blocks():
     values = rng.normal(0.0, 0.2, (400, 400)).astype(np.float32)
     values[:80] += 3.0 * (rng.random((80, 400)) > 0.5)  # a patchy warm strip
     stats = block_statistics(values, np.ones(values.shape, bool), 20)
-    assert noise_sigma(stats.sigma) == pytest.approx(0.2, rel=0.08)
+    assert block_noise_sigma(stats.sigma) == pytest.approx(0.2, rel=0.08)
 
 
 @pytest.mark.parametrize("seed", [0, 1, 2])
@@ -219,6 +223,6 @@ def test_trend_ignores_a_cluster_of_cold_blocks():
     rng = np.random.default_rng(3)
     dry = 14.0 + cols / 300.0 + rng.normal(0, 0.02, rows.size)
     values = np.where(rows < 40, -17.0 + rng.normal(0, 0.005, rows.size), dry)
-    fit = fit_trend(values, rows, cols, delta_c=0.6)
+    fit = fit_trend(values, rows, cols, threshold_c=0.6)
     warm = rows >= 40
     np.testing.assert_allclose(fit.at(rows[warm], cols[warm]), 14.0 + cols[warm] / 300.0, atol=0.05)

@@ -20,8 +20,9 @@ import shapely
 from scipy import constants
 
 import scene_render as sr
-from wetmap.confirm import sample_at_points
-from wetmap.detect import BackgroundModel, estimate_background, fit_trend, block_centres
+from wetmap.verdicts import sample_at_points
+from wetmap.detect import BackgroundModel, fit_trend, block_centres
+from wetmap.tiles import detect_array
 from wetmap.errors import SurveyError
 from wetmap.pipeline import process_survey, run_survey
 
@@ -201,7 +202,7 @@ def test_parapet_band_is_flagged_or_left_out(tmp_path):
     assert len(buffered.anomalies) == 0
     outline = shapely.box(0, 0, 50.35, 30.45)
     band = outline.area - outline.buffer(-1.2, join_style="mitre").area
-    assert buffered.coverage["edge_band_m2"] == pytest.approx(band, rel=1e-9)
+    assert buffered.coverage.edge_band_m2 == pytest.approx(band, rel=1e-9)
     assert any("not surveyed" in w and "edge_buffer_m" in w for w in buffered.warnings)
     out = tmp_path / "out"
     run_survey(tmp_path / "buffer", out=out)
@@ -220,7 +221,7 @@ def test_unit_halo_is_flagged_or_left_out(tmp_path):
     assert "next to a rooftop unit" in (folder / "results" / "report.html").read_text(encoding="utf-8")
     buffered = _run(sr.unit_scene(detect="delta_c = 1.0\nexclusion_buffer_m = 1.0"), tmp_path / "buffer")
     assert len(buffered.anomalies) == 0
-    assert buffered.coverage["exclusion_band_m2"] == pytest.approx(5.0 ** 2 - 3.0 ** 2, rel=1e-6)
+    assert buffered.coverage.exclusion_band_m2 == pytest.approx(5.0 ** 2 - 3.0 ** 2, rel=1e-6)
 
 
 def test_large_wet_area_at_the_edge_is_not_an_edge_band(tmp_path):
@@ -281,7 +282,7 @@ def _blocks(shape, block, seed=0, wet=None):
 ])
 def test_trend_recovers_the_dry_plane_under_large_wet_areas(wet):
     values, plane, rr, cc = _blocks((300, 500), 10, wet=wet)
-    fit = fit_trend(values.ravel(), rr.ravel(), cc.ravel(), delta_c=1.0)
+    fit = fit_trend(values.ravel(), rr.ravel(), cc.ravel(), threshold_c=1.0)
     assert fit is not None
     assert np.abs(fit.at(rr, cc) - plane).max() < 0.03
     assert fit.spread_c < 0.02
@@ -292,7 +293,7 @@ def test_dry_core_lowers_the_start_but_never_raises_it():
     values, plane, rr, cc = _blocks((300, 500), 10, wet=lambda r, c: c < 0.6 * c.max())
     dry = np.zeros(values.shape, bool)
     dry[5, 5] = True  # inside the warm part
-    fit = fit_trend(values.ravel(), rr.ravel(), cc.ravel(), delta_c=1.0, dry=dry.ravel())
+    fit = fit_trend(values.ravel(), rr.ravel(), cc.ravel(), threshold_c=1.0, dry=dry.ravel())
     assert np.abs(fit.at(rr, cc) - plane).max() < 0.03
 
 
@@ -303,9 +304,9 @@ def test_dry_core_anchors_the_level_when_almost_everything_is_wet():
     values, plane, rr, cc = _blocks((300, 500), 10, wet=lambda r, c: (r - 150) ** 2 + (c - 250) ** 2 > radius ** 2)
     dry = np.zeros(values.shape, bool)
     dry[15, 25] = True  # the block at the island's centre
-    anchored = fit_trend(values.ravel(), rr.ravel(), cc.ravel(), delta_c=1.0, dry=dry.ravel())
+    anchored = fit_trend(values.ravel(), rr.ravel(), cc.ravel(), threshold_c=1.0, dry=dry.ravel())
     assert np.abs(anchored.at(rr, cc) - plane).max() < 0.03
-    alone = fit_trend(values.ravel(), rr.ravel(), cc.ravel(), delta_c=1.0)
+    alone = fit_trend(values.ravel(), rr.ravel(), cc.ravel(), threshold_c=1.0)
     assert np.abs(alone.at(rr, cc) - plane).max() > 1.0
 
 
@@ -314,13 +315,14 @@ def test_model_windows_equal_the_whole_array():
     for trend and local sections alike."""
     scene = sr.step_scene("diagonal")
     surface = scene.surface().astype(np.float32)
-    from wetmap.tiles import pixel_edges, section_label_raster, section_labels
+    from wetmap.windows import pixel_edges, section_label_raster, section_labels
 
     edges = [pixel_edges(g, scene.transform) for _, g, _ in scene.sections]
     labels = section_label_raster(edges, surface.shape)
     for choice in ("trend", "local"):
-        model = estimate_background(surface, np.ones(surface.shape, bool), pixel_m=0.1, background_m=12.0,
-                                    delta_c=1.0, labels=labels, names=("West", "East", "rest"), choice=choice)
+        model = detect_array(surface, np.ones(surface.shape, bool), pixel_m=0.1, background_m=12.0, threshold_c=1.0,
+                             min_area_m2=0.0, labels=labels, names=("West", "East", "rest"),
+                             choice=choice).detection.background
         assert isinstance(model, BackgroundModel)
         whole = model.evaluate(labels)
         part = model.evaluate(section_labels(edges, row0=80, col0=160, shape=(97, 131)), row0=80, col0=160)

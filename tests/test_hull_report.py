@@ -20,7 +20,7 @@ import pytest
 import shapely
 from shapely.geometry import box, shape
 
-from wetmap.confirm import assign_status
+from wetmap.verdicts import assign_status
 from wetmap.confirmations import read_confirmations
 from wetmap.errors import InputFileError, SurveyError
 from wetmap.pipeline import run_survey

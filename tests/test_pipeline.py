@@ -266,7 +266,7 @@ def test_partial_coverage_is_reported_not_called_dry(tmp_path):
     east = shapely.box(x_cut, ymin - 1, xmax + 1, ymax + 1)
     roof = truth.outline.difference(shapely.union_all(truth.exclusions))
     expected = roof.intersection(east).area
-    assert result.coverage["uncovered_m2"] == pytest.approx(expected, rel=0.02)
+    assert result.coverage.uncovered_m2 == pytest.approx(expected, rel=0.02)
     assert any("not surveyed" in w for w in result.warnings)
 
 
@@ -313,3 +313,31 @@ def test_wet_area_range_brackets_the_truth(flown):
     true_area = shapely.union_all(truth.wet).area
     assert low <= true_area <= high
     assert high - low < 0.5 * true_area  # and the range is informative, not the whole roof
+
+
+def test_stages_run_alone_and_compose_into_the_run(flown):
+    """Each named stage runs on its own, typed inputs in, typed outputs out, and the stages
+    chained by hand give what process_survey gives (same outlines, statuses, statistics,
+    threshold check and quantities)."""
+    from wetmap.pipeline import (Found, Judged, OnGrid, Plan, anomalies_of, detection_stage, image_check_stage,
+                                 imagery_stage, plan_stage, quantity_stage, verdict_stage)
+    from wetmap.sun import with_sun_times
+    from wetmap.survey import load_survey
+
+    folder, _, result = flown
+    plan = plan_stage(with_sun_times(load_survey(folder)))
+    assert isinstance(plan, Plan)
+    assert plan.roof.area == pytest.approx(result.roof.area, rel=1e-12)  # shapely areas of the same polygons
+    on_grid = imagery_stage(plan)
+    assert isinstance(on_grid, OnGrid) and on_grid.tiled is None and on_grid.coverage == result.coverage
+    found = detection_stage(plan, on_grid)
+    assert isinstance(found, Found) and found.count == len(result.anomalies) > 0
+    judged = verdict_stage(plan, on_grid, found)
+    assert isinstance(judged, Judged) and judged.verdicts.status == result.verdicts.status
+    assert judged.threshold == result.threshold
+    imagery = image_check_stage(plan, on_grid, found)
+    anomalies, _ = anomalies_of(plan, on_grid, found, judged, imagery)
+    assert [a.exact.equals(b.exact) for a, b in zip(anomalies, result.anomalies)] == [True] * len(anomalies)
+    assert [a.delta_mean_c for a in anomalies] == [a.delta_mean_c for a in result.anomalies]
+    quantities, _ = quantity_stage(plan, anomalies)
+    assert quantities.repair.equals(result.repair) and quantities.takeoff.count == result.takeoff.count

@@ -26,7 +26,7 @@ from wetmap.errors import InputFileError, SurveyError, WetmapError
 from wetmap.pipeline import check_survey, process_survey, run_survey
 from wetmap.rasters import inspect_raster, plan_grid_for, read_onto_grid, sample_in_outline
 from wetmap.survey import load_survey
-from wetmap.tiles import preview_factor
+from wetmap.windows import preview_factor
 from wetmap_cli.main import main
 
 MOSAIC = Path("thermal") / "roof_pass1.tif"
@@ -283,7 +283,7 @@ def test_resampling_keeps_a_warm_parapet_out_of_the_roof(tmp_path, write_tif):
     path = write_tif(tmp_path / "parapet.tif", data, transform=Affine(pixel, 0, x0, 0, -pixel, y1))
     info = inspect_raster(path, survey_crs=None)
     grid = plan_grid_for([info], roof.bounds, crs=None, pixel_m=0.1)
-    from wetmap.tiles import roof_mask
+    from wetmap.windows import roof_mask
 
     in_roof = roof_mask(roof, grid.transform, grid.shape)
     plain = read_onto_grid(path, grid, info=info, units="C") - 273.15

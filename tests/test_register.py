@@ -423,10 +423,10 @@ def test_coverage_is_exact_on_a_half_covered_plan(tmp_path):
     np.save(folder / "frames" / "west.npy", apparent.astype(np.float32))
     result = process_survey(folder)
     cov = result.coverage
-    assert cov["roof_pixels_m2"] == pytest.approx(100.0, abs=1e-9)
-    assert cov["covered_m2"] == pytest.approx(50.0, abs=1e-9)
-    assert cov["uncovered_m2"] == pytest.approx(50.0, abs=1e-9)
-    assert cov["uncovered_pct"] == pytest.approx(50.0, abs=1e-9)
+    assert cov.roof_pixels_m2 == pytest.approx(100.0, abs=1e-9)
+    assert cov.covered_m2 == pytest.approx(50.0, abs=1e-9)
+    assert cov.uncovered_m2 == pytest.approx(50.0, abs=1e-9)
+    assert cov.uncovered_pct == pytest.approx(50.0, abs=1e-9)
     assert np.isnan(result.surface_c[:, 50:]).all() and np.isfinite(result.surface_c[:, :50]).all()
     assert np.isnan(result.detection.delta_c[:, 50:]).all()  # uncovered is never dry
     assert any("not surveyed, which does not mean dry" in w for w in result.warnings)
@@ -535,7 +535,7 @@ def test_mosaic_and_frames_land_on_one_grid(tmp_path):
         f.write(f'\n[[frame]]\npath = "frames/corner.npy"\nunits = "C"\npoints = {pts}\n')
     result = process_survey(folder)
     gap_area = shapely.box(0, 0, 14, 12).area
-    assert result.coverage["uncovered_m2"] < 0.05 * gap_area  # the frame filled the corner
+    assert result.coverage.uncovered_m2 < 0.05 * gap_area  # the frame filled the corner
     assert result.grid.pixel_m == scene.pixel_m  # the mosaic's grid: it is read without resampling
     wet1 = truth.wet[0]  # 8 x 5 m, u 8-16, v 6-11: across the seam of mosaic and frame
     hit = [a for a in result.anomalies if a.geometry.intersects(wet1)]

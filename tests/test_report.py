@@ -20,17 +20,8 @@ import numpy as np
 import pytest
 
 from wetmap.export import report, webmap
-from wetmap.pipeline import run_survey
 
 SAMPLE = Path(__file__).resolve().parents[1] / "sample_surveys" / "warehouse_roof"
-
-
-@pytest.fixture(scope="module")
-def sample_run(tmp_path_factory):
-    """The bundled sample run into a temporary folder: ``(result, results folder)``."""
-    out = tmp_path_factory.mktemp("report") / "r"
-    result = run_survey(SAMPLE, out=out)
-    return result, out
 
 
 class _Cells(HTMLParser):
@@ -215,7 +206,7 @@ def test_report_carries_method_warnings_cautions_and_signature(sample_run):
 
 def test_report_without_cores(sample_run):
     """A run with no confirmations: every anomaly unverified, the report says so."""
-    from wetmap.confirm import Verdicts
+    from wetmap.verdicts import Verdicts
     from wetmap.confirmations import Confirmations
 
     result, _ = sample_run

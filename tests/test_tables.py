@@ -52,11 +52,10 @@ def copy_sample(dest: Path, *, crs: str | None = None, repair_extra: str = "", e
     return dest
 
 
-@pytest.fixture(scope="module")
-def plain(tmp_path_factory):
-    """The sample exactly as bundled, run into a temporary results folder."""
-    out = tmp_path_factory.mktemp("plain") / "results"
-    return run_survey(SAMPLE, out=out), out
+@pytest.fixture
+def plain(sample_run):
+    """The sample exactly as bundled, run once for the session (conftest.py)."""
+    return sample_run
 
 
 @pytest.fixture(scope="module")

@@ -24,7 +24,8 @@ import rasterio
 import shapely
 from affine import Affine
 
-from wetmap import tiles
+from wetmap import seams, tiles
+from wetmap import windows as win
 from wetmap.detect import anomaly_mask, upsample_window
 from wetmap.pipeline import process_survey, run_survey
 from wetmap.polygons import label_regions, polygonize, region_stats, smooth_pixel_polygons
@@ -241,7 +242,7 @@ def test_rasters_equal_bit_for_bit(scene, tmp_path):
 def test_preview_mode_keeps_exact_anomalies(scene, tmp_path, monkeypatch):
     """With a coarse preview (4 x 4 blocks) the anomalies stay exact; the figures use the preview."""
     folder, whole = scene
-    monkeypatch.setattr(tiles, "PREVIEW_MAX_SIDE", 100)
+    monkeypatch.setattr(win, "PREVIEW_MAX_SIDE", 100)
     tiled = process_survey(folder, tile_px=64, scratch=tmp_path)
     assert tiled.full_rasters.preview_factor == 4
     assert tiled.grid.shape == (80, 100) and tiled.surface_c.shape == (80, 100)
@@ -323,11 +324,11 @@ def test_merged_pieces_equal_the_raster_clean_up(seed):
     labels, count = label_regions(mask)
     expected = polygonize(labels, count, Affine.identity(), outline="pixel")
     stats = region_stats(labels, count, delta)
-    windows = tiles.windows_of(shape, tile_px)
-    pieces = [tiles.tile_pieces(delta[r:r + h, c:c + w], row0=r, col0=c, grid_shape=shape, threshold_c=1.0,
+    windows = win.windows_of(shape, tile_px)
+    pieces = [seams.tile_pieces(delta[r:r + h, c:c + w], row0=r, col0=c, grid_shape=shape, threshold_c=1.0,
                                 min_pixels=min_pixels) for r, c, h, w in windows]
 
-    merged = tiles.merge_pieces(pieces, windows, grid_shape=shape, tile_px=tile_px, min_pixels=min_pixels,
+    merged = seams.merge_pieces(pieces, windows, grid_shape=shape, tile_px=tile_px, min_pixels=min_pixels,
                                 read_delta=lambda rows, cols: delta[rows, cols])
     assert len(merged.polygons) == count
     for i in range(count):
@@ -356,15 +357,15 @@ def test_rasterize_window_pixel_centre_rule(seed):
     holes = [shapely.Point(100 + rng.uniform(2, 18), 200 - rng.uniform(2, 13)).buffer(rng.uniform(0.5, 2), 5)
              for _ in range(4)]
     geom = shapely.union_all(blobs).difference(shapely.union_all(holes))
-    edges = tiles.pixel_edges(geom, transform)
-    whole = tiles.rasterize_window(edges, row0=0, col0=0, shape=shape)
+    edges = win.pixel_edges(geom, transform)
+    whole = win.rasterize_window(edges, row0=0, col0=0, shape=shape)
     rr, cc = np.mgrid[0:shape[0], 0:shape[1]]
     xs, ys = transform @ (cc + 0.5, rr + 0.5)
     inside = shapely.contains_xy(geom, xs, ys)
     near_edge = shapely.distance(geom.boundary, shapely.points(xs, ys)) < 1e-9
     np.testing.assert_array_equal(whole[~near_edge], inside[~near_edge])
-    for r0, c0, h, w in tiles.windows_of(shape, int(rng.integers(5, 30))):
-        np.testing.assert_array_equal(tiles.rasterize_window(edges, row0=r0, col0=c0, shape=(h, w)),
+    for r0, c0, h, w in win.windows_of(shape, int(rng.integers(5, 30))):
+        np.testing.assert_array_equal(win.rasterize_window(edges, row0=r0, col0=c0, shape=(h, w)),
                                       whole[r0:r0 + h, c0:c0 + w])
 
 
@@ -375,7 +376,7 @@ def test_rasterize_matches_gdal_off_the_edges():
     transform = Affine(0.1, 0.0, 0.0, 0.0, -0.1, 10.0)
     geom = shapely.Polygon([(0.33, 0.27), (9.61, 1.13), (8.77, 9.42), (4.04, 6.66), (0.52, 9.71)],
                            [[(3.03, 3.07), (5.11, 3.29), (4.47, 5.02)]])
-    ours = tiles.roof_mask(geom, transform, (100, 100))
+    ours = win.roof_mask(geom, transform, (100, 100))
     gdal = geometry_mask([geom], out_shape=(100, 100), transform=transform, invert=True)
     np.testing.assert_array_equal(ours, gdal)
 
@@ -385,20 +386,20 @@ def test_rasterize_matches_gdal_off_the_edges():
 def test_fast_upsampling_is_bit_identical(row0, col0, shape):
     rng = np.random.default_rng(3)
     grid = rng.normal(10.0, 2.0, (7, 9))
-    fast = tiles.upsample_window_fast(grid, 8, shape=shape, row0=row0, col0=col0)
+    fast = win.upsample_window_fast(grid, 8, shape=shape, row0=row0, col0=col0)
     ref = upsample_window(grid, 8, shape=shape, row0=row0, col0=col0)
     assert fast.dtype == ref.dtype == np.float32
     assert np.array_equal(fast.view(np.uint32), ref.view(np.uint32))
 
 
 def test_tile_size_rounding_and_switch():
-    assert tiles.choose_tile_px(8, 64, (10, 10)) == 64
-    assert tiles.choose_tile_px(8, 3, (10, 10)) == 8  # at least one block
-    assert tiles.choose_tile_px(89, None, (100, 100)) == 0  # small: whole array
-    big = tiles.choose_tile_px(89, None, (20000, 20000))
-    assert big % 89 == 0 and 0.75 * tiles.TILE_TARGET_PX - 89 <= big <= 1.33 * tiles.TILE_TARGET_PX + 89
-    need = math.ceil(20000 / tiles.PREVIEW_MAX_SIDE)
-    assert tiles.preview_factor(big, need) == need  # preview cells never straddle windows
+    assert win.choose_tile_px(8, 64, (10, 10)) == 64
+    assert win.choose_tile_px(8, 3, (10, 10)) == 8  # at least one block
+    assert win.choose_tile_px(89, None, (100, 100)) == 0  # small: whole array
+    big = win.choose_tile_px(89, None, (20000, 20000))
+    assert big % 89 == 0 and 0.75 * win.TILE_TARGET_PX - 89 <= big <= 1.33 * win.TILE_TARGET_PX + 89
+    need = math.ceil(20000 / win.PREVIEW_MAX_SIDE)
+    assert win.preview_factor(big, need) == need  # preview cells never straddle windows
 
 
 def test_unknown_scheduler_is_a_clean_error():
@@ -406,3 +407,40 @@ def test_unknown_scheduler_is_a_clean_error():
 
     with pytest.raises(WetmapError, match="scheduler"):
         tiles.Engine(42)
+
+
+@pytest.mark.parametrize("blocks", [2, 3, 5])
+def test_one_window_equals_many_windows_in_memory(blocks):
+    """The one engine on an array in memory: the whole array as one window and the same array
+    cut into windows of 2, 3 and 5 background blocks give the same regions and statistics, and
+    the same background and delta-T bit for bit (a ramp, two sections, a wet patch with a cool
+    pixel inside, a wet strip across seams, an excluded square and a nodata patch)."""
+    from wetmap.detect import background_grid
+    from wetmap.tiles import detect_array
+
+    rng = np.random.default_rng(3)
+    shape = (150, 190)
+    surface = (5.0 + np.linspace(0.0, 1.0, shape[1])[None, :] + rng.normal(0.0, 0.1, shape)).astype(np.float32)
+    surface[20:60, 30:90] += 2.5
+    surface[40, 50] -= 3.0
+    surface[100:104, 20:180] += 2.0
+    surface[120:130, 10:20] = np.nan
+    usable = np.ones(shape, bool)
+    usable[70:80, 70:80] = False
+    labels = np.zeros(shape, np.int16)
+    labels[:, 95:] = 1
+    kw = dict(pixel_m=0.1, threshold_c=1.0, background_m=4.0, min_area_m2=0.1, labels=labels, names=("A", "B"))
+    one = detect_array(surface, usable, **kw)
+    tile_px = blocks * background_grid(0.1, 4.0).block_px
+    many = detect_array(surface, usable, tile_px=tile_px, **kw)
+    assert len(win.windows_of(shape, tile_px)) > 4
+    assert len(one.pixel_polygons) >= 2 and len(one.pixel_polygons) == len(many.pixel_polygons)
+    assert all(a.equals(b) for a, b in zip(one.pixel_polygons, many.pixel_polygons))
+    np.testing.assert_array_equal(one.pixels, many.pixels)
+    np.testing.assert_allclose(one.delta_mean, many.delta_mean, rtol=0, atol=1e-9)
+    np.testing.assert_array_equal(one.delta_max, many.delta_max)
+    for name in ("background_c", "delta_c", "mask"):
+        np.testing.assert_array_equal(getattr(one.detection, name), getattr(many.detection, name))
+    # and the raster clean-up (the slow reference) agrees with the regions merged across seams
+    assert np.array_equal(one.detection.mask, anomaly_mask(one.detection.delta_c, 1.0,
+                                                           min_pixels=one.detection.min_pixels))

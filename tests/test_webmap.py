@@ -46,14 +46,6 @@ CHROMIUM_FLAGS = (
 
 
 @pytest.fixture(scope="module")
-def sample_run(tmp_path_factory):
-    """The bundled sample run into a temporary folder: ``(result, results folder)``."""
-    out = tmp_path_factory.mktemp("webmap") / "r"
-    result = run_survey(SAMPLE, out=out)
-    return result, out
-
-
-@pytest.fixture(scope="module")
 def local_run(tmp_path_factory):
     """A copy of the sample as a ``local`` plan with a 6 x 5 m hole in its thermal data.
 
@@ -303,7 +295,7 @@ def test_overlay_lines_up_with_the_reprojected_anomalies(sample_run):
     from pyproj import Geod, Transformer
 
     result, _ = sample_run
-    proj = webmap._Projection(result.grid.crs)
+    proj = webmap.Projection(result.grid.crs)
     placed, ((south, west), (north, east)) = webmap._overlay(result.detection.delta_c, result, 1, proj)
     rows, cols = np.nonzero(placed > result.detection.threshold_c)
     to_merc = Transformer.from_crs("EPSG:4326", "EPSG:3857", always_xy=True)
@@ -363,7 +355,7 @@ def test_browser_draws_the_georeferenced_map_offline(sample_run, tmp_path):
 
 def test_browser_draws_a_local_plan_with_its_uncovered_area(local_run, tmp_path):
     result, out = local_run
-    assert result.coverage["uncovered_m2"] == pytest.approx(30.0, abs=1.0)  # the 6 x 5 m hole
+    assert result.coverage.uncovered_m2 == pytest.approx(30.0, abs=1.0)  # the 6 x 5 m hole
     probe, errors = _browse(out / "map.html", tmp_path / "profile")
     assert errors == []
     assert probe["anomalies"] == len(result.anomalies) > 0

@@ -2,7 +2,7 @@
 
 The library never prints and never imports the command-line framework. Start from
 :func:`wetmap.pipeline.run_survey` or the stage modules (``radiometry``, ``detect``,
-``polygons``, ``confirm``, ``quantities``).
+``polygons``, ``verdicts``, ``quantities``; docs/ARCHITECTURE.md draws them all).
 
 An infrared survey shows apparent thermal anomalies, not measured moisture: invasive
 verification (cores) is required before any repair decision.

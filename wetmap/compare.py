@@ -13,7 +13,7 @@ areas counted as wet (``wet`` and ``unverified`` by default) are compared:
 from __future__ import annotations
 
 import json
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Literal
 
@@ -22,12 +22,13 @@ import shapely
 from shapely.geometry import Polygon
 from shapely.geometry.base import BaseGeometry
 
+from .verdicts import STATUSES, counted_statuses
 from .errors import InputFileError, MissingFileError
 
-__all__ = ["ChangeKind", "Change", "Comparison", "compare_areas", "read_counted", "compare_results", "write_change"]
+__all__ = ["ChangeKind", "Change", "Comparison", "compare_areas", "read_counted", "compare_results"]
 
 ChangeKind = Literal["new", "grown", "shrunk", "gone"]
-COUNTED_DEFAULT = ("wet", "unverified")
+COUNTED_DEFAULT = tuple(sorted(counted_statuses(include_unverified=True), key=STATUSES.index))
 
 
 @dataclass(frozen=True)
@@ -162,40 +163,4 @@ def compare_results(old: Path, new: Path, *, counted: tuple[str, ...] = COUNTED_
             f"{new}: roof area {new_roof:.1f} m2 differs from {old}'s {old_roof:.1f} m2 by more than 1 %; "
             "compare surveys drawn on the same plan (same outline and exclusions)"
         )
-    from dataclasses import replace
-
     return replace(compare_areas(old_geoms, new_geoms, min_part_m2=min_part_m2, crs=new_crs), counted=counted)
-
-
-def write_change(comparison: Comparison, out_dir: Path, *, old_name: str = "earlier survey",
-                 new_name: str = "later survey") -> tuple[Path, Path]:
-    """Write ``change.gpkg`` (layer ``change``: kind, area_m2) and ``change.json`` into ``out_dir``,
-    with ``change_map.html`` (offline) and ``change_report.html`` (and ``change_report.pdf``
-    when WeasyPrint is installed) from :mod:`wetmap.export.change`.
-
-    Written through :func:`wetmap.outputs.write_folder`: the other files of ``out_dir`` are
-    carried over and the folder is swapped in one step; ``out_dir`` must be missing, empty
-    or wetmap's own results folder, and not a survey folder.
-    """
-    import geopandas as gpd
-
-    from .outputs import write_folder
-
-    frame = gpd.GeoDataFrame(
-        {"kind": [c.kind for c in comparison.changes], "area_m2": [round(c.area_m2, 4) for c in comparison.changes]},
-        geometry=[c.geometry for c in comparison.changes], crs=comparison.crs,
-    )
-
-    def write(folder: Path) -> None:
-        import warnings
-
-        with warnings.catch_warnings():
-            warnings.filterwarnings("ignore", message="'crs' was not provided")
-            frame.to_file(folder / "change.gpkg", layer="change", driver="GPKG", engine="pyogrio")
-        (folder / "change.json").write_text(json.dumps(comparison.summary(), indent=2) + "\n", encoding="utf-8")
-        from .export.change import write_change_outputs
-
-        write_change_outputs(comparison, folder, old_name=old_name, new_name=new_name, counted=comparison.counted)
-
-    out = write_folder(out_dir, write, keep=None)
-    return out / "change.gpkg", out / "change.json"

@@ -13,7 +13,7 @@ Columns ``id,x,y`` (plan coordinates) and at least one of
   ``dull`` (a void, debonded skin or soft core under the hammer) says wet, like a wet
   reading. ``solid`` is judged dry but is weaker than a core or reading: a well-bonded
   skin over wet core still sounds solid, so a solid sounding never refutes an anomaly on
-  its own (see :attr:`Confirmations.decisive` and :func:`wetmap.confirm.assign_status`).
+  its own (see :attr:`Confirmations.decisive` and :func:`wetmap.verdicts.assign_status`).
 
 Optional columns of the core log: ``layers`` (the build-up found, free text),
 ``thickness_mm`` (thickness of the wet layer removed, millimetres, a number above 0 and

@@ -59,6 +59,11 @@ from scipy.linalg import solve_banded
 from .conditions import SKY_CLOUD_TENTHS, condensation_point_c, frost_point_c, sky_emissivity_clark_allen
 from .errors import ProcessingError, SurveyError
 from .survey import COOLDOWN_DECKS, COOLDOWN_INSULATIONS, Survey
+from .conditions import dew_point_c
+from .outputs import check_out_dir, write_folder
+from .sun import with_sun_times
+from .survey import load_survey
+from .vectors import read_sections
 
 __all__ = [
     "STEFAN_BOLTZMANN",
@@ -632,8 +637,6 @@ class NightWeather:
     @property
     def dew_point_c(self) -> float:
         """Dew point of the night's air (saturation over water), °C."""
-        from .conditions import dew_point_c
-
         return dew_point_c(self.air_c, self.humidity_pct)
 
 
@@ -1055,8 +1058,6 @@ def write_window(plan: WindowPlan, out_dir: str | Path, *, title: str = "Cool-do
     (Path, Path)
         The JSON and PNG paths.
     """
-    from .outputs import write_folder
-
     def write(folder: Path) -> None:
         (folder / WINDOW_FILES[0]).write_text(json.dumps(plan.to_json(), indent=2, ensure_ascii=False) + "\n",
                                               encoding="utf-8")
@@ -1080,11 +1081,6 @@ def run_window(folder: str | Path, *, out: str | Path | None = None) -> tuple[Wi
     -------
     (WindowPlan, Path, Path)
     """
-    from .outputs import check_out_dir
-    from .sun import with_sun_times
-    from .survey import load_survey
-    from .vectors import read_sections
-
     survey = with_sun_times(load_survey(folder))  # sunset and sunrise from place and date when not typed in
     out_dir = Path(out) if out is not None else survey.folder / "results"
     check_out_dir(out_dir, surveys=[survey.folder])  # refused before the model runs

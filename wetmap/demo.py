@@ -41,6 +41,8 @@ True
 
 from __future__ import annotations
 
+import warnings
+import argparse
 import csv
 import json
 import math
@@ -55,6 +57,8 @@ from shapely import affinity
 from shapely.geometry import Polygon, box
 
 from .export.tables import spreadsheet_cell
+from .conditions import estimate_reflected_c
+from .radiometry import apparent_from_surface
 
 __all__ = [
     "RoofScene",
@@ -284,7 +288,6 @@ class RoofScene:
         """
         if self.reflected_c is not None:
             return self.reflected_c
-        from .conditions import estimate_reflected_c
 
         return estimate_reflected_c(self.air_c, self.humidity_pct, self.sky).reflected_c
 
@@ -459,14 +462,11 @@ def render_roof(scene: RoofScene) -> tuple[np.ndarray, RoofTruth]:
     :func:`wetmap.radiometry.apparent_from_surface` (transmittance 1, reflected
     apparent temperature :attr:`RoofScene.reflected_render_c`).
     """
-    from .radiometry import apparent_from_surface
-
     rows, cols = scene.grid_shape
     uv = _scene_uv(scene)
     w, h = scene.size_m
     p = scene.pixel_m
     u = -MARGIN_M + (np.arange(cols) + 0.5) * p  # pixel-centre roof coordinates
-    v = h + MARGIN_M - (np.arange(rows) + 0.5) * p
 
     # Layers, back to front: ground, parapet, roof membrane (with gradient), anomalies.
     background = scene.dry_c + _GRADIENT_C * (0.5 - u / w)  # degC along u, warm over offices
@@ -810,7 +810,6 @@ def render_frame(station: CameraStation, field_c: np.ndarray, field_transform: a
     """
     from scipy import ndimage
 
-    from .radiometry import apparent_from_surface
 
     cols, rows = station.size_px
     g_scene = station.scene_to_image()
@@ -867,8 +866,6 @@ def _pick_points(plan_to_image: np.ndarray, marks_xy: np.ndarray, size_px: tuple
 
 def _write_frame(folder: Path, frame: DemoFrame, *, decimal_comma: bool = False) -> dict:
     """Write one frame file; returns its ``[[frame]]`` items (path, units, scale, offset)."""
-    import warnings
-
     import rasterio
     from rasterio.errors import NotGeoreferencedWarning
 
@@ -1287,8 +1284,6 @@ class HullScene:
     @property
     def reflected_render_c(self) -> float:
         """Reflected temperature used to render: the hull estimate (sky view 0.5), degC."""
-        from .conditions import estimate_reflected_c
-
         return estimate_reflected_c(self.air_c, self.humidity_pct, self.sky, sky_view=0.5).reflected_c
 
     def cameras(self) -> list[CameraStation]:
@@ -1440,8 +1435,6 @@ def main(argv: list[str] | None = None) -> int:
     invented workshop roof surveyed with frames and control points; ``hull`` the invented
     yacht's port side with meter readings.
     """
-    import argparse
-
     parser = argparse.ArgumentParser(
         prog="python -m wetmap.demo",
         description="Write an invented demo survey (invented demo data).",
@@ -1451,7 +1444,7 @@ def main(argv: list[str] | None = None) -> int:
                         help="which invented scene (default: warehouse)")
     parser.add_argument("--imagery-faults", action="store_true",
                         help="walked scene only: plant a blurred frame (f05) and a reflection seen by one frame "
-                             "(f03) for the imagery checks (wetmap.imagery)")
+                             "(f03) for the imagery checks (wetmap.image_checks)")
     args = parser.parse_args(argv)
     if args.imagery_faults and args.scene != "walked":
         parser.error("--imagery-faults applies to --scene walked only")

@@ -20,24 +20,26 @@ when there are none), on a grid of square blocks of ``block_px`` pixels:
      a dry surface that is not smooth but takes a wet area of about its footprint for
      background;
    - ``"auto"``: the trend where the kept blocks lie within the larger of the pixel noise
-     and ``SMOOTH_DELTA_FRACTION * delta_c`` of it, else local; the reason is recorded;
+     and ``SMOOTH_DELTA_FRACTION * threshold_c`` of it, else local; the reason is recorded;
 3. :meth:`BackgroundModel.evaluate` gives every pixel its section's background (the
    polynomial at the pixel centre, or the block grid interpolated bilinearly from block
    centres to pixel centres);
-4. pixels warmer than the background by more than ``max(delta_c / 2, 3 sigma)`` (sigma:
+4. pixels warmer than the background by more than ``max(threshold_c / 2, 3 sigma)`` (sigma:
    the pixel noise, the median over blocks of each block's interquartile range / 1.349,
    measured on the first pass) are left out and steps 1-3 are repeated (three estimates).
 
 Steps 1 and 4 are per block, step 2 on the small block grid and step 3 per pixel from the
-model, so the windowed engine (:mod:`wetmap.tiles`) computes the block statistics in
-windows that start at multiples of the block size, fits the same model with the same
-functions and gets the same background, bit for bit, as the whole array.
+model, so the one detection engine (:mod:`wetmap.tiles`: one window for an array in
+memory, :func:`wetmap.tiles.detect_array`; many for large mosaics) computes the block
+statistics in windows that start at multiples of the block size and fits the model with
+the functions of this module: the background is the same, bit for bit, whatever the
+windows.
 
 A smoothed (mean or Gaussian) background is pulled up by large warm areas and loses
 detections; a full-resolution median filter metres wide costs thousands of seconds per
 megapixel: block medians are both robust and cheap.
 
-Thresholding is separate from computing the threshold: ``delta > delta_c`` on usable
+Thresholding is separate from computing the threshold: ``delta > threshold_c`` on usable
 pixels, then regions smaller than the minimum area are dropped and holes up to it are
 filled, unless a hole holds an unusable pixel (an excluded drain, missing data).
 :func:`edge_flags` names the likely cause of anomalies that hug the roof edge or ring an
@@ -51,6 +53,7 @@ from dataclasses import dataclass
 from typing import Literal
 
 import numpy as np
+import shapely
 from scipy import ndimage
 
 from .polygons import fill_small_holes, remove_small_regions
@@ -59,10 +62,8 @@ __all__ = [
     "BackgroundGrid",
     "background_grid",
     "default_background_m",
-    "dry_background",
     "anomaly_mask",
     "Detection",
-    "detect_anomalies",
     "BACKGROUND_CHOICES",
     "TrendFit",
     "fit_trend",
@@ -72,7 +73,6 @@ __all__ = [
     "section_block_statistics",
     "fit_background",
     "core_blocks",
-    "estimate_background",
     "EDGE_BAND_M",
     "EDGE_FLAG",
     "UNIT_FLAG",
@@ -208,18 +208,18 @@ def smooth_block_grid(median: np.ndarray, footprint: int) -> np.ndarray:
     return ndimage.median_filter(_fill_nearest(median), size=footprint, mode="nearest")
 
 
-def noise_sigma(sigma: np.ndarray) -> float:
+def block_noise_sigma(sigma: np.ndarray) -> float:
     """The survey's pixel noise, degC: the median of the blocks' robust spreads (0 if none)."""
     finite = sigma[np.isfinite(sigma)]
     return float(np.median(finite)) if finite.size else 0.0
 
 
-def warm_cut(delta_c: float, sigma: float) -> float:
+def warm_cut(threshold_c: float, sigma: float) -> float:
     """Pixels warmer than the background by more than this are left out of the next estimate."""
-    return max(0.5 * delta_c, 3.0 * sigma)
+    return max(0.5 * threshold_c, 3.0 * sigma)
 
 
-def _interp_axis(start: int, n_out: int, n_in: int, block: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+def interp_axis(start: int, n_out: int, n_in: int, block: int) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Bilinear weights from block centres to pixel centres ``start .. start + n_out - 1``."""
     u = (np.arange(start, start + n_out) + 0.5) / block - 0.5
     u = np.clip(u, 0.0, n_in - 1)
@@ -250,8 +250,8 @@ def upsample_window(grid: np.ndarray, block: int, *, shape: tuple[int, int], row
         float32 ``shape``.
     """
     rows, cols = shape
-    r0, r1, wr = _interp_axis(row0, rows, grid.shape[0], block)
-    c0, c1, wc = _interp_axis(col0, cols, grid.shape[1], block)
+    r0, r1, wr = interp_axis(row0, rows, grid.shape[0], block)
+    c0, c1, wc = interp_axis(col0, cols, grid.shape[1], block)
     g = grid.astype(np.float32)
     by_row = g[r0] * (1 - wr)[:, None] + g[r1] * wr[:, None]  # (rows, block cols)
     out = np.empty(shape, dtype=np.float32)
@@ -282,7 +282,7 @@ TREND_MIN_BLOCKS: dict[int, int] = {1: 6, 2: 30}
 #: A quadric replaces the plane only when it shrinks the kept blocks' spread by this factor.
 TREND_DEGREE_GAIN = 0.8
 #: Auto choice: the trend is used when the kept blocks lie within
-#: ``max(pixel noise, SMOOTH_DELTA_FRACTION * delta_c)`` (robust spread) of it.
+#: ``max(pixel noise, SMOOTH_DELTA_FRACTION * threshold_c)`` (robust spread) of it.
 SMOOTH_DELTA_FRACTION = 0.1
 #: Normal-consistency factor of the median absolute deviation (1 / 0.6745).
 MAD_TO_SIGMA = 1.4826
@@ -377,7 +377,7 @@ def _quantile_start(x: np.ndarray, y: np.ndarray, tau: float, iterations: int = 
     return beta
 
 
-def fit_trend(values_c: np.ndarray, rows_px: np.ndarray, cols_px: np.ndarray, *, delta_c: float,
+def fit_trend(values_c: np.ndarray, rows_px: np.ndarray, cols_px: np.ndarray, *, threshold_c: float,
               wet: np.ndarray | None = None, dry: np.ndarray | None = None,
               max_degree: int = TREND_MAX_DEGREE, iterations: int = 40) -> TrendFit | None:
     """Fit a dry surface to block medians, knowing that wet only warms.
@@ -392,7 +392,7 @@ def fit_trend(values_c: np.ndarray, rows_px: np.ndarray, cols_px: np.ndarray, *,
        on a warm patch of another cause never raises it);
     2. asymmetric trimming: the dry spread ``s`` is measured on the cold side
        (MAD x 1.4826 of the blocks below the surface); blocks more than
-       ``min(3 s, delta_c / 2)`` above the surface are wet candidates and left out, blocks
+       ``min(3 s, threshold_c / 2)`` above the surface are wet candidates and left out, blocks
        below count fully; least squares on the kept blocks; repeated until the kept set
        stops changing;
     3. of the planes the starts converge to, the one whose kept blocks scatter least (wet
@@ -407,7 +407,7 @@ def fit_trend(values_c: np.ndarray, rows_px: np.ndarray, cols_px: np.ndarray, *,
         Block medians, degC, ``(n,)`` (finite).
     rows_px, cols_px
         Centres of those blocks in pixel coordinates, ``(n,)``.
-    delta_c
+    threshold_c
         The detection threshold, degC (caps the warm cut at half of it).
     wet, dry
         Bool ``(n,)``: blocks holding a wet core (left out) / a dry core (anchor the start).
@@ -436,7 +436,7 @@ def fit_trend(values_c: np.ndarray, rows_px: np.ndarray, cols_px: np.ndarray, *,
     scale = (max(0.5 * (r_hi - r_lo), 1.0), max(0.5 * (c_hi - c_lo), 1.0))
     v = (rows_px - centre[0]) / scale[0]
     u = (cols_px - centre[1]) / scale[1]
-    cap = 0.5 * delta_c
+    cap = 0.5 * threshold_c
 
     def trim(degree: int, fitted: np.ndarray, among: np.ndarray) -> tuple[np.ndarray, np.ndarray, float]:
         """Asymmetric trimming from ``fitted`` (values at every block) over the blocks ``among``."""
@@ -675,7 +675,7 @@ def section_block_statistics(values: np.ndarray, usable: np.ndarray, labels: np.
 
 
 def fit_background(median: np.ndarray, *, block_px: int, grid_shape: tuple[int, int], footprint: int,
-                   delta_c: float, noise_c: float, names: tuple[str, ...], choice: str = "auto",
+                   threshold_c: float, noise_c: float, names: tuple[str, ...], choice: str = "auto",
                    fallback_c: np.ndarray | None = None, previous: BackgroundModel | None = None,
                    wet_blocks: np.ndarray | None = None, dry_blocks: np.ndarray | None = None) -> BackgroundModel:
     """The background model of every section from its block medians (pure, on the block grid).
@@ -688,15 +688,15 @@ def fit_background(median: np.ndarray, *, block_px: int, grid_shape: tuple[int, 
         Block size and the whole grid's ``(rows, cols)`` (block centres in pixel coordinates).
     footprint
         Median-filter footprint of the local method, blocks (odd).
-    delta_c
+    threshold_c
         Detection threshold, degC.
     noise_c
-        Pixel noise, degC (:func:`noise_sigma` of the first estimate).
+        Pixel noise, degC (:func:`block_noise_sigma` of the first estimate).
     names
         Section names, one per label.
     choice
         ``"auto"``: per section, the trend when its kept blocks lie within
-        ``max(noise_c, SMOOTH_DELTA_FRACTION * delta_c)`` of it, else the local method;
+        ``max(noise_c, SMOOTH_DELTA_FRACTION * threshold_c)`` of it, else the local method;
         ``"trend"`` / ``"local"``: that method for every section.
     fallback_c
         Per section, the median of its usable pixels, degC (used when no block has a median;
@@ -709,7 +709,7 @@ def fit_background(median: np.ndarray, *, block_px: int, grid_shape: tuple[int, 
     """
     rows_px, cols_px = block_centres(grid_shape, block_px)
     out: list[SectionBackground] = []
-    limit = max(noise_c, SMOOTH_DELTA_FRACTION * delta_c)
+    limit = max(noise_c, SMOOTH_DELTA_FRACTION * threshold_c)
     for g, name in enumerate(names):
         m = median[g]
         finite = np.isfinite(m)
@@ -729,7 +729,7 @@ def fit_background(median: np.ndarray, *, block_px: int, grid_shape: tuple[int, 
         dry = None if dry_blocks is None else dry_blocks[g][finite]
         trend = None
         if choice != "local":
-            trend = fit_trend(m[finite], rows_px[br], cols_px[bc], delta_c=delta_c, wet=wet, dry=dry)
+            trend = fit_trend(m[finite], rows_px[br], cols_px[bc], threshold_c=threshold_c, wet=wet, dry=dry)
         if choice == "local":
             method, reason = "local", '[detect] background = "local"'
         elif trend is None:
@@ -784,86 +784,6 @@ def section_medians(values: np.ndarray, usable: np.ndarray, labels: np.ndarray |
     return out
 
 
-def estimate_background(surface_c: np.ndarray, usable: np.ndarray, *, pixel_m: float, background_m: float,
-                        delta_c: float, iterations: int = 3, labels: np.ndarray | None = None,
-                        names: tuple[str, ...] = ("roof",), choice: str = "auto",
-                        cores: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None) -> BackgroundModel:
-    """The dry-background model of the whole array (the windowed engine computes the same).
-
-    Parameters
-    ----------
-    surface_c
-        Surface temperature, degC, shape ``(rows, cols)``; NaN where unknown.
-    usable
-        Bool ``(rows, cols)``: pixels on the roof, outside exclusions, with data.
-    pixel_m
-        Pixel side, metres.
-    background_m
-        Scale of the local method (about the median footprint), metres; also sets the block size.
-    delta_c
-        The detection threshold, degC (sets the warm-outlier cut).
-    iterations
-        Estimate / exclude warm pixels / re-estimate, this many estimates in all.
-    labels
-        Section label of every pixel (int, ``0 .. len(names) - 1``), or ``None``: one section.
-    names
-        Section names, one per label.
-    choice
-        ``"auto"``, ``"trend"`` or ``"local"`` (see :func:`fit_background`).
-    cores
-        ``(rows_px, cols_px, wet)`` of the confirmations (pixel indices, judgement), or ``None``.
-    """
-    usable = usable & np.isfinite(surface_c)
-    spec = background_grid(pixel_m, background_m)
-    count = len(names)
-    block = spec.block_px
-    shape = surface_c.shape
-    block_shape = (-(-shape[0] // block), -(-shape[1] // block))
-    wet_b = dry_b = None
-    if cores is not None and len(cores[0]):
-        r, c, w = (np.asarray(a) for a in cores)
-        inside = (r >= 0) & (r < shape[0]) & (c >= 0) & (c < shape[1])
-        lab = np.full(len(r), -1)
-        lab[inside] = 0 if labels is None else labels[r[inside], c[inside]]
-        wet_b, dry_b = core_blocks(r, c, lab, w, count=count, block=block, block_shape=block_shape)
-    fallback = None
-    keep = usable
-    model: BackgroundModel | None = None
-    cut = noise = 0.0
-    for estimate in range(max(1, iterations)):
-        median, sigma = section_block_statistics(surface_c, keep, labels, count, block)
-        if model is None:  # the noise is measured once, on the first (all usable) pass
-            noise = noise_sigma(sigma)
-            cut = warm_cut(delta_c, noise)
-            if not np.isfinite(median).reshape(count, -1).any(axis=1).all():
-                fallback = section_medians(surface_c, usable, labels, count)
-        model = fit_background(median, block_px=block, grid_shape=shape, footprint=spec.footprint,
-                               delta_c=delta_c, noise_c=noise, names=names, choice=choice, fallback_c=fallback,
-                               previous=model, wet_blocks=wet_b, dry_blocks=dry_b)
-        if estimate == max(1, iterations) - 1:
-            break
-        background = model.evaluate(labels, shape=shape)
-        keep = usable & ~(surface_c - background > cut)
-    assert model is not None  # the first estimate always sets it
-    return model
-
-
-def dry_background(surface_c: np.ndarray, usable: np.ndarray, *, pixel_m: float, background_m: float,
-                   delta_c: float, iterations: int = 3, labels: np.ndarray | None = None,
-                   names: tuple[str, ...] = ("roof",), choice: str = "auto",
-                   cores: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None) -> np.ndarray:
-    """Robust dry-background temperature at every pixel (:func:`estimate_background`, evaluated).
-
-    Returns
-    -------
-    numpy.ndarray
-        float32 ``(rows, cols)`` background in degC; NaN where a section has no usable pixel.
-    """
-    model = estimate_background(surface_c, usable, pixel_m=pixel_m, background_m=background_m, delta_c=delta_c,
-                                iterations=iterations, labels=labels, names=names, choice=choice, cores=cores)
-    return model.evaluate(labels, shape=surface_c.shape)
-
-
 def anomaly_mask(delta_c: np.ndarray, threshold_c: float, *, min_pixels: int) -> np.ndarray:
     """Apply the threshold: ``delta > threshold_c``, small regions dropped, small holes filled.
 
@@ -893,46 +813,6 @@ class Detection:
     min_pixels: int
     background: BackgroundModel | None = None
     """The dry-background model per section (method, reason, trend)."""
-
-
-def detect_anomalies(surface_c: np.ndarray, usable: np.ndarray, *, pixel_m: float, delta_c: float,
-                     background_m: float, min_area_m2: float, labels: np.ndarray | None = None,
-                     names: tuple[str, ...] = ("roof",), choice: str = "auto",
-                     cores: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None,
-                     threshold_c: float | None = None) -> Detection:
-    """Background, delta and cleaned anomaly mask.
-
-    Parameters
-    ----------
-    surface_c
-        Surface temperature, degC, ``(rows, cols)``.
-    usable
-        Pixels on the roof, outside exclusions, with data.
-    pixel_m
-        Pixel side, metres.
-    delta_c
-        Threshold above the dry background, degC (also sets the background's warm cut).
-    background_m
-        Background scale, metres.
-    min_area_m2
-        Smallest anomaly kept, square metres (also the largest hole filled).
-    labels, names, choice, cores
-        Sections and the background choice (:func:`estimate_background`).
-    threshold_c
-        Threshold applied when it differs from ``delta_c`` (a threshold taken from the cores
-        after a background estimated with ``delta_c``); ``None``: ``delta_c``.
-    """
-    usable = usable & np.isfinite(surface_c)
-    model = estimate_background(surface_c, usable, pixel_m=pixel_m, background_m=background_m, delta_c=delta_c,
-                                labels=labels, names=names, choice=choice, cores=cores)
-    background = model.evaluate(labels, shape=surface_c.shape)
-    delta = surface_c - background
-    delta[~usable] = np.nan
-    min_pixels = max(1, int(math.ceil(min_area_m2 / (pixel_m * pixel_m) - 1e-9)))
-    threshold = delta_c if threshold_c is None else threshold_c
-    mask = anomaly_mask(delta, threshold, min_pixels=min_pixels)
-    return Detection(background_c=background, delta_c=delta, mask=mask, background_m=background_m,
-                     threshold_c=threshold, min_pixels=min_pixels, background=model)
 
 
 # --------------------------------------------------------------------------------------
@@ -983,8 +863,6 @@ def edge_flags(polygons, *, outline, exclusions, band_m: float = EDGE_BAND_M,
     ...            exclusions=shapely.Polygon())
     [('edge band',), ()]
     """
-    import shapely
-
     polys = np.asarray(list(polygons), dtype=object)
     out: list[tuple[str, ...]] = [() for _ in range(len(polys))]
     if not len(polys):

@@ -26,6 +26,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Sequence
 
 import numpy as np
+import shapely
 
 if TYPE_CHECKING:
     from shapely.geometry.base import BaseGeometry
@@ -214,8 +215,6 @@ def nearest_anomalies(photos: Sequence[Photo], geometries: Sequence["BaseGeometr
     >>> nearest_anomalies([p], [box(0, 0, 1, 1), box(6, 0, 7, 1)])
     [(1, 1.0)]
     """
-    import shapely
-
     if not len(geometries):
         return [(-1, math.nan) for _ in photos]
     geoms = np.asarray(list(geometries), dtype=object)

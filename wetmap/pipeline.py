@@ -12,290 +12,57 @@ from __future__ import annotations
 
 import logging
 from collections.abc import Callable
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, replace
 from pathlib import Path
 from typing import Any
 
 import numpy as np
 import shapely
+from pyproj import CRS
 from shapely.geometry import Polygon
 from shapely.geometry.base import BaseGeometry
 
-from . import __version__
-from .confirm import (AreaRange, Status, SuggestedCore, ThresholdCheck, Verdicts, assign_status,
-                      sample_at_points, suggest_cores, threshold_check, wet_area_range)
+from .conditions import check_conditions, estimate_reflected_c
+from .verdicts import (ThresholdCheck, Verdicts, assign_status, counted_statuses, sample_at_points, suggest_cores,
+                      threshold_check, wet_area_range)
 from .confirmations import Confirmations
-from .detect import (EDGE_FLAG, UNIT_FLAG, Detection, anomaly_mask, background_warnings, default_background_m,
-                     detect_anomalies, edge_flags, large_share)
-from .errors import InputFileError, ProcessingError, SurveyError
+from .cooldown import plan_survey_window
+from .detect import EDGE_FLAG, UNIT_FLAG, Detection, background_warnings, default_background_m, edge_flags
+from .errors import InputFileError, ProcessingError, SurveyError, WetmapError
+from .export import cad, gis, report, tables, webmap
+from .frames import read_frame
+from .image_checks import ImageryReport, assess_imagery, frame_views
 from .outputs import replacing
 from .passes import PassComparison, align_to_grid, choose_primary, compare_passes, group_passes, pass_contrast_c
-from .polygons import SIMPLIFY_TOLERANCE_PX, RegionStats, label_regions, polygonize, region_stats, simplify_outlines
-from .quantities import BoardTakeoff, Quantities, SectionTotals, compute_quantities, largest_overlap
+from .polygons import SIMPLIFY_TOLERANCE_PX, RegionStats, label_regions, simplify_outlines
+from .prework import prepare_survey
+from .quantities import Quantities, compute_quantities, largest_overlap
+from .radiometry import (Radiometry, apparent_from_surface, atmospheric_transmittance, section_emissivity_correction,
+                         surface_from_apparent, to_surface_k)
 from .rasters import PlanGrid, inspect_raster, plan_grid_for, read_onto_grid
-from .register import SUSPECT_MIN_PX, FrameReport, Registration
+from .register import (GIRTH_STRETCH_MAX, MAX_VIEW_ANGLE_DEG, SUSPECT_MIN_PX, FrameReport, Registration,
+                       blend_frames, choose_pixel_m, frame_gsd_m, fresnel_emissivity, girth_stretch, placement_ranks,
+                       register_points, resample_frame)
+from .results import (OUTSIDE_SECTIONS, RESULT_FILES, Anomaly, CoresThreshold, Coverage, SurveyResult, area_word,
+                      large_wet_shares)
 from .sun import with_sun_times
-from .survey import Survey, load_survey
-from .tiles import FullRasters, WindowProgress, detect_in_windows
+from .survey import Limits, Survey, load_survey
+from .tiles import TiledDetection, WindowProgress, detect_array, detect_in_windows
+from .windows import pixel_edges, roof_mask, section_label_raster
 from .vectors import Section
 from .wording import wording_of
 
-__all__ = ["Anomaly", "SurveyResult", "process_survey", "write_results", "run_survey", "check_survey", "RESULT_FILES"]
+__all__ = ["process_survey", "write_results", "run_survey", "check_survey",
+           "Plan", "plan_stage", "OnGrid", "imagery_stage", "Found", "detection_stage", "Judged", "verdict_stage",
+           "image_check_stage", "anomalies_of", "quantity_stage",
+           # the result model, importable from here too (wetmap.results)
+           "Anomaly", "SurveyResult", "RESULT_FILES"]
 
 log = logging.getLogger(__name__)
 
 Progress = Callable[[str], None]
 
-#: Files every run writes (map.html and report.html are added by their exporters).
-RESULT_FILES = (
-    "summary.json",
-    "anomalies.gpkg",
-    "anomalies.geojson",
-    "repair.gpkg",
-    "repair.dxf",
-    "quantities.csv",
-    "bill.csv",
-    "takeoff.xlsx",
-    "surface_c.tif",
-    "delta_c.tif",
-)
 
-
-@dataclass(frozen=True)
-class Anomaly:
-    """One anomaly polygon with its attributes (names as in the output format)."""
-
-    id: int
-    geometry: Polygon
-    """The outline simplified within :data:`wetmap.polygons.SIMPLIFY_TOLERANCE_PX` of a pixel
-    (what the repair margin, the files, the map and the report draw); ``area_m2`` and
-    ``perimeter_m`` are measured on the exact outline."""
-    status: Status
-    area_m2: float
-    perimeter_m: float
-    delta_mean_c: float
-    delta_max_c: float
-    confirmations: tuple[str, ...]
-    section: str | None
-    flags: str = ""
-    """Imagery flags (``"; "``-separated): ``reflection suspect``, ``under-resolved`` (:mod:`wetmap.imagery`)."""
-    exact: Polygon | None = None
-    """The exact outline ``area_m2``, ``perimeter_m`` and the imagery checks are measured on
-    (``geometry`` is its simplified copy); ``None``: ``geometry`` is exact."""
-
-
-@dataclass(frozen=True)
-class Radiometry:
-    """How apparent temperature was turned into surface temperature."""
-
-    band_um: tuple[float, float]
-    emissivity: float
-    reflected_c: float
-    reflected_source: str
-    transmittance: float
-    transmittance_source: str
-    atmosphere_c: float
-
-
-@dataclass(frozen=True)
-class SurveyResult:
-    """Everything a run computed; exporters read only this."""
-
-    survey: Survey
-    grid: PlanGrid
-    surface_c: np.ndarray
-    detection: Detection
-    outline: BaseGeometry
-    exclusions: BaseGeometry
-    roof: BaseGeometry
-    sections: tuple[Section, ...]
-    anomalies: tuple[Anomaly, ...]
-    confirmations: Confirmations
-    verdicts: Verdicts
-    confirmation_delta_c: np.ndarray
-    repair: BaseGeometry
-    takeoff: BoardTakeoff
-    section_totals: tuple[SectionTotals, ...]
-    radiometry: Radiometry
-    coverage: dict[str, float]
-    warnings: tuple[str, ...] = field(default_factory=tuple)
-    passes: PassComparison | None = None
-    """Several passes of one night compared (``None`` for a single pass)."""
-    quantities: Quantities | None = None
-    """The whole quantities step (outside-sections figures, board sections, bill)."""
-    threshold: ThresholdCheck | None = None
-    """The chosen threshold against the confirmations."""
-    area_range: AreaRange | None = None
-    """The counted wet area with its range."""
-    suggested_cores: tuple[SuggestedCore, ...] = ()
-    """Where one more core is worth most."""
-    registration: tuple[FrameReport, ...] = ()
-    """Registration figures of each ``[[frame]]`` of the primary pass."""
-    full_rasters: FullRasters | None = None
-    """Processed in windows (:mod:`wetmap.tiles`): the full-resolution ``surface_c.tif`` and
-    ``delta_c.tif`` on disk and the full grid. ``grid``, ``surface_c`` and ``detection``'s
-    arrays are then a preview (block means, :data:`wetmap.tiles.PREVIEW_MAX_SIDE`); the
-    anomalies and their statistics are exact. ``None``: the whole array is in memory."""
-    imagery: Any = None
-    """Resolution, focus, reflection and display-range findings (:class:`wetmap.imagery.ImageryReport`)."""
-    cores_threshold: Any = None
-    """``[detect] delta_c = "cores"``: the range the cores allowed and the threshold taken (:class:`CoresThreshold`)."""
-    section_checks: tuple = ()
-    """``(section name, ThresholdCheck)``: the threshold against the cores inside each section."""
-
-    def summary(self) -> dict[str, Any]:
-        """The ``summary.json`` content (areas in m2)."""
-        by: dict[str, float] = {"wet": 0.0, "dry": 0.0, "unverified": 0.0}
-        for a in self.anomalies:
-            by[a.status] += a.area_m2
-        roof_area = self.roof.area
-        wet = by["wet"] + by["unverified"]
-        d, s = self.detection, self.survey
-        bg = self.background_entries()
-        return {
-            "title": s.survey.title,
-            "kind": s.survey.kind,
-            "crs": s.survey.crs,
-            "side": s.survey.side,
-            "area_label": _area_word(s),
-            **({"plan_axes": dict(HULL_AXES)} if s.survey.kind == "hull" else {}),
-            "roof_area_m2": round(roof_area, 4),
-            "anomaly_count": len(self.anomalies),
-            "wet_area_m2": round(wet, 4),
-            "confirmed_wet_area_m2": round(by["wet"], 4),
-            "unverified_area_m2": round(by["unverified"], 4),
-            "confirmed_dry_area_m2": round(by["dry"], 4),
-            "wet_fraction": round(wet / roof_area, 6) if roof_area > 0 else 0.0,
-            "repair_area_m2": round(self.repair.area, 4),
-            "boards": self.takeoff.count,
-            "boards_range": list(self.takeoff.count_range) if self.takeoff.count_range is not None else None,
-            "board_area_m2": round(self.takeoff.board_area_m2, 4),
-            "tearoff_area_m2": round(self.takeoff.tearoff_area_m2, 4),
-            **self._quantity_entries(),
-            "warnings": list(self.warnings),
-            **({"passes": self.passes.summary()} if self.passes is not None else {}),
-            **self._calibration_entries(),
-            **({"imagery": self.imagery.as_dict(),
-                "reflection_suspect": [r.as_dict() for r in self.imagery.reflections]}
-               if self.imagery is not None else {}),
-            "sections": [
-                {**{k: (round(v, 4) if isinstance(v, float) else v) for k, v in vars(t).items()},
-                 **({"background": bg[t.name]["method"]} if t.name in bg else {})}
-                for t in self.section_totals
-            ],
-            "background": list(bg.values()),
-            "large_wet_share": [{"where": w, "wet_fraction": round(f, 6)}
-                                for w, f in large_wet_shares(self.quantities, s)],
-            "coverage": {k: round(v, 4) for k, v in self.coverage.items()},
-            "registration": [r.as_dict() for r in self.registration],
-            "confirmations": {
-                "count": len(self.confirmations),
-                "wet": int(self.confirmations.wet.sum()),
-                "dry": int((~self.confirmations.wet).sum()),
-                "outside_anomalies": int((self.verdicts.anomaly_of < 0).sum()),
-            },
-            "method": {
-                "band_um": list(self.radiometry.band_um),
-                "emissivity": self.radiometry.emissivity,
-                **({"section_emissivity": {sec.name: sec.emissivity for sec in self.sections
-                                           if sec.emissivity is not None}}
-                   if any(sec.emissivity is not None for sec in self.sections) else {}),
-                "reflected_c": round(self.radiometry.reflected_c, 3),
-                "reflected_source": self.radiometry.reflected_source,
-                "reflected_estimated": not self.radiometry.reflected_source.startswith("measured"),
-                "transmittance": round(self.radiometry.transmittance, 5),
-                "transmittance_source": self.radiometry.transmittance_source,
-                "delta_c": d.threshold_c,
-                "delta_c_source": ("the middle of the range the cores allow" if self.cores_threshold is not None
-                                   else "[detect] delta_c"),
-                **({"delta_c_cores": {"dry_max_c": self.cores_threshold.low_c, "wet_min_c": self.cores_threshold.high_c,
-                                      "wet_cores": self.cores_threshold.wet, "dry_cores": self.cores_threshold.dry}}
-                   if self.cores_threshold is not None else {}),
-                "background": s.detect.background,
-                "background_m": round(d.background_m, 3),
-                "min_area_m2": s.detect.min_area_m2,
-                "pixel_m": (self.full_rasters.grid if self.full_rasters is not None else self.grid).pixel_m,
-                "pixel_m_source": _pixel_source(s),
-                "perimeter": "length of the smoothed outline (mid-edge rule), not the pixel staircase",
-                "margin_m": s.repair.margin_m,
-                "board_m": list(s.repair.board_m) if s.repair.board_m else None,
-                "include_unverified": s.repair.include_unverified,
-                "board_angle_deg": round(self.takeoff.angle_deg, 6) if s.repair.board_m else None,
-                "board_origin": [round(v, 4) for v in self.takeoff.origin_xy] if s.repair.board_m else None,
-                "board_origin_rule": self.takeoff.origin_rule if s.repair.board_m else None,
-                "replace_above_pct": s.repair.replace_above_pct,
-                "area_units": list(s.repair.area_units),
-                "processing": self._processing(),
-            },
-            "wetmap_version": __version__,
-        }
-
-    def background_entries(self) -> dict[str, dict[str, Any]]:
-        """The dry background of each section (method, reason, trend figures), by section name.
-
-        The rest of the roof outside every section is listed only when it has thermal data.
-        """
-        model = getattr(self.detection, "background", None)
-        if model is None:
-            return {}
-        return {e.name: e.as_dict() for e in model.sections
-                if not (e.method == "none" and e.name == OUTSIDE_SECTIONS)}
-
-    def _processing(self) -> dict[str, Any]:
-        """summary.json ``method.processing``: whole array, or windows and what used the preview."""
-        if self.full_rasters is None:
-            return {"mode": "whole array"}
-        return {**self.full_rasters.as_dict(),
-                "preview": (f"block means of {self.full_rasters.preview_factor} x {self.full_rasters.preview_factor} "
-                            "pixels: the wet-area range, the suggested boundary cores, the figures and the map "
-                            "overlays; anomalies, their statistics, confirmation delta-T and the rasters are full "
-                            "resolution")}
-
-    def _calibration_entries(self) -> dict[str, Any]:
-        """summary.json entries of the threshold check, the area range and the suggested cores."""
-        out: dict[str, Any] = {}
-        if self.area_range is not None:
-            r = self.area_range
-            out["wet_area_range_m2"] = [round(r.low_m2, 4), round(r.high_m2, 4)]
-            out["wet_area_range"] = {
-                "likely_m2": round(r.likely_m2, 4), "low_m2": round(r.low_m2, 4), "high_m2": round(r.high_m2, 4),
-                "threshold_low_c": r.threshold_low_c, "threshold_high_c": r.threshold_high_c,
-                "geometric_m2": round(r.geometric_m2, 4),
-            }
-        if self.section_checks:
-            out["threshold_check_by_section"] = [
-                {"section": name, "range_c": [t.low_c, t.high_c], "range_bounded_by": list(t.bounded_by),
-                 "separable": t.separable, "confusion": t.confusion, "misclassified": list(t.misclassified),
-                 "wet_cores": t.n_wet, "dry_cores": t.n_dry}
-                for name, t in self.section_checks]
-        if self.threshold is not None:
-            t = self.threshold
-            out["threshold_check"] = {
-                "chosen_c": t.chosen_c, "range_c": [t.low_c, t.high_c], "range_bounded_by": list(t.bounded_by),
-                "errors_at_best": t.errors, "separable": t.separable, "confusion": t.confusion,
-                "misclassified": list(t.misclassified), "wet_cores": t.n_wet, "dry_cores": t.n_dry,
-            }
-        out["suggested_cores"] = [
-            {"x": c.x, "y": c.y, "kind": c.kind, "anomaly": c.anomaly, "reason": c.reason}
-            for c in self.suggested_cores
-        ]
-        return out
-
-    def _quantity_entries(self) -> dict[str, Any]:
-        """summary.json entries of the quantities step (areas m2, lengths m)."""
-        q = self.quantities
-        if q is None:
-            return {}
-        out: dict[str, Any] = {"repair_perimeter_m": round(q.repair_perimeter_m, 4), "replace_flag": q.replace_flag}
-        if q.outside is not None:
-            out["outside_sections"] = {k: (round(v, 4) if isinstance(v, float) else v)
-                                       for k, v in vars(q.outside).items() if k not in ("assembly", "insulation")}
-        out["bill"] = q.bill.as_dict()
-        return out
-
-
-#: What plan x and y mean on a hull side (``summary.json`` ``plan_axes``).
-HULL_AXES = (("x", "station (m along the hull)"), ("y", "girth (m up from the keel)"))
 
 
 def _sounding_notes(conf: Confirmations, verdicts: Verdicts) -> list[str]:
@@ -320,19 +87,6 @@ def _sounding_notes(conf: Confirmations, verdicts: Verdicts) -> list[str]:
     return notes
 
 
-def _area_word(survey: Survey) -> str:
-    """``"roof"``, or ``"hull side"`` (with its side when given): the surveyed area in words."""
-    return wording_of(survey).area
-
-
-def _pixel_source(survey: Survey) -> str:
-    if survey.plan.pixel_m is not None:
-        return "[plan] pixel_m"
-    if survey.mosaics:
-        return "the finest mosaic's pixel size"
-    return "the frames' median ground sampling distance, rounded down (1-1.5-2-2.5-3-4-5-6-8 series)"
-
-
 def _emit(progress: Progress | None, message: str) -> None:
     log.info(message)
     if progress is not None:
@@ -344,9 +98,6 @@ def _union(geoms) -> BaseGeometry:
 
 
 def _radiometry(survey: Survey, warnings: list[str]) -> Radiometry:
-    from .conditions import estimate_reflected_c
-    from .radiometry import atmospheric_transmittance
-
     cond, cam = survey.conditions, survey.camera
     if cond.reflected_c is not None:
         reflected, source = cond.reflected_c, "measured (as entered in [conditions] reflected_c)"
@@ -370,43 +121,8 @@ def _radiometry(survey: Survey, warnings: list[str]) -> Radiometry:
 
 def _mask_of(geoms: BaseGeometry, grid: PlanGrid) -> np.ndarray:
     """Pixels whose centre lies inside ``geoms`` (the pixel-centre rule, computed as every window of
-    :mod:`wetmap.tiles` computes it, so whole-array and windowed runs give the same pixels)."""
-    from .tiles import roof_mask
-
+    :mod:`wetmap.windows` computes it, so whole-array and windowed runs give the same pixels)."""
     return roof_mask(geoms, grid.transform, grid.shape)
-
-
-def section_emissivity_correction(surface_k: np.ndarray, apparent_k: np.ndarray, labels: np.ndarray | None,
-                                  sections, radiometry: Radiometry) -> np.ndarray:
-    """Surface temperature (K) of each section with its own ``emissivity`` (sections.geojson),
-    from the apparent temperature (K); other pixels keep ``surface_k``. ``labels`` as
-    :func:`wetmap.tiles.section_labels` (label ``k`` = ``sections[k]``)."""
-    if labels is None:
-        return surface_k
-    for k, sec in enumerate(sections):
-        if sec.emissivity is None or sec.emissivity == radiometry.emissivity:
-            continue
-        sel = labels == k
-        if sel.any():
-            surface_k[sel] = _to_surface_k(apparent_k[sel], replace(radiometry, emissivity=sec.emissivity))
-    return surface_k
-
-
-def _to_surface_k(apparent_k: np.ndarray, radiometry: Radiometry) -> np.ndarray:
-    """Apparent -> surface temperature, K: the measurement equation inverted (NaN stays NaN).
-
-    The same call for mosaics (on the plan grid) and frames (per frame, before resampling).
-    """
-    from .radiometry import surface_from_apparent
-
-    return surface_from_apparent(
-        apparent_k,
-        emissivity=radiometry.emissivity,
-        reflected_k=radiometry.reflected_c + 273.15,
-        transmittance=radiometry.transmittance,
-        atmosphere_k=radiometry.atmosphere_c + 273.15,
-        band_um=radiometry.band_um,
-    )
 
 
 @dataclass(frozen=True)
@@ -421,10 +137,6 @@ class _RegisteredFrame:
 def _register_frames(survey: Survey, radiometry: Radiometry, warnings: list[str],
                      progress: Progress | None) -> list[_RegisteredFrame]:
     """Read each frame, correct it to surface temperature and fit its control points."""
-    from .errors import SurveyError
-    from .frames import read_frame
-    from .register import register_points
-
     out = []
     for i, f in enumerate(survey.frames):
         try:
@@ -446,7 +158,7 @@ def _register_frames(survey: Survey, radiometry: Radiometry, warnings: list[str]
                 "check that each point is [col, row, x, y]"
             )
         reg = register_points(pts[:, :2], pts[:, 2:], where=where, piecewise=True)
-        surface = _to_surface_k(image.values_k, radiometry)
+        surface = to_surface_k(image.values_k, radiometry)
         lost = int(np.count_nonzero(np.isnan(surface) & ~np.isnan(image.values_k)))
         if lost:
             warnings.append(f"{name}: {lost} pixels could not be corrected (apparent temperature too low for the "
@@ -468,8 +180,6 @@ def _register_frames(survey: Survey, radiometry: Radiometry, warnings: list[str]
             warnings.append(f"{name} ([[frame]] #{i + 1}): the control points fit to {fit.rms_px:.1f} px RMS "
                             f"({fit.rms_m:.3g} m): placement is uncertain; check them")
         if survey.survey.kind == "hull":
-            from .register import GIRTH_STRETCH_MAX, girth_stretch
-
             stretch = girth_stretch(pts[:, :2], pts[:, 2:])
             if stretch is not None and stretch.ratio > GIRTH_STRETCH_MAX:
                 warnings.append(
@@ -493,13 +203,9 @@ def _frames_onto_grid(frames: list[_RegisteredFrame], grid: PlanGrid, outline: B
     """Resample and blend the frames on the plan grid (surface K, NaN where no frame).
 
     Frames far less sharp than the others are blended only where no sharper frame covers
-    (``[limits] exclude_blurred``; :mod:`wetmap.imagery`); ``views``, when given, receives
-    each placed frame as a :class:`wetmap.imagery.FrameView`.
+    (``[limits] exclude_blurred``; :mod:`wetmap.image_checks`); ``views``, when given, receives
+    each placed frame as a :class:`wetmap.image_checks.FrameView`.
     """
-    from .imagery import frame_views
-    from .register import MAX_VIEW_ANGLE_DEG, blend_frames, frame_gsd_m, placement_ranks, resample_frame
-    from .survey import Limits
-
     parts, placed = [], []
     for fr in frames:
         part = resample_frame(fr.surface_k, fr.registration.mapping, grid_transform=grid.transform,
@@ -558,9 +264,6 @@ def _emissivity_by_angle(part, radiometry: Radiometry, refractive_index: float):
     angle (Fresnel, :func:`wetmap.register.fresnel_emissivity`, scaled to ``[camera] emissivity``
     square-on): its apparent temperature is recovered with the square-on emissivity, then
     corrected again with the pixel's own."""
-    from .radiometry import apparent_from_surface, surface_from_apparent
-    from .register import fresnel_emissivity
-
     common = dict(reflected_k=radiometry.reflected_c + 273.15, transmittance=radiometry.transmittance,
                   atmosphere_k=radiometry.atmosphere_c + 273.15, band_um=radiometry.band_um)
     good = np.isfinite(part.values) & np.isfinite(part.view_angle_deg)
@@ -590,16 +293,12 @@ def _surface_on_grid(survey: Survey, outline: BaseGeometry, radiometry: Radiomet
     corrected per frame, resampled and blended (:mod:`wetmap.register`). Mosaics win where
     they have data (the first one first); the frames fill what no mosaic covers.
     ``registration``, when given, receives one :class:`FrameReport` per frame; ``views`` one
-    :class:`wetmap.imagery.FrameView` per placed frame.
+    :class:`wetmap.image_checks.FrameView` per placed frame.
     """
-    from .register import choose_pixel_m, frame_gsd_m
-
     crs = None if survey.survey.is_local else survey.survey.crs
     infos = [inspect_raster(m.path, origin=m.origin, pixel_m=m.pixel_m, survey_crs=crs) for m in survey.mosaics]
     for m, info in zip(survey.mosaics, infos):
         if info.crs is not None and crs is not None:
-            from pyproj import CRS
-
             if not CRS(info.crs).equals(CRS(crs)):
                 warnings.append(f"{m.path.name}: CRS {info.crs} differs from the survey's {crs}; resampled")
     frames = _register_frames(survey, radiometry, warnings, progress) if survey.frames else []
@@ -627,7 +326,7 @@ def _surface_on_grid(survey: Survey, outline: BaseGeometry, radiometry: Radiomet
     surface: np.ndarray | None = None
     if apparent is not None:
         _emit(progress, "correcting apparent to surface temperature")
-        surface = _to_surface_k(apparent, radiometry)
+        surface = to_surface_k(apparent, radiometry)
         if any(sec.emissivity is not None for sec in sections):
             labels = _section_labels([sec.geometry for sec in sections], grid)
             surface = section_emissivity_correction(surface, apparent, labels, sections, radiometry)
@@ -658,8 +357,6 @@ def _surface_on_grid(survey: Survey, outline: BaseGeometry, radiometry: Radiomet
 
 def _condition_warnings(survey: Survey, sections, *, surface_c: float | None = None) -> list[str]:
     """The survey-condition checks (:func:`wetmap.conditions.check_conditions`) as warning lines."""
-    from .conditions import check_conditions
-
     times = list(dict.fromkeys(item.time for item in (*survey.mosaics, *survey.frames) if item.time is not None))
     found = check_conditions(survey.conditions, survey.camera, survey.survey, limits=survey.limits,
                              sections=sections, surface_c=surface_c, pass_times=times,
@@ -714,10 +411,11 @@ def _detect_pass(image: _PassImage, grid: PlanGrid, in_roof: np.ndarray, survey:
     sdt = survey.detect
     g_surface = align_to_grid(image.surface_c, image.grid.transform, grid.transform, grid.shape)
     g_usable = in_roof & np.isfinite(g_surface)
-    det = detect_anomalies(g_surface, g_usable, pixel_m=grid.pixel_m, delta_c=sdt.delta_c,
-                           background_m=background_m, min_area_m2=sdt.min_area_m2,
-                           labels=_section_labels(detect_on.section_geoms, grid), names=detect_on.names,
-                           choice=sdt.background, cores=_core_pixels(detect_on.conf, grid), threshold_c=threshold_c)
+    det = detect_array(g_surface, g_usable, pixel_m=grid.pixel_m, threshold_c=sdt.delta_c,
+                       background_m=background_m, min_area_m2=sdt.min_area_m2,
+                       labels=_section_labels(detect_on.section_geoms, grid), names=detect_on.names,
+                       choice=sdt.background, cores=_core_pixels(detect_on.conf, grid),
+                       applied_c=threshold_c).detection
     lab, n = label_regions(det.mask)
     return np.where(g_usable, g_surface, np.nan), det.delta_c, lab, n
 
@@ -750,9 +448,6 @@ def _fade_models(survey: Survey, sections, polys, hours: list[float],
     ``None`` (fading then judged on raw deltas, with a note) when the model cannot run: a
     hull, no sunset, no insulation named.
     """
-    from .cooldown import plan_survey_window
-    from .errors import WetmapError
-
     if not polys:
         return None
     section_of = largest_overlap(polys, [s.geometry for s in sections])
@@ -813,9 +508,6 @@ def _compare_passes(survey: Survey, groups, images: list[_PassImage], choice: tu
     return result
 
 
-#: Name of the roof outside every section when sections are given (a background group of its own).
-OUTSIDE_SECTIONS = "(outside the sections)"
-
 
 def _group_names(sections, area_word: str) -> tuple[str, ...]:
     """One name per section label: the sections in order, then the rest of the roof; or the whole roof."""
@@ -825,11 +517,9 @@ def _group_names(sections, area_word: str) -> tuple[str, ...]:
 
 
 def _section_labels(geoms, grid: PlanGrid) -> np.ndarray | None:
-    """Section label of every pixel (pixel-centre rule of :mod:`wetmap.tiles`), or ``None`` with no sections."""
+    """Section label of every pixel (pixel-centre rule of :mod:`wetmap.windows`), or ``None`` with no sections."""
     if not geoms:
         return None
-    from .tiles import pixel_edges, section_label_raster
-
     return section_label_raster([pixel_edges(g, grid.transform) for g in geoms], grid.shape)
 
 
@@ -860,19 +550,6 @@ def _surveyed_part(roof: BaseGeometry, outline: BaseGeometry, exclusions: BaseGe
         areas["exclusion_band_m2"] = float(surveyed.area - cut.area)
         surveyed = cut
     return surveyed, areas
-
-
-@dataclass(frozen=True)
-class CoresThreshold:
-    """``[detect] delta_c = "cores"``: the range the cores allow and its middle, degC."""
-
-    low_c: float
-    """Largest delta-T at a dry core."""
-    high_c: float
-    """Smallest delta-T at a wet core."""
-    chosen_c: float
-    wet: int
-    dry: int
 
 
 def threshold_from_cores(ids, core_delta_c: np.ndarray, wet: np.ndarray, *, file: Path) -> CoresThreshold:
@@ -908,22 +585,6 @@ def threshold_from_cores(ids, core_delta_c: np.ndarray, wet: np.ndarray, *, file
                           wet=int((ok & w).sum()), dry=int((ok & ~w).sum()))
 
 
-def large_wet_shares(quantities: Quantities | None, survey: Survey) -> list[tuple[str, float]]:
-    """``(where, wet fraction)`` of each section (or the whole roof, or the roof outside every
-    section) whose anomalies fill more than ``[repair] replace_above_pct`` of it (roofs only)."""
-    above = survey.repair.replace_above_pct
-    if quantities is None or above is None or survey.survey.kind != "roof":
-        return []
-    out = [(f"section {t.name}", t.wet_fraction) for t in quantities.sections
-           if large_share(t.wet_fraction, above_pct=above)]
-    if quantities.outside is not None and quantities.outside.area_m2 > 0 and large_share(
-            quantities.outside.wet_fraction, above_pct=above):
-        out.append(("the roof outside every section", quantities.outside.wet_fraction))
-    if not quantities.sections and large_share(quantities.wet_fraction, above_pct=above):
-        out.append(("the whole roof", quantities.wet_fraction))
-    return out
-
-
 def _large_share_warnings(quantities: Quantities, survey: Survey) -> list[str]:
     """A plain warning for each large wet share (:func:`large_wet_shares`)."""
     return [f"{where}: anomalies fill {100 * f:.0f} % of it, a large wet share: this figure decides between repair "
@@ -932,10 +593,417 @@ def _large_share_warnings(quantities: Quantities, survey: Survey) -> list[str]:
             for where, f in large_wet_shares(quantities, survey)]
 
 
+# ------------------------------------------------------------------------------------------
+# The stages of a run: each takes the earlier stages' results and returns its own (frozen)
+# ------------------------------------------------------------------------------------------
+
+
+@dataclass(frozen=True)
+class Plan:
+    """The plan stage: the survey, its plan layers and confirmations checked, the radiometry."""
+
+    survey: Survey
+    outline: BaseGeometry
+    exclusions: BaseGeometry
+    roof: BaseGeometry
+    """Outline minus exclusions."""
+    surveyed: BaseGeometry
+    """The roof minus the bands left out (``[detect] edge_buffer_m``, ``exclusion_buffer_m``)."""
+    bands_m2: dict[str, float]
+    sections: tuple[Section, ...]
+    specular: Any
+    """``[plan] specular``: surfaces that show reflections (:mod:`wetmap.image_checks`)."""
+    confirmations: Confirmations
+    group_names: tuple[str, ...]
+    """One background group per section label (:func:`_group_names`)."""
+    radiometry: Radiometry
+    background_m: float
+    warnings: tuple[str, ...]
+
+    @property
+    def section_geoms(self) -> list:
+        return [s.geometry for s in self.sections]
+
+
+def plan_stage(survey: Survey, *, progress: Progress | None = None) -> Plan:
+    """Every pre-work check at once (:func:`wetmap.prework.prepare_survey`), the surveyed part
+    of the roof, the background groups and the radiometry. ``wetmap check`` runs this stage too."""
+    warnings: list[str] = []
+    _emit(progress, "reading the plan and checking every input")
+    prepared = prepare_survey(survey)  # every problem at once
+    warnings.extend(prepared.warnings)
+    outline, exclusions, roof = prepared.outline, prepared.exclusions, prepared.roof
+    sections = tuple(prepared.sections)
+    conf = prepared.confirmations if prepared.confirmations is not None else Confirmations.empty()
+    sdt = survey.detect
+    surveyed, bands_m2 = _surveyed_part(roof, outline, exclusions, edge_buffer_m=sdt.edge_buffer_m,
+                                        exclusion_buffer_m=sdt.exclusion_buffer_m)
+    if surveyed.area <= 0:
+        raise InputFileError(f"{survey.file}: [detect] edge_buffer_m = {sdt.edge_buffer_m:g} and exclusion_buffer_m = "
+                             f"{sdt.exclusion_buffer_m:g} leave nothing of the roof to survey; make them smaller")
+    if survey.frames and any(sec.emissivity is not None for sec in sections):
+        warnings.append("sections.geojson gives emissivities per section: they correct the mosaics' pixels; "
+                        "[[frame]] pixels are corrected with [camera] emissivity")
+    radiometry = _radiometry(survey, warnings)
+    x0, y0, x1, y1 = outline.bounds
+    background_m = sdt.background_m or default_background_m(survey.survey.kind, max(x1 - x0, y1 - y0))
+    return Plan(survey=survey, outline=outline, exclusions=exclusions, roof=roof, surveyed=surveyed,
+                bands_m2=bands_m2, sections=sections, specular=prepared.specular, confirmations=conf,
+                group_names=_group_names(sections, area_word(survey)), radiometry=radiometry,
+                background_m=background_m, warnings=tuple(warnings))
+
+
+class _CoresRule:
+    """``[detect] delta_c = "cores"``: the threshold from the confirmations' delta-T
+    (:func:`threshold_from_cores`), remembered for the summary."""
+
+    def __init__(self, plan: Plan):
+        self.plan = plan
+        self.found: list[CoresThreshold] = []
+
+    def __call__(self, core_delta: np.ndarray) -> float:
+        conf = self.plan.confirmations
+        self.found.append(threshold_from_cores(conf.ids, core_delta, conf.wet, file=self.plan.survey.file))
+        return self.found[-1].chosen_c
+
+
+@dataclass(frozen=True)
+class OnGrid:
+    """The imagery stage: the primary pass's surface temperature on the plan grid.
+
+    In windows (``tiled``), ``grid`` and ``surface_c`` are the preview and the detection is
+    already made (:func:`wetmap.tiles.detect_in_windows`); otherwise the whole array is in
+    memory with its roof mask and section labels.
+    """
+
+    primary: Survey
+    """The survey with the primary pass's imagery only."""
+    grid: PlanGrid
+    surface_c: np.ndarray
+    in_roof: np.ndarray | None
+    section_labels: np.ndarray | None
+    tiled: TiledDetection | None
+    coverage: Coverage
+    constant: bool
+    registration: tuple[FrameReport, ...]
+    views: tuple[Any, ...]
+    """The placed frames (:class:`wetmap.image_checks.FrameView`), for the image checks."""
+    pass_groups: tuple[Any, ...]
+    pass_images: tuple[_PassImage, ...] | None
+    choice: tuple | None
+    """The primary pass's index, rule, contrasts and the detections made choosing it."""
+    warnings: tuple[str, ...]
+
+    @property
+    def full_grid(self) -> PlanGrid:
+        """The full-resolution grid (``grid`` unless in windows)."""
+        return self.tiled.full_rasters.grid if self.tiled is not None else self.grid
+
+
+def imagery_stage(plan: Plan, *, progress: Progress | None = None, scheduler: Any = None, tile_px: int | None = None,
+                  window_progress: WindowProgress | None = None, scratch: str | Path | None = None,
+                  threshold_from: Callable[[np.ndarray], float] | None = None) -> OnGrid:
+    """The passes grouped and the primary one chosen; its imagery on the plan grid, corrected to
+    surface temperature (in windows for one pass of large mosaics on the grid's lattice), and
+    the coverage of the surveyed roof."""
+    survey, sdt = plan.survey, plan.survey.detect
+    warnings: list[str] = []
+    frame_reports: list[FrameReport] = []
+    frame_views: list = []
+    # several passes (imagery with different times): the pass with the greatest wet-dry
+    # contrast is the primary detection (wetmap.passes.choose_primary)
+    pass_groups, notes = group_passes(survey.mosaics, survey.frames, sunset=survey.conditions.sunset)
+    warnings.extend(notes)
+    detect_on = _DetectOn(section_geoms=tuple(plan.section_geoms), names=plan.group_names, conf=plan.confirmations)
+    pass_images: list[_PassImage] | None = None
+    choice = None
+    if len(pass_groups) > 1:
+        pass_images = _pass_images(survey, pass_groups, plan.outline, plan.radiometry, progress,
+                                   sections=plan.sections)
+        choice = _choose_primary_pass(survey, pass_images, plan.surveyed, plan.background_m, progress,
+                                      detect_on=detect_on)
+        for k, image in enumerate(pass_images):
+            if k != choice[0]:
+                warnings.extend(image.warnings)
+    primary = survey if choice is None else replace(
+        survey, mosaics=pass_groups[choice[0]].mosaics, frames=pass_groups[choice[0]].frames)
+    conf = plan.confirmations
+    # one pass of large mosaics on the plan grid's lattice: in windows, same result (wetmap.tiles)
+    tiled = None if len(pass_groups) > 1 else detect_in_windows(
+        primary, outline=plan.outline, roof=plan.surveyed, radiometry=plan.radiometry, background_m=plan.background_m,
+        tile_px=tile_px, scheduler=scheduler, scratch=None if scratch is None else Path(scratch), progress=progress,
+        window_progress=window_progress, sections=plan.section_geoms, names=plan.group_names, choice=sdt.background,
+        section_emissivity=tuple(sec.emissivity for sec in plan.sections),
+        cores=(conf.xs, conf.ys, conf.wet), threshold_from=threshold_from)
+    in_roof = labels_px = None
+    if tiled is None:
+        if pass_images is not None and choice is not None:  # several passes: the chosen one, already read
+            chosen = pass_images[choice[0]]
+            grid, surface_c = chosen.grid, chosen.surface_c
+            warnings.extend(chosen.warnings)
+            frame_reports.extend(chosen.registration)
+            frame_views.extend(chosen.views)
+        else:
+            grid, surface_c = _surface_on_grid(primary, plan.outline, plan.radiometry, warnings, progress,
+                                               registration=frame_reports, views=frame_views,
+                                               sections=plan.sections)
+        _emit(progress, "masking the roof")
+        in_roof = _mask_of(plan.surveyed, grid)
+        labels_px = _section_labels(plan.section_geoms, grid)
+        usable = in_roof & np.isfinite(surface_c)
+        roof_px = int(in_roof.sum())
+        covered_px = int(usable.sum())
+        constant = bool(covered_px) and (np.nanmax(np.where(usable, surface_c, np.nan))
+                                         == np.nanmin(np.where(usable, surface_c, np.nan)))
+        px_area = grid.pixel_area_m2
+    else:  # grid and surface_c are the preview; the full rasters are on disk
+        grid, surface_c = tiled.grid, tiled.surface_c
+        roof_px, covered_px, constant = tiled.roof_px, tiled.covered_px, tiled.constant
+        px_area = tiled.full_rasters.grid.pixel_area_m2
+        if tiled.lost_px:
+            warnings.append(
+                f"{tiled.lost_px} pixels could not be corrected (apparent temperature too low for the emissivity and "
+                "reflected temperature given): check [camera] emissivity and [conditions] reflected_c"
+            )
+    coverage = Coverage.of_pixels(roof_px, covered_px, px_area, bands_m2=plan.bands_m2)
+    for key, what, setting in (("edge_band_m2", "along the outline", "edge_buffer_m"),
+                               ("exclusion_band_m2", "around the exclusions", "exclusion_buffer_m")):
+        if key in plan.bands_m2:
+            warnings.append(f"{plan.bands_m2[key]:.1f} m2 in the band {what} ([detect] {setting} = "
+                            f"{getattr(sdt, setting):g}) is left out: not surveyed, which does not mean dry")
+    words_area = area_word(survey)
+    if covered_px == 0:  # nothing to detect on: a confident empty answer would be wrong
+        raise ProcessingError(f"{survey.file}: no usable thermal data on the {words_area} (all nodata, the imagery "
+                              "misses the outline, or every pixel lost in the apparent-to-surface correction): check "
+                              "the imagery's placement and nodata, [camera] emissivity and [conditions] reflected_c; "
+                              "earlier results are kept")
+    if coverage.uncovered_pct > 0.5:
+        warnings.append(
+            f"{coverage.uncovered_m2:.1f} m2 ({coverage.uncovered_pct:.1f} %) of the {words_area} has no thermal data: "
+            "it is not surveyed, which does not mean dry"
+        )
+    if constant:
+        warnings.append(f"the thermal data on the {words_area} are constant: no contrast, nothing can be detected")
+    return OnGrid(primary=primary, grid=grid, surface_c=surface_c, in_roof=in_roof, section_labels=labels_px,
+                  tiled=tiled, coverage=coverage, constant=constant, registration=tuple(frame_reports),
+                  views=tuple(frame_views), pass_groups=tuple(pass_groups),
+                  pass_images=None if pass_images is None else tuple(pass_images), choice=choice,
+                  warnings=tuple(warnings))
+
+
+@dataclass(frozen=True)
+class Found:
+    """The detection stage: background, delta-T, the anomaly outlines (exact) and their statistics."""
+
+    detection: Detection
+    polygons: tuple
+    stats: RegionStats
+    labels: np.ndarray | None
+    """Region labels of the whole array (``None`` in windows)."""
+    count: int
+    dry_c: np.ndarray
+    """The dry background over the usable roof (the preview's in windows), degC."""
+    range_min_pixels: int
+    """Smallest region of the wet-area range's grid (the preview's in windows)."""
+    passes: PassComparison | None
+    warnings: tuple[str, ...]
+
+
+def detection_stage(plan: Plan, on_grid: OnGrid, *, progress: Progress | None = None,
+                    threshold_from: Callable[[np.ndarray], float] | None = None) -> Found:
+    """The dry background, delta-T and the cleaned anomaly regions: the one engine
+    (:mod:`wetmap.tiles`) with one window for the array in memory, or the windows' result;
+    then the other passes compared with the primary one."""
+    survey, sdt = plan.survey, plan.survey.detect
+    warnings: list[str] = []
+    tiled, grid = on_grid.tiled, on_grid.grid
+    labels = None
+    if tiled is None:
+        _emit(progress, "estimating the dry background and thresholding")
+        usable = on_grid.in_roof & np.isfinite(on_grid.surface_c)
+        found = detect_array(on_grid.surface_c, usable, pixel_m=grid.pixel_m, threshold_c=sdt.delta_c,
+                             background_m=plan.background_m, min_area_m2=sdt.min_area_m2,
+                             labels=on_grid.section_labels, names=plan.group_names, choice=sdt.background,
+                             cores=_core_pixels(plan.confirmations, grid), threshold_from=threshold_from)
+        detection = found.detection
+        _emit(progress, "outlining anomalies")
+        labels, count = label_regions(detection.mask)
+        stats = RegionStats(pixel_count=found.pixels, mean=found.delta_mean, max=found.delta_max)
+        polys = found.polygons(grid.transform)
+        dry_c = detection.background_c[usable]
+        range_min_pixels = detection.min_pixels
+    else:  # exact polygons and statistics; the preview's background and delta-T
+        detection = tiled.detection
+        count = len(tiled.polygons)
+        stats = RegionStats(pixel_count=tiled.pixels, mean=tiled.delta_mean, max=tiled.delta_max)
+        polys = list(tiled.polygons)
+        dry_c = detection.background_c[np.isfinite(detection.background_c)]
+        range_min_pixels = tiled.preview_min_pixels  # the wet-area range is computed on the preview
+    if detection.background is not None:
+        warnings.extend(background_warnings(detection.background, background_m=plan.background_m,
+                                            kind=survey.survey.kind))
+    passes = None
+    if on_grid.pass_images is not None:
+        detect_on = _DetectOn(section_geoms=tuple(plan.section_geoms), names=plan.group_names,
+                              conf=plan.confirmations)
+        passes = _compare_passes(
+            survey, list(on_grid.pass_groups), list(on_grid.pass_images), on_grid.choice, warnings, progress,
+            grid=grid, surface_c=on_grid.surface_c, in_roof=on_grid.in_roof, detection=detection, labels=labels,
+            count=count, background_m=plan.background_m, detect_on=detect_on, sections=plan.sections, polys=polys)
+    return Found(detection=detection, polygons=tuple(polys), stats=stats, labels=labels, count=count, dry_c=dry_c,
+                 range_min_pixels=range_min_pixels, passes=passes, warnings=tuple(warnings))
+
+
+@dataclass(frozen=True)
+class Judged:
+    """The verdict stage: statuses from the confirmations, the threshold checked against them,
+    the counted wet area's range and where the next core is worth most."""
+
+    verdicts: Verdicts
+    confirmation_delta_c: np.ndarray
+    threshold: ThresholdCheck
+    section_checks: tuple[tuple[str, ThresholdCheck], ...]
+    area_range: Any
+    suggested_cores: tuple[Any, ...]
+    warnings: tuple[str, ...]
+
+
+def verdict_stage(plan: Plan, on_grid: OnGrid, found: Found) -> Judged:
+    """Each anomaly's status, the confirmations' delta-T, missed wet cores, the threshold
+    check (whole roof and per section), the wet-area range and the suggested cores."""
+    survey, conf, grid = plan.survey, plan.confirmations, on_grid.grid
+    detection, polys = found.detection, list(found.polygons)
+    warnings: list[str] = []
+    verdicts = assign_status(polys, conf)
+    conf_delta = (sample_at_points(detection.delta_c, grid.transform, conf.xs, conf.ys) if on_grid.tiled is None
+                  else on_grid.tiled.full_rasters.sample(conf.xs, conf.ys))
+    if len(conf):
+        inside_roof = shapely.covers(plan.outline, shapely.points(conf.xs, conf.ys))
+        for i in np.flatnonzero(~inside_roof):
+            warnings.append(f"{survey.cores.path.name}: {conf.ids[i]} at ({conf.xs[i]:.2f}, {conf.ys[i]:.2f}) "
+                            "lies outside the outline; check its coordinates")
+        for i in np.flatnonzero(conf.wet & (verdicts.anomaly_of < 0) & inside_roof):
+            d = conf_delta[i]
+            seen = f"delta-T there {d:+.2f} °C" if np.isfinite(d) else "no thermal data there"
+            include = (f"; a threshold below {np.floor(d * 20) / 20:.2f} °C would include it"
+                       if np.isfinite(d) and d > 0 else "")
+            warnings.append(
+                f"{conf.ids[i]} says wet but lies outside every anomaly ({seen}; threshold {detection.threshold_c:g} °C): "
+                f"a possible missed wet area{include}"
+            )
+    words = wording_of(survey)
+    if len(conf) == 0 and found.count:
+        warnings.append(f"no {words.confirmations_any}: every anomaly is unverified; infrared alone does not "
+                        f"establish {words.wet_words} (invasive verification is required)")
+    warnings.extend(_sounding_notes(conf, verdicts))
+    decisive = conf.decisive  # solid soundings neither refute an anomaly nor bound the threshold
+    ids = np.asarray(conf.ids, dtype=object)
+    check = threshold_check(tuple(ids[decisive].tolist()), conf_delta[decisive], conf.wet[decisive],
+                            chosen_c=detection.threshold_c, words=words)
+    if len(conf):
+        warnings.extend(check.warnings)
+    # the same check within each section (its own background, its own confirmations)
+    section_checks: list[tuple[str, ThresholdCheck]] = []
+    if plan.sections and len(conf):
+        points = shapely.points(conf.xs, conf.ys)
+        for sec in plan.sections:
+            inside = shapely.covers(sec.geometry, points) & decisive
+            if inside.any():
+                section_checks.append((sec.name, threshold_check(tuple(ids[inside].tolist()), conf_delta[inside],
+                                                                 conf.wet[inside], chosen_c=detection.threshold_c,
+                                                                 words=words)))
+    core_cols, core_rows = ~grid.transform @ (conf.xs[decisive], conf.ys[decisive])
+    counted = counted_statuses(include_unverified=survey.repair.include_unverified)
+    counted_polys = [p for p, st in zip(polys, verdicts.status) if st in counted]
+    area_range, band = wet_area_range(
+        detection.delta_c, check, likely_m2=float(sum(p.area for p in counted_polys)),
+        perimeter_m=float(sum(p.length for p in counted_polys)), pixel_m=grid.pixel_m,
+        min_pixels=found.range_min_pixels, core_rows=np.floor(core_rows).astype(np.intp),
+        core_cols=np.floor(core_cols).astype(np.intp), core_wet=conf.wet[decisive],
+        include_unverified=survey.repair.include_unverified)
+    suggestions = suggest_cores(polys, verdicts.status, list(range(1, found.count + 1)), band=band,
+                                transform=grid.transform, pixel_m=grid.pixel_m, min_pixels=found.range_min_pixels,
+                                words=words)
+    return Judged(verdicts=verdicts, confirmation_delta_c=conf_delta, threshold=check,
+                  section_checks=tuple(section_checks), area_range=area_range, suggested_cores=tuple(suggestions),
+                  warnings=tuple(warnings))
+
+
+def image_check_stage(plan: Plan, on_grid: OnGrid, found: Found) -> ImageryReport:
+    """Resolution, focus, reflections and the display range (:func:`wetmap.image_checks.assess_imagery`)."""
+    grid = on_grid.grid
+    return assess_imagery(
+        on_grid.primary, grid_transform=grid.transform, grid_shape=grid.shape, grid_pixel_m=on_grid.full_grid.pixel_m,
+        surface_c=on_grid.surface_c, detection=found.detection, polygons=list(found.polygons),
+        labels=found.labels if on_grid.tiled is None else None, frames=list(on_grid.views),
+        sections=list(plan.sections), specular=plan.specular, outline=plan.outline)
+
+
+def anomalies_of(plan: Plan, on_grid: OnGrid, found: Found, judged: Judged,
+                 imagery: ImageryReport) -> tuple[tuple[Anomaly, ...], tuple[str, ...]]:
+    """The anomalies with their statuses, sections and flags (imagery, roof edge, rooftop unit),
+    and the warnings of the edge and unit flags."""
+    survey, polys, sections = plan.survey, list(found.polygons), plan.sections
+    warnings: list[str] = []
+    section_of = largest_overlap(polys, [s.geometry for s in sections])
+    # anomalies hugging the roof edge or ringing a rooftop unit: a flag naming the likely cause
+    place_flags = (edge_flags(polys, outline=plan.outline, exclusions=plan.exclusions) if survey.survey.kind == "roof"
+                   else [()] * len(polys))
+    for label in (EDGE_FLAG, UNIT_FLAG):
+        ids = [str(i + 1) for i, f in enumerate(place_flags) if label in f]
+        if ids:
+            where = "along the roof edge" if label == EDGE_FLAG else "ringing an exclusion"
+            setting = "edge_buffer_m" if label == EDGE_FLAG else "exclusion_buffer_m"
+            warnings.append(f"anomal{'y' if len(ids) == 1 else 'ies'} {', '.join(ids)}: a narrow band {where} "
+                            f"(flag \"{label}\"): often flashing, parapet or unit heat rather than wet insulation; "
+                            f"check in daylight and by a core, or leave the band out with [detect] {setting}")
+    # the later stages (margin, files, map, report) take outlines simplified within a
+    # fraction of a pixel; areas, perimeters and every judgement above use the exact ones
+    drawn = simplify_outlines(polys, tolerance=SIMPLIFY_TOLERANCE_PX * on_grid.full_grid.pixel_m)
+    verdicts, stats = judged.verdicts, found.stats
+    anomalies = tuple(
+        Anomaly(
+            id=i + 1,
+            geometry=drawn[i],
+            status=verdicts.status[i],
+            area_m2=float(p.area),
+            perimeter_m=float(p.length),
+            delta_mean_c=float(stats.mean[i]),
+            delta_max_c=float(stats.max[i]),
+            confirmations=verdicts.confirmation_ids[i],
+            section=sections[section_of[i]].name if section_of[i] >= 0 else None,
+            flags="; ".join(f for f in (imagery.flags_text(i), *place_flags[i]) if f),
+            exact=p,
+        )
+        for i, p in enumerate(polys)
+    )
+    return anomalies, tuple(warnings)
+
+
+def quantity_stage(plan: Plan, anomalies: tuple[Anomaly, ...]) -> tuple[Quantities, tuple[str, ...]]:
+    """Repair outline, board take-off, section totals and bill (:func:`wetmap.quantities.compute_quantities`)."""
+    survey = plan.survey
+    quantities = compute_quantities(
+        [a.exact for a in anomalies], [a.status for a in anomalies], outline=plan.outline,
+        exclusions=plan.exclusions, sections=list(plan.sections), settings=survey.repair, prices=survey.prices,
+        kind=survey.survey.kind, drawn=[a.geometry for a in anomalies],
+        wet_thickness_mm=plan.confirmations.wet_thickness_mm,
+    )
+    warnings = list(quantities.notes)
+    if quantities.takeoff.range_note:
+        warnings.append(quantities.takeoff.range_note)
+    warnings.extend(_large_share_warnings(quantities, survey))
+    return quantities, tuple(warnings)
+
+
 def process_survey(folder: str | Path, *, progress: Progress | None = None, scheduler: Any = None,
                    tile_px: int | None = None, window_progress: WindowProgress | None = None,
                    scratch: str | Path | None = None) -> SurveyResult:
     """Run every stage on the survey in ``folder`` and return the results (nothing written).
+
+    The stages, in order: :func:`plan_stage`, :func:`imagery_stage`, :func:`detection_stage`,
+    the survey-condition checks, :func:`verdict_stage`, :func:`image_check_stage`,
+    :func:`anomalies_of` and :func:`quantity_stage`.
 
     Parameters
     ----------
@@ -959,269 +1027,34 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
     WetmapError
         On any invalid input; the message names the file, key or row and the fix.
     """
-    from .prework import prepare_survey
-
     survey = with_sun_times(load_survey(folder))  # sunset from place and date when not typed in
-    warnings: list[str] = []
-
-    _emit(progress, "reading the plan and checking every input")
-    prepared = prepare_survey(survey)  # the same checks as `wetmap check`, every problem at once
-    warnings.extend(prepared.warnings)
-    outline, exclusions, roof = prepared.outline, prepared.exclusions, prepared.roof
-    sections: list[Section] = list(prepared.sections)
-    specular = prepared.specular  # [plan] specular: surfaces that show reflections (wetmap.imagery)
-
-    conf = prepared.confirmations if prepared.confirmations is not None else Confirmations.empty()
-    sdt = survey.detect
-    surveyed, band_m2 = _surveyed_part(roof, outline, exclusions, edge_buffer_m=sdt.edge_buffer_m,
-                                                   exclusion_buffer_m=sdt.exclusion_buffer_m)
-    if surveyed.area <= 0:
-        raise InputFileError(f"{survey.file}: [detect] edge_buffer_m = {sdt.edge_buffer_m:g} and exclusion_buffer_m = "
-                             f"{sdt.exclusion_buffer_m:g} leave nothing of the roof to survey; make them smaller")
-    section_geoms = [s.geometry for s in sections]
-    if survey.frames and any(sec.emissivity is not None for sec in sections):
-        warnings.append("sections.geojson gives emissivities per section: they correct the mosaics' pixels; "
-                        "[[frame]] pixels are corrected with [camera] emissivity")
-    group_names = _group_names(sections, _area_word(survey))
-    detect_on = _DetectOn(section_geoms=tuple(section_geoms), names=group_names, conf=conf)
-    threshold_from = None
-    from_cores: list[CoresThreshold] = []
-    if sdt.delta_from == "cores":
-        def threshold_from(core_delta: np.ndarray) -> float:
-            from_cores.append(threshold_from_cores(conf.ids, core_delta, conf.wet, file=survey.file))
-            return from_cores[-1].chosen_c
-
-    radiometry = _radiometry(survey, warnings)
-    # several passes (imagery with different times): the pass with the greatest wet-dry
-    # contrast is the primary detection (wetmap.passes.choose_primary)
-    pass_groups, notes = group_passes(survey.mosaics, survey.frames, sunset=survey.conditions.sunset)
-    warnings.extend(notes)
-    frame_reports: list[FrameReport] = []
-    frame_views: list = []  # the placed frames, for the imagery checks (wetmap.imagery)
-    area_word = _area_word(survey)
-    x0, y0, x1, y1 = outline.bounds
-    background_m = sdt.background_m or default_background_m(survey.survey.kind, max(x1 - x0, y1 - y0))
-    pass_images: list[_PassImage] | None = None
-    choice = None
-    if len(pass_groups) > 1:
-        pass_images = _pass_images(survey, pass_groups, outline, radiometry, progress, sections=tuple(sections))
-        choice = _choose_primary_pass(survey, pass_images, surveyed, background_m, progress, detect_on=detect_on)
-        for k, image in enumerate(pass_images):
-            if k != choice[0]:
-                warnings.extend(image.warnings)
-    primary = survey if choice is None else replace(
-        survey, mosaics=pass_groups[choice[0]].mosaics, frames=pass_groups[choice[0]].frames)
-    # one pass of large mosaics on the plan grid's lattice: in windows, same result (wetmap.tiles)
-    tiled = None if len(pass_groups) > 1 else detect_in_windows(
-        primary, outline=outline, roof=surveyed, radiometry=radiometry, background_m=background_m, tile_px=tile_px,
-        scheduler=scheduler, scratch=None if scratch is None else Path(scratch), progress=progress,
-        window_progress=window_progress, sections=section_geoms, names=group_names, choice=sdt.background,
-        section_emissivity=tuple(sec.emissivity for sec in sections),
-        cores=(conf.xs, conf.ys, conf.wet), threshold_from=threshold_from)
-    if tiled is None:
-        if pass_images is not None and choice is not None:  # several passes: the chosen one, already read
-            chosen = pass_images[choice[0]]
-            grid, surface_c = chosen.grid, chosen.surface_c
-            warnings.extend(chosen.warnings)
-            frame_reports.extend(chosen.registration)
-            frame_views.extend(chosen.views)
-        else:
-            grid, surface_c = _surface_on_grid(primary, outline, radiometry, warnings, progress,
-                                               registration=frame_reports, views=frame_views,
-                                               sections=tuple(sections))
-        _emit(progress, "masking the roof")
-        in_roof = _mask_of(surveyed, grid)
-        labels_px = _section_labels(section_geoms, grid)
-        usable = in_roof & np.isfinite(surface_c)
-        roof_px = int(in_roof.sum())
-        covered_px = int(usable.sum())
-        constant = bool(covered_px) and (np.nanmax(np.where(usable, surface_c, np.nan))
-                                         == np.nanmin(np.where(usable, surface_c, np.nan)))
-        px_area = grid.pixel_area_m2
-    else:  # grid and surface_c are the preview; the full rasters are on disk
-        grid, surface_c = tiled.grid, tiled.surface_c
-        roof_px, covered_px, constant = tiled.roof_px, tiled.covered_px, tiled.constant
-        px_area = tiled.full_rasters.grid.pixel_area_m2
-        if tiled.lost_px:
-            warnings.append(
-                f"{tiled.lost_px} pixels could not be corrected (apparent temperature too low for the emissivity and "
-                "reflected temperature given): check [camera] emissivity and [conditions] reflected_c"
-            )
-    coverage = {
-        "roof_pixels_m2": roof_px * px_area,
-        "covered_m2": covered_px * px_area,
-        "uncovered_m2": (roof_px - covered_px) * px_area,
-        "uncovered_pct": 100.0 * (roof_px - covered_px) / roof_px if roof_px else 100.0,
-        **band_m2,
-    }
-    for key, what, setting in (("edge_band_m2", "along the outline", "edge_buffer_m"),
-                               ("exclusion_band_m2", "around the exclusions", "exclusion_buffer_m")):
-        if key in band_m2:
-            warnings.append(f"{band_m2[key]:.1f} m2 in the band {what} ([detect] {setting} = "
-                            f"{getattr(sdt, setting):g}) is left out: not surveyed, which does not mean dry")
-    if covered_px == 0:  # nothing to detect on: a confident empty answer would be wrong
-        raise ProcessingError(f"{survey.file}: no usable thermal data on the {area_word} (all nodata, the imagery "
-                              "misses the outline, or every pixel lost in the apparent-to-surface correction): check "
-                              "the imagery's placement and nodata, [camera] emissivity and [conditions] reflected_c; "
-                              "earlier results are kept")
-    if coverage["uncovered_pct"] > 0.5:
-        warnings.append(
-            f"{coverage['uncovered_m2']:.1f} m2 ({coverage['uncovered_pct']:.1f} %) of the {area_word} has no thermal data: "
-            "it is not surveyed, which does not mean dry"
-        )
-    if constant:
-        warnings.append(f"the thermal data on the {area_word} are constant: no contrast, nothing can be detected")
-    if tiled is None:
-        _emit(progress, "estimating the dry background and thresholding")
-        core_px = _core_pixels(conf, grid)
-        detection = detect_anomalies(surface_c, usable, pixel_m=grid.pixel_m, delta_c=sdt.delta_c,
-                                     background_m=background_m, min_area_m2=sdt.min_area_m2, labels=labels_px,
-                                     names=group_names, choice=sdt.background, cores=core_px)
-        if threshold_from is not None:
-            t = threshold_from(sample_at_points(detection.delta_c, grid.transform, conf.xs, conf.ys))
-            detection = replace(detection, threshold_c=t,
-                                mask=anomaly_mask(detection.delta_c, t, min_pixels=detection.min_pixels))
-        _emit(progress, "outlining anomalies")
-        labels, count = label_regions(detection.mask)
-        stats = region_stats(labels, count, detection.delta_c)
-        polys = polygonize(labels, count, grid.transform)
-        dry_c = detection.background_c[usable]
-        range_min_pixels = detection.min_pixels
-    else:  # exact polygons and statistics; the preview's background and delta-T
-        detection = tiled.detection
-        count = len(tiled.polygons)
-        stats = RegionStats(pixel_count=tiled.pixels, mean=tiled.delta_mean, max=tiled.delta_max)
-        polys = list(tiled.polygons)
-        dry_c = detection.background_c[np.isfinite(detection.background_c)]
-        range_min_pixels = tiled.preview_min_pixels  # the wet-area range is computed on the preview
-    if detection.background is not None:
-        warnings.extend(background_warnings(detection.background, background_m=background_m, kind=survey.survey.kind))
-    passes = None if pass_images is None else _compare_passes(
-        survey, pass_groups, pass_images, choice, warnings, progress, grid=grid, surface_c=surface_c,
-        in_roof=in_roof, detection=detection, labels=labels, count=count, background_m=background_m,
-        detect_on=detect_on, sections=sections, polys=polys)
-    warnings[:0] = _condition_warnings(survey, sections, surface_c=float(np.nanmedian(dry_c))
-                                       if np.isfinite(dry_c).any() else None)
-
-    verdicts = assign_status(polys, conf)
-    conf_delta = (sample_at_points(detection.delta_c, grid.transform, conf.xs, conf.ys) if tiled is None
-                  else tiled.full_rasters.sample(conf.xs, conf.ys))
-    if len(conf):
-        inside_roof = shapely.covers(outline, shapely.points(conf.xs, conf.ys))
-        for i in np.flatnonzero(~inside_roof):
-            warnings.append(f"{survey.cores.path.name}: {conf.ids[i]} at ({conf.xs[i]:.2f}, {conf.ys[i]:.2f}) "
-                            "lies outside the outline; check its coordinates")
-        for i in np.flatnonzero(conf.wet & (verdicts.anomaly_of < 0) & inside_roof):
-            d = conf_delta[i]
-            seen = f"delta-T there {d:+.2f} °C" if np.isfinite(d) else "no thermal data there"
-            include = (f"; a threshold below {np.floor(d * 20) / 20:.2f} °C would include it"
-                       if np.isfinite(d) and d > 0 else "")
-            warnings.append(
-                f"{conf.ids[i]} says wet but lies outside every anomaly ({seen}; threshold {detection.threshold_c:g} °C): "
-                f"a possible missed wet area{include}"
-            )
-    words = wording_of(survey)
-    if len(conf) == 0 and count:
-        warnings.append(f"no {words.confirmations_any}: every anomaly is unverified; infrared alone does not "
-                        f"establish {words.wet_words} (invasive verification is required)")
-    warnings.extend(_sounding_notes(conf, verdicts))
-    decisive = conf.decisive  # solid soundings neither refute an anomaly nor bound the threshold
-    ids = np.asarray(conf.ids, dtype=object)
-    check = threshold_check(tuple(ids[decisive].tolist()), conf_delta[decisive], conf.wet[decisive],
-                            chosen_c=detection.threshold_c, words=words)
-    if len(conf):
-        warnings.extend(check.warnings)
-    # the same check within each section (its own background, its own confirmations)
-    section_checks: list[tuple[str, ThresholdCheck]] = []
-    if sections and len(conf):
-        points = shapely.points(conf.xs, conf.ys)
-        for sec in sections:
-            inside = shapely.covers(sec.geometry, points) & decisive
-            if inside.any():
-                section_checks.append((sec.name, threshold_check(tuple(ids[inside].tolist()), conf_delta[inside],
-                                                                 conf.wet[inside], chosen_c=detection.threshold_c,
-                                                                 words=words)))
-    core_cols, core_rows = ~grid.transform @ (conf.xs[decisive], conf.ys[decisive])
-    counted = ("wet", "unverified") if survey.repair.include_unverified else ("wet",)
-    counted_polys = [p for p, st in zip(polys, verdicts.status) if st in counted]
-    area_range, band = wet_area_range(
-        detection.delta_c, check, likely_m2=float(sum(p.area for p in counted_polys)),
-        perimeter_m=float(sum(p.length for p in counted_polys)), pixel_m=grid.pixel_m,
-        min_pixels=range_min_pixels, core_rows=np.floor(core_rows).astype(np.intp),
-        core_cols=np.floor(core_cols).astype(np.intp), core_wet=conf.wet[decisive],
-        include_unverified=survey.repair.include_unverified)
-    suggestions = suggest_cores(polys, verdicts.status, list(range(1, count + 1)), band=band,
-                                transform=grid.transform, pixel_m=grid.pixel_m, min_pixels=range_min_pixels,
-                                words=words)
-
+    plan = plan_stage(survey, progress=progress)
+    from_cores = _CoresRule(plan) if survey.detect.delta_from == "cores" else None
+    on_grid = imagery_stage(plan, progress=progress, scheduler=scheduler, tile_px=tile_px,
+                            window_progress=window_progress, scratch=scratch, threshold_from=from_cores)
+    found = detection_stage(plan, on_grid, progress=progress, threshold_from=from_cores)
+    dry_c = found.dry_c
+    conditions = _condition_warnings(survey, plan.sections, surface_c=float(np.nanmedian(dry_c))
+                                     if np.isfinite(dry_c).any() else None)
+    judged = verdict_stage(plan, on_grid, found)
     _emit(progress, "checking the imagery: resolution, focus, reflections, display range")
-    from .imagery import assess_imagery
-
-    imagery = assess_imagery(
-        primary, grid_transform=grid.transform, grid_shape=grid.shape,
-        grid_pixel_m=(tiled.full_rasters.grid if tiled is not None else grid).pixel_m, surface_c=surface_c,
-        detection=detection, polygons=polys, labels=labels if tiled is None else None, frames=frame_views,
-        sections=sections, specular=specular, outline=outline)
-    warnings.extend(imagery.warnings)
-    section_of = largest_overlap(polys, [s.geometry for s in sections])
-    # anomalies hugging the roof edge or ringing a rooftop unit: a flag naming the likely cause
-    place_flags = (edge_flags(polys, outline=outline, exclusions=exclusions) if survey.survey.kind == "roof"
-                   else [()] * len(polys))
-    for label in (EDGE_FLAG, UNIT_FLAG):
-        ids = [str(i + 1) for i, f in enumerate(place_flags) if label in f]
-        if ids:
-            where = "along the roof edge" if label == EDGE_FLAG else "ringing an exclusion"
-            setting = "edge_buffer_m" if label == EDGE_FLAG else "exclusion_buffer_m"
-            warnings.append(f"anomal{'y' if len(ids) == 1 else 'ies'} {', '.join(ids)}: a narrow band {where} "
-                            f"(flag \"{label}\"): often flashing, parapet or unit heat rather than wet insulation; "
-                            f"check in daylight and by a core, or leave the band out with [detect] {setting}")
-    # the later stages (margin, files, map, report) take outlines simplified within a
-    # fraction of a pixel; areas, perimeters and every judgement above use the exact ones
-    pixel_m = (tiled.full_rasters.grid if tiled is not None else grid).pixel_m
-    drawn = simplify_outlines(polys, tolerance=SIMPLIFY_TOLERANCE_PX * pixel_m)  # (ring starts normalised)
-    anomalies = tuple(
-        Anomaly(
-            id=i + 1,
-            geometry=drawn[i],
-            status=verdicts.status[i],
-            area_m2=float(p.area),
-            perimeter_m=float(p.length),
-            delta_mean_c=float(stats.mean[i]),
-            delta_max_c=float(stats.max[i]),
-            confirmations=verdicts.confirmation_ids[i],
-            section=sections[section_of[i]].name if section_of[i] >= 0 else None,
-            flags="; ".join(f for f in (imagery.flags_text(i), *place_flags[i]) if f),
-            exact=p,
-        )
-        for i, p in enumerate(polys)
-    )
-
+    imagery = image_check_stage(plan, on_grid, found)
+    anomalies, flag_warnings = anomalies_of(plan, on_grid, found, judged, imagery)
     _emit(progress, "repair quantities")
-    quantities = compute_quantities(
-        polys, [a.status for a in anomalies], outline=outline, exclusions=exclusions,
-        sections=sections, settings=survey.repair, prices=survey.prices, kind=survey.survey.kind,
-        drawn=[a.geometry for a in anomalies], wet_thickness_mm=conf.wet_thickness_mm,
-    )
-    warnings.extend(quantities.notes)
-    if quantities.takeoff.range_note:
-        warnings.append(quantities.takeoff.range_note)
-    warnings.extend(_large_share_warnings(quantities, survey))
-    repair, takeoff, totals = quantities.repair, quantities.takeoff, quantities.sections
+    quantities, quantity_warnings = quantity_stage(plan, anomalies)
+    warnings = (*conditions, *plan.warnings, *on_grid.warnings, *found.warnings, *judged.warnings,
+                *imagery.warnings, *flag_warnings, *quantity_warnings)
     return SurveyResult(
-        survey=survey, grid=grid, surface_c=surface_c, detection=detection, outline=outline,
-        exclusions=exclusions, roof=roof, sections=tuple(sections), anomalies=anomalies, confirmations=conf,
-        verdicts=verdicts, confirmation_delta_c=conf_delta, repair=repair, takeoff=takeoff,
-        section_totals=totals, radiometry=radiometry, coverage=coverage, warnings=tuple(warnings),
-        passes=passes,
-        quantities=quantities,
-        threshold=check,
-        area_range=area_range,
-        suggested_cores=tuple(suggestions),
-        registration=tuple(frame_reports),
-        full_rasters=None if tiled is None else tiled.full_rasters,
-        imagery=imagery,
-        cores_threshold=from_cores[-1] if from_cores else None,
-        section_checks=tuple(section_checks),
+        survey=survey, grid=on_grid.grid, surface_c=on_grid.surface_c, detection=found.detection,
+        outline=plan.outline, exclusions=plan.exclusions, roof=plan.roof, sections=plan.sections,
+        anomalies=anomalies, confirmations=plan.confirmations, verdicts=judged.verdicts,
+        confirmation_delta_c=judged.confirmation_delta_c, repair=quantities.repair, takeoff=quantities.takeoff,
+        section_totals=quantities.sections, radiometry=plan.radiometry, coverage=on_grid.coverage,
+        warnings=tuple(warnings), passes=found.passes, quantities=quantities, threshold=judged.threshold,
+        area_range=judged.area_range, suggested_cores=judged.suggested_cores, registration=on_grid.registration,
+        full_rasters=None if on_grid.tiled is None else on_grid.tiled.full_rasters, imagery=imagery,
+        cores_threshold=from_cores.found[-1] if from_cores is not None and from_cores.found else None,
+        section_checks=judged.section_checks,
     )
 
 
@@ -1229,8 +1062,6 @@ def _write_files(result: SurveyResult, folder: Path, *,
                  extra_writers: tuple[Callable[[SurveyResult, Path], None], ...] = (),
                  map_html: bool = True, report_html: bool = True) -> None:
     """Write every result file into ``folder`` (a staging folder of :func:`wetmap.outputs.replacing`)."""
-    from .export import cad, gis, report, tables, webmap
-
     tables.write_summary(result, folder / "summary.json")
     tables.write_quantities(result, folder / "quantities.csv")
     tables.write_takeoff(result, folder / "takeoff.xlsx")
@@ -1303,19 +1134,16 @@ def run_survey(folder: str | Path, *, out: str | Path | None = None, progress: P
 def check_survey(folder: str | Path) -> tuple[Survey, tuple[str, ...]]:
     """Validate a survey without processing it: survey.toml, plan files, rasters, cores.
 
-    Makes every check a run makes before work (:func:`wetmap.prework.prepare_survey`: plan
-    files, CRS at the site, mosaics' placement, coverage and units, grid size, cores, board
-    take-off) and registers the frames. Returns the survey and the warnings found; raises
+    Runs the plan stage of a run (:func:`plan_stage`: every pre-work check of
+    :func:`wetmap.prework.prepare_survey` -- plan files, CRS at the site, mosaics' placement,
+    coverage and units, grid size, cores, board take-off -- the surveyed part and the
+    radiometry) and registers the frames. Returns the survey and the warnings found; raises
     :class:`WetmapError` listing every problem found (every survey.toml problem at once,
     then every pre-work problem at once).
     """
-    from .prework import prepare_survey
-
     survey = with_sun_times(load_survey(folder))  # sunset from place and date when not typed in
-    prepared = prepare_survey(survey)  # the same pre-work checks as a run, every problem at once
-    warnings: list[str] = list(prepared.warnings)
-    sections = list(prepared.sections)
-    radiometry = _radiometry(survey, warnings)
-    _register_frames(survey, radiometry, warnings, None)  # frame files readable, control points sound
-    warnings[:0] = _condition_warnings(survey, sections)
+    plan = plan_stage(survey)
+    warnings: list[str] = list(plan.warnings)
+    _register_frames(survey, plan.radiometry, warnings, None)  # frame files readable, control points sound
+    warnings[:0] = _condition_warnings(survey, list(plan.sections))
     return survey, tuple(warnings)

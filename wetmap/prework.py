@@ -23,6 +23,7 @@ from shapely.geometry.base import BaseGeometry
 from .confirmations import Confirmations, read_confirmations
 from .errors import ProcessingError, WetmapError
 from .frames import read_frame
+from .photos import check_photos
 from .rasters import RasterInfo, footprint, inspect_raster, plan_grid_for, sample_in_outline
 from .survey import Mosaic, Survey
 from .vectors import Section, read_layer, read_outline, read_sections
@@ -173,8 +174,7 @@ def prepare_survey(survey: Survey) -> Prepared:
                                 damp_counts_as=survey.cores.damp_counts_as)
         if confirmations is not None and outline is not None and len(confirmations):
             _check_cores_near(survey, confirmations, outline, problems)
-    from .photos import check_photos  # a missing or unreadable photo: one warning naming the file, row and fix
-
+    # a missing or unreadable photo: one warning naming the file, row and fix
     warnings.extend(f"{line} (left out of the report and the map until then)" for line in
                     check_photos(survey.folder, survey.cores.path if survey.cores else None, confirmations))
 

@@ -30,6 +30,8 @@ are metres. Other area units are derived only for display (:func:`convert_area`)
 
 from __future__ import annotations
 
+import os
+from concurrent.futures import ThreadPoolExecutor
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass, replace
@@ -42,7 +44,7 @@ from shapely import affinity
 from shapely.geometry import MultiPolygon, Polygon, box
 from shapely.geometry.base import BaseGeometry
 
-from .confirm import Status
+from .verdicts import NOT_REFUTED, Status, counted_statuses
 
 if TYPE_CHECKING:
     from .survey import AreaUnit, Prices, Repair
@@ -179,9 +181,6 @@ def _buffer_threaded(geoms: np.ndarray, distance: float) -> np.ndarray:
     centimetres is the slow step of the take-off; shapely releases the GIL inside its
     vectorised functions, so slices of the array run in threads (the same result).
     """
-    import os
-    from concurrent.futures import ThreadPoolExecutor
-
     workers = min(os.cpu_count() or 1, max(1, len(geoms) // 16))
     if workers == 1:
         return shapely.buffer(geoms, distance, quad_segs=QUAD_SEGS)
@@ -903,7 +902,7 @@ def compute_quantities(anomalies: Sequence[BaseGeometry], status: Sequence[Statu
     """
     excl = exclusions if exclusions is not None and not exclusions.is_empty else None
     roof = outline.difference(excl) if excl is not None else outline
-    counted = {"wet", "unverified"} if settings.include_unverified else {"wet"}
+    counted = counted_statuses(include_unverified=settings.include_unverified)
     grow = anomalies if drawn is None else drawn
     repair = repair_outline([g for g, s in zip(grow, status) if s in counted],
                             margin_m=settings.margin_m, outline=outline, exclusions=excl)
@@ -963,7 +962,7 @@ def compute_quantities(anomalies: Sequence[BaseGeometry], status: Sequence[Statu
             notes.append(_replace_note(f"the {'hull side' if hull else 'roof'} outside every section",
                                        outside.wet_fraction, threshold, kind))
 
-    wet = math.fsum(g.area for g, s in zip(anomalies, status) if s in ("wet", "unverified"))
+    wet = math.fsum(g.area for g, s in zip(anomalies, status) if s in NOT_REFUTED)
     fraction = wet / roof.area if roof.area > 0 else 0.0
     flag = 100.0 * fraction > threshold
     if flag and not sections:

@@ -27,15 +27,18 @@ import functools
 import logging
 import math
 from collections.abc import Callable, Iterator
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 
 import numpy as np
 from numpy.typing import ArrayLike
 from scipy import constants
 
-from wetmap.conditions import absolute_humidity_g_m3
+from .moist_air import absolute_humidity_g_m3
 
 __all__ = [
+    "Radiometry",
+    "to_surface_k",
+    "section_emissivity_correction",
     "DEFAULT_BAND_UM",
     "TABLE_MIN_K",
     "TABLE_MAX_K",
@@ -623,3 +626,48 @@ def atmospheric_transmittance(distance_m: float, *, air_c: float, humidity_pct: 
             math.exp(-WATER_VAPOUR_EXTINCTION_PER_MM * w_mm),
         )
     return math.exp(-WATER_VAPOUR_EXTINCTION_PER_MM * w_mm)
+
+
+@dataclass(frozen=True)
+class Radiometry:
+    """How apparent temperature was turned into surface temperature (the measurement's terms)."""
+
+    band_um: tuple[float, float]
+    emissivity: float
+    reflected_c: float
+    reflected_source: str
+    transmittance: float
+    transmittance_source: str
+    atmosphere_c: float
+
+
+def to_surface_k(apparent_k: np.ndarray, radiometry: Radiometry) -> np.ndarray:
+    """Apparent -> surface temperature, K: the measurement equation inverted (NaN stays NaN).
+
+    The same call for mosaics (on the plan grid, whole or in windows) and frames (per
+    frame, before resampling).
+    """
+    return surface_from_apparent(
+        apparent_k,
+        emissivity=radiometry.emissivity,
+        reflected_k=radiometry.reflected_c + 273.15,
+        transmittance=radiometry.transmittance,
+        atmosphere_k=radiometry.atmosphere_c + 273.15,
+        band_um=radiometry.band_um,
+    )
+
+
+def section_emissivity_correction(surface_k: np.ndarray, apparent_k: np.ndarray, labels: np.ndarray | None,
+                                  sections, radiometry: Radiometry) -> np.ndarray:
+    """Surface temperature (K) of each section with its own ``emissivity`` (sections.geojson),
+    from the apparent temperature (K); other pixels keep ``surface_k``. ``labels`` as
+    :func:`wetmap.windows.section_labels` (label ``k`` = ``sections[k]``)."""
+    if labels is None:
+        return surface_k
+    for k, sec in enumerate(sections):
+        if sec.emissivity is None or sec.emissivity == radiometry.emissivity:
+            continue
+        sel = labels == k
+        if sel.any():
+            surface_k[sel] = to_surface_k(apparent_k[sel], replace(radiometry, emissivity=sec.emissivity))
+    return surface_k

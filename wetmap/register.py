@@ -92,6 +92,7 @@ from collections.abc import Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
+import shapely
 
 from .errors import SurveyError
 
@@ -820,8 +821,6 @@ class SkinMap:
 
     def inside_marks(self, xs: np.ndarray, ys: np.ndarray) -> np.ndarray:
         """True where a plan point lies in the marks' convex hull."""
-        import shapely
-
         hull = shapely.MultiPoint(self.plan_xy).convex_hull.buffer(1e-9)
         xs, ys = np.asarray(xs, dtype=np.float64), np.asarray(ys, dtype=np.float64)
         shapely.prepare(hull)
@@ -836,16 +835,12 @@ class SkinMap:
 
     def beyond_marks_m(self, xs: np.ndarray, ys: np.ndarray) -> np.ndarray:
         """Distance of plan points from the marks' convex hull, metres (0 inside)."""
-        import shapely
-
         hull = shapely.MultiPoint(self.plan_xy).convex_hull
         xs, ys = np.asarray(xs, dtype=np.float64), np.asarray(ys, dtype=np.float64)
         return shapely.distance(hull, shapely.points(xs, ys)).reshape(xs.shape)
 
     def hull_in_image(self, *, step_m: float) -> np.ndarray:
         """``(m, 2)`` image ``(col, row)`` of the marks' convex hull boundary, densified every ``step_m``."""
-        import shapely
-
         ring = shapely.MultiPoint(self.plan_xy).convex_hull.exterior
         ring = shapely.segmentize(ring, max(step_m, 1e-6))
         xy = np.asarray(ring.coords)
@@ -874,8 +869,6 @@ def _interior_marks(plan_xy: np.ndarray) -> np.ndarray:
     use needs (pixels outside the marks' hull are used only as a last resort): the models
     are compared on the marks they must interpolate. All marks when fewer than 3 qualify.
     """
-    import shapely
-
     n = len(plan_xy)
     tol = _REL_TOL * max(_spread(plan_xy), 1e-12)
     out = np.zeros(n, dtype=bool)
@@ -934,7 +927,7 @@ def choose_model(image_cr: np.ndarray, plan_xy: np.ndarray, *, fit: ProjectiveFi
 # --------------------------------------------------------------------------------------
 
 
-def _lattice(shape: tuple[int, int], step: int) -> tuple[np.ndarray, np.ndarray]:
+def lattice(shape: tuple[int, int], step: int) -> tuple[np.ndarray, np.ndarray]:
     """Image points on a lattice every ``step`` pixels including the outer pixel edges."""
     rows, cols = shape
     cs = np.unique(np.concatenate([np.arange(-0.5, cols - 0.5, step), [cols - 0.5]]))
@@ -943,7 +936,7 @@ def _lattice(shape: tuple[int, int], step: int) -> tuple[np.ndarray, np.ndarray]
     return c.ravel(), r.ravel()
 
 
-def _usable_view(matrix: np.ndarray, cols: np.ndarray, rows: np.ndarray) -> np.ndarray:
+def usable_view(matrix: np.ndarray, cols: np.ndarray, rows: np.ndarray) -> np.ndarray:
     """In front of the camera and not too oblique (image points)."""
     w = _w(matrix, cols, rows)
     fine, coarse = ground_sampling_m(matrix, cols, rows)
@@ -969,8 +962,8 @@ def frame_gsd_m(matrix: np.ndarray, shape: tuple[int, int], bounds: tuple[float,
         Median of ``sqrt(fine * coarse)`` (the square root of the Jacobian determinant),
         m per pixel; NaN when no usable part of the frame lands in ``bounds``.
     """
-    cols, rows = _lattice(shape, max(1, min(shape) // 40))
-    ok = _usable_view(matrix, cols, rows)
+    cols, rows = lattice(shape, max(1, min(shape) // 40))
+    ok = usable_view(matrix, cols, rows)
     xs, ys = project(matrix, cols, rows)
     x0, y0, x1, y1 = bounds
     with np.errstate(invalid="ignore"):
@@ -1099,8 +1092,8 @@ def resample_frame(values: np.ndarray, mapping, *, grid_transform, grid_shape: t
     ga = grid_transform
     # footprint: usable lattice points of the image, on the plan
     step = max(1, min(rows, cols) // 40)
-    lc, lr = _lattice((rows, cols), step)
-    ok = _usable_view(matrix, lc, lr)
+    lc, lr = lattice((rows, cols), step)
+    ok = usable_view(matrix, lc, lr)
     if not ok.any():
         return None
     xs, ys = project(matrix, lc[ok], lr[ok])
@@ -1222,7 +1215,7 @@ def blend_frames(frames: Sequence[ResampledFrame], grid_shape: tuple[int, int], 
         ``(rows, cols)`` of the plan grid.
     fallback
         One flag per frame: a flagged frame (e.g. one found blurred by
-        :mod:`wetmap.imagery`) gives values only where no unflagged frame does.
+        :mod:`wetmap.image_checks`) gives values only where no unflagged frame does.
     max_view_angle_deg
         Views more oblique than this are used only where no better view covers
         (:func:`placement_ranks`).

@@ -11,12 +11,14 @@ have no position, so nothing is computed for them.
 
 from __future__ import annotations
 
+from zoneinfo import ZoneInfo
 import dataclasses
 import logging
 from dataclasses import dataclass
 from datetime import date as date_type
 from datetime import time as clock_time
 from typing import TYPE_CHECKING
+from .vectors import read_outline
 
 if TYPE_CHECKING:
     from .survey import Survey
@@ -76,8 +78,6 @@ def sun_times(lat: float, lon: float, day: date_type, *, timezone: str | None = 
     >>> t.timezone, t.sunset.strftime("%H:%M")
     ('Europe/London', '15:53')
     """
-    from zoneinfo import ZoneInfo
-
     from astral import Observer
     from astral.sun import dusk, sunrise, sunset
 
@@ -117,7 +117,6 @@ def survey_sun_times(survey: "Survey") -> SunTimes | None:
         return None
     from pyproj import Transformer
 
-    from .vectors import read_outline
 
     outline, _ = read_outline(survey.plan.outline, survey_crs=info.crs)
     centre = outline.centroid

@@ -146,7 +146,7 @@ class Camera:
     transmittance: float | None = None
     ifov_mrad: float | None = None
     """Instantaneous field of view of one detector element, milliradians; with ``distance_m``
-    it gives the optics' ground sampling distance (:mod:`wetmap.imagery`)."""
+    it gives the optics' ground sampling distance (:mod:`wetmap.image_checks`)."""
     max_view_angle_deg: float = 60.0
     """Frame pixels seen more obliquely than this (degrees from the surface normal) are not
     used where a better view covers the same plan pixel (:mod:`wetmap.register`)."""
@@ -169,7 +169,7 @@ class Plan:
     ground sampling distance (see :mod:`wetmap.register`)."""
     specular: Path | None = None
     """Optional layer of specular surfaces (metal, glazing, ...): warm patches on them seen
-    from one viewpoint are reflection suspects (:mod:`wetmap.imagery`)."""
+    from one viewpoint are reflection suspects (:mod:`wetmap.image_checks`)."""
 
 
 @dataclass(frozen=True)

@@ -17,12 +17,12 @@ section, the warm-outlier cut), on the small global block grid (the per-section 
 per pixel from that model (:meth:`wetmap.detect.BackgroundModel.evaluate`: the polynomial
 at the pixel centre, or the bilinear upsampling, which gives the same value at a pixel
 whichever window computes it). The section labels are rasterised by
-:func:`section_labels` with the pixel-centre rule of the roof mask. A window that starts
+:func:`wetmap.windows.section_labels` with the pixel-centre rule of the roof mask. A window that starts
 at a multiple of the block size holds whole blocks, so the passes are:
 
 1. *surface*: read the window of each mosaic (each task opens its own dataset; rasterio
    datasets are neither picklable nor thread-safe), correct apparent to surface
-   temperature, rasterise the roof (:func:`rasterize_window`) and take block statistics
+   temperature, rasterise the roof (:func:`wetmap.windows.rasterize_window`) and take block statistics
    of the usable pixels; the window is kept in a scratch folder;
 2. *background estimates 2 and 3*: block medians of the pixels not warmer than the
    previous background by more than the cut (the cut from the first estimate's noise),
@@ -40,7 +40,7 @@ corners) of at most ``min_pixels`` pixels is filled unless it holds an unusable 
 with. The merged pixel polygons are smoothed by :func:`wetmap.polygons.smooth_pixel_polygons`,
 the implementation :func:`wetmap.polygons.polygonize` itself uses.
 
-The roof mask is rasterised by :func:`rasterize_window` in both modes: the pixel-centre
+The roof mask is rasterised by :func:`wetmap.windows.rasterize_window` in both modes: the pixel-centre
 rule computed from the edges in whole-grid pixel coordinates, so every window gives the
 same pixels as the whole grid, bit for bit (GDAL's rasteriser shifts the coordinates
 into each window and can flip a centre that lies on an edge).
@@ -49,7 +49,7 @@ Results in tiled mode
 ---------------------
 ``surface_c.tif`` and ``delta_c.tif`` are written window by window (deflate level 1,
 BigTIFF when needed) into a scratch folder and moved into the results by
-:func:`wetmap.pipeline.write_results`. The :class:`~wetmap.pipeline.SurveyResult` keeps
+:func:`wetmap.pipeline.write_results`. The :class:`~wetmap.results.SurveyResult` keeps
 a *preview*: block means of ``f x f`` pixels (long side at most
 :data:`PREVIEW_MAX_SIDE`) with its own :class:`~wetmap.rasters.PlanGrid`, which the map,
 the report, the wet-area range and the boundary-core suggestions use; the confirmation
@@ -61,11 +61,16 @@ Windows run as Dask tasks: dask's threaded scheduler by default (scipy's filters
 numpy's sort release the GIL; rasterio's polygonizer does not, hence the ``"processes"``
 option), or a ``dask.distributed`` cluster when a scheduler address or a ``Client`` is
 given (every worker must see the survey folder and the scratch folder at the same
-paths). :func:`run_batch` runs many surveys on one engine.
+paths). :func:`wetmap.batch.run_batch` runs many surveys on one engine.
+
+Modules: :mod:`wetmap.windows` (window layout, the rasteriser), :mod:`wetmap.seams`
+(the pieces of each window merged across seams), this module (the engine), and
+:mod:`wetmap.batch` (many surveys).
 """
 
-from __future__ import annotations
 
+import threading
+from types import SimpleNamespace
 import logging
 import math
 import os
@@ -73,61 +78,42 @@ import shutil
 import tempfile
 import time
 import weakref
-from collections.abc import Callable, Iterable, Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import Any
 
 import numpy as np
 import shapely
 from affine import Affine
 
-from .errors import ProcessingError, WetmapError
-
-if TYPE_CHECKING:  # pragma: no cover
-    from .pipeline import Radiometry
-    from .rasters import PlanGrid, RasterInfo
-    from .survey import Survey
+from .detect import (Detection, background_grid, core_blocks, fit_background, block_noise_sigma, section_block_statistics,
+                     section_medians, warm_cut)
+from .errors import ProcessingError
+from .polygons import smooth_pixel_polygons
+from .radiometry import Radiometry, section_emissivity_correction, to_surface_k
+from .rasters import GDAL_CACHE_BYTES, PlanGrid, RasterInfo, aligned, inspect_raster, plan_grid_for, read_onto_grid
+from .seams import MergedRegions, TilePieces, merge_pieces, tile_pieces
+from .survey import Survey
+from .windows import (PixelEdges, block_mean, choose_tile_px, labels_at, pixel_edges, preview_factor, preview_need,
+                      rasterize_window, section_labels, upsample_window_fast, windows_of)
 
 __all__ = [
-    "TILE_TARGET_PX",
-    "WHOLE_ARRAY_MAX_PX",
-    "PREVIEW_MAX_SIDE",
-    "PixelEdges",
-    "pixel_edges",
-    "rasterize_window",
-    "section_labels",
-    "section_label_raster",
-    "labels_at",
-    "choose_tile_px",
-    "preview_factor",
-    "windows_of",
-    "upsample_window_fast",
-    "TilePieces",
-    "tile_pieces",
-    "merge_pieces",
+    "ArraySource",
+    "ArrayDetection",
+    "detect_array",
+    "detect_anomalies",
+    "Progress",
+    "WindowProgress",
     "Engine",
     "FullRasters",
     "TiledDetection",
     "detect_in_windows",
-    "BatchOutcome",
-    "run_batch",
 ]
 
 log = logging.getLogger(__name__)
 
-#: Window side aimed at, pixels (rounded to a multiple of the background block). Chosen
-#: on the benchmarks (benchmarks/RESULTS.md): a 1 Mpx window keeps each task's working set
-#: near 40 MB while the per-window overhead stays small.
-TILE_TARGET_PX = 1024
-
-#: Plan grids up to this many pixels are processed as one array unless ``[detect] tile_px``
-#: says otherwise; larger ones in windows.
-WHOLE_ARRAY_MAX_PX = 8_000_000
-
-#: Longest side of the preview kept in memory in tiled mode, pixels (about the report's
-#: figure resolution; the map's overlays are drawn from it too).
-PREVIEW_MAX_SIDE = 1400
+_CACHE_LIMITED = False  # GDAL_CACHEMAX set in this worker process
 
 #: GeoTIFF profile of the tiled outputs (fast deflate: the files are written once and big).
 _TIFF_PROFILE = dict(driver="GTiff", count=1, dtype="float32", nodata=float("nan"), compress="deflate",
@@ -137,14 +123,6 @@ _TIFF_PROFILE = dict(driver="GTiff", count=1, dtype="float32", nodata=float("nan
 #: Pixels written to a GeoTIFF at a time (whole 256 x 256 blocks; about 4 MB of float32).
 _WRITE_PIECE_PX = 1 << 20
 
-#: GDAL's block cache while windows are read and written, MB (GDAL's default, 5 % of the
-#: memory, would hold decompressed blocks of the mosaic worth hundreds of MB). Windows are
-#: read once each, so the cache barely helps: on the 32 Mpx benchmark mosaic 0, 16 and
-#: 64 MB gave the same times within the machine's noise (10-11 s).
-GDAL_CACHE_MB = 16
-#: The same in bytes, as GDAL_CACHEMAX takes it from rasterio (a bare 16 would mean 16 bytes).
-GDAL_CACHE_BYTES = GDAL_CACHE_MB << 20
-_CACHE_LIMITED = False
 
 #: How long to try to reach a dask scheduler address, seconds.
 CONNECT_TIMEOUT_S = 20
@@ -152,292 +130,6 @@ CONNECT_TIMEOUT_S = 20
 #: Progress callbacks: stage messages, and windows done of a total per stage.
 Progress = Callable[[str], None]
 WindowProgress = Callable[[str, int, int], None]
-
-
-# --------------------------------------------------------------------------------------
-# The roof mask: the pixel-centre rule, the same in every window
-# --------------------------------------------------------------------------------------
-
-
-@dataclass(frozen=True)
-class PixelEdges:
-    """Non-horizontal edges of polygon rings in pixel coordinates of a grid.
-
-    Each edge runs from ``(x0, y0)`` to ``(x1, y1)`` with ``y0 < y1`` (``x`` = column,
-    ``y`` = row, pixel corners at integers, pixel ``(row, col)`` centred at
-    ``(col + 0.5, row + 0.5)``); ``slope`` is ``(x1 - x0) / (y1 - y0)``. Float64, shape ``(E,)``.
-    """
-
-    x0: np.ndarray
-    y0: np.ndarray
-    y1: np.ndarray
-    slope: np.ndarray
-
-    def __len__(self) -> int:
-        return len(self.x0)
-
-
-def pixel_edges(geometry, transform: Affine) -> PixelEdges:
-    """The polygon edges of ``geometry`` (plan coordinates) in pixel coordinates of ``transform``.
-
-    Parameters
-    ----------
-    geometry
-        Any shapely geometry; only its polygonal parts count (points and lines cover no
-        pixel centre).
-    transform
-        Pixel-corner ``(col, row)`` -> plan ``(x, y)`` of the grid.
-
-    Returns
-    -------
-    PixelEdges
-
-    Examples
-    --------
-    >>> e = pixel_edges(shapely.box(0.0, 0.0, 1.0, 1.0), Affine(0.5, 0, 0, 0, -0.5, 1.0))
-    >>> len(e), sorted(e.x0.tolist())
-    (2, [0.0, 2.0])
-    """
-    empty = np.zeros(0)
-    if geometry is None or shapely.is_empty(geometry):
-        return PixelEdges(empty, empty, empty, empty)
-    parts = shapely.get_parts(geometry)
-    polys = parts[np.isin(shapely.get_type_id(parts), (3, 6))]
-    polys = shapely.get_parts(polys)  # multipolygons -> polygons
-    polys = polys[shapely.get_type_id(polys) == 3]
-    if not len(polys):
-        return PixelEdges(empty, empty, empty, empty)
-    rings = shapely.get_rings(polys)
-    coords, ring = shapely.get_coordinates(rings, return_index=True)
-    inv = ~transform
-    cols = inv.a * coords[:, 0] + inv.b * coords[:, 1] + inv.c
-    rows = inv.d * coords[:, 0] + inv.e * coords[:, 1] + inv.f
-    same = ring[:-1] == ring[1:]
-    xa, ya, xb, yb = cols[:-1][same], rows[:-1][same], cols[1:][same], rows[1:][same]
-    keep = ya != yb
-    xa, ya, xb, yb = xa[keep], ya[keep], xb[keep], yb[keep]
-    swap = ya > yb
-    x0 = np.where(swap, xb, xa)
-    x1 = np.where(swap, xa, xb)
-    y0 = np.where(swap, yb, ya)
-    y1 = np.where(swap, ya, yb)
-    return PixelEdges(x0=x0, y0=y0, y1=y1, slope=(x1 - x0) / (y1 - y0))
-
-
-def rasterize_window(edges: PixelEdges, *, row0: int, col0: int, shape: tuple[int, int]) -> np.ndarray:
-    """Pixels of a window whose centre lies inside the polygons (the pixel-centre rule).
-
-    Even-odd rule along each pixel row: the row's centre line ``y = row + 0.5`` crosses an
-    edge when ``y0 <= y < y1``, at ``x = x0 + (y - y0) * slope``; a pixel is inside when an
-    odd number of crossings lie left of its centre (a centre exactly on an edge counts as
-    inside on the right-hand side of a polygon and outside on its left). Every crossing
-    is computed in whole-grid coordinates, so a window gives exactly the pixels the whole
-    grid gives there.
-
-    Parameters
-    ----------
-    edges
-        From :func:`pixel_edges`.
-    row0, col0
-        The window's first pixel in the grid.
-    shape
-        ``(rows, cols)`` of the window.
-
-    Returns
-    -------
-    numpy.ndarray
-        Bool ``shape``.
-
-    Examples
-    --------
-    >>> e = pixel_edges(shapely.box(1.0, 1.0, 3.0, 2.0), Affine.identity())
-    >>> rasterize_window(e, row0=0, col0=0, shape=(3, 4)).astype(int)
-    array([[0, 0, 0, 0],
-           [0, 1, 1, 0],
-           [0, 0, 0, 0]])
-    """
-    rows, cols = shape
-    out = np.zeros((rows, cols + 1), dtype=np.uint8)
-    if rows and cols and len(edges):
-        first = np.maximum(np.ceil(edges.y0 - 0.5), row0)  # first row whose centre is >= y0
-        end = np.minimum(np.ceil(edges.y1 - 0.5), row0 + rows)  # first row whose centre is >= y1
-        n = np.maximum(end - first, 0).astype(np.int64)
-        active = np.flatnonzero(n)
-        if active.size:
-            n = n[active]
-            e = np.repeat(active, n)
-            r = np.repeat(first[active], n) + (np.arange(int(n.sum())) - np.repeat(np.cumsum(n) - n, n))
-            x = edges.x0[e] + ((r + 0.5) - edges.y0[e]) * edges.slope[e]
-            c = np.floor(x - 0.5) + 1.0 - col0  # first column whose centre is right of the crossing
-            c = np.clip(c, 0, cols).astype(np.int64)
-            np.bitwise_xor.at(out, ((r - row0).astype(np.int64), c), 1)
-    np.bitwise_xor.accumulate(out, axis=1, out=out)
-    return out[:, :cols].view(bool)
-
-
-def roof_mask(geometry, transform: Affine, shape: tuple[int, int]) -> np.ndarray:
-    """The whole grid's roof mask by :func:`rasterize_window` (the rule the windows use).
-
-    Parameters
-    ----------
-    geometry
-        Roof (outline minus exclusions), plan coordinates.
-    transform, shape
-        The plan grid.
-    """
-    edges = pixel_edges(geometry, transform)
-    out = np.empty(shape, dtype=bool)
-    step = max(1, (1 << 22) // max(shape[1], 1))
-    for r in range(0, shape[0], step):
-        n = min(step, shape[0] - r)
-        out[r:r + n] = rasterize_window(edges, row0=r, col0=0, shape=(n, shape[1]))
-    return out
-
-
-def section_labels(edges: Sequence[PixelEdges], *, row0: int, col0: int, shape: tuple[int, int]) -> np.ndarray:
-    """Section label of every pixel of a window by the pixel-centre rule (:func:`rasterize_window`).
-
-    Label ``k`` is the first section (in the order given) whose polygon holds the pixel's
-    centre; pixels in no section get ``len(edges)`` (with no sections at all: 0, one section
-    for the whole roof). int16 ``shape``; the same in every window as in the whole grid.
-    """
-    out = np.full(shape, len(edges), dtype=np.int16)
-    for k in range(len(edges) - 1, -1, -1):
-        out[rasterize_window(edges[k], row0=row0, col0=col0, shape=shape)] = k
-    return out
-
-
-def section_label_raster(edges: Sequence[PixelEdges], shape: tuple[int, int]) -> np.ndarray:
-    """:func:`section_labels` of the whole grid (computed in bands of rows)."""
-    out = np.empty(shape, dtype=np.int16)
-    step = max(1, (1 << 22) // max(shape[1], 1))
-    for r in range(0, shape[0], step):
-        n = min(step, shape[0] - r)
-        out[r:r + n] = section_labels(edges, row0=r, col0=0, shape=(n, shape[1]))
-    return out
-
-
-def labels_at(edges: Sequence[PixelEdges], rows: np.ndarray, cols: np.ndarray, shape: tuple[int, int]) -> np.ndarray:
-    """Section labels at pixels ``(rows, cols)`` of the grid (-1 off the grid), as :func:`section_labels`."""
-    out = np.full(len(rows), -1, dtype=np.int64)
-    for i, (r, c) in enumerate(zip(rows, cols)):
-        if 0 <= r < shape[0] and 0 <= c < shape[1]:
-            out[i] = int(section_labels(edges, row0=int(r), col0=int(c), shape=(1, 1))[0, 0])
-    return out
-
-
-# --------------------------------------------------------------------------------------
-# Windows
-# --------------------------------------------------------------------------------------
-
-
-def choose_tile_px(block_px: int, requested: int | None, shape: tuple[int, int]) -> int:
-    """Window side in pixels, a multiple of ``block_px``; 0 means whole-array processing.
-
-    Parameters
-    ----------
-    block_px
-        Background block size, pixels.
-    requested
-        ``[detect] tile_px``: ``None`` chooses by size (whole array up to
-        :data:`WHOLE_ARRAY_MAX_PX` pixels, else a multiple of the block within a quarter of
-        :data:`TILE_TARGET_PX` that the preview's block size divides, nearest the target),
-        ``0`` the whole array, any other value about that many pixels (rounded to the
-        nearest multiple of the block, at least one block).
-    shape
-        ``(rows, cols)`` of the plan grid.
-
-    Examples
-    --------
-    >>> choose_tile_px(80, None, (20000, 20000)), choose_tile_px(80, None, (1000, 1000))
-    (960, 0)
-    >>> choose_tile_px(8, 100, (500, 500)), choose_tile_px(89, 10, (500, 500))
-    (96, 89)
-    """
-    if requested == 0:
-        return 0
-    if requested is not None:
-        return int(block_px * max(1, round(requested / block_px)))
-    if shape[0] * shape[1] <= WHOLE_ARRAY_MAX_PX:
-        return 0
-    need = _preview_need(shape)
-    low, high = max(1, round(0.75 * TILE_TARGET_PX / block_px)), max(1, round(1.33 * TILE_TARGET_PX / block_px))
-    candidates = [k * block_px for k in range(low, high + 1)]
-    return min(candidates, key=lambda tp: (preview_factor(tp, need) - need, abs(tp - TILE_TARGET_PX)))
-
-
-def _preview_need(shape: tuple[int, int]) -> int:
-    return max(1, math.ceil(max(shape) / PREVIEW_MAX_SIDE))
-
-
-def preview_factor(tile_px: int, need: int) -> int:
-    """The smallest divisor of ``tile_px`` that is at least ``need`` (preview cells never straddle windows).
-
-    A window smaller than ``need`` gives one preview cell per window (``tile_px``).
-
-    >>> preview_factor(960, 15), preview_factor(89, 2), preview_factor(64, 100)
-    (15, 89, 64)
-    """
-    return next((f for f in range(max(1, need), tile_px + 1) if tile_px % f == 0), max(tile_px, 1))
-
-
-def windows_of(shape: tuple[int, int], tile_px: int) -> list[tuple[int, int, int, int]]:
-    """Windows ``(row0, col0, rows, cols)`` of ``tile_px`` covering ``shape``, row by row.
-
-    >>> windows_of((5, 3), 2)
-    [(0, 0, 2, 2), (0, 2, 2, 1), (2, 0, 2, 2), (2, 2, 2, 1), (4, 0, 1, 2), (4, 2, 1, 1)]
-    """
-    rows, cols = shape
-    return [(r, c, min(tile_px, rows - r), min(tile_px, cols - c))
-            for r in range(0, rows, tile_px) for c in range(0, cols, tile_px)]
-
-
-def upsample_window_fast(grid: np.ndarray, block: int, *, shape: tuple[int, int], row0: int = 0,
-                         col0: int = 0) -> np.ndarray:
-    """:func:`wetmap.detect.upsample_window`, bit for bit, without gathering columns.
-
-    The same float32 operations in the same order, applied to each run of columns that
-    share their two block nodes (a broadcast instead of a fancy-indexed gather): about
-    twice as fast. Checked bit for bit against the reference in tests/test_tiles.py.
-    """
-    from .detect import _interp_axis
-
-    rows, cols = shape
-    r0, r1, wr = _interp_axis(row0, rows, grid.shape[0], block)
-    c0, c1, wc = _interp_axis(col0, cols, grid.shape[1], block)
-    g = grid.astype(np.float32)
-    by_row = g[r0] * (1 - wr)[:, None] + g[r1] * wr[:, None]  # (rows, block cols)
-    out = np.empty(shape, dtype=np.float32)
-    one_minus = 1 - wc
-    starts = np.flatnonzero(np.r_[True, (c0[1:] != c0[:-1]) | (c1[1:] != c1[:-1])])
-    ends = np.r_[starts[1:], cols]
-    for s, e in zip(starts, ends):
-        a, b = int(c0[s]), int(c1[s])
-        part = out[:, s:e]
-        np.multiply(by_row[:, a:a + 1], one_minus[s:e], out=part)
-        part += by_row[:, b:b + 1] * wc[s:e]
-    return out
-
-
-def _block_mean(values: np.ndarray, factor: int) -> np.ndarray:
-    """NaN-ignoring means of ``factor x factor`` blocks (partial at the end), float32.
-
-    >>> _block_mean(np.array([[1.0, 3.0, 5.0], [np.nan, 5.0, np.nan]]), 2)
-    array([[3., 5.]], dtype=float32)
-    """
-    if factor == 1:
-        return values.astype(np.float32, copy=True)
-    rows, cols = values.shape
-    nr, nc = -(-rows // factor), -(-cols // factor)
-    finite = np.isfinite(values)
-    z = np.where(finite, values, np.float32(0)).astype(np.float32, copy=False)
-    if rows % factor or cols % factor:
-        z = np.pad(z, ((0, nr * factor - rows), (0, nc * factor - cols)))
-        finite = np.pad(finite, ((0, nr * factor - rows), (0, nc * factor - cols)))
-    total = z.reshape(nr, factor, nc * factor).sum(axis=1, dtype=np.float64).reshape(nr, nc, factor).sum(axis=2)
-    count = finite.reshape(nr, factor, nc * factor).sum(axis=1, dtype=np.int32).reshape(nr, nc, factor).sum(axis=2)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        return np.where(count > 0, total / np.maximum(count, 1), np.nan).astype(np.float32)
 
 
 # --------------------------------------------------------------------------------------
@@ -472,15 +164,16 @@ class SurfaceSource:
     section_emissivity: tuple[float | None, ...] = ()
     """Each section's own emissivity (``None``: the camera's)."""
 
+    @property
+    def has_sections(self) -> bool:
+        return bool(self.section_edges)
+
     def labels(self, row0: int, col0: int, rows: int, cols: int) -> np.ndarray:
         """The window's section labels (:func:`section_labels`)."""
         return section_labels(self.section_edges, row0=row0, col0=col0, shape=(rows, cols))
 
     def read(self, row0: int, col0: int, rows: int, cols: int) -> tuple[np.ndarray, np.ndarray, int]:
         """``(surface_c float32, in_roof bool, lost pixels)`` of a window, as the whole array gives them."""
-        from .pipeline import _to_surface_k
-        from .rasters import PlanGrid, read_onto_grid
-
         t = self.grid.transform
         sub = PlanGrid(transform=t @ Affine.translation(col0, row0), rows=rows, cols=cols, crs=self.grid.crs)
         apparent = None
@@ -492,11 +185,8 @@ class SurfaceSource:
                 gap = np.isnan(apparent)
                 apparent[gap] = values[gap]
         assert apparent is not None  # a tiled survey has at least one mosaic
-        surface = _to_surface_k(apparent, self.radiometry)
+        surface = to_surface_k(apparent, self.radiometry)
         if any(e is not None for e in self.section_emissivity):
-            from types import SimpleNamespace
-
-            from .pipeline import section_emissivity_correction
 
             sections = [SimpleNamespace(emissivity=e) for e in self.section_emissivity]
             surface = section_emissivity_correction(surface, apparent, self.labels(row0, col0, rows, cols), sections,
@@ -507,6 +197,30 @@ class SurfaceSource:
         surface -= np.float32(273.15)
         in_roof = rasterize_window(self.roof_edges, row0=row0, col0=col0, shape=(rows, cols))
         return surface, in_roof, lost
+
+
+@dataclass(frozen=True, eq=False)
+class ArraySource:
+    """Windows of a surface temperature already on the plan grid (frames blended, mosaics
+    resampled, a pass aligned to another's grid): ``surface_c`` (degC), ``usable`` (bool:
+    on the roof with data) and the section ``labels`` (int, or ``None``)."""
+
+    surface_c: np.ndarray
+    usable: np.ndarray
+    section_labels: np.ndarray | None = None
+
+    @property
+    def has_sections(self) -> bool:
+        return self.section_labels is not None
+
+    def labels(self, row0: int, col0: int, rows: int, cols: int) -> np.ndarray:
+        assert self.section_labels is not None
+        return self.section_labels[row0:row0 + rows, col0:col0 + cols].astype(np.int16, copy=False)
+
+    def read(self, row0: int, col0: int, rows: int, cols: int) -> tuple[np.ndarray, np.ndarray, int]:
+        """``(surface_c float32, usable, 0)``: the pixels were corrected before."""
+        sl = (slice(row0, row0 + rows), slice(col0, col0 + cols))
+        return self.surface_c[sl].astype(np.float32, copy=False), self.usable[sl] & np.isfinite(self.surface_c[sl]), 0
 
 
 # --------------------------------------------------------------------------------------
@@ -571,6 +285,14 @@ class _Scratch:
         surface[~roof] = np.nan
         return surface
 
+    def keep_background(self, i: int, background: np.ndarray) -> None:
+        """The window's background is not kept on disk (the previews sample it)."""
+
+    def view(self, kind: str, i: int) -> np.ndarray:
+        """A float32 window of ``kind``, read-only, without reading it all (a memory map)."""
+        _, _, rows, cols = self.windows[i]
+        return np.memmap(self.path(kind, i), dtype=np.float32, mode="r", shape=(rows, cols))
+
     def rect(self, kind: str, row0: int, col0: int, rows: int, cols: int) -> np.ndarray:
         """A rectangle of ``kind`` (``"surface"`` or ``"delta"``) that may span several windows."""
         out = np.empty((rows, cols), dtype=np.float32)
@@ -580,7 +302,7 @@ class _Scratch:
             for tc in range(col0 // tp, (col0 + cols - 1) // tp + 1):
                 i = tr * n_cols + tc
                 wr0, wc0, wr, wc = self.windows[i]
-                part = np.memmap(self.path(kind, i), dtype=np.float32, mode="r", shape=(wr, wc))
+                part = self.view(kind, i)
                 r_a, r_b = max(row0, wr0), min(row0 + rows, wr0 + wr)
                 c_a, c_b = max(col0, wc0), min(col0 + cols, wc0 + wc)
                 out[r_a - row0:r_b - row0, c_a - col0:c_b - col0] = part[r_a - wr0:r_b - wr0, c_a - wc0:c_b - wc0]
@@ -599,10 +321,48 @@ class _Scratch:
             idx = order[a:b]
             i = int(tile[idx[0]])
             r0, c0, h, w = self.windows[i]
-            values = np.memmap(self.path(kind, i), dtype=np.float32, mode="r", shape=(h, w))
+            values = self.view(kind, i)
             out[idx] = values[rows[idx] - r0, cols[idx] - c0]
             del values
         return out
+
+
+@dataclass(frozen=True, eq=False)
+class _MemoryStore(_Scratch):
+    """The same per-window arrays kept in memory (an array already in memory, processed in
+    this process: the whole array is the one-window case)."""
+
+    arrays: dict = field(default_factory=dict)
+
+    def limit_gdal_cache(self) -> None:
+        pass
+
+    def save(self, kind: str, i: int, values: np.ndarray) -> None:
+        self.arrays[kind, i] = values
+
+    def load(self, kind: str, i: int) -> np.ndarray:
+        return self.arrays[kind, i].copy()
+
+    def view(self, kind: str, i: int) -> np.ndarray:
+        return self.arrays[kind, i]
+
+    def save_surface(self, i: int, surface: np.ndarray, in_roof: np.ndarray) -> None:
+        self.arrays["surface", i] = surface.astype(np.float32, copy=False)
+        self.arrays["roof", i] = in_roof
+
+    def save_labels(self, i: int, labels: np.ndarray) -> None:
+        self.arrays["labels", i] = labels
+
+    def keep_background(self, i: int, background: np.ndarray) -> None:
+        self.arrays["background", i] = background
+
+    def labels(self, i: int) -> np.ndarray | None:
+        return self.arrays.get(("labels", i))
+
+    def masked(self, i: int) -> np.ndarray:
+        surface = self.arrays["surface", i].copy()
+        surface[~self.arrays["roof", i]] = np.nan
+        return surface
 
 
 # --------------------------------------------------------------------------------------
@@ -624,17 +384,15 @@ class _SurfacePass:
 
 def _surface_task(source: SurfaceSource, scratch: _Scratch, i: int, block: int, factor: int,
                   count: int = 1) -> _SurfacePass:
-    from .detect import section_block_statistics
-
     scratch.limit_gdal_cache()
     row0, col0, rows, cols = scratch.windows[i]
     surface, in_roof, lost = source.read(row0, col0, rows, cols)
     scratch.save_surface(i, surface, in_roof)
     labels = None
-    if source.section_edges:
+    if source.has_sections:
         labels = source.labels(row0, col0, rows, cols)
         scratch.save_labels(i, labels)
-    preview = _block_mean(surface, factor)
+    preview = block_mean(surface, factor) if factor else np.zeros((0, 0), np.float32)
     usable = in_roof & np.isfinite(surface)
     median, sigma = section_block_statistics(surface, usable, labels, count, block)
     covered = int(np.count_nonzero(usable))
@@ -649,8 +407,6 @@ def _surface_task(source: SurfaceSource, scratch: _Scratch, i: int, block: int, 
 
 def _keep_task(scratch: _Scratch, i: int, block: int, model: Any, cut: float, count: int = 1) -> np.ndarray:
     """Block medians per section of the usable pixels not warmer than the background by more than ``cut``."""
-    from .detect import section_block_statistics
-
     row0, col0, rows, cols = scratch.windows[i]
     masked = scratch.masked(i)
     labels = scratch.labels(i)
@@ -666,98 +422,6 @@ def _usable_values_task(scratch: _Scratch, i: int) -> tuple[np.ndarray, np.ndarr
     ok = np.isfinite(masked)
     labels = scratch.labels(i)
     return masked[ok], (None if labels is None else labels[ok])
-
-
-@dataclass(frozen=True)
-class TilePieces:
-    """The raw anomaly regions of one window, outlined in whole-grid pixel coordinates.
-
-    Attributes
-    ----------
-    polygons
-        Object array ``(n,)`` of pixel polygons (integer pixel corners of the whole grid).
-    pixels, delta_sum, delta_max
-        ``(n,)`` pixel count, sum (float64) and maximum of delta-T per region.
-    top, bottom, left, right
-        Region numbers ``1..n`` (0: none) along the window's four edges, for merging across
-        seams; ``top``/``bottom`` have the window's columns, ``left``/``right`` its rows.
-    """
-
-    polygons: np.ndarray
-    pixels: np.ndarray
-    delta_sum: np.ndarray
-    delta_max: np.ndarray
-    top: np.ndarray
-    bottom: np.ndarray
-    left: np.ndarray
-    right: np.ndarray
-
-
-def tile_pieces(delta_c: np.ndarray, *, row0: int, col0: int, grid_shape: tuple[int, int], threshold_c: float,
-                min_pixels: int) -> TilePieces:
-    """Outline the raw anomaly regions ``delta > threshold_c`` of one window.
-
-    Regions that touch no seam (a window edge inside the grid) and have fewer than
-    ``min_pixels`` pixels are dropped here: they merge with nothing, so the whole-array
-    clean-up would drop them too. The others are outlined with ``outline="pixel"`` in
-    pixel coordinates of the whole grid (exact integers).
-
-    Parameters
-    ----------
-    delta_c
-        The window's delta-T, degC, ``(rows, cols)``; NaN where not usable.
-    row0, col0
-        The window's first pixel in the grid.
-    grid_shape
-        ``(rows, cols)`` of the whole grid.
-    threshold_c
-        ``[detect] delta_c``.
-    min_pixels
-        Smallest region kept, pixels.
-    """
-    from .polygons import label_regions, polygonize
-
-    rows, cols = delta_c.shape
-    with np.errstate(invalid="ignore"):
-        raw = delta_c > threshold_c
-    labels, count = label_regions(raw)
-    del raw
-    sizes = np.bincount(labels.ravel(), minlength=count + 1)
-    seam = np.zeros(count + 1, dtype=bool)
-    if row0 > 0:
-        seam[labels[0]] = True
-    if row0 + rows < grid_shape[0]:
-        seam[labels[-1]] = True
-    if col0 > 0:
-        seam[labels[:, 0]] = True
-    if col0 + cols < grid_shape[1]:
-        seam[labels[:, -1]] = True
-    keep = seam | (sizes >= min_pixels)
-    keep[0] = False
-    renumber = np.zeros(count + 1, dtype=np.int32)
-    n = int(keep.sum())
-    renumber[keep] = np.arange(1, n + 1, dtype=np.int32)
-    labels = renumber[labels]
-    inside = labels.ravel() > 0
-    lab = labels.ravel()[inside].astype(np.intp)
-    vals = delta_c.ravel()[inside].astype(np.float64)
-    pixels = np.bincount(lab, minlength=n + 1)[1:].astype(np.int64)
-    total = np.bincount(lab, weights=vals, minlength=n + 1)[1:]
-    largest = np.full(n + 1, -np.inf)
-    np.maximum.at(largest, lab, vals)
-    if n:
-        import warnings
-
-        from rasterio.errors import NotGeoreferencedWarning
-
-        with warnings.catch_warnings():  # the first window's transform is the identity
-            warnings.simplefilter("ignore", NotGeoreferencedWarning)
-            polys = np.asarray(polygonize(labels, n, Affine.translation(col0, row0), outline="pixel"), dtype=object)
-    else:
-        polys = np.zeros(0, dtype=object)
-    return TilePieces(polygons=polys, pixels=pixels, delta_sum=total, delta_max=largest[1:],
-                      top=labels[0].copy(), bottom=labels[-1].copy(), left=labels[:, 0].copy(),
-                      right=labels[:, -1].copy())
 
 
 @dataclass(frozen=True)
@@ -779,332 +443,21 @@ def _final_task(scratch: _Scratch, i: int, block: int, model: Any, threshold_c: 
     delta = masked - bg
     del masked
     scratch.save("delta", i, delta)
-    delta_preview = _block_mean(delta, factor)
-    # the background at each preview cell's central pixel, where the cell has usable pixels
-    h = factor // 2
-    bg_preview = np.where(np.isfinite(delta_preview), bg[h::factor, h::factor][:delta_preview.shape[0],
-                                                                               :delta_preview.shape[1]], np.nan)
+    scratch.keep_background(i, bg)
+    if factor:
+        delta_preview = block_mean(delta, factor)
+        # the background at each preview cell's central pixel (the last pixel of a partial
+        # cell too short to hold its centre), where the cell has usable pixels
+        h = factor // 2
+        at_r = np.minimum(np.arange(delta_preview.shape[0]) * factor + h, rows - 1)
+        at_c = np.minimum(np.arange(delta_preview.shape[1]) * factor + h, cols - 1)
+        bg_preview = np.where(np.isfinite(delta_preview), bg[np.ix_(at_r, at_c)], np.nan)
+    else:  # no preview: the caller keeps the full arrays
+        delta_preview = bg_preview = np.zeros((0, 0), np.float32)
     del bg
     pieces = tile_pieces(delta, row0=row0, col0=col0, grid_shape=scratch.shape, threshold_c=threshold_c,
                          min_pixels=min_pixels)
     return _FinalPass(pieces=pieces, delta_preview=delta_preview, background_preview=bg_preview.astype(np.float32))
-
-
-# --------------------------------------------------------------------------------------
-# Merging the pieces and the clean-up in vector space
-# --------------------------------------------------------------------------------------
-
-
-@dataclass(frozen=True)
-class MergedRegions:
-    """Anomaly regions after the clean-up, in raster order of their first pixel.
-
-    Attributes
-    ----------
-    polygons
-        Pixel polygons (integer pixel corners of the whole grid), object array ``(n,)``.
-    pixels, delta_sum, delta_max
-        ``(n,)`` per region (filled holes included).
-    """
-
-    polygons: np.ndarray
-    pixels: np.ndarray
-    delta_sum: np.ndarray
-    delta_max: np.ndarray
-
-    @property
-    def delta_mean(self) -> np.ndarray:
-        with np.errstate(invalid="ignore", divide="ignore"):
-            return np.where(self.pixels > 0, self.delta_sum / np.maximum(self.pixels, 1), np.nan)
-
-
-def _components(n: int, a: np.ndarray, b: np.ndarray) -> np.ndarray:
-    """Connected components of ``n`` nodes joined by the pairs ``(a, b)``: a label per node."""
-    from scipy.sparse import coo_matrix
-    from scipy.sparse.csgraph import connected_components
-
-    if n == 0:
-        return np.zeros(0, dtype=np.int64)
-    graph = coo_matrix((np.ones(len(a), dtype=np.int8), (a, b)), shape=(n, n))
-    return connected_components(graph, directed=False)[1]
-
-
-def _exact(merged) -> bool:
-    """One valid Polygon with integer vertices (an exact union of pixel polygons)."""
-    if shapely.get_type_id(merged) != 3 or not shapely.is_valid(merged):
-        return False
-    xy = shapely.get_coordinates(merged)
-    return bool(np.array_equal(xy, np.rint(xy)))
-
-
-def _union(polys: Sequence) -> shapely.Polygon:
-    """Union of pixel polygons that make one 4-connected region (integer coordinates: exact)."""
-    if len(polys) == 1:
-        return polys[0]
-    polys = np.asarray(polys, dtype=object)
-    merged = shapely.union_all(polys)  # floating overlay: exact on integer pixel corners
-    if not _exact(merged):
-        merged = shapely.union_all(polys, grid_size=1.0)  # snap-rounding: slower, always exact
-    if shapely.get_type_id(merged) != 3:
-        raise ProcessingError(f"tiles: merged pixel outlines gave a {merged.geom_type}, expected one Polygon "
-                              "(a wetmap fault: please report it)")
-    return merged
-
-
-def _fill_rings(region: shapely.Polygon, holes: np.ndarray) -> shapely.Polygon | None:
-    """``region`` with the interior rings that ``holes`` fill exactly removed; ``None`` if one does not."""
-    if np.any(shapely.get_num_interior_rings(holes) > 0):
-        return None
-    rings = np.asarray(region.interiors, dtype=object) if len(region.interiors) else np.zeros(0, dtype=object)
-    ring_polys = shapely.polygons(rings) if len(rings) else rings
-    by_bounds: dict[tuple[float, ...], list[int]] = {}
-    for i, b in enumerate(shapely.bounds(ring_polys).tolist() if len(rings) else []):
-        by_bounds.setdefault(tuple(b), []).append(i)
-    drop = set()
-    for h, b in zip(holes, shapely.bounds(holes).tolist()):
-        match = [i for i in by_bounds.get(tuple(b), []) if i not in drop and ring_polys[i].equals(h)]
-        if not match:
-            return None
-        drop.add(match[0])
-    return shapely.Polygon(region.exterior, [r for i, r in enumerate(rings) if i not in drop])
-
-
-def _group(members: np.ndarray, polys: np.ndarray, pixels: np.ndarray, sums: np.ndarray,
-           maxes: np.ndarray, *, n_regions: int | None = None) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Merge items by group label: unions, summed pixels and sums, largest maximum.
-
-    With ``n_regions``, items from that index on are filled holes: a group of one region and
-    holes that are its own interior rings only loses those rings (no overlay needed).
-    """
-    n = int(members.max()) + 1 if len(members) else 0
-    order = np.argsort(members, kind="stable")
-    bounds = np.searchsorted(members[order], np.arange(n + 1))
-    out = np.empty(n, dtype=object)
-    for g in range(n):
-        items = order[bounds[g]:bounds[g + 1]]
-        if n_regions is not None and len(items) > 1 and np.count_nonzero(items < n_regions) == 1:
-            region = polys[items[items < n_regions][0]]
-            fast = _fill_rings(region, polys[items[items >= n_regions]])
-            if fast is not None:
-                out[g] = fast
-                continue
-        out[g] = _union(polys[items])
-    px = np.bincount(members, weights=pixels, minlength=n).astype(np.int64)
-    total = np.bincount(members, weights=sums, minlength=n)
-    largest = np.full(n, -np.inf)
-    np.maximum.at(largest, members, maxes)
-    return out, px, total, largest
-
-
-def merge_pieces(pieces: Sequence[TilePieces], windows: Sequence[tuple[int, int, int, int]], *,
-                 grid_shape: tuple[int, int], tile_px: int, min_pixels: int,
-                 read_delta: Callable[[np.ndarray, np.ndarray], np.ndarray]) -> MergedRegions:
-    """The clean-up of :func:`wetmap.detect.anomaly_mask`, done on the windows' pixel polygons.
-
-    1. Pieces that share a pixel edge across a seam are one region (4-connectivity);
-       their pixel polygons are united exactly (integer coordinates).
-    2. Regions of fewer than ``min_pixels`` pixels are dropped.
-    3. Bounded background components (holes, and pockets closed by regions touching at
-       pixel corners: the bounded parts of the grid's box minus every region) of at most
-       ``min_pixels`` pixels are filled unless one of their pixels is not fillable; a
-       filled hole joins every region it shares a pixel edge with.
-
-    Parameters
-    ----------
-    pieces, windows
-        :func:`tile_pieces` of each window and the windows ``(row0, col0, rows, cols)``.
-    grid_shape
-        ``(rows, cols)`` of the grid.
-    tile_px
-        Window side (windows are ``windows_of(grid_shape, tile_px)``).
-    min_pixels
-        Smallest region kept and largest hole filled, pixels.
-    read_delta
-        ``read_delta(rows, cols) -> delta_c`` at pixels of the grid (int arrays); a pixel
-        is fillable when its delta-T is finite (usable), as in :func:`wetmap.detect.anomaly_mask`.
-
-    Returns
-    -------
-    MergedRegions
-    """
-    n_cols = -(-grid_shape[1] // tile_px)
-    offsets = np.cumsum([0] + [len(p.pixels) for p in pieces])
-    total = int(offsets[-1])
-    pairs_a: list[np.ndarray] = []
-    pairs_b: list[np.ndarray] = []
-
-    def link(a_labels: np.ndarray, a_off: int, b_labels: np.ndarray, b_off: int) -> None:
-        both = (a_labels > 0) & (b_labels > 0)
-        pairs_a.append(a_off + a_labels[both].astype(np.int64) - 1)
-        pairs_b.append(b_off + b_labels[both].astype(np.int64) - 1)
-
-    for i, p in enumerate(pieces):
-        tr, tc = divmod(i, n_cols)
-        right = i + 1 if tc + 1 < n_cols else None
-        below = i + n_cols if i + n_cols < len(pieces) else None
-        if right is not None:
-            link(p.right, int(offsets[i]), pieces[right].left, int(offsets[right]))
-        if below is not None:
-            link(p.bottom, int(offsets[i]), pieces[below].top, int(offsets[below]))
-    a = np.concatenate(pairs_a) if pairs_a else np.zeros(0, np.int64)
-    b = np.concatenate(pairs_b) if pairs_b else np.zeros(0, np.int64)
-    group = _components(total, a, b)
-    if total:
-        polys, pixels, sums, maxes = _group(
-            group, np.concatenate([p.polygons for p in pieces]), np.concatenate([p.pixels for p in pieces]),
-            np.concatenate([p.delta_sum for p in pieces]), np.concatenate([p.delta_max for p in pieces]))
-    else:
-        polys, pixels, sums, maxes = (np.zeros(0, dtype=object), np.zeros(0, np.int64), np.zeros(0), np.zeros(0))
-    kept = pixels >= min_pixels
-    polys, pixels, sums, maxes = polys[kept], pixels[kept], sums[kept], maxes[kept]
-
-    holes, owner = _small_holes(polys, grid_shape, min_pixels)
-    h_pixels, h_sum, h_max, h_ok = _hole_statistics(holes, read_delta)
-    if h_ok.any():
-        hole_polys, owner = holes[h_ok], owner[h_ok]
-        n = len(polys)
-        # a plain interior ring borders its own region only; other holes: every region sharing an edge
-        plain = np.flatnonzero(owner >= 0)
-        other = np.flatnonzero(owner < 0)
-        hole_idx, region_idx = plain, owner[plain]
-        if len(other):
-            q_hole, q_region = shapely.STRtree(polys).query(hole_polys[other], predicate="touches")
-            shares_edge = shapely.relate_pattern(hole_polys[other][q_hole], polys[q_region], "F***1****")
-            hole_idx = np.concatenate([hole_idx, other[q_hole[shares_edge]]])
-            region_idx = np.concatenate([region_idx, q_region[shares_edge]])
-        group = _components(n + len(hole_polys), n + hole_idx, region_idx)
-        _, group = np.unique(group, return_inverse=True)
-        polys, pixels, sums, maxes = _group(
-            group, np.concatenate([polys, hole_polys]), np.concatenate([pixels, h_pixels[h_ok]]),
-            np.concatenate([sums, h_sum[h_ok]]), np.concatenate([maxes, h_max[h_ok]]), n_regions=n)
-    order = np.lexsort(_first_pixel(polys)[::-1]) if len(polys) else np.zeros(0, dtype=np.intp)
-    return MergedRegions(polygons=polys[order], pixels=pixels[order], delta_sum=sums[order], delta_max=maxes[order])
-
-
-def _hole_pixels(holes: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """``(hole index, row, col)`` of every pixel of integer-cornered pixel polygons.
-
-    Exact scan conversion of the vertical edges (even-odd per row; a pixel ``(r, c)`` is in a
-    polygon when ``c`` lies between a pair of crossings of row ``r``), vectorised over all
-    the polygons.
-    """
-    empty = np.zeros(0, dtype=np.int64)
-    if not len(holes):
-        return empty, empty, empty
-    rings, ring_owner = shapely.get_rings(holes, return_index=True)
-    coords, ring = shapely.get_coordinates(rings, return_index=True)
-    xy = np.rint(coords).astype(np.int64)
-    same = ring[:-1] == ring[1:]
-    x0, y0, x1, y1 = xy[:-1, 0], xy[:-1, 1], xy[1:, 0], xy[1:, 1]
-    vertical = same & (x0 == x1) & (y0 != y1)
-    owner = ring_owner[ring[:-1][vertical]]
-    x = x0[vertical]
-    low = np.minimum(y0, y1)[vertical]
-    n = np.abs(y1 - y0)[vertical]
-    hole = np.repeat(owner, n)
-    row = np.repeat(low, n) + (np.arange(int(n.sum())) - np.repeat(np.cumsum(n) - n, n))
-    col = np.repeat(x, n)
-    order = np.lexsort((col, row, hole))
-    hole, row, col = hole[order][0::2], row[order][0::2], col[order]
-    start, stop = col[0::2], col[1::2]
-    width = stop - start
-    pixels_hole = np.repeat(hole, width)
-    pixels_row = np.repeat(row, width)
-    pixels_col = np.repeat(start, width) + (np.arange(int(width.sum())) - np.repeat(np.cumsum(width) - width, width))
-    return pixels_hole, pixels_row, pixels_col
-
-
-def _hole_statistics(holes: np.ndarray, read_delta: Callable[[np.ndarray, np.ndarray], np.ndarray]
-                     ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
-    """Pixels, delta sum and maximum of each hole, and whether all its pixels are fillable (finite delta).
-
-    In batches of about 260 000 pixels, so memory stays bounded however many holes there are.
-    """
-    n = len(holes)
-    area = np.rint(shapely.area(holes)).astype(np.int64) if n else np.zeros(0, np.int64)
-    pixels = np.zeros(n, dtype=np.int64)
-    total = np.zeros(n)
-    largest = np.full(n, -np.inf)
-    bad = np.zeros(n, dtype=np.int64)
-    batch = np.cumsum(area) // (1 << 18)
-    for b in np.unique(batch):
-        part = np.flatnonzero(batch == b)
-        which, rows, cols = _hole_pixels(holes[part])
-        which = part[which]
-        values = read_delta(rows, cols).astype(np.float64) if len(rows) else np.zeros(0)
-        del rows, cols
-        ok = np.isfinite(values)
-        pixels += np.bincount(which, minlength=n)
-        bad += np.bincount(which[~ok], minlength=n)
-        total += np.bincount(which[ok], weights=values[ok], minlength=n)
-        np.maximum.at(largest, which[ok], values[ok])
-    if not np.array_equal(pixels, area):
-        raise ProcessingError("tiles: a hole's pixels do not add up to its area (a wetmap fault: please report it)")
-    return pixels, total, largest, bad == 0
-
-
-def _small_holes(polys: np.ndarray, grid_shape: tuple[int, int], min_pixels: int
-                 ) -> tuple[np.ndarray, np.ndarray]:
-    """Bounded background components of at most ``min_pixels`` pixels (pixel polygons).
-
-    Returns the components and, for each, the one region whose interior ring it is (-1 for
-    a component bounded otherwise: a hole holding islands, or a pocket closed by regions
-    that touch at pixel corners).
-
-    A region's interior ring with no region inside is such a component as it is (the
-    common case: dropouts in a wet area). The others lie strictly inside the box of the
-    regions that enclose them, so the parts of (that box, one pixel wider, minus every
-    region with its plain rings filled) that do not reach the box's edge are exactly the rest.
-    """
-    none = (np.zeros(0, dtype=object), np.zeros(0, dtype=np.int64))
-    if not len(polys) or min_pixels <= 0:
-        return none
-    rows, cols = grid_shape
-    tree = shapely.STRtree(polys)
-    a, b = tree.query(polys, predicate="touches")
-    general = np.zeros(len(polys), dtype=bool)
-    general[a[a != b]] = True  # touches another region at a pixel corner
-    rings, ring_owner = shapely.get_rings(polys, return_index=True)
-    interior = np.r_[False, ring_owner[1:] == ring_owner[:-1]]  # every ring after a polygon's first
-    rings, ring_owner = rings[interior], ring_owner[interior]
-    ring_polys = shapely.polygons(rings) if len(rings) else np.zeros(0, dtype=object)
-    inside_ring, _ = tree.query(ring_polys, predicate="covers") if len(rings) else (np.zeros(0, np.int64),) * 2
-    with_island = np.zeros(len(rings), dtype=bool)
-    with_island[inside_ring] = True
-    general[ring_owner[with_island]] = True
-    plain = ~with_island
-    small = plain & (shapely.area(ring_polys) <= min_pixels + 0.5) if len(rings) else plain
-    holes, owners = [ring_polys[small]], [ring_owner[small]]
-    if general.any():
-        x0, y0, x1, y1 = shapely.total_bounds(polys[general])
-        fx0, fy0, fx1, fy1 = max(x0 - 1, 0), max(y0 - 1, 0), min(x1 + 1, cols), min(y1 + 1, rows)
-        frame = shapely.box(fx0, fy0, fx1, fy1)
-        near = tree.query(frame)
-        kept_rings = {}  # per region: its rings that hold islands (the plain ones are filled)
-        for ring, owner in zip(rings[with_island], ring_owner[with_island]):
-            kept_rings.setdefault(int(owner), []).append(ring)
-        filled = [shapely.Polygon(polys[i].exterior, kept_rings.get(int(i), [])) for i in near]
-        rest = shapely.difference(frame, shapely.multipolygons(filled), grid_size=1.0)
-        parts = shapely.get_parts(rest)
-        if len(parts):
-            bx0, by0, bx1, by1 = shapely.bounds(parts).T
-            bounded = (bx0 > fx0) & (by0 > fy0) & (bx1 < fx1) & (by1 < fy1)
-            keep = bounded & (shapely.area(parts) <= min_pixels + 0.5)
-            holes.append(parts[keep])
-            owners.append(np.full(int(keep.sum()), -1, dtype=np.int64))
-    return np.concatenate(holes), np.concatenate(owners).astype(np.int64)
-
-
-def _first_pixel(polys: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """``(row, col)`` of each pixel polygon's first pixel in raster order (as ndimage.label numbers)."""
-    rows = np.empty(len(polys), dtype=np.int64)
-    cols = np.empty(len(polys), dtype=np.int64)
-    for i, p in enumerate(polys):
-        xy = np.asarray(p.exterior.coords)
-        top = xy[:, 1].min()
-        rows[i] = int(top)
-        cols[i] = int(xy[xy[:, 1] == top, 0].min())
-    return rows, cols
 
 
 # --------------------------------------------------------------------------------------
@@ -1184,6 +537,13 @@ class Engine:
             return []
         if self.kind == "distributed":
             return self._map_distributed(fn, shared, items, label, progress)
+        if self.kind == "sync":  # one thread, in order: no graph needed
+            out = []
+            for item in items:
+                out.append(fn(*shared, *item))
+                if progress is not None:
+                    progress(label, len(out), total)
+            return out
         import dask
         from dask.callbacks import Callback
 
@@ -1265,7 +625,7 @@ class FullRasters:
                 shutil.copy2(src, dst)
 
     def sample(self, xs: np.ndarray, ys: np.ndarray, *, radius_px: int = 1) -> np.ndarray:
-        """:func:`wetmap.confirm.sample_at_points` of the full-resolution delta-T (small window reads)."""
+        """:func:`wetmap.verdicts.sample_at_points` of the full-resolution delta-T (small window reads)."""
         import rasterio
         from rasterio.windows import Window
 
@@ -1314,11 +674,9 @@ class TiledDetection:
 
 def _mosaic_sources(survey: "Survey", grid: "PlanGrid", infos) -> tuple[MosaicWindowSource, ...] | None:
     """The mosaics as window sources, or ``None`` when one is not aligned with the grid."""
-    from .rasters import _aligned
-
     out = []
     for m, info in zip(survey.mosaics, infos):
-        if _aligned(info, grid) is None:
+        if aligned(info, grid) is None:
             return None
         out.append(MosaicWindowSource(path=m.path, info=info, units=m.units, scale=m.scale, offset=m.offset))
     return tuple(out)
@@ -1376,12 +734,9 @@ def detect_in_windows(survey: "Survey", *, outline, roof, radiometry: "Radiometr
         Each section's own emissivity (``None``: ``[camera] emissivity``).
     threshold_from
         Given the confirmations' delta-T (3 x 3 median at each, as
-        :func:`wetmap.confirm.sample_at_points`), the threshold to apply (``[detect] delta_c =
+        :func:`wetmap.verdicts.sample_at_points`), the threshold to apply (``[detect] delta_c =
         "cores"``); ``None``: ``[detect] delta_c``.
     """
-    from .detect import Detection, background_grid, core_blocks, fit_background, noise_sigma, warm_cut
-    from .rasters import PlanGrid, inspect_raster, plan_grid_for
-
     if survey.frames or not survey.mosaics:
         return None
     crs = None if survey.survey.is_local else survey.survey.crs
@@ -1398,7 +753,7 @@ def detect_in_windows(survey: "Survey", *, outline, roof, radiometry: "Radiometr
         return None
     block = spec.block_px
     windows = tuple(windows_of(grid.shape, tp))
-    factor = preview_factor(tp, _preview_need(grid.shape))
+    factor = preview_factor(tp, preview_need(grid.shape))
     folder = _new_scratch(scratch, survey.folder)
     rasters = FullRasters(grid=grid, surface_c=folder / "surface_c.tif", delta_c=folder / "delta_c.tif",
                           folder=folder, tile_px=tp, windows=len(windows), preview_factor=factor)
@@ -1426,85 +781,29 @@ def detect_in_windows(survey: "Survey", *, outline, roof, radiometry: "Radiometr
 
     env = rasterio.Env(GDAL_CACHEMAX=GDAL_CACHE_BYTES)  # bounds the block cache of every thread's reads
     env.__enter__()
-    writer: _Background | None = None
+    writer: list[_Background] = []
+
+    def write_surface() -> None:
+        # surface_c.tif is complete on disk: write it while the next passes run (GDAL compresses
+        # without the GIL, so the writer uses what the window tasks leave idle)
+        writer.append(_Background(_write_tiff, store, "surface", rasters.surface_c, grid, None))
+
     try:
         _emit(progress, f"{len(windows)} windows of {tp} px on {engine.describe()}: reading and correcting the "
                         "mosaics, background estimate 1")
-        first = engine.map(_surface_task, (source, store), [(i, block, factor, count) for i in range(len(windows))],
-                           label="surface temperature", progress=window_progress)
-        median = np.full((count, nbr, nbc), np.nan)
-        sigma = np.full((count, nbr, nbc), np.nan)
-        for (r0, c0, _, _), f in zip(windows, first):
-            br, bc = r0 // block, c0 // block
-            median[:, br:br + f.median.shape[1], bc:bc + f.median.shape[2]] = f.median
-            sigma[:, br:br + f.sigma.shape[1], bc:bc + f.sigma.shape[2]] = f.sigma
-        roof_px = sum(f.roof_px for f in first)
-        covered_px = sum(f.covered_px for f in first)
-        lost_px = sum(f.lost_px for f in first)
-        low = min(f.low_c for f in first)
-        high = max(f.high_c for f in first)
-        preview_grid = PlanGrid(transform=grid.transform @ Affine.scale(factor), rows=-(-grid.rows // factor),
-                                cols=-(-grid.cols // factor), crs=grid.crs)
-        surface_preview = _assemble_preview([f.preview for f in first], windows, factor, preview_grid.shape)
-        del first
-        # surface_c.tif is complete on disk: write it while the next passes run (GDAL compresses
-        # without the GIL, so the writer uses what the window tasks leave idle)
-        writer = _Background(_write_tiff, store, "surface", rasters.surface_c, grid, None)
-
-        model = None
-        if covered_px:
-            noise = noise_sigma(sigma)
-            cut = warm_cut(sdt.delta_c, noise)
-            fallback = None
-            if not np.isfinite(median).reshape(count, -1).any(axis=1).all():
-                from .detect import section_medians
-
-                parts = engine.map(_usable_values_task, (store,), [(i,) for i in range(len(windows))])
-                values = np.concatenate([p[0] for p in parts])
-                labs = None if not section_edges else np.concatenate([p[1] for p in parts])
-                fallback = section_medians(values, np.ones(values.shape, bool), labs, count)
-                del parts, values, labs
-            for estimate in range(3):  # as wetmap.detect.estimate_background: three estimates
-                if estimate:
-                    _emit(progress, f"background estimate {estimate + 1} of 3")
-                    parts = engine.map(_keep_task, (store,), [(i, block, model, cut, count) for i in range(len(windows))],
-                                       label=f"background estimate {estimate + 1}", progress=window_progress)
-                    median = np.full((count, nbr, nbc), np.nan)
-                    for (r0, c0, _, _), m in zip(windows, parts):
-                        median[:, r0 // block:r0 // block + m.shape[1], c0 // block:c0 // block + m.shape[2]] = m
-                    del parts
-                model = fit_background(median, block_px=block, grid_shape=grid.shape, footprint=spec.footprint,
-                                       delta_c=sdt.delta_c, noise_c=noise, names=names, choice=choice,
-                                       fallback_c=fallback, previous=model, wet_blocks=wet_b, dry_blocks=dry_b)
-
-        threshold_c = sdt.delta_c
-        if threshold_from is not None:
-            threshold_c = float(threshold_from(_core_deltas(store, model, core_rc, block)))
-
-        _emit(progress, "delta-T and anomaly outlines in windows")
-        final = engine.map(_final_task, (store,),
-                           [(i, block, model, threshold_c, min_pixels, factor) for i in range(len(windows))],
-                           label="anomaly outlines", progress=window_progress)
-        delta_preview = _assemble_preview([f.delta_preview for f in final], windows, factor, preview_grid.shape)
-        bg_preview = _assemble_preview([f.background_preview for f in final], windows, factor, preview_grid.shape)
-        pieces = [f.pieces for f in final]
-        del final
-
-        _emit(progress, "merging outlines across window seams; small regions and holes")
-
-        merged = merge_pieces(pieces, windows, grid_shape=grid.shape, tile_px=tp, min_pixels=min_pixels,
-                              read_delta=lambda rows, cols: store.gather("delta", rows, cols))
-        del pieces
-        from .polygons import smooth_pixel_polygons
-
-        polygons = tuple(smooth_pixel_polygons(merged.polygons, grid.transform))
+        run = _run_windows(engine, source, store, spec=spec, count=count, names=names, choice=choice,
+                           threshold_c=sdt.delta_c, min_pixels=min_pixels, factor=factor, core_rc=core_rc,
+                           wet_blocks=wet_b, dry_blocks=dry_b, threshold_from=threshold_from, progress=progress,
+                           window_progress=window_progress, surface_done=write_surface)
+        polygons = tuple(smooth_pixel_polygons(run.merged.polygons, grid.transform))
 
         _emit(progress, "writing delta_c.tif (and finishing surface_c.tif) by bands of blocks")
         _write_tiff(store, "delta", rasters.delta_c, grid, window_progress)
-        writer.join()
+        for w in writer:
+            w.join()
     except BaseException:
-        if writer is not None:
-            writer.join(reraise=False)
+        for w in writer:
+            w.join(reraise=False)
         shutil.rmtree(folder, ignore_errors=True)
         raise
     finally:
@@ -1514,21 +813,207 @@ def detect_in_windows(survey: "Survey", *, outline, roof, radiometry: "Radiometr
         for p in folder.glob("*.raw"):
             p.unlink(missing_ok=True)
 
+    preview_grid = PlanGrid(transform=grid.transform @ Affine.scale(factor), rows=-(-grid.rows // factor),
+                            cols=-(-grid.cols // factor), crs=grid.crs)
+    merged = run.merged
     preview_mask = _preview_mask(merged.polygons, factor, preview_grid.shape)
-    detection = Detection(background_c=bg_preview, delta_c=delta_preview, mask=preview_mask,
-                          background_m=background_m, threshold_c=threshold_c, min_pixels=min_pixels, background=model)
+    detection = Detection(background_c=run.background_preview, delta_c=run.delta_preview, mask=preview_mask,
+                          background_m=background_m, threshold_c=run.threshold_c, min_pixels=min_pixels,
+                          background=run.model)
     return TiledDetection(
-        grid=preview_grid, surface_c=surface_preview, detection=detection, polygons=polygons,
-        pixels=merged.pixels, delta_mean=merged.delta_mean, delta_max=merged.delta_max, roof_px=roof_px,
-        covered_px=covered_px, lost_px=lost_px, constant=bool(covered_px and low == high), full_rasters=rasters,
+        grid=preview_grid, surface_c=run.surface_preview, detection=detection, polygons=polygons,
+        pixels=merged.pixels, delta_mean=merged.delta_mean, delta_max=merged.delta_max, roof_px=run.roof_px,
+        covered_px=run.covered_px, lost_px=run.lost_px, constant=run.constant, full_rasters=rasters,
         preview_min_pixels=max(1, math.ceil(min_pixels / (factor * factor))),
     )
+
+
+@dataclass(frozen=True)
+class _WindowsRun:
+    """What the passes over the windows found (previews: block means of ``factor`` pixels)."""
+
+    model: Any
+    threshold_c: float
+    merged: MergedRegions
+    surface_preview: np.ndarray
+    delta_preview: np.ndarray
+    background_preview: np.ndarray
+    roof_px: int
+    covered_px: int
+    lost_px: int
+    constant: bool
+
+
+def _run_windows(engine: Engine, source, store: _Scratch, *, spec, count: int, names: tuple[str, ...], choice: str,
+                 threshold_c: float, min_pixels: int, factor: int, core_rc=None, wet_blocks=None, dry_blocks=None,
+                 threshold_from: Callable[[np.ndarray], float] | None = None, applied_c: float | None = None,
+                 progress: Progress | None = None, window_progress: WindowProgress | None = None,
+                 surface_done: Callable[[], None] | None = None) -> _WindowsRun:
+    """The detection itself, the same for one window or many: surface and background
+    estimate 1, estimates 2 and 3, the threshold, delta-T and the pieces of each window,
+    merged across the seams with the clean-up in vector space (:func:`wetmap.seams.merge_pieces`)."""
+    windows = store.windows
+    block = spec.block_px
+    rows, cols = store.shape
+    nbr, nbc = -(-rows // block), -(-cols // block)
+    first = engine.map(_surface_task, (source, store), [(i, block, factor, count) for i in range(len(windows))],
+                       label="surface temperature", progress=window_progress)
+    median = np.full((count, nbr, nbc), np.nan)
+    sigma = np.full((count, nbr, nbc), np.nan)
+    for (r0, c0, _, _), f in zip(windows, first):
+        br, bc = r0 // block, c0 // block
+        median[:, br:br + f.median.shape[1], bc:bc + f.median.shape[2]] = f.median
+        sigma[:, br:br + f.sigma.shape[1], bc:bc + f.sigma.shape[2]] = f.sigma
+    roof_px = sum(f.roof_px for f in first)
+    covered_px = sum(f.covered_px for f in first)
+    lost_px = sum(f.lost_px for f in first)
+    low = min(f.low_c for f in first)
+    high = max(f.high_c for f in first)
+    preview_shape = (-(-rows // factor), -(-cols // factor)) if factor else (0, 0)
+    surface_preview = _assemble_preview([f.preview for f in first], windows, factor, preview_shape)
+    del first
+    if surface_done is not None:
+        surface_done()
+
+    model = None
+    if covered_px:
+        noise = block_noise_sigma(sigma)
+        cut = warm_cut(threshold_c, noise)
+        fallback = None
+        if not np.isfinite(median).reshape(count, -1).any(axis=1).all():
+            parts = engine.map(_usable_values_task, (store,), [(i,) for i in range(len(windows))])
+            values = np.concatenate([p[0] for p in parts])
+            labs = None if not source.has_sections else np.concatenate([p[1] for p in parts])
+            fallback = section_medians(values, np.ones(values.shape, bool), labs, count)
+            del parts, values, labs
+        for estimate in range(3):  # three estimates: estimate, leave out the warm pixels, re-estimate
+            if estimate:
+                _emit(progress, f"background estimate {estimate + 1} of 3")
+                parts = engine.map(_keep_task, (store,), [(i, block, model, cut, count) for i in range(len(windows))],
+                                   label=f"background estimate {estimate + 1}", progress=window_progress)
+                median = np.full((count, nbr, nbc), np.nan)
+                for (r0, c0, _, _), m in zip(windows, parts):
+                    median[:, r0 // block:r0 // block + m.shape[1], c0 // block:c0 // block + m.shape[2]] = m
+                del parts
+            model = fit_background(median, block_px=block, grid_shape=store.shape, footprint=spec.footprint,
+                                   threshold_c=threshold_c, noise_c=noise, names=names, choice=choice,
+                                   fallback_c=fallback, previous=model, wet_blocks=wet_blocks, dry_blocks=dry_blocks)
+
+    threshold = threshold_c if applied_c is None else applied_c
+    if threshold_from is not None:
+        threshold = float(threshold_from(_core_deltas(store, model, core_rc, block)))
+
+    _emit(progress, "delta-T and anomaly outlines in windows")
+    final = engine.map(_final_task, (store,),
+                       [(i, block, model, threshold, min_pixels, factor) for i in range(len(windows))],
+                       label="anomaly outlines", progress=window_progress)
+    delta_preview = _assemble_preview([f.delta_preview for f in final], windows, factor, preview_shape)
+    bg_preview = _assemble_preview([f.background_preview for f in final], windows, factor, preview_shape)
+    pieces = [f.pieces for f in final]
+    del final
+
+    _emit(progress, "merging outlines across window seams; small regions and holes")
+    merged = merge_pieces(pieces, windows, grid_shape=store.shape, tile_px=store.tile_px, min_pixels=min_pixels,
+                          read_delta=lambda rr, cc: store.gather("delta", rr, cc))
+    return _WindowsRun(model=model, threshold_c=threshold, merged=merged, surface_preview=surface_preview,
+                       delta_preview=delta_preview, background_preview=bg_preview, roof_px=roof_px,
+                       covered_px=covered_px, lost_px=lost_px, constant=bool(covered_px and low == high))
+
+
+@dataclass(frozen=True)
+class ArrayDetection:
+    """The detection of an array in memory: :class:`wetmap.detect.Detection` (full arrays)
+    and the anomaly regions in raster order of their first pixel, exact, with statistics."""
+
+    detection: Detection
+    pixel_polygons: np.ndarray
+    """The regions as pixel polygons (integer pixel corners of the grid)."""
+    pixels: np.ndarray
+    delta_mean: np.ndarray
+    delta_max: np.ndarray
+
+    def polygons(self, transform: Affine) -> list:
+        """The regions' smoothed outlines in plan coordinates (:func:`wetmap.polygons.smooth_pixel_polygons`)."""
+        return list(smooth_pixel_polygons(self.pixel_polygons, transform))
+
+
+def detect_array(surface_c: np.ndarray, usable: np.ndarray, *, pixel_m: float, threshold_c: float, background_m: float,
+                 min_area_m2: float, labels: np.ndarray | None = None, names: tuple[str, ...] = ("roof",),
+                 choice: str = "auto", cores: tuple[np.ndarray, np.ndarray, np.ndarray] | None = None,
+                 applied_c: float | None = None, threshold_from: Callable[[np.ndarray], float] | None = None,
+                 tile_px: int | None = None) -> ArrayDetection:
+    """Background, delta, cleaned anomaly regions of an array in memory: the windowed engine
+    with one window (``tile_px`` ``None``) or windows of ``tile_px`` pixels, in this thread.
+
+    Parameters
+    ----------
+    surface_c
+        Surface temperature, degC, ``(rows, cols)``.
+    usable
+        Pixels on the roof, outside exclusions, with data.
+    pixel_m
+        Pixel side, metres.
+    threshold_c
+        Threshold above the dry background, degC (also sets the background's warm cut).
+    background_m
+        Background scale, metres.
+    min_area_m2
+        Smallest anomaly kept, square metres (also the largest hole filled).
+    labels, names, choice
+        Section label of every pixel (``0 .. len(names) - 1``; ``None``: one section), one
+        name per label, and the background choice (:func:`wetmap.detect.fit_background`).
+    cores
+        ``(rows_px, cols_px, wet)`` of the confirmations (pixel indices), or ``None``.
+    applied_c
+        Threshold applied when it differs from ``threshold_c`` (the primary pass's applied
+        threshold); ``None``: ``threshold_c``.
+    threshold_from
+        Given the confirmations' delta-T (3 x 3 median at each), the threshold to apply.
+    tile_px
+        Window side (a multiple of the background block); ``None``: one window.
+    """
+    shape = surface_c.shape
+    spec = background_grid(pixel_m, background_m)
+    block = spec.block_px
+    tp = tile_px or -(-max(shape) // block) * block
+    windows = tuple(windows_of(shape, tp))
+    store = _MemoryStore(folder=Path("."), windows=windows, tile_px=tp, shape=shape)
+    source = ArraySource(surface_c=surface_c, usable=usable, section_labels=labels)
+    count = len(names)
+    wet_b = dry_b = core_rc = None
+    if cores is not None and len(cores[0]):
+        r, c, w = (np.asarray(a) for a in cores)
+        inside = (r >= 0) & (r < shape[0]) & (c >= 0) & (c < shape[1])
+        lab = np.full(len(r), -1)
+        lab[inside] = 0 if labels is None else labels[r[inside], c[inside]]
+        wet_b, dry_b = core_blocks(r, c, lab, np.asarray(w, bool), count=count, block=block,
+                                   block_shape=(-(-shape[0] // block), -(-shape[1] // block)))
+        core_rc = (r, c)
+    min_pixels = max(1, int(math.ceil(min_area_m2 / (pixel_m * pixel_m) - 1e-9)))
+    run = _run_windows(Engine("sync"), source, store, spec=spec, count=count, names=names, choice=choice,
+                       threshold_c=threshold_c, min_pixels=min_pixels, factor=0, core_rc=core_rc, wet_blocks=wet_b,
+                       dry_blocks=dry_b, threshold_from=threshold_from, applied_c=applied_c)
+    if len(windows) == 1:  # the window is the array
+        delta, background = store.view("delta", 0), store.view("background", 0)
+    else:
+        delta, background = store.rect("delta", 0, 0, *shape), store.rect("background", 0, 0, *shape)
+    merged = run.merged
+    mask = _preview_mask(merged.polygons, 1, shape)
+    detection = Detection(background_c=background, delta_c=delta, mask=mask, background_m=background_m,
+                          threshold_c=run.threshold_c, min_pixels=min_pixels, background=run.model)
+    return ArrayDetection(detection=detection, pixel_polygons=merged.polygons, pixels=merged.pixels,
+                          delta_mean=merged.delta_mean, delta_max=merged.delta_max)
+
+
+def detect_anomalies(surface_c: np.ndarray, usable: np.ndarray, **options: Any) -> Detection:
+    """:func:`detect_array`'s :class:`wetmap.detect.Detection` (background, delta-T, cleaned mask)."""
+    return detect_array(surface_c, usable, **options).detection
 
 
 def _core_deltas(store: _Scratch, model: Any, core_rc: tuple[np.ndarray, np.ndarray] | None,
                  block: int) -> np.ndarray:
     """Delta-T at each confirmation: the median of its 3 x 3 usable pixels (as
-    :func:`wetmap.confirm.sample_at_points`), from the scratch windows and the model."""
+    :func:`wetmap.verdicts.sample_at_points`), from the scratch windows and the model."""
     if core_rc is None:
         return np.zeros(0)
     rows, cols = core_rc
@@ -1565,8 +1050,6 @@ class _Background:
     """``fn(*args)`` in a thread of the driver; :meth:`join` waits and re-raises its error."""
 
     def __init__(self, fn: Callable, *args: Any):
-        import threading
-
         self.error: BaseException | None = None
 
         def run() -> None:
@@ -1609,6 +1092,8 @@ def _preview_mask(polygons: np.ndarray, factor: int, shape: tuple[int, int]) -> 
 
 
 def _assemble_preview(parts: list[np.ndarray], windows, factor: int, shape: tuple[int, int]) -> np.ndarray:
+    if not factor:
+        return np.zeros((0, 0), np.float32)
     out = np.full(shape, np.nan, dtype=np.float32)
     for (r0, c0, _, _), p in zip(windows, parts):
         out[r0 // factor:r0 // factor + p.shape[0], c0 // factor:c0 // factor + p.shape[1]] = p
@@ -1645,162 +1130,3 @@ def _write_tiff(store: _Scratch, kind: str, path: Path, grid: "PlanGrid", window
             if window_progress is not None:
                 window_progress(label, k + 1, len(pieces))
         dst.update_tags(1, units="degC")
-
-
-# --------------------------------------------------------------------------------------
-# Batches: many surveys on one engine
-# --------------------------------------------------------------------------------------
-
-
-@dataclass(frozen=True)
-class BatchOutcome:
-    """How one survey of a batch went.
-
-    Attributes
-    ----------
-    folder
-        The survey folder.
-    ok
-        True when its results were written.
-    seconds
-        Wall time of the survey.
-    anomalies, wet_area_m2
-        From its summary (``None`` when it failed).
-    results
-        The results folder (``None`` when it failed).
-    problems
-        The error lines when it failed (empty when ok).
-    """
-
-    folder: Path
-    ok: bool
-    seconds: float
-    anomalies: int | None = None
-    wet_area_m2: float | None = None
-    results: Path | None = None
-    problems: tuple[str, ...] = field(default_factory=tuple)
-    warnings: int = 0
-
-
-def _run_one(folder: Path, out: Path | None, options: dict[str, Any], scheduler: Any,
-             progress: Progress | None, window_progress: WindowProgress | None) -> BatchOutcome:
-    from .pipeline import run_survey
-
-    start = time.perf_counter()
-    try:
-        if scheduler is None:  # on a cluster worker: the survey's windows go to the same cluster
-            try:
-                from distributed import get_worker, worker_client
-
-                get_worker()
-            except (ImportError, ValueError):
-                result = run_survey(folder, out=out, scheduler="sync", **options)
-            else:
-                with worker_client() as client:
-                    result = run_survey(folder, out=out, scheduler=client, **options)
-        else:
-            result = run_survey(folder, out=out, scheduler=scheduler, progress=progress,
-                                window_progress=window_progress, **options)
-    except WetmapError as err:
-        return BatchOutcome(folder=Path(folder), ok=False, seconds=time.perf_counter() - start, problems=err.problems)
-    except Exception as err:  # noqa: BLE001 -- one survey's fault must not stop the others
-        log.exception("%s: unexpected failure", folder)
-        return BatchOutcome(folder=Path(folder), ok=False, seconds=time.perf_counter() - start,
-                            problems=(f"{folder}: unexpected failure ({type(err).__name__}: {err}): a wetmap "
-                                      "fault, please report it",))
-    s = result.summary()
-    return BatchOutcome(folder=Path(folder), ok=True, seconds=time.perf_counter() - start,
-                        anomalies=s["anomaly_count"], wet_area_m2=s["wet_area_m2"],
-                        results=Path(out) if out is not None else result.survey.folder / "results",
-                        warnings=len(s["warnings"]))
-
-
-def _batch_out_folders(folders: list[Path], out_root: Path) -> list[Path | None]:
-    """``out_root/<name>`` for each survey, distinct for same-named surveys; refused (every
-    problem at once, before any work) when one would be, hold or lie in any survey of the
-    batch, or when a survey is given twice."""
-    from .errors import OutputError
-    from .outputs import check_out_dir, results_name_for
-
-    problems: list[str] = []
-    seen: dict[Path, Path] = {}
-    for f in folders:
-        key = f.resolve()
-        if key in seen:
-            problems.append(f"{f}: given twice in the batch (also as {seen[key]}); give each survey once")
-        seen.setdefault(key, f)
-    outs = [out_root / name for name in results_name_for([f.resolve() for f in folders])]
-    for out in outs:
-        try:
-            check_out_dir(out, surveys=folders)
-        except OutputError as err:
-            problems.extend(err.problems)
-    if problems:
-        raise OutputError(problems)
-    return list(outs)
-
-
-def run_batch(folders: Iterable[str | Path], *, scheduler: Any = None, out_root: str | Path | None = None,
-              progress: Progress | None = None, window_progress: WindowProgress | None = None,
-              survey_done: Callable[[BatchOutcome, int, int], None] | None = None,
-              map_html: bool = True, report_html: bool = True) -> tuple[BatchOutcome, ...]:
-    """Run many surveys, each writing its own results atomically; a failure stops only its survey.
-
-    On the local schedulers the surveys run one after another, each with its windows in
-    parallel; on a ``dask.distributed`` cluster every survey is a task (its windows are
-    sent to the same cluster from the worker), so many surveys run at once.
-
-    Parameters
-    ----------
-    folders
-        Survey folders.
-    scheduler
-        See :class:`Engine`.
-    out_root
-        Write each survey's results to ``out_root/<folder name>`` instead of
-        ``<folder>/results``; same-named surveys get as many trailing path parts as tell
-        them apart (``x/roof``, ``y/roof`` -> ``x_roof``, ``y_roof``). Refused before any
-        work when a results folder would be, hold or lie in a survey of the batch.
-    progress, window_progress
-        Passed to each survey (local schedulers only).
-    survey_done
-        ``survey_done(outcome, done, total)`` after each survey.
-
-    Returns
-    -------
-    tuple of BatchOutcome
-        In the order of ``folders``.
-    """
-    folders = [Path(f) for f in folders]
-    options: dict[str, Any] = dict(map_html=map_html, report_html=report_html)
-    outs: list[Path | None] = [None] * len(folders)
-    if out_root is not None:
-        outs = _batch_out_folders(folders, Path(out_root))
-        options["surveys"] = tuple(str(f) for f in folders)
-
-    outcomes: list[BatchOutcome | None] = [None] * len(folders)
-    with (scheduler if isinstance(scheduler, Engine) else Engine(scheduler)) as engine:
-        if engine.kind == "distributed":
-            from distributed import as_completed
-
-            futures = {engine.client.submit(_run_one, f, outs[i], options, None, None, None, pure=False): i
-                       for i, f in enumerate(folders)}
-            done = 0
-            for fut in as_completed(list(futures)):
-                i = futures[fut]
-                try:
-                    outcomes[i] = fut.result()
-                except Exception as err:  # noqa: BLE001 -- a lost worker fails one survey, not the batch
-                    outcomes[i] = BatchOutcome(folder=folders[i], ok=False, seconds=0.0,
-                                               problems=(f"{folders[i]}: the cluster lost the task ({err})",))
-                done += 1
-                if survey_done is not None:
-                    survey_done(outcomes[i], done, len(folders))
-        else:
-            for i, f in enumerate(folders):
-                if progress is not None:
-                    progress(f"survey {i + 1} of {len(folders)}: {f}")
-                outcomes[i] = _run_one(f, outs[i], options, engine, progress, window_progress)
-                if survey_done is not None:
-                    survey_done(outcomes[i], i + 1, len(folders))
-    return tuple(o for o in outcomes if o is not None)

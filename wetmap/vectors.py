@@ -11,6 +11,7 @@ as plan metres. Invalid polygons are repaired with
 
 from __future__ import annotations
 
+import warnings
 import logging
 import math
 from dataclasses import dataclass, field
@@ -90,7 +91,6 @@ def read_layer(path: Path, *, survey_crs: str | None, what: str) -> PlanLayer:
     import pyogrio
     from pyproj import CRS
 
-    import warnings
 
     try:
         with warnings.catch_warnings():  # NaN coordinates warn in shapely: refused below, in one line

@@ -1,5 +1,5 @@
 """Writers for the result files: one module per output kind.
 
 ``gis`` (GeoPackage, GeoJSON, GeoTIFF) and ``tables`` (summary.json, quantities.csv).
-Each writer takes a :class:`wetmap.pipeline.SurveyResult` and a path and writes one file.
+Each writer takes a :class:`wetmap.results.SurveyResult` and a path and writes one file.
 """

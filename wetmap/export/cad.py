@@ -31,9 +31,10 @@ from shapely.geometry.base import BaseGeometry
 from ..errors import ProcessingError
 from ..quantities import convert_area
 from ..wording import wording_of
+from .tables import quantities_of
 
 if TYPE_CHECKING:
-    from ..pipeline import SurveyResult
+    from ..results import SurveyResult
 
 __all__ = ["LAYERS", "LAYER_RGB", "STATUS_LAYER", "write_dxf", "polygon_rings"]
 
@@ -121,7 +122,6 @@ def write_dxf(result: "SurveyResult", path: Path) -> None:
     from ezdxf import bbox, zoom
     from ezdxf.enums import TextEntityAlignment
 
-    from .tables import quantities_of
 
     q = quantities_of(result)
     units = tuple(result.survey.repair.area_units)

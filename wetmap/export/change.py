@@ -13,15 +13,23 @@ from __future__ import annotations
 
 import html
 import io
+import json
+import logging
+import warnings
 from pathlib import Path
-from typing import TYPE_CHECKING
 
 import numpy as np
+import shapely
+from shapely.geometry import MultiPolygon, Polygon
 
-if TYPE_CHECKING:
-    from ..compare import Comparison
+from ..compare import Comparison
+from ..errors import ProcessingError
+from ..outputs import write_folder
+from .report import draw_geometry
+from .webmap import PAGE_CSS, Projection, add_geojson, geojson_feature, leaflet_assets, png_data_uri, remote_references
 
-__all__ = ["CHANGE_STYLES", "build_change_map", "build_change_report", "change_figure", "write_change_outputs"]
+__all__ = ["CHANGE_STYLES", "build_change_map", "build_change_report", "change_figure", "write_change",
+           "write_change_outputs"]
 
 #: kind -> (colour, Leaflet dash pattern, matplotlib line style, words)
 CHANGE_STYLES = {
@@ -40,12 +48,7 @@ def build_change_map(comparison: "Comparison", *, old_name: str, new_name: str) 
     """The text of ``change_map.html`` (self-contained, no network references)."""
     import folium
     from branca.element import Element, Figure
-    from shapely.geometry import MultiPolygon, Polygon
-
-    from ..errors import ProcessingError
-    from .webmap import _PAGE_CSS, _Projection, _add_geojson, _feature, _leaflet_assets, remote_references
-
-    proj = _Projection(comparison.crs)
+    proj = Projection(comparison.crs)
     fig = Figure(title=_esc(f"Change between {old_name} and {new_name} (wetmap)"))
     s = comparison.summary()
     header = Element("{{ this.text }}")
@@ -66,12 +69,12 @@ def build_change_map(comparison: "Comparison", *, old_name: str, new_name: str) 
     m.add_to(fig)
     for name, areas, colour in ((f"Counted wet before ({old_name})", comparison.old_areas, "#555555"),
                                 (f"Counted wet now ({new_name})", comparison.new_areas, "#000000")):
-        feats = [_feature(g, proj, f"{name[:3]}{i}", {"label": name}) for i, g in enumerate(areas)]
-        _add_geojson(m, name, feats, lambda f, c=colour: {"color": c, "weight": 1.5, "fillOpacity": 0.0},
+        feats = [geojson_feature(g, proj, f"{name[:3]}{i}", {"label": name}) for i, g in enumerate(areas)]
+        add_geojson(m, name, feats, lambda f, c=colour: {"color": c, "weight": 1.5, "fillOpacity": 0.0},
                      tooltip="label")
     for kind, (colour, dash, _, words) in CHANGE_STYLES.items():
         parts = [c for c in comparison.changes if c.kind == kind]
-        feats = [_feature(c.geometry, proj, f"{kind}{i}", {"kind": kind, "area": f"{c.area_m2:,.2f} m²",
+        feats = [geojson_feature(c.geometry, proj, f"{kind}{i}", {"kind": kind, "area": f"{c.area_m2:,.2f} m²",
                                                            "what": words, "label": f"{kind}: {c.area_m2:,.2f} m²"})
                  for i, c in enumerate(parts)]
 
@@ -82,7 +85,7 @@ def build_change_map(comparison: "Comparison", *, old_name: str, new_name: str) 
                 out["dashArray"] = dash
             return out
 
-        _add_geojson(m, f"{kind.capitalize()} ({len(parts)})", feats, style,
+        add_geojson(m, f"{kind.capitalize()} ({len(parts)})", feats, style,
                      popup=(["kind", "area", "what"], ["Change", "Area", "Meaning"]), tooltip="label")
     every = [g for g in (*comparison.old_areas, *comparison.new_areas, *(c.geometry for c in comparison.changes))]
     if every:
@@ -91,10 +94,10 @@ def build_change_map(comparison: "Comparison", *, old_name: str, new_name: str) 
         m.fit_bounds(proj.latlng_bounds(bounds), padding=(20, 20))
     folium.LayerControl(collapsed=False, position="topright").add_to(m)
     css = Element("{{ this.text }}")
-    css.text = f"<style>{_PAGE_CSS}</style>"
+    css.text = f"<style>{PAGE_CSS}</style>"
     fig.header.add_child(css, name="wetmap_css")
     page = fig.render()
-    js, style_text = _leaflet_assets()
+    js, style_text = leaflet_assets()
     head = page.index("<head>") + len("<head>") if "<head>" in page else 0
     page = page[:head] + f"\n<style>{style_text}</style>\n<script>{js}</script>\n" + page[head:]
     remote = remote_references(page)
@@ -111,21 +114,17 @@ def change_figure(comparison: "Comparison", *, dpi: int = 130) -> bytes:
     from matplotlib.lines import Line2D
     from matplotlib.patches import Patch
 
-    from .report import _draw
-
     fig = Figure(figsize=(6.7, 4.6), dpi=dpi, layout="constrained")
     FigureCanvasAgg(fig)
     ax = fig.add_subplot()
     for kind, (colour, _, ls, _) in CHANGE_STYLES.items():
         geoms = [c.geometry for c in comparison.changes if c.kind == kind]
         if geoms:
-            _draw(ax, geoms, facecolor=colour, edgecolor=colour, alpha=0.5, linewidth=1.8, linestyle=ls, zorder=3)
-    _draw(ax, list(comparison.old_areas), facecolor="none", edgecolor="#555555", linewidth=1.0, linestyle="--", zorder=4)
-    _draw(ax, list(comparison.new_areas), facecolor="none", edgecolor="black", linewidth=1.2, zorder=5)
+            draw_geometry(ax, geoms, facecolor=colour, edgecolor=colour, alpha=0.5, linewidth=1.8, linestyle=ls, zorder=3)
+    draw_geometry(ax, list(comparison.old_areas), facecolor="none", edgecolor="#555555", linewidth=1.0, linestyle="--", zorder=4)
+    draw_geometry(ax, list(comparison.new_areas), facecolor="none", edgecolor="black", linewidth=1.2, zorder=5)
     every = [*comparison.old_areas, *comparison.new_areas, *(c.geometry for c in comparison.changes)]
     if every:
-        import shapely
-
         x0, y0, x1, y1 = shapely.total_bounds(np.asarray(every, dtype=object))
         pad = 0.05 * max(x1 - x0, y1 - y0, 1.0)
         ax.set_xlim(x0 - pad, x1 + pad)
@@ -147,8 +146,6 @@ def change_figure(comparison: "Comparison", *, dpi: int = 130) -> bytes:
 
 def build_change_report(comparison: "Comparison", *, old_name: str, new_name: str, counted: tuple[str, ...]) -> str:
     """The text of ``change_report.html``: totals, a plan figure and one row per changed part."""
-    from .webmap import png_data_uri
-
     s = comparison.summary()
     pct = "n/a" if s["growth_pct"] is None else f"{s['growth_pct']:+.1f} %"
     rows = [("Wet area before", f"{s['old_wet_area_m2']:,.2f} m²", "old_wet_area_m2"),
@@ -205,8 +202,6 @@ def write_change_outputs(comparison: "Comparison", folder: Path, *, old_name: st
     (folder / "change_report.html").write_text(text, encoding="utf-8")
     written.append(folder / "change_report.html")
     try:
-        import logging
-
         from weasyprint import HTML
 
         logging.getLogger("weasyprint").setLevel(logging.ERROR)
@@ -216,3 +211,31 @@ def write_change_outputs(comparison: "Comparison", folder: Path, *, old_name: st
     HTML(string=text).write_pdf(folder / "change_report.pdf")
     written.append(folder / "change_report.pdf")
     return written
+
+
+def write_change(comparison: Comparison, out_dir: Path, *, old_name: str = "earlier survey",
+                 new_name: str = "later survey") -> tuple[Path, Path]:
+    """Write ``change.gpkg`` (layer ``change``: kind, area_m2) and ``change.json`` into ``out_dir``,
+    with ``change_map.html`` (offline) and ``change_report.html`` (and ``change_report.pdf``
+    when WeasyPrint is installed): :func:`write_change_outputs`.
+
+    Written through :func:`wetmap.outputs.write_folder`: the other files of ``out_dir`` are
+    carried over and the folder is swapped in one step; ``out_dir`` must be missing, empty
+    or wetmap's own results folder, and not a survey folder.
+    """
+    import geopandas as gpd
+
+    frame = gpd.GeoDataFrame(
+        {"kind": [c.kind for c in comparison.changes], "area_m2": [round(c.area_m2, 4) for c in comparison.changes]},
+        geometry=[c.geometry for c in comparison.changes], crs=comparison.crs,
+    )
+
+    def write(folder: Path) -> None:
+        with warnings.catch_warnings():
+            warnings.filterwarnings("ignore", message="'crs' was not provided")
+            frame.to_file(folder / "change.gpkg", layer="change", driver="GPKG", engine="pyogrio")
+        (folder / "change.json").write_text(json.dumps(comparison.summary(), indent=2) + "\n", encoding="utf-8")
+        write_change_outputs(comparison, folder, old_name=old_name, new_name=new_name, counted=comparison.counted)
+
+    out = write_folder(out_dir, write, keep=None)
+    return out / "change.gpkg", out / "change.json"

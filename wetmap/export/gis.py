@@ -17,6 +17,8 @@
 
 from __future__ import annotations
 
+import json
+import sqlite3
 import warnings
 from collections.abc import Callable
 from functools import partial
@@ -29,14 +31,14 @@ import shapely
 from ..errors import ProcessingError
 
 if TYPE_CHECKING:
-    from ..pipeline import SurveyResult
+    from ..results import SurveyResult
     from ..rasters import PlanGrid
 
 __all__ = ["anomaly_frame", "write_anomalies", "write_repair", "write_raster", "confirmation_frame"]
 
 ANOMALY_COLUMNS = ("id", "status", "area_m2", "perimeter_m", "delta_mean_c", "delta_max_c", "confirmations", "section",
                    "flags")
-"""The contract's attributes, then ``flags`` (imagery flags, :mod:`wetmap.imagery`; empty text when none)."""
+"""The contract's attributes, then ``flags`` (imagery flags, :mod:`wetmap.image_checks`; empty text when none)."""
 
 
 #: The top-level note of a hull side's ``anomalies.geojson``.
@@ -51,8 +53,6 @@ def _crs(result: "SurveyResult") -> str | None:
 
 def _add_crs_note(path: Path, note: str) -> None:
     """Put ``crs_note`` at the top of a written GeoJSON FeatureCollection."""
-    import json
-
     data = json.loads(path.read_text(encoding="utf-8"))
     data = {"type": data.pop("type"), "crs_note": note, **data}
     path.write_text(json.dumps(data, ensure_ascii=False) + "\n", encoding="utf-8")
@@ -239,8 +239,6 @@ def write_layer_styles(gpkg: Path) -> None:
     GeoPackage in QGIS shows the statuses in their colours and outline patterns. Each
     row also carries an OGC SLD of the same colours for other programs.
     """
-    import sqlite3
-
     with sqlite3.connect(gpkg) as db:
         db.execute(
             "CREATE TABLE IF NOT EXISTS layer_styles (id INTEGER PRIMARY KEY AUTOINCREMENT, f_table_catalog TEXT, "

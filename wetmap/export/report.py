@@ -23,11 +23,11 @@ colours plus line patterns for the statuses, fill versus ring for wet and dry co
 
 from __future__ import annotations
 
+import base64
 import dataclasses
-import html
 import io
+import logging
 import math
-import re
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -36,21 +36,18 @@ import shapely
 from shapely.geometry.base import BaseGeometry
 
 from .. import __version__
+from ..conditions import dew_point_c, frost_point_c
+from ..errors import ProcessingError
+from ..photos import nearest_anomalies, survey_photos, thumbnail_uri
+from ..quantities import M_PER_FT
+from ..style import CORE_COLOURS, LAYER_COLOURS, STATUS_STYLES, THERMAL_CMAP, display_range
 from ..wording import Wording, wording_of
-from .webmap import (
-    CORE_COLOURS,
-    LAYER_COLOURS,
-    STATUS_STYLES,
-    THERMAL_CMAP,
-    colourise,
-    decimate,
-    display_range,
-    png_data_uri,
-    remote_references,
-)
+from .units import (M2_PER_FT2_EXACT, M_PER_FT_EXACT, DisplayUnits, display_units, esc_html,
+                    format_value, ticks_in)
+from .webmap import colourise, decimate, png_data_uri, remote_references
 
 if TYPE_CHECKING:
-    from ..pipeline import SurveyResult
+    from ..results import SurveyResult
 
 __all__ = [
     "FIGURE_DPI",
@@ -91,197 +88,13 @@ _SHOWN_KEYS = frozenset({
 # --------------------------------------------------------------------------------------
 
 
-def _esc(value: Any) -> str:
-    return html.escape("" if value is None else str(value))
-
-
-def _fmt(value: Any, fmt: str = ",.2f") -> str:
-    if value is None:
-        return "–"
-    if isinstance(value, bool):
-        return "yes" if value else "no"
-    if isinstance(value, (int, np.integer)):
-        return f"{int(value):,d}"
-    if isinstance(value, (float, np.floating)):
-        return f"{float(value):{fmt}}" if math.isfinite(float(value)) else "n/a"
-    return _esc(value)
+_esc = esc_html
+_fmt = format_value
 
 
 def _cell(value: Any, key: str | None = None, fmt: str = ",.2f", suffix: str = "") -> str:
     attr = f' data-key="{_esc(key)}"' if key else ""
     return f'<td class="num"{attr}>{_fmt(value, fmt)}{suffix}</td>'
-
-
-#: One foot in metres and one square foot in square metres, exactly (NIST SP 811, appendix B).
-M_PER_FT_EXACT = 0.3048
-M2_PER_FT2_EXACT = 0.09290304
-#: One mile per hour in metres per second, exactly (NIST SP 811, appendix B: 0.44704).
-M_S_PER_MPH = 0.44704
-
-
-@dataclasses.dataclass(frozen=True)
-class DisplayUnits:
-    """How the report shows areas, lengths, temperatures and wind: ``[report] units``.
-
-    Metric: m², m, °C, m/s. Imperial: ft² (and roofing squares of 100 ft² on a roof), ft,
-    °F, mph, with the exact factors of NIST SP 811 (1 ft = 0.3048 m; 1 mph = 0.44704 m/s;
-    °F = 1.8 °C + 32). Each converted cell carries its metric value in ``data-metric``.
-    """
-
-    system: str = "metric"
-    squares: bool = False
-
-    @property
-    def imperial(self) -> bool:
-        return self.system == "imperial"
-
-    @property
-    def area_unit(self) -> str:
-        return "ft²" if self.imperial else "m²"
-
-    @property
-    def length_unit(self) -> str:
-        return "ft" if self.imperial else "m"
-
-    @property
-    def temp_unit(self) -> str:
-        return "°F" if self.imperial else "°C"
-
-    def area(self, area_m2: Any) -> Any:
-        from ..quantities import M2_PER_FT2
-
-        return area_m2 / M2_PER_FT2 if self.imperial and isinstance(area_m2, (int, float)) else area_m2
-
-    def length(self, length_m: Any) -> Any:
-        from ..quantities import M_PER_FT
-
-        return length_m / M_PER_FT if self.imperial and isinstance(length_m, (int, float)) else length_m
-
-    def temp(self, temp_c: float) -> float:
-        return temp_c * 1.8 + 32.0 if self.imperial else temp_c
-
-    def delta(self, delta_c: float) -> float:
-        """A temperature difference (1 K = 1.8 °F)."""
-        return delta_c * 1.8 if self.imperial else delta_c
-
-    def wind(self, wind_m_s: float) -> str:
-        return f"{wind_m_s / M_S_PER_MPH:.1f} mph" if self.imperial else f"{wind_m_s:g} m/s"
-
-    def area_text(self, area_m2: Any, fmt: str = ",.2f") -> str:
-        """``area_m2`` as text with its unit(s)."""
-        if not isinstance(area_m2, (int, float)) or isinstance(area_m2, bool):
-            return _fmt(area_m2, fmt)
-        text = f"{_fmt(self.area(area_m2), fmt)} {self.area_unit}"
-        if self.imperial and self.squares:
-            from ..quantities import M2_PER_SQUARE
-
-            text += f" ({area_m2 / M2_PER_SQUARE:,.2f} squares)"
-        return text
-
-    def area_cell(self, area_m2: Any, key: str | None = None, fmt: str = ",.2f", *, unit: bool = True) -> str:
-        """A table cell of an area: the value in the report's unit, the metric one in ``data-metric``."""
-        attr = f' data-key="{_esc(key)}"' if key else ""
-        if self.imperial and isinstance(area_m2, (int, float)) and not isinstance(area_m2, bool):
-            attr += f' data-metric="{float(area_m2)!r}"'
-        text = self.area_text(area_m2, fmt) if unit else _fmt(self.area(area_m2), fmt)
-        return f'<td class="num"{attr}>{text}</td>'
-
-    def span(self, value: float, unit: str, decimals: int, *, signed: bool = False) -> str:
-        """One converted figure as HTML: ``<span data-metric=".." data-from="unit">shown</span>``.
-
-        ``unit`` is the metric unit of ``value``: ``"m"``, ``"m²"``, ``"m/s"``, ``"°C"`` (a
-        temperature) or ``"K"`` (a temperature difference). Metric: the value as it is.
-        """
-        sign = "+" if signed else ""
-        if not self.imperial:
-            return f"{value:{sign},.{decimals}f}"
-        if unit == "m":
-            shown, d = self.length(value), decimals if decimals >= 2 else decimals + 1
-        elif unit == "m²":
-            shown, d = self.area(value), decimals
-        elif unit == "m/s":
-            shown, d = value / M_S_PER_MPH, max(decimals, 1)
-        elif unit == "mm":  # 1 in = 25.4 mm exactly (NIST SP 811)
-            shown, d = value / 25.4, decimals + 2
-        elif unit == "°C":
-            shown, d = self.temp(value), max(decimals, 1)
-        else:  # "K": a difference
-            shown, d = self.delta(value), max(decimals, 1)
-        return (f'<span class="conv" data-metric="{value!r}" data-from="{unit}">'
-                f"{shown:{sign},.{d}f}</span>")
-
-    def unit_of(self, unit: str) -> str:
-        """The unit shown for a metric ``unit`` (``"K"``: a temperature difference)."""
-        if not self.imperial:
-            return "°C" if unit == "K" else unit
-        return {"m": "ft", "m²": "ft²", "m2": "ft²", "m/s": "mph", "°C": "°F", "K": "°F", "mm": "in"}.get(unit, unit)
-
-    def html(self, fragment: str, *, differences: bool = False) -> str:
-        """Every metric figure in the text of an HTML ``fragment`` in the report's units.
-
-        Used on the report's prose and on messages written by other stages ("0.3 m",
-        "192.96 m2", "-2.59 to +2.59 °C"): in imperial units each number becomes a
-        :meth:`span` carrying its metric value and the unit follows the system. A
-        temperature in °C is a difference (1 K = 1.8 °F) when ``differences`` is set, when
-        it carries an explicit sign or ``±``, or when the words before it say so (ΔT,
-        threshold, within, limit, ...); otherwise a temperature (°F = 1.8 °C + 32). Tags
-        and the page's style sheet are left alone. Metric: ``fragment`` unchanged.
-        """
-        if not self.imperial:
-            return fragment
-        parts = re.split(r"(<style>.*?</style>|<[^>]*>)", fragment, flags=re.S)
-        for i in range(0, len(parts), 2):  # text between tags
-            text = parts[i]
-
-            def one(m: re.Match, text: str = text) -> str:
-                unit = "m²" if m.group("unit") == "m2" else m.group("unit")
-                if unit == "°C":
-                    before = text[max(0, m.start() - 48):m.start()].lower()
-                    diff = (differences or (m.group("b") or "").startswith(("+", "±"))
-                            or (m.group("a") or "").startswith("+") or before.rstrip().endswith("±")
-                            or any(w in before for w in _DIFFERENCE_WORDS))
-                    unit = "K" if diff else "°C"
-                out = []
-                for key in ("a", "b"):
-                    raw = m.group(key)
-                    if raw is None:
-                        continue
-                    value = float(raw.replace(",", "").replace("−", "-"))
-                    decimals = len(raw.split(".")[1]) if "." in raw else 0
-                    out.append(self.span(value, unit, decimals, signed=raw.startswith("+")))
-                    if key == "a":
-                        out.append(m.group("sep"))
-                return "".join(out) + " " + self.unit_of(unit)
-
-            parts[i] = _METRIC_FIGURE.sub(one, text)
-        return "".join(parts)
-
-    def length_cell(self, length_m: Any, key: str | None = None, fmt: str = ",.2f") -> str:
-        attr = f' data-key="{_esc(key)}"' if key else ""
-        if self.imperial and isinstance(length_m, (int, float)) and not isinstance(length_m, bool):
-            attr += f' data-metric="{float(length_m)!r}"'
-        value = self.length(length_m)
-        suffix = f" {self.length_unit}" if isinstance(value, (int, float)) else ""
-        return f'<td class="num"{attr}>{_fmt(value, fmt)}{suffix}</td>'
-
-
-_NUM = r"[-+−]?\d[\d,]*(?:\.\d+)?"
-#: A metric figure in prose: a number (or a range "a to b", "a–b") and its unit.
-_METRIC_FIGURE = re.compile(
-    rf"(?<![\w.,/:#-])(?:(?P<a>{_NUM})(?P<sep>\s(?:down\s)?to\s|\s?–\s?))?(?P<b>{_NUM})\s?"
-    r"(?P<unit>°C|m²|m2|m/s|mm|m)(?![\w²/])")
-#: Words before a °C figure that make it a temperature difference (1 K = 1.8 °F).
-_DIFFERENCE_WORDS = ("δt", "delta", "threshold", "within", "scatter", "limit", "spread", "warmer", "colder",
-                     "cooler", "contrast", "noise", "above the dry", "background by", "about the", "smooth up")
-
-
-def display_units(result: "SurveyResult") -> DisplayUnits:
-    """The report's units: ``[report] units`` (squares shown on a roof when asked for)."""
-    survey = result.survey
-    info = getattr(survey, "report", None)
-    system = getattr(info, "units", "metric")
-    return DisplayUnits(system=system, squares=survey.survey.kind != "hull"
-                        and "squares" in survey.repair.area_units)
 
 
 def _axis_labels(result: "SurveyResult") -> tuple[str, str]:
@@ -298,19 +111,6 @@ def _axis_labels(result: "SurveyResult") -> tuple[str, str]:
                 f"ft north of the corner (northing {y0:,.1f} m)")
     return (f"m east of the lower-left corner (easting {x0:,.1f}, {s.crs})",
             f"m north of the corner (northing {y0:,.1f})")
-
-
-def _ticks_in(axis, lo: float, hi: float, *, scale: float, offset: float = 0.0, origin: float = 0.0) -> None:
-    """Ticks of a metric axis at round values of another unit: ``shown = (value - origin) * scale + offset``.
-
-    The data stay metric; only where the ticks sit and what they read changes.
-    """
-    from matplotlib.ticker import FixedFormatter, FixedLocator, MaxNLocator
-
-    a, b = sorted(((lo - origin) * scale + offset, (hi - origin) * scale + offset))
-    shown = [t for t in MaxNLocator(nbins=7, steps=[1, 2, 2.5, 5, 10]).tick_values(a, b) if a <= t <= b]
-    axis.set_major_locator(FixedLocator([(t - offset) / scale + origin for t in shown]))
-    axis.set_major_formatter(FixedFormatter([f"{t:g}" for t in shown]))
 
 
 def _corner(result: "SurveyResult") -> tuple[float, float]:
@@ -400,7 +200,7 @@ def _path(geom):
     return MplPath(verts, codes)
 
 
-def _draw(ax, geom, **style) -> None:
+def draw_geometry(ax, geom, **style) -> None:
     """Draw a geometry, or many with one style, as one patch.
 
     The patch is added without autoscaling (``add_artist``): working out the limits walks
@@ -431,11 +231,10 @@ def _plan_axes(ax, result: "SurveyResult") -> None:
     s = result.survey.survey
     georef = not s.is_local and s.kind != "hull"
     if display_units(result).imperial:  # feet (from the corner on a map), at round values of feet
-        from ..quantities import M_PER_FT
 
         cx, cy = _corner(result) if georef else (0.0, 0.0)
-        _ticks_in(ax.xaxis, x0 - pad, x1 + pad, scale=1 / M_PER_FT, origin=cx)
-        _ticks_in(ax.yaxis, y0 - pad, y1 + pad, scale=1 / M_PER_FT, origin=cy)
+        ticks_in(ax.xaxis, x0 - pad, x1 + pad, scale=1 / M_PER_FT, origin=cx)
+        ticks_in(ax.yaxis, y0 - pad, y1 + pad, scale=1 / M_PER_FT, origin=cy)
     elif georef:  # metres from the corner, not full projected coordinates
         from matplotlib.ticker import FuncFormatter
 
@@ -457,10 +256,10 @@ def _draw_anomalies(ax, result: "SurveyResult", *, filled: bool, labels: bool) -
         geoms = [a.geometry for a in result.anomalies if a.status == status]
         if not geoms:
             continue
-        _draw(ax, geoms, fill=False, edgecolor=st.colour, linewidth=2.0, linestyle=st.linestyle,
+        draw_geometry(ax, geoms, fill=False, edgecolor=st.colour, linewidth=2.0, linestyle=st.linestyle,
               path_effects=_halo(3.4), zorder=4)
         if filled:  # a translucent fill under the crisp line
-            _draw(ax, geoms, facecolor=st.colour, edgecolor="none", alpha=0.3, zorder=3)
+            draw_geometry(ax, geoms, facecolor=st.colour, edgecolor="none", alpha=0.3, zorder=3)
     if labels and len(result.anomalies) <= MAX_FIGURE_LABELS:
         for a in result.anomalies:  # above the outline, clear of the cores inside it
             if a.status not in STATUS_STYLES:
@@ -533,7 +332,7 @@ def thermal_figure(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> bytes:
     usable = np.isfinite(decimate(result.detection.delta_c, factor))  # the roof pixels with data
     lo, hi = display_range(image[usable] if usable.any() else image)
     imagery = getattr(result, "imagery", None)
-    if imagery is not None:  # from the roof alone, centred on the dry background (wetmap.imagery)
+    if imagery is not None:  # from the roof alone, centred on the dry background (wetmap.image_checks)
         lo, hi = imagery.surface_range.low_c, imagery.surface_range.high_c
     gx0, gy0, gx1, gy1 = result.grid.bounds
     # coloured here as 4 bytes a pixel: matplotlib would resample float64 copies of the image
@@ -541,8 +340,8 @@ def thermal_figure(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> bytes:
               extent=(gx0, gx0 + factor * image.shape[1] * result.grid.pixel_m,
                       gy1 - factor * image.shape[0] * result.grid.pixel_m, gy1),
               interpolation="nearest", origin="upper", zorder=1)
-    _draw(ax, result.exclusions, facecolor=LAYER_COLOURS["exclusions"], edgecolor="#666666", linewidth=0.6, zorder=2)
-    _draw(ax, result.outline, facecolor="none", edgecolor="black", linewidth=1.0, zorder=2)
+    draw_geometry(ax, result.exclusions, facecolor=LAYER_COLOURS["exclusions"], edgecolor="#666666", linewidth=0.6, zorder=2)
+    draw_geometry(ax, result.outline, facecolor="none", edgecolor="black", linewidth=1.0, zorder=2)
     _draw_anomalies(ax, result, filled=False, labels=True)
     _draw_cores(ax, result, labels=True)
     _plan_axes(ax, result)
@@ -550,7 +349,7 @@ def thermal_figure(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> bytes:
     u = display_units(result)
     bar.set_label(f"surface temperature ({u.temp_unit})", fontsize=8)
     if u.imperial:
-        _ticks_in(bar.ax.yaxis, lo, hi, scale=1.8, offset=32.0)
+        ticks_in(bar.ax.yaxis, lo, hi, scale=1.8, offset=32.0)
     bar.ax.tick_params(labelsize=7)
     fig.legend(handles=_legend_handles(result, plan=False), loc="outside lower center", ncols=4, fontsize=7,
                frameon=False)
@@ -627,7 +426,7 @@ def delta_histogram_figure(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> 
     fig.legend(handles=handles, loc="outside lower center", ncols=4, fontsize=7, frameon=False)
     ax.set_xlim(lo, hi)
     if u.imperial:
-        _ticks_in(ax.xaxis, lo, hi, scale=1.8)
+        ticks_in(ax.xaxis, lo, hi, scale=1.8)
     ax.set_xlabel(f"ΔT: surface temperature above the dry background ({u.temp_unit})", fontsize=8)
     ax.set_ylabel(f"{w.area_short} area per bin ({u.area_unit})", fontsize=8)
     ax.tick_params(labelsize=7)
@@ -644,17 +443,17 @@ def repair_plan_figure(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> byte
     """
     fig = _figure(_PLAN_IN, dpi)
     ax = fig.add_subplot()
-    _draw(ax, result.outline, facecolor="#FAFAFA", edgecolor="black", linewidth=1.2, zorder=1)
+    draw_geometry(ax, result.outline, facecolor="#FAFAFA", edgecolor="black", linewidth=1.2, zorder=1)
     for sec in result.sections:
-        _draw(ax, sec.geometry, facecolor="none", edgecolor="black", linewidth=0.7, linestyle="-.", zorder=2)
+        draw_geometry(ax, sec.geometry, facecolor="none", edgecolor="black", linewidth=0.7, linestyle="-.", zorder=2)
         p = sec.geometry.representative_point()
         ax.annotate(sec.name, (p.x, p.y), fontsize=11, color="#555555", ha="center", va="center", zorder=2,
                     alpha=0.8)
-    _draw(ax, result.exclusions, facecolor=LAYER_COLOURS["exclusions"], edgecolor="#666666", linewidth=0.6, zorder=2)
-    _draw(ax, list(result.takeoff.boards), facecolor="none", edgecolor=LAYER_COLOURS["boards"], linewidth=0.5,
+    draw_geometry(ax, result.exclusions, facecolor=LAYER_COLOURS["exclusions"], edgecolor="#666666", linewidth=0.6, zorder=2)
+    draw_geometry(ax, list(result.takeoff.boards), facecolor="none", edgecolor=LAYER_COLOURS["boards"], linewidth=0.5,
           zorder=3)
     _draw_anomalies(ax, result, filled=True, labels=True)
-    _draw(ax, result.repair, facecolor="none", edgecolor=LAYER_COLOURS["repair"], linewidth=1.2, linestyle="--",
+    draw_geometry(ax, result.repair, facecolor="none", edgecolor=LAYER_COLOURS["repair"], linewidth=1.2, linestyle="--",
           hatch="///", zorder=5)
     _draw_cores(ax, result, labels=False)
     _plan_axes(ax, result)
@@ -848,8 +647,6 @@ def _conditions(result: "SurveyResult") -> str:
     rows.append(("Air temperature", f"{u.temp(c.air_c):.1f} {u.temp_unit}" if u.imperial else f"{c.air_c:g} °C"))
     rows.append(("Relative humidity", f"{c.humidity_pct:g} % (over water)"))
     try:
-        from ..conditions import dew_point_c, frost_point_c
-
         rows.append(("Dew point (computed, Magnus formula)", f"{u.temp(dew_point_c(c.air_c, c.humidity_pct)):.1f} {u.temp_unit}"))
         frost = frost_point_c(c.air_c, c.humidity_pct)
         if frost < 0.0:
@@ -936,7 +733,7 @@ def _method(result: "SurveyResult", summary: dict[str, Any]) -> str:
 
 
 def _range_words(result: "SurveyResult") -> str:
-    """The thermal figure's colour range and how it was chosen (:mod:`wetmap.imagery`)."""
+    """The thermal figure's colour range and how it was chosen (:mod:`wetmap.image_checks`)."""
     imagery = getattr(result, "imagery", None)
     if imagery is None:
         return ""
@@ -1047,7 +844,7 @@ def _figures(result: "SurveyResult", dpi: int) -> str:
 
 
 def _anomaly_table(result: "SurveyResult", summary: dict[str, Any]) -> str:
-    counted = {"wet", "unverified"} if result.survey.repair.include_unverified else {"wet"}
+    counted = result.counted_statuses
     inside = _words(result).confirmations.capitalize()
     u = display_units(result)
     head = (f"<tr><th>No.</th><th>Status</th><th>Section</th><th>Area ({u.area_unit})</th>"
@@ -1326,7 +1123,7 @@ def thermal_crop_figure(result: "SurveyResult", x: float, y: float, half_m: floa
         ax.imshow(colourise(crop, vmin=lo, vmax=hi, cmap=THERMAL_CMAP),
                   extent=(gx0 + c0 * px, gx0 + c1 * px, gy1 - r1 * px, gy1 - r0 * px),
                   interpolation="nearest", origin="upper", zorder=1)
-    _draw(ax, result.outline, facecolor="none", edgecolor="black", linewidth=1.0, zorder=2)
+    draw_geometry(ax, result.outline, facecolor="none", edgecolor="black", linewidth=1.0, zorder=2)
     _draw_anomalies(ax, result, filled=False, labels=False)
     _draw_cores(ax, result, labels=True)
     ax.set_xlim(x - half_m, x + half_m)
@@ -1341,14 +1138,13 @@ def thermal_crop_figure(result: "SurveyResult", x: float, y: float, half_m: floa
     bar.set_label(f"surface ({u.temp_unit})", fontsize=7)
     bar.ax.tick_params(labelsize=6)
     if u.imperial:
-        _ticks_in(bar.ax.yaxis, lo, hi, scale=1.8, offset=32.0)
+        ticks_in(bar.ax.yaxis, lo, hi, scale=1.8, offset=32.0)
     return _png(fig)
 
 
 def _photo_pairs(result: "SurveyResult", dpi: int = 110) -> str:
     """Each photo beside the thermal view of the same place (cores.csv ``photo``; photos.csv by the
     nearest anomaly), both embedded; nothing when the survey has no photos."""
-    from ..photos import nearest_anomalies, survey_photos, thumbnail_uri
 
     s = result.survey
     photos = survey_photos(s.folder, s.cores.path if s.cores else None, result.confirmations)
@@ -1536,8 +1332,6 @@ _LOGO_TYPES = {".png": "image/png", ".jpg": "image/jpeg", ".jpeg": "image/jpeg",
 
 def _cover(result: "SurveyResult", title: str, sub: str) -> str:
     """The cover: logo, title and the client block of ``[report]`` (rows not given are left out)."""
-    import base64
-
     info = getattr(result.survey, "report", None)
     sv = result.survey.survey
     logo = ""
@@ -1570,8 +1364,6 @@ def build_report(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> str:
     str
         A self-contained HTML page (UTF-8) with no network references.
     """
-    from ..errors import ProcessingError
-
     summary = result.summary()
     sv = result.survey.survey
     w = _words(result)
@@ -1681,8 +1473,6 @@ def write_pdf(result: "SurveyResult", path: Path, *, dpi: int = FIGURE_DPI, html
         False when WeasyPrint or its system libraries are missing (a warning is logged and
         no PDF is written); True when written.
     """
-    import logging
-
     log = logging.getLogger(__name__)
     try:
         from weasyprint import CSS, HTML

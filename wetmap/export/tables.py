@@ -8,7 +8,7 @@ Each CSV holds one kind of row, so that a plain SUM of a column is meaningful:
 - ``sections.csv``: one row per roof section, then ``(outside sections)`` for the part of
   the roof in no section (only when sections were given); these rows add up to the total;
 - ``wet_area_range.csv``: ``low end`` and ``high end`` of the counted wet area
-  (``wet_area_*``) at the thresholds of :func:`wetmap.confirm.area_thresholds`, widened by
+  (``wet_area_*``) at the thresholds of :func:`wetmap.verdicts.area_thresholds`, widened by
   the outline's uncertainty (written when the cores give a range);
 - ``board_range.csv``: without ``[repair] board_origin``, the ``fewest`` and ``most``
   whole ``boards`` over the board-grid origins tried; the total row gives the median
@@ -39,7 +39,7 @@ import numpy as np
 from ..quantities import OUTSIDE_SECTIONS, Quantities, SectionTotals, compute_quantities, convert_area
 
 if TYPE_CHECKING:
-    from ..pipeline import SurveyResult
+    from ..results import SurveyResult
 
 __all__ = ["write_summary", "write_quantities", "write_takeoff", "quantity_tables", "quantity_columns",
            "quantities_of", "spreadsheet_cell", "QUANTITY_COLUMNS", "SECTION_COLUMNS", "BILL_COLUMNS",
@@ -169,7 +169,7 @@ def quantity_tables(result: "SurveyResult") -> dict[str, tuple[tuple[str, ...], 
     units = tuple(u for u in result.survey.repair.area_units if u != "m2")
     kind = result.survey.survey.kind
     hull = kind == "hull"
-    counted = {"wet", "unverified"} if result.survey.repair.include_unverified else {"wet"}
+    counted = result.counted_statuses
 
     def converted(row: dict[str, Any], **areas_m2: float | None) -> None:
         for name, value in areas_m2.items():

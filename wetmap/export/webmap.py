@@ -41,7 +41,6 @@ import math
 import re
 import warnings
 from collections.abc import Callable
-from dataclasses import dataclass
 from functools import lru_cache
 from importlib import resources
 from pathlib import Path
@@ -51,12 +50,16 @@ import numpy as np
 import shapely
 from shapely.geometry import mapping
 from shapely.geometry.base import BaseGeometry
+from affine import Affine
 
 from ..errors import ProcessingError
+from ..photos import nearest_anomalies, survey_photos, thumbnail_uri
+from ..style import CORE_COLOURS, LAYER_COLOURS, STATUS_STYLES, THERMAL_CMAP, StatusStyle, display_range
 from ..wording import Wording, wording_of
+from .units import display_units, ticks_in  # the report's units setting, one for every output
 
 if TYPE_CHECKING:
-    from ..pipeline import SurveyResult
+    from ..results import SurveyResult
 
 __all__ = [
     "THERMAL_CMAP",
@@ -78,95 +81,14 @@ __all__ = [
     "write_map",
 ]
 
-#: Colour map of the thermal images (map and report).
-THERMAL_CMAP = "cividis"
-
-
-@dataclass(frozen=True)
-class StatusStyle:
-    """How one anomaly status is drawn.
-
-    Attributes
-    ----------
-    colour
-        Line colour, ``#rrggbb`` (Okabe & Ito 2008 palette).
-    dash
-        Leaflet ``dashArray`` (SVG stroke pattern in screen pixels); ``None`` = solid.
-    linestyle
-        The same pattern for matplotlib.
-    label
-        Words for the legend.
-    """
-
-    colour: str
-    dash: str | None
-    linestyle: Any
-    label: str
-
-
-STATUS_STYLES: dict[str, StatusStyle] = {
-    "wet": StatusStyle("#D55E00", None, "-", "wet: a core inside says wet"),
-    "unverified": StatusStyle("#CC79A7", "8 5", (0, (5, 3)), "unverified: no core inside"),
-    "dry": StatusStyle("#0072B2", "2 5", (0, (1, 2)), "dry: every core inside says dry"),
-}
-
-#: Fill of a confirmation judged wet / ring of one judged dry.
-CORE_COLOURS = {"wet": "#D55E00", "dry": "#0072B2"}
-
-#: Colours of the other layers.
-LAYER_COLOURS = {
-    "outline": "#000000",
-    "sections": "#000000",
-    "exclusions": "#999999",
-    "repair": "#000000",
-    "boards": "#009E73",
-    "uncovered": "#BBBBBB",
-}
-
 _ASSETS = "assets/leaflet"
 _GEO_DIGITS = 8  # decimal places of longitude/latitude in the file (about 1 mm)
 _PLAN_DIGITS = 3  # decimal places of plan metres
-_RANGE_SAMPLE = 4_000_000  # at most this many values enter a display range's percentiles
 
 
 # --------------------------------------------------------------------------------------
 # Raster helpers (shared with the report)
 # --------------------------------------------------------------------------------------
-
-
-def display_range(values: np.ndarray, *, low_pct: float = 1.0, high_pct: float = 99.0) -> tuple[float, float]:
-    """A robust colour range: the ``low_pct`` and ``high_pct`` percentiles of the finite values.
-
-    A few very hot or cold pixels (a vent, a cold sky reflection) do not stretch the
-    range. Inputs of more than 4 million values are subsampled regularly first. Returns ``(0.0, 1.0)`` when nothing is finite, and widens a constant image by
-    0.5 either way.
-
-    Parameters
-    ----------
-    values
-        Any shape, degC; NaN ignored.
-
-    Examples
-    --------
-    >>> v = np.r_[np.linspace(10.0, 20.0, 1001), 500.0]   # one hot pixel
-    >>> lo, hi = display_range(v)
-    >>> round(lo, 2), round(hi, 2)
-    (10.1, 19.91)
-    >>> display_range(np.full(4, np.nan))
-    (0.0, 1.0)
-    >>> display_range(np.full(4, 3.0))
-    (2.5, 3.5)
-    """
-    v = np.asarray(values).ravel()
-    if v.size > _RANGE_SAMPLE:  # a regular subsample is plenty for percentiles of a display range
-        v = v[:: v.size // _RANGE_SAMPLE]
-    finite = v[np.isfinite(v)]
-    if finite.size == 0:
-        return (0.0, 1.0)
-    lo, hi = (float(x) for x in np.percentile(finite, [low_pct, high_pct]))
-    if not hi > lo:
-        lo, hi = lo - 0.5, hi + 0.5
-    return (lo, hi)
 
 
 def decimate(values: np.ndarray, factor: int) -> np.ndarray:
@@ -313,9 +235,7 @@ def colour_bar_png(vmin: float, vmax: float, *, label: str, cmap: str = THERMAL_
     bar = fig.colorbar(ScalarMappable(Normalize(vmin, vmax), cmap), cax=ax, orientation="horizontal")
     bar.ax.tick_params(labelsize=7, length=2, pad=1)
     if fahrenheit is not None:
-        from .report import _ticks_in
-
-        _ticks_in(bar.ax.xaxis, vmin, vmax, scale=1.8, offset=32.0 if fahrenheit == "temperature" else 0.0)
+        ticks_in(bar.ax.xaxis, vmin, vmax, scale=1.8, offset=32.0 if fahrenheit == "temperature" else 0.0)
     bar.set_label(label, fontsize=7, labelpad=1)
     buf = io.BytesIO()
     fig.savefig(buf, format="png", dpi=dpi)
@@ -339,7 +259,6 @@ def uncovered_area(result: "SurveyResult", *, factor: int = 1) -> BaseGeometry:
         every roof pixel has data.
     """
     from rasterio.features import shapes
-    from affine import Affine
 
     surface = result.surface_c if factor <= 1 else decimate(result.surface_c, factor)
     nodata = ~np.isfinite(surface)
@@ -358,7 +277,7 @@ def uncovered_area(result: "SurveyResult", *, factor: int = 1) -> BaseGeometry:
 # --------------------------------------------------------------------------------------
 
 
-class _Projection:
+class Projection:
     """Plan coordinates -> what Leaflet takes (lon/lat, or plan metres on CRS.Simple)."""
 
     def __init__(self, crs: str | None):
@@ -397,7 +316,7 @@ class _Projection:
         return [[float(ys.min()), float(xs.min())], [float(ys.max()), float(xs.max())]]
 
 
-def _overlay(values: np.ndarray, result: "SurveyResult", factor: int, proj: _Projection
+def _overlay(values: np.ndarray, result: "SurveyResult", factor: int, proj: Projection
              ) -> tuple[np.ndarray, list[list[float]]]:
     """Decimated values placed for Leaflet: ``(array, [[south, west], [north, east]])``.
 
@@ -405,8 +324,6 @@ def _overlay(values: np.ndarray, result: "SurveyResult", factor: int, proj: _Pro
     Web Mercator grid, the plane Leaflet draws in, so the image lines up with the
     reprojected outlines; its bounds are given as longitude/latitude.
     """
-    from affine import Affine
-
     transform = result.grid.transform @ Affine.scale(factor)
     rows, cols = values.shape
     x0, y1 = transform.c, transform.f
@@ -455,20 +372,14 @@ def _status_words(status: str, w: Wording | None = None) -> str:
 
 def _status_legend(status: str, w: Wording) -> str:
     """The legend's words for a status, in the survey's vocabulary."""
-    c1, cn = w.confirmation, w.confirmations
+    c1 = w.confirmation
     return {"wet": f"wet: a {c1} inside says wet", "unverified": f"unverified: no {c1} inside",
             "dry": f"dry: every {c1} inside says dry"}.get(status, STATUS_STYLES[status].label if status in
                                                         STATUS_STYLES else status)
 
 
-def _counted_statuses(result: "SurveyResult") -> set[str]:
-    return {"wet", "unverified"} if result.survey.repair.include_unverified else {"wet"}
-
-
 def _photo_html(result: "SurveyResult", units=None) -> tuple[dict[str, str], dict[int, str]]:
     """Popup HTML of the survey's photos: by core id, and by anomaly id (photos.csv, nearest anomaly)."""
-    from ..photos import nearest_anomalies, survey_photos, thumbnail_uri
-
     s = result.survey
     photos = survey_photos(s.folder, s.cores.path if s.cores else None, result.confirmations)
     by_core: dict[str, str] = {}
@@ -516,7 +427,7 @@ def _core_basis(result: "SurveyResult", i: int) -> str:
 
 
 @lru_cache(maxsize=1)
-def _leaflet_assets() -> tuple[str, str]:
+def leaflet_assets() -> tuple[str, str]:
     """Leaflet's JS and CSS from the vendored copy, CSS images as data URIs."""
     base = resources.files("wetmap.export").joinpath(_ASSETS)
     try:
@@ -548,7 +459,7 @@ NORTH_ARROW_SVG = (
 )
 
 
-_PAGE_CSS = """
+PAGE_CSS = """
 html, body { display: flex; flex-direction: column; }
 .folium-map { flex: 1 1 auto; height: auto !important; min-height: 0; }
 .wetmap-header { flex: none; padding: 5px 12px 6px; background: #ffffff; border-bottom: 2px solid #000000;
@@ -650,7 +561,7 @@ def _legend_html(bars: list[tuple[str, bytes]], result: "SurveyResult") -> str:
     if not result.exclusions.is_empty:
         parts.append(f'<div class="row">{_line_sample("#666666", None, width=1, fill=LAYER_COLOURS["exclusions"])}'
                      "<span>exclusions (not surveyed)</span></div>")
-    if result.coverage.get("uncovered_m2", 0.0) > 0:
+    if result.coverage.uncovered_m2 > 0:
         parts.append(f'<div class="row">{_line_sample("#777777", "3 3", width=1, fill=LAYER_COLOURS["uncovered"])}'
                      "<span>no thermal data (not surveyed, not dry)</span></div>")
     for label, png in bars:
@@ -673,7 +584,7 @@ def _legend_html(bars: list[tuple[str, bytes]], result: "SurveyResult") -> str:
 # --------------------------------------------------------------------------------------
 
 
-def _feature(geom: BaseGeometry, proj: _Projection, fid: str, props: dict[str, Any]) -> dict[str, Any]:
+def geojson_feature(geom: BaseGeometry, proj: Projection, fid: str, props: dict[str, Any]) -> dict[str, Any]:
     return {"type": "Feature", "id": fid, "geometry": mapping(proj.geometry(geom)), "properties": props}
 
 
@@ -687,14 +598,14 @@ def _polygon_parts(geom: BaseGeometry) -> list[BaseGeometry]:
     return [p for p in shapely.get_parts(geom) if p.geom_type in ("Polygon", "MultiPolygon") and p.area > 0]
 
 
-def _add_geojson(parent, name: str, features: list[dict[str, Any]], style: Callable[[dict], dict], *,
+def add_geojson(parent, name: str, features: list[dict[str, Any]], style: Callable[[dict], dict], *,
                  show: bool = True, popup: tuple[list[str], list[str]] | None = None,
                  tooltip: str | None = None, permanent_tooltip: bool = False, marker=None, units=None,
                  label_class: str = "wetmap-label") -> None:
     """One toggleable layer (an empty, named group when there is nothing to draw).
 
     With a permanent tooltip every feature carries its own label, of CSS class ``label_class``.
-    ``units``: the report's :class:`~wetmap.export.report.DisplayUnits`; in imperial units
+    ``units``: the report's :class:`~wetmap.export.units.DisplayUnits`; in imperial units
     the metric figures of the layer name and of every text property are converted.
     """
     import folium
@@ -1055,13 +966,12 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
 
     summary = result.summary()
     survey = result.survey.survey
-    proj = _Projection(None if survey.is_local else result.grid.crs)
-    from .report import display_units  # the report's units setting, one for every output
+    proj = Projection(None if survey.is_local else result.grid.crs)
 
     units = display_units(result)
 
     def add_layer(*args, **kwargs) -> None:
-        _add_geojson(*args, units=units, **kwargs)
+        add_geojson(*args, units=units, **kwargs)
     rows, cols = result.grid.shape
     factor = max(1, math.ceil(max(rows, cols) / max_overlay_px))
 
@@ -1076,7 +986,7 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
     d_lo = min(d_lo, -result.detection.threshold_c)
     d_hi = max(d_hi, 2.0 * result.detection.threshold_c)
     imagery = getattr(result, "imagery", None)
-    if imagery is not None:  # from the roof alone, centred on the dry background (wetmap.imagery)
+    if imagery is not None:  # from the roof alone, centred on the dry background (wetmap.image_checks)
         s_lo, s_hi = imagery.surface_range.low_c, imagery.surface_range.high_c
         d_lo, d_hi = imagery.delta_range.low_c, imagery.delta_range.high_c
 
@@ -1116,27 +1026,27 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
     m.add_child(_recolour_class()(recolour, basis=_range_basis(result), area=words.area_short))
 
     # Uncovered roof, exclusions, outline, sections.
-    uncovered = uncovered_area(result, factor=factor) if result.coverage.get("uncovered_m2", 0.0) > 0 else None
+    uncovered = uncovered_area(result, factor=factor) if result.coverage.uncovered_m2 > 0 else None
     if uncovered is not None:
-        feats = [_feature(p, proj, f"u{i}", {"label": f"no thermal data: not surveyed, not dry ({p.area:,.1f} m²)"})
+        feats = [geojson_feature(p, proj, f"u{i}", {"label": f"no thermal data: not surveyed, not dry ({p.area:,.1f} m²)"})
                  for i, p in enumerate(_polygon_parts(uncovered))]
         add_layer(m, "No thermal data (not surveyed)", feats, lambda f: {
             "color": "#777777", "weight": 1, "dashArray": "3 3", "fillColor": LAYER_COLOURS["uncovered"],
             "fillOpacity": 0.75, "className": "wetmap-uncovered"}, tooltip="label")
-    feats = [_feature(p, proj, f"x{i}", {"label": f"exclusion ({p.area:,.1f} m²): not surveyed"})
+    feats = [geojson_feature(p, proj, f"x{i}", {"label": f"exclusion ({p.area:,.1f} m²): not surveyed"})
              for i, p in enumerate(_polygon_parts(result.exclusions))]
     add_layer(m, "Exclusions", feats, lambda f: {
         "color": "#666666", "weight": 1, "fillColor": LAYER_COLOURS["exclusions"], "fillOpacity": 0.8,
         "className": "wetmap-exclusion"}, tooltip="label")
     outline_name = f"{words.area_title} outline"
-    add_layer(m, outline_name, [_feature(result.outline, proj, "outline", {})], lambda f: {
+    add_layer(m, outline_name, [geojson_feature(result.outline, proj, "outline", {})], lambda f: {
         "color": LAYER_COLOURS["outline"], "weight": 2, "fill": False, "interactive": False,
         "className": "wetmap-outline"})
     totals = {t["name"]: t for t in summary.get("sections", [])}
     feats = []
     for i, sec in enumerate(result.sections):
         t = totals.get(sec.name, {})
-        feats.append(_feature(sec.geometry, proj, f"s{i}", {
+        feats.append(geojson_feature(sec.geometry, proj, f"s{i}", {
             "name": _esc(sec.name), "assembly": _esc(sec.assembly or "not given"),
             "insulation": _esc(sec.insulation or "not given"),
             "area": _sq(t["area_m2"]) if "area_m2" in t else "n/a",
@@ -1153,13 +1063,13 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
         label_class="wetmap-label wetmap-section-label")
 
     # Repair outlines and boards.
-    feats = [_feature(p, proj, f"r{i}", {"label": f"repair outline {i + 1}: {_sq(p.area)}"})
+    feats = [geojson_feature(p, proj, f"r{i}", {"label": f"repair outline {i + 1}: {_sq(p.area)}"})
              for i, p in enumerate(_polygon_parts(result.repair))]
     add_layer(m, f"Repair outline (margin {result.survey.repair.margin_m:g} m)", feats, lambda f: {
         "color": LAYER_COLOURS["repair"], "weight": 2, "dashArray": "6 4", "fillColor": "#000000",
         "fillOpacity": 0.05, "className": "wetmap-repair"}, tooltip="label")
     board_m = result.survey.repair.board_m
-    feats = [_feature(b, proj, f"b{i}", {"label": f"board {i + 1}"}) for i, b in enumerate(result.takeoff.boards)]
+    feats = [geojson_feature(b, proj, f"b{i}", {"label": f"board {i + 1}"}) for i, b in enumerate(result.takeoff.boards)]
     board_words = f"{board_m[0]:g} x {board_m[1]:g} m" if board_m else ""
     if board_m and units.imperial:  # both sides converted (the prose converter sees only the last)
         board_words = " x ".join(f"{units.length(v):.2f}" for v in board_m) + " ft"
@@ -1172,14 +1082,14 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
     core_photos, anomaly_photos = _photo_html(result, units)
 
     # Anomalies, one layer per status.
-    counted = _counted_statuses(result)
+    counted = result.counted_statuses
     fields = ["anomaly", "status", "area", "perimeter", "delta_mean", "delta_max", "confirmations", "section",
               "counted", "flags"] + (["photos"] if anomaly_photos else [])
     aliases = ["Anomaly", "Status", "Area", "Perimeter", "Mean ΔT", "Max ΔT", "Confirmations", "Section",
                "Counted in repair", "Flags"] + (["Photos"] if anomaly_photos else [])
     for status, st in STATUS_STYLES.items():
         feats = [
-            _feature(a.geometry, proj, f"a{a.id}", {
+            geojson_feature(a.geometry, proj, f"a{a.id}", {
                 "anomaly": a.id, "status": _esc(_status_words(a.status, words)), "area": _sq(a.area_m2),
                 "perimeter": f"{a.perimeter_m:,.2f} m", "delta_mean": _num(a.delta_mean_c, "+.2f", " °C"),
                 "delta_max": _num(a.delta_max_c, "+.2f", " °C"),
@@ -1270,10 +1180,10 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
                  padding_bottom_right=(250, 12))
 
     css = Element("{{ this.text }}")
-    css.text = f"<style>{_PAGE_CSS}</style>"
+    css.text = f"<style>{PAGE_CSS}</style>"
     fig.header.add_child(css, name="wetmap_css")
     page = fig.render()
-    js, css = _leaflet_assets()
+    js, css = leaflet_assets()
     inline = (f"\n<!-- Leaflet 1.9.4, BSD 2-Clause licence (c) 2010-2023 Volodymyr Agafonkin, "
               f"(c) 2010-2011 CloudMade -->\n<style>{css}</style>\n<script>{js}</script>\n")
     head = re.search(r"<head[^>]*>", page)

@@ -1,4 +1,4 @@
-"""wetmap.imagery: resolution, focus, reflections and display range.
+"""wetmap.image_checks: resolution, focus, reflections and display range.
 
 Outside values are named beside each check (pinhole geometry, hand-computed Jacobians,
 common practice). Scenes are invented demo data built with :mod:`wetmap.demo`.
@@ -19,7 +19,8 @@ from affine import Affine
 from scipy import ndimage
 from shapely.geometry import box
 
-from wetmap import demo, imagery
+from wetmap import demo
+from wetmap import image_checks as imagery
 from wetmap.errors import SurveyError
 from wetmap.register import blend_frames, ground_sampling_m, resample_frame
 from wetmap.survey import load_survey
@@ -177,7 +178,7 @@ def test_noise_estimate_recovers_known_noise():
     rng = np.random.default_rng(3)
     img = np.add.outer(np.arange(200.0), np.arange(300.0)) * 0.02
     img[:, 150:] += 3.0
-    assert imagery.noise_sigma(img + rng.normal(0, 0.1, img.shape)) == pytest.approx(0.1, rel=0.05)
+    assert imagery.image_noise_sigma(img + rng.normal(0, 0.1, img.shape)) == pytest.approx(0.1, rel=0.05)
 
 
 def test_blurred_frame_ranks_lower_and_sharpness_is_monotone_in_blur(frames):
@@ -352,7 +353,7 @@ def test_display_range_ignores_the_40c_rooftop_unit():
     """The warehouse sample's raster (invented demo data): the rooftop unit (40 °C) is an exclusion."""
     import rasterio
 
-    from wetmap.tiles import roof_mask
+    from wetmap.windows import roof_mask
     from wetmap.vectors import read_layer, read_outline
 
     with rasterio.open(WAREHOUSE / "thermal" / "roof_pass1.tif") as ds:

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 from shapely.geometry import Polygon, box
 
-from wetmap.confirm import assign_status
+from wetmap.verdicts import assign_status
 from wetmap.confirmations import Confirmations
 
 
@@ -48,7 +48,7 @@ import pytest
 import shapely
 from affine import Affine
 
-from wetmap.confirm import counted_wet_mask, suggest_cores, threshold_check, wet_area_range
+from wetmap.verdicts import counted_wet_mask, suggest_cores, threshold_check, wet_area_range
 
 
 def test_separable_cores_give_the_gap_between_them():

@@ -24,14 +24,32 @@ from typing import Literal
 import numpy as np
 import shapely
 from shapely.geometry.base import BaseGeometry
+from shapely.ops import polylabel
 
 from .confirmations import Confirmations
 from .wording import ROOF, Wording
+from .detect import anomaly_mask
+from .polygons import label_regions
 
-__all__ = ["Status", "STATUSES", "Verdicts", "assign_status"]
+__all__ = ["Status", "STATUSES", "NOT_REFUTED", "counted_statuses", "Verdicts", "assign_status"]
 
 Status = Literal["wet", "dry", "unverified"]
 STATUSES: tuple[Status, ...] = ("wet", "dry", "unverified")
+
+#: Statuses no confirmation refutes: the apparent wet area (``wet_area_m2``, ``wet_fraction``)
+#: adds them up whatever the repair counts.
+NOT_REFUTED: tuple[Status, ...] = ("wet", "unverified")
+
+
+def counted_statuses(*, include_unverified: bool) -> frozenset[Status]:
+    """The statuses counted as wet for the repair: ``wet``, and ``unverified`` when
+    ``include_unverified`` (``[repair] include_unverified``). The one rule every table,
+    figure, map, the repair outline and the comparison of two surveys count by.
+
+    >>> sorted(counted_statuses(include_unverified=True)), sorted(counted_statuses(include_unverified=False))
+    (['unverified', 'wet'], ['wet'])
+    """
+    return frozenset(NOT_REFUTED) if include_unverified else frozenset(("wet",))
 
 
 @dataclass(frozen=True)
@@ -292,9 +310,6 @@ def counted_wet_mask(delta_c: np.ndarray, threshold_c: float, *, min_pixels: int
     do, ``unverified`` with none; ``wet`` (and ``unverified`` when ``include_unverified``)
     regions are returned. Cores off the grid are ignored.
     """
-    from .detect import anomaly_mask
-    from .polygons import label_regions
-
     mask = anomaly_mask(delta_c, threshold_c, min_pixels=min_pixels)
     labels, count = label_regions(mask)
     rows_n, cols_n = labels.shape
@@ -396,9 +411,7 @@ def suggest_cores(anomalies: list[BaseGeometry], status: tuple[Status, ...], ids
     """
     c1, cn = words.confirmation, words.confirmations
     from scipy import ndimage
-    from shapely.ops import polylabel
 
-    from .polygons import label_regions
 
     out: list[SuggestedCore] = []
     order = sorted(range(len(anomalies)), key=lambda i: -anomalies[i].area)

@@ -101,6 +101,7 @@ from __future__ import annotations
 
 import math
 import re
+import warnings
 from collections.abc import Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -109,7 +110,11 @@ from typing import TYPE_CHECKING, Any
 import numpy as np
 import shapely
 from shapely.geometry.base import BaseGeometry
+from shapely.ops import polylabel
 
+from .rasters import GDAL_CACHE_BYTES, inspect_raster
+from .register import ground_sampling_m, lattice, project, usable_view
+from .style import DISPLAY_PCT, DisplayRange, delta_display_range, finite_sample, roof_display_range
 from .wording import wording_of
 
 if TYPE_CHECKING:
@@ -135,7 +140,7 @@ __all__ = [
     "feature_width_m",
     "pixels_across",
     "smallest_reliable_area_m2",
-    "noise_sigma",
+    "image_noise_sigma",
     "sharpness",
     "tile_sharpness",
     "mosaic_tile_sharpness",
@@ -183,14 +188,11 @@ MIN_DETAIL = 0.05
 #: Smallest noise standard deviation assumed, in the image's temperature units (degrees):
 #: keeps the detail test meaningful on noiseless synthetic images.
 NOISE_FLOOR = 0.01
-#: Percentiles of the display range (our own choice: robust to a few hot or cold pixels).
-DISPLAY_PCT = (1.0, 99.0)
 #: The flag an anomaly gets when it may be a reflection.
 REFLECTION_FLAG = "reflection suspect"
 #: The flag an anomaly gets when it spans fewer pixels than a reliable measurement needs.
 UNDER_RESOLVED_FLAG = "under-resolved"
 _KELVIN = 273.15
-_SAMPLE = 4_000_000  # at most this many values enter a display range's percentiles
 
 
 # --------------------------------------------------------------------------------------
@@ -303,10 +305,8 @@ def frame_gsd_range_m(matrix: np.ndarray, shape: tuple[int, int], *,
     >>> round(g.gsd_m, 4), round(g.low_m, 4), round(g.high_m, 4), round(g.coarse_max_m, 4)
     (0.0316, 0.0316, 0.0316, 0.05)
     """
-    from .register import _lattice, _usable_view, ground_sampling_m, project
-
-    cols, rows = _lattice(shape, max(1, min(shape) // 40))
-    ok = _usable_view(matrix, cols, rows)
+    cols, rows = lattice(shape, max(1, min(shape) // 40))
+    ok = usable_view(matrix, cols, rows)
     if bounds is not None:
         xs, ys = project(matrix, cols, rows)
         x0, y0, x1, y1 = bounds
@@ -372,7 +372,6 @@ def feature_width_m(polygon: BaseGeometry) -> float:
     if hasattr(shapely, "maximum_inscribed_circle"):
         radius = float(shapely.length(shapely.maximum_inscribed_circle(polygon, tol)))
     else:  # shapely < 2.1
-        from shapely.ops import polylabel
 
         parts = [p for p in shapely.get_parts(polygon) if p.area > 0]
         radius = max(float(polylabel(p, tol).distance(p.boundary)) for p in parts)
@@ -404,7 +403,7 @@ def smallest_reliable_area_m2(gsd_m: float, *, pixels_across: float = MIN_PIXELS
 _IMMERKAER = np.array([[1.0, -2.0, 1.0], [-2.0, 4.0, -2.0], [1.0, -2.0, 1.0]])
 
 
-def noise_sigma(values: np.ndarray) -> float:
+def image_noise_sigma(values: np.ndarray) -> float:
     """Robust estimate of the standard deviation of an image's pixel noise.
 
     ``1.4826 * median(|N * I|) / 6`` over the pixels whose 3 x 3 neighbourhood has data,
@@ -427,7 +426,7 @@ def noise_sigma(values: np.ndarray) -> float:
     --------
     >>> rng = np.random.default_rng(0)
     >>> ramp = np.add.outer(np.arange(200.0), np.arange(300.0)) * 0.01
-    >>> round(noise_sigma(ramp + rng.normal(0, 0.1, ramp.shape)), 2)
+    >>> round(image_noise_sigma(ramp + rng.normal(0, 0.1, ramp.shape)), 2)
     0.1
     """
     from scipy import ndimage
@@ -518,7 +517,7 @@ def sharpness(values: np.ndarray, *, coarse_sigma_px: float = COARSE_SIGMA_PX,
     ok = np.isfinite(v)
     if ok.sum() < 9:
         return Sharpness(math.nan, math.nan, math.nan)
-    s = noise_sigma(v)
+    s = image_noise_sigma(v)
     if not math.isfinite(s):
         return Sharpness(math.nan, math.nan, math.nan)
     fine = _gradient_energy(v) - 4.0 * s * s
@@ -616,13 +615,10 @@ def mosaic_tile_sharpness(path: Path, *, scale: float = 1.0, within: BaseGeometr
     xs, ys : numpy.ndarray
         Plan coordinates of each tile's centre (NaN without ``transform``).
     """
-    import warnings
-
     import rasterio
     from rasterio.errors import NotGeoreferencedWarning
     from rasterio.windows import Window
 
-    from .tiles import GDAL_CACHE_BYTES
 
     with warnings.catch_warnings():
         warnings.simplefilter("ignore", NotGeoreferencedWarning)
@@ -1013,120 +1009,6 @@ def specular_words(assembly: str | None) -> str | None:
 # --------------------------------------------------------------------------------------
 
 
-@dataclass(frozen=True)
-class DisplayRange:
-    """A colour range chosen from the roof alone (see the module notes).
-
-    Attributes
-    ----------
-    low_c, high_c
-        The range, degC.
-    centre_c
-        Its centre: the median dry background over the roof (0 for delta-T), degC.
-    low_pct, high_pct
-        The percentiles that set the half-width.
-    pixels
-        Roof pixels the statistics used.
-    """
-
-    low_c: float
-    high_c: float
-    centre_c: float
-    low_pct: float
-    high_pct: float
-    pixels: int
-
-    def as_list(self) -> list[float]:
-        """``[low_c, high_c]`` rounded to 0.01 degC."""
-        return [round(self.low_c, 2), round(self.high_c, 2)]
-
-    @property
-    def percentile_words(self) -> str:
-        """E.g. ``"1st-99th percentile"``.
-
-        >>> DisplayRange(0.0, 1.0, 0.5, 1.0, 99.0, 10).percentile_words
-        '1st-99th percentile'
-        """
-        return f"{_ordinal(self.low_pct)}-{_ordinal(self.high_pct)} percentile"
-
-
-def _ordinal(v: float) -> str:
-    """``1 -> "1st"``, ``2.5 -> "2.5th"``, ``99 -> "99th"``, ``12 -> "12th"``."""
-    if v != int(v):
-        return f"{v:g}th"
-    n = int(v)
-    suffix = "th" if 10 <= n % 100 <= 20 else {1: "st", 2: "nd", 3: "rd"}.get(n % 10, "th")
-    return f"{n}{suffix}"
-
-
-def _subsample(v: np.ndarray) -> np.ndarray:
-    v = np.asarray(v).ravel()
-    if v.size > _SAMPLE:
-        v = v[:: v.size // _SAMPLE]
-    return v[np.isfinite(v)]
-
-
-def roof_display_range(values_c: np.ndarray, roof: np.ndarray, *, centre_c: float | None = None,
-                       low_pct: float = DISPLAY_PCT[0], high_pct: float = DISPLAY_PCT[1],
-                       min_half_c: float = 0.5) -> DisplayRange:
-    """Colour range of ``values_c`` from the roof's pixels alone, centred on ``centre_c``.
-
-    Parameters
-    ----------
-    values_c
-        ``(rows, cols)``, degC.
-    roof
-        ``(rows, cols)`` bool: pixels that count (inside the outline, outside the
-        exclusions, with data).
-    centre_c
-        The centre (the median dry background); ``None``: the median of the roof values.
-    low_pct, high_pct
-        Percentiles of the roof values that must lie inside the range.
-    min_half_c
-        Smallest half-width, degC.
-
-    Returns
-    -------
-    DisplayRange
-        ``centre_c -/+ max(centre - p_low, p_high - centre, min_half_c)``; ``(0, 1)``
-        when no roof pixel has data.
-
-    Examples
-    --------
-    A roof at 5 °C with 1 % of warm pixels at 8 °C, next to a 40 °C unit and 1 °C ground
-    that are not roof:
-
-    >>> v = np.full((100, 100), 5.0); v[:, :10] = 1.0; v[:5, 90:] = 40.0; v[50, 20:29] = 8.0
-    >>> roof = np.ones(v.shape, bool); roof[:, :10] = False; roof[:5, 90:] = False
-    >>> r = roof_display_range(v, roof, centre_c=5.0)
-    >>> r.low_c, r.high_c, r.centre_c
-    (4.5, 5.5, 5.0)
-    """
-    sel = _subsample(np.where(roof, values_c, np.nan))
-    if sel.size == 0:
-        return DisplayRange(0.0, 1.0, 0.5, low_pct, high_pct, 0)
-    lo, hi = (float(x) for x in np.percentile(sel, [low_pct, high_pct]))
-    c = float(np.median(sel)) if centre_c is None or not math.isfinite(centre_c) else float(centre_c)
-    half = max(c - lo, hi - c, min_half_c)
-    return DisplayRange(c - half, c + half, c, low_pct, high_pct, int(np.count_nonzero(roof & np.isfinite(values_c))))
-
-
-def delta_display_range(delta_c: np.ndarray, *, threshold_c: float, low_pct: float = DISPLAY_PCT[0],
-                        high_pct: float = DISPLAY_PCT[1]) -> DisplayRange:
-    """Colour range of delta-T: centred on 0, half-width at least twice the threshold.
-
-    ``delta_c`` is NaN off the usable roof already (:class:`wetmap.detect.Detection`).
-
-    >>> d = np.r_[np.linspace(-0.4, 0.4, 990), np.full(10, 3.0)]
-    >>> r = delta_display_range(d[None, :], threshold_c=1.0)
-    >>> r.low_c, r.high_c
-    (-2.0, 2.0)
-    """
-    roof = np.isfinite(delta_c)
-    return roof_display_range(delta_c, roof, centre_c=0.0, low_pct=low_pct, high_pct=high_pct,
-                              min_half_c=2.0 * threshold_c)
-
-
 # --------------------------------------------------------------------------------------
 # The whole assessment
 # --------------------------------------------------------------------------------------
@@ -1299,8 +1181,6 @@ def assess_imagery(survey: "Survey", *, grid_transform: "Affine", grid_shape: tu
     outline
         The outline (mosaic tiles outside it are not judged).
     """
-    from .rasters import inspect_raster
-
     lim = survey.limits
     n_across = float(getattr(lim, "min_pixels_across", MIN_PIXELS_ACROSS))
     focus_ratio = float(getattr(lim, "focus_ratio", FOCUS_RATIO))
@@ -1368,7 +1248,7 @@ def assess_imagery(survey: "Survey", *, grid_transform: "Affine", grid_shape: tu
     gsd_grid = np.where(np.isnan(gsd_grid), frame_gsd, gsd_grid)
     gsd_grid = np.fmax(gsd_grid, np.float32(grid_pixel_m))  # never finer than the plan grid
     covered = usable & np.isfinite(gsd_grid)
-    gvals = _subsample(gsd_grid[covered]) if covered.any() else np.zeros(0)
+    gvals = finite_sample(gsd_grid[covered]) if covered.any() else np.zeros(0)
     if gvals.size:
         reliable_gsd, worst_gsd = float(np.median(gvals)), float(np.percentile(gvals, 95))
     else:
@@ -1511,7 +1391,7 @@ def assess_imagery(survey: "Survey", *, grid_transform: "Affine", grid_shape: tu
 
     # --- display ranges ------------------------------------------------------------------------
     bg = detection.background_c[usable] if usable.any() else np.zeros(0)
-    bg = _subsample(bg)
+    bg = finite_sample(bg)
     centre = float(np.median(bg)) if bg.size else None
     surface_range = roof_display_range(surface_c, usable, centre_c=centre)
     delta_range = delta_display_range(detection.delta_c, threshold_c=detection.threshold_c)
