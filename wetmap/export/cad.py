@@ -144,7 +144,10 @@ def write_dxf(result: "SurveyResult", path: Path) -> None:
     def rings(geom: BaseGeometry, layer: str) -> None:
         drawn.append(geom)
         for xy, _ in polygon_rings(geom):
-            msp.add_lwpolyline(xy.tolist(), close=True, dxfattribs={"layer": layer})
+            # the points in one array (x, y, start width, end width, bulge), not one by one:
+            # ezdxf's per-point path parses each point in Python (the same stored values)
+            line = msp.add_lwpolyline([], close=True, dxfattribs={"layer": layer})
+            line.lwpoints.extend(np.column_stack([xy, np.zeros((len(xy), 3))]))
 
     def label(text: str, xy: tuple[float, float], *, height: float = h, layer: str = "LABELS") -> None:
         marks.append(msp.add_text(text, height=height, dxfattribs={"layer": layer}).set_placement(
