@@ -98,6 +98,9 @@ def make(mpx: int, *, seed: int = 1) -> Path:
     for i, (x, y) in enumerate([(0.55 * e, 0.2 * e), (0.8 * e, 0.85 * e)]):
         lines.append(f"D{i + 1},{X0 + x:.3f},{Y0 - y:.3f},dry")
     (folder / "cores.csv").write_text("\n".join(lines) + "\n")
+    # 1.2 x 2.4 m boards up to 512 Mpx; beyond, 2.4 x 2.4 m: wetmap refuses a take-off that could
+    # need more than 250 000 boards (about 540 Mpx of roof at 3 cm with the smaller board)
+    board = "[1.2, 2.4]" if mpx <= 512 else "[2.4, 2.4]"
     (folder / "survey.toml").write_text(f"""# Invented benchmark roof ({side} x {side} px at {PIXEL_M} m): synthetic data.
 [survey]
 title = "Invented benchmark roof {mpx} Mpx"
@@ -130,7 +133,7 @@ path = "cores.csv"
 
 [repair]
 margin_m = 0.3
-board_m = [1.2, 2.4]
+board_m = {board}
 """, encoding="utf-8")
     return folder
 

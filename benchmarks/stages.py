@@ -1,7 +1,7 @@
 """Where the time of one ``wetmap run`` goes: each stage's seconds and the peak memory so far.
 
-Runs ``process_survey`` and then ``write_results`` itself in this one process, with each
-result writer it calls wrapped in a timer (so the stages are the ones ``wetmap run``
+Runs ``run_survey`` (what ``wetmap run`` calls) in this one process, with the processing
+steps and each result writer wrapped in a timer (so the stages are the ones ``wetmap run``
 does, in its order), and prints one line per stage. The results go to a temporary folder
 that is removed at the end. For the ratios against the naive chain use
 run_benchmarks.py; this script says which part of wetmap's own time is which.
@@ -50,7 +50,7 @@ def main(folder: Path) -> int:
     import wetmap.image_checks
     import wetmap.pipeline as pipeline
     from wetmap.export import cad, gis, report as report_html, tables, webmap
-    from wetmap.pipeline import process_survey, write_results
+    from wetmap.pipeline import process_survey
     from wetmap.tiles import FullRasters
 
     report("imports", time.perf_counter() - start)
@@ -63,15 +63,23 @@ def main(folder: Path) -> int:
                                 (pipeline, "compute_quantities", "  quantities (repair margin, boards)")]:
         if hasattr(module, name):
             setattr(module, name, timed(label, getattr(module, name)))
-    for module, name in [(tables, "write_summary"), (tables, "write_quantities"), (gis, "write_anomalies"),
-                         (gis, "write_repair"), (cad, "write_dxf"), (gis, "write_raster"), (webmap, "write_map"),
-                         (report_html, "write_report"), (FullRasters, "place")]:
-        setattr(module, name, timed(name, getattr(module, name)))
+    for module, name in [(tables, "write_summary"), (tables, "write_quantities"), (tables, "write_takeoff"),
+                         (gis, "write_anomalies"), (gis, "write_repair"), (cad, "write_dxf"), (gis, "write_raster"),
+                         (webmap, "write_map"), (report_html, "write_report"), (report_html, "write_pdf"),
+                         (FullRasters, "place")]:
+        if hasattr(module, name):
+            setattr(module, name, timed(name, getattr(module, name)))
 
-    result = timed("process_survey (detection and all)", process_survey)(folder)
+    beside = cad.write_dxf_beside
+
+    def dxf_beside(result, path):  # write_dxf above reports from the forked process; this the wait after
+        return timed("wait for repair.dxf (forked)", beside(result, path))
+
+    cad.write_dxf_beside = dxf_beside
+    pipeline.process_survey = timed("process_survey (detection and all)", process_survey)
     tmp = Path(tempfile.mkdtemp(prefix="wetmap-stages-"))
-    try:
-        write_results(result, tmp / "results")
+    try:  # as `wetmap run` does: the window rasters live in the staging folder until written
+        result = pipeline.run_survey(folder, out=tmp / "results")
     finally:
         shutil.rmtree(tmp, ignore_errors=True)
     print(f"{'total':<40} {time.perf_counter() - start:7.1f} s   peak {peak_mb():6.0f} MB "

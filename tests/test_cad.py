@@ -127,3 +127,55 @@ def test_cores_and_labels(sample):
     lo, hi = doc.header["$EXTMIN"], doc.header["$EXTMAX"]
     x0, y0, x1, y1 = result.outline.bounds
     assert lo[0] <= x0 and lo[1] < y0 and hi[0] >= x1 and hi[1] >= y1
+
+
+def _entities(doc) -> list[tuple]:
+    """Every model-space entity as comparable values: type, layer and its points or text."""
+    out = []
+    for e in doc.modelspace():
+        kind = e.dxftype()
+        if kind == "LWPOLYLINE":
+            data = tuple(map(tuple, e.get_points("xy")))
+        elif kind == "HATCH":
+            data = tuple(tuple(map(tuple, p.vertices)) for p in e.paths)
+        elif kind == "TEXT":
+            data = (e.dxf.text, tuple(e.dxf.insert))
+        elif kind == "CIRCLE":
+            data = (tuple(e.dxf.center), e.dxf.radius)
+        else:
+            data = tuple(e.dxf.location)
+        out.append((kind, e.dxf.layer, data))
+    return out
+
+
+def test_dxf_written_beside_equals_the_direct_writer(sample, tmp_path):
+    """`wetmap run` writes repair.dxf in a forked process: the same drawing as write_dxf here."""
+    from wetmap.export import cad
+
+    result, _, doc = sample
+    cad.write_dxf(result, tmp_path / "direct.dxf")
+    direct = ezdxf.readfile(tmp_path / "direct.dxf")
+    assert _entities(doc) == _entities(direct)
+    assert len(_entities(doc)) > 10
+
+
+def test_dxf_beside_raises_the_writers_error(sample, tmp_path, monkeypatch):
+    """A failure in the writing process comes back as the writer's own error, or one naming the file."""
+    from wetmap.errors import ProcessingError
+    from wetmap.export import cad
+
+    result, _, _ = sample
+
+    def fails(result, path):
+        raise ProcessingError(f"{path.name}: an audit error for the test")
+
+    monkeypatch.setattr(cad, "write_dxf", fails)
+    with pytest.raises(ProcessingError, match="an audit error for the test"):
+        cad.write_dxf_beside(result, tmp_path / "a.dxf")()
+
+    if cad.sys.platform.startswith("linux"):  # a process that dies without a word
+        import os
+
+        monkeypatch.setattr(cad, "write_dxf", lambda result, path: os._exit(3))
+        with pytest.raises(ProcessingError, match="b.dxf: the process writing it ended with code 3"):
+            cad.write_dxf_beside(result, tmp_path / "b.dxf")()

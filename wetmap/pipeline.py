@@ -1062,26 +1062,29 @@ def _write_files(result: SurveyResult, folder: Path, *,
                  extra_writers: tuple[Callable[[SurveyResult, Path], None], ...] = (),
                  map_html: bool = True, report_html: bool = True) -> None:
     """Write every result file into ``folder`` (a staging folder of :func:`wetmap.outputs.replacing`)."""
-    tables.write_summary(result, folder / "summary.json")
-    tables.write_quantities(result, folder / "quantities.csv")
-    tables.write_takeoff(result, folder / "takeoff.xlsx")
-    gis.write_anomalies(result, folder / "anomalies.gpkg", folder / "anomalies.geojson")
-    gis.write_repair(result, folder / "repair.gpkg")
-    cad.write_dxf(result, folder / "repair.dxf")
-    if result.full_rasters is not None:  # processed in windows: the full rasters are on disk
-        result.full_rasters.place(folder)
-    else:
-        gis.write_raster(result.surface_c, result.grid, folder / "surface_c.tif")
-        gis.write_raster(result.detection.delta_c, result.grid, folder / "delta_c.tif")
-    if result.passes is not None:
-        gis.write_raster(result.passes.cooling_c_per_h, result.grid, folder / "cooling_c_per_h.tif")
-    if map_html:
-        webmap.write_map(result, folder / "map.html")
-    if report_html:
-        report.write_report(result, folder / "report.html")
-        report.write_pdf(result, folder / "report.pdf", html_text=(folder / "report.html").read_text(encoding="utf-8"))
-    for writer in extra_writers:
-        writer(result, folder)
+    finish_dxf = cad.write_dxf_beside(result, folder / "repair.dxf")  # a forked process (ezdxf holds the GIL)
+    try:
+        tables.write_summary(result, folder / "summary.json")
+        tables.write_quantities(result, folder / "quantities.csv")
+        tables.write_takeoff(result, folder / "takeoff.xlsx")
+        gis.write_anomalies(result, folder / "anomalies.gpkg", folder / "anomalies.geojson")
+        gis.write_repair(result, folder / "repair.gpkg")
+        if result.full_rasters is not None:  # processed in windows: the full rasters are on disk
+            result.full_rasters.place(folder)
+        else:
+            gis.write_raster(result.surface_c, result.grid, folder / "surface_c.tif")
+            gis.write_raster(result.detection.delta_c, result.grid, folder / "delta_c.tif")
+        if result.passes is not None:
+            gis.write_raster(result.passes.cooling_c_per_h, result.grid, folder / "cooling_c_per_h.tif")
+        if map_html:
+            webmap.write_map(result, folder / "map.html")
+        if report_html:
+            report.write_report(result, folder / "report.html")
+            report.write_pdf(result, folder / "report.pdf", html_text=(folder / "report.html").read_text(encoding="utf-8"))
+        for writer in extra_writers:
+            writer(result, folder)
+    finally:
+        finish_dxf()
 
 
 #: Files of an earlier results folder that a run carries over (the plan of `wetmap window`).

@@ -20,8 +20,10 @@ Layers (names of wetmap's own; see :data:`LAYERS`): ``OUTLINE``, ``EXCLUSIONS``,
 
 from __future__ import annotations
 
+import multiprocessing
+import sys
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Callable
 
 import numpy as np
 import shapely
@@ -36,7 +38,7 @@ from .tables import quantities_of
 if TYPE_CHECKING:
     from ..results import SurveyResult
 
-__all__ = ["LAYERS", "LAYER_RGB", "STATUS_LAYER", "write_dxf", "polygon_rings"]
+__all__ = ["LAYERS", "LAYER_RGB", "STATUS_LAYER", "write_dxf", "write_dxf_beside", "polygon_rings"]
 
 #: Layer name -> (AutoCAD colour index, description).
 LAYERS: dict[str, tuple[int, str]] = {
@@ -143,7 +145,10 @@ def write_dxf(result: "SurveyResult", path: Path) -> None:
     def rings(geom: BaseGeometry, layer: str) -> None:
         drawn.append(geom)
         for xy, _ in polygon_rings(geom):
-            msp.add_lwpolyline(xy.tolist(), close=True, dxfattribs={"layer": layer})
+            # the points in one array (x, y, start width, end width, bulge), not one by one:
+            # ezdxf's per-point path parses each point in Python (the same stored values)
+            line = msp.add_lwpolyline([], close=True, dxfattribs={"layer": layer})
+            line.lwpoints.extend(np.column_stack([xy, np.zeros((len(xy), 3))]))
 
     def label(text: str, xy: tuple[float, float], *, height: float = h, layer: str = "LABELS") -> None:
         marks.append(msp.add_text(text, height=height, dxfattribs={"layer": layer}).set_placement(
@@ -230,3 +235,53 @@ def write_dxf(result: "SurveyResult", path: Path) -> None:
         raise ProcessingError(f"{path.name}: ezdxf's audit found {len(auditor.errors)} errors (first: {first}); "
                               "this is a wetmap bug, please report it")
     doc.saveas(path)
+
+
+def _dxf_child(result: "SurveyResult", path: Path, conn) -> None:
+    """The forked process of :func:`write_dxf_beside`: write, then send ``None`` or the error."""
+    try:
+        write_dxf(result, path)
+        conn.send(None)
+    except BaseException as exc:  # noqa: BLE001 - every failure goes back to the parent
+        try:
+            conn.send(exc)
+        except Exception:  # an error that does not pickle: its text
+            conn.send(ProcessingError(f"{path.name}: {type(exc).__name__}: {exc}"))
+    finally:
+        conn.close()
+
+
+def write_dxf_beside(result: "SurveyResult", path: Path) -> Callable[[], None]:
+    """Start :func:`write_dxf` beside the caller's work; returns the function that waits for it.
+
+    ezdxf builds and writes every vertex in Python and holds the GIL, so a thread would not
+    help: on Linux the drawing is written by a forked process (which shares the results'
+    memory, copy on write) while the caller writes the other files. The returned function
+    waits for it and raises the writer's own error (a :class:`ProcessingError` when the
+    process died without one). Elsewhere the file is written at once and the returned
+    function does nothing. The file is the same either way.
+    """
+    if not sys.platform.startswith("linux"):
+        write_dxf(result, path)
+        return lambda: None
+    ctx = multiprocessing.get_context("fork")
+    parent, child = ctx.Pipe(duplex=False)
+    proc = ctx.Process(target=_dxf_child, args=(result, path, child), name="wetmap-dxf", daemon=True)
+    proc.start()
+    child.close()
+
+    def wait() -> None:
+        try:
+            error = parent.recv() if parent.poll(None) else None
+        except EOFError:  # the process ended without a word
+            error = None
+        finally:
+            proc.join()
+            parent.close()
+        if error is not None:
+            raise error
+        if proc.exitcode != 0:
+            raise ProcessingError(f"{path.name}: the process writing it ended with code {proc.exitcode} "
+                                  "(out of memory?); run again with more memory free")
+
+    return wait
