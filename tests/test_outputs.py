@@ -392,3 +392,28 @@ def test_a_run_killed_while_processing_in_windows_leaves_nothing_after_the_next_
     after = _snapshot(survey / "results")
     assert all(after[name] == before[name] for name in before if name != MANIFEST)
     assert _leftovers(survey) == []
+
+
+def test_every_file_a_run_writes_is_known_as_wetmap_s(sample_run):
+    """A results folder whose manifest was lost must still read as wetmap's: every file of a
+    full run (map, report, PDF, workbook, CSVs) is in WETMAP_FILES."""
+    _, out = sample_run
+    written = {p.name for p in out.iterdir() if p.is_file()}
+    assert {"summary.json", "map.html", "report.html", "takeoff.xlsx", "core_log.csv", "bill.csv"} <= written
+    assert written - outputs.WETMAP_FILES == set()
+    (out.parent / "copy").mkdir()
+    for name in written - {MANIFEST}:
+        shutil.copy2(out / name, out.parent / "copy" / name)
+    assert is_wetmap_folder(out.parent / "copy")
+
+
+def test_every_file_compare_writes_is_known_as_wetmap_s(sample_run, tmp_path):
+    """The files `wetmap compare` writes (here: the sample against itself) are wetmap's too."""
+    from wetmap.compare import compare_results
+    from wetmap.export.change import write_change
+
+    _, out = sample_run
+    write_change(compare_results(out, out), tmp_path / "change")
+    written = {p.name for p in (tmp_path / "change").iterdir() if p.is_file()}
+    assert {"change.gpkg", "change.json", "change_map.html", "change_report.html"} <= written
+    assert written - outputs.WETMAP_FILES == set()

@@ -59,8 +59,10 @@ _SURVEY_FILE = "survey.toml"
 #: manifest) was written by an earlier version of wetmap and may be replaced.
 WETMAP_FILES = frozenset({
     MANIFEST, "summary.json", "anomalies.gpkg", "anomalies.geojson", "repair.gpkg", "repair.dxf", "quantities.csv",
-    "surface_c.tif", "delta_c.tif", "cooling_c_per_h.tif", "map.html", "report.html", "window.json", "window.png",
-    "change.gpkg", "change.json",
+    "sections.csv", "wet_area_range.csv", "board_range.csv", "bill.csv", "core_log.csv", "takeoff.xlsx",
+    "surface_c.tif", "delta_c.tif", "cooling_c_per_h.tif", "map.html", "report.html", "report.pdf",
+    "window.json", "window.png",
+    "change.gpkg", "change.json", "change_map.html", "change_report.html", "change_report.pdf",
 })
 
 _AT_FDCWD = -100
