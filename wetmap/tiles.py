@@ -25,8 +25,7 @@ at a multiple of the block size holds whole blocks, so the passes are:
    temperature, rasterise the roof (:func:`wetmap.windows.rasterize_window`) and take block statistics
    of the usable pixels; the window is kept in a scratch folder;
 2. *background estimates 2 and 3*: block medians of the pixels not warmer than the
-   previous background by more than the cut (the cut from the first estimate's noise),
-   exactly as :func:`wetmap.detect.estimate_background` iterates;
+   previous background by more than the cut (the cut from the first estimate's noise);
 3. *outlines*: delta-T, the raw mask ``delta > threshold`` and its 4-connected regions
    outlined in integer pixel coordinates of the whole grid (``outline="pixel"``).
 

@@ -288,7 +288,7 @@ def threshold_check(ids: tuple[str, ...], delta_c: np.ndarray, wet: np.ndarray, 
         )
     if dry_flagged:
         notes.append(
-            f"dry {', '.join(dry_flagged)} lie above the threshold delta_c = {chosen_c:g} °C: the warmth there has "
+            f"dry {', '.join(dry_flagged)} {'lies' if len(dry_flagged) == 1 else 'lie'} above the threshold delta_c = {chosen_c:g} °C: the warmth there has "
             f"another cause ({words.other_causes}) or the threshold is low; thresholds from "
             f"{lo:+.2f} to {hi:+.2f} °C fit the confirmations best"
         )
