@@ -661,8 +661,77 @@ def test_imperial_map_popups_and_scale(imperial_run):
     assert '"imperial": true' in page.replace("imperial: true", '"imperial": true')
     assert "ft\\u00b2" in page or "ft²" in page
     assert not re.search(r"\d (?:m\\u00b2|m²) ", page)
-    # the thermal layer and its colour bar in °F; the in-browser display control alone stays in °C
+    # the thermal layer, its colour bar and the in-browser display control in °F
     assert "Surface temperature, \\u00b0F" in page or "Surface temperature, °F" in page
+    config = json.loads(re.search(r"var cfg = (\{.*?\});\n", page).group(1))
+    surface, delta = config["layers"]
+    assert surface["label"] == "Surface temperature, °F" and surface["unit"] == "°F"
+    assert delta["label"] == "ΔT above the dry background, °F"
+    assert "°C" not in config["basis"] and "°F" in config["basis"]
+
+
+_DISPLAY_PROBE = """
+(async () => {
+  const img = () => document.querySelector('img.wetmap-surface');
+  const pix = async () => {
+    const i = img(); await i.decode();
+    const c = document.createElement('canvas'); c.width = i.naturalWidth; c.height = i.naturalHeight;
+    const x = c.getContext('2d'); x.drawImage(i, 0, 0);
+    const d = x.getImageData(0, 0, c.width, c.height).data;  // one read-back
+    return [[0.5, 0.5], [0.3, 0.4], [0.6, 0.7], [0.45, 0.25]].map(([fx, fy]) => {
+      const j = 4 * (Math.floor(c.height * fy) * c.width + Math.floor(c.width * fx));
+      return Array.from(d.slice(j, j + 4));
+    });
+  };
+  const [lo, hi] = [...document.querySelectorAll('.wetmap-display input')].slice(0, 2);
+  const opening = [lo.value, hi.value];
+  const line = lo.parentElement.textContent;
+  const bar = document.querySelector('.wetmap-legend img[alt^="Surface temperature"]');
+  const barBefore = bar.src;
+  await window.wetmapDisplay.set(0, +opening[0], +opening[1], 'gray');  // the palette alone changes
+  // typed into the panel, as a user would: LOW and HIGH in the unit shown
+  lo.value = String(LOW); hi.value = String(HIGH);
+  lo.dispatchEvent(new Event('change')); hi.dispatchEvent(new Event('change'));
+  await new Promise(r => setTimeout(r, 500));
+  const typed = await pix();
+  return JSON.stringify({opening, line, typed, barChanged: bar.src !== barBefore,
+                         inputs: [lo.value, hi.value]});
+})()
+"""
+
+
+def test_browser_display_control_works_in_fahrenheit(imperial_run, metric_run, tmp_path, monkeypatch):
+    """Headless chromium (skipped when not installed), via the map tests' DevTools client.
+
+    The imperial map's display control shows its opening range in °F and takes °F: a range
+    typed in °F paints the overlay as the metric map does for the same range typed in °C
+    (°F = 1.8 °C + 32, NIST SP 811, appendix B), and the legend's bar is redrawn."""
+    import sys
+
+    sys.path.insert(0, str(Path(__file__).parent))
+    import test_webmap as tw
+
+    result, imperial_out = imperial_run
+    r = result.imagery.surface_range
+    low_c, high_c = round(r.low_c + 0.25 * (r.high_c - r.low_c), 1), round(r.low_c + 0.75 * (r.high_c - r.low_c), 1)
+    got = {}
+    for name, out, low, high in (("metric", metric_run[1], low_c, high_c),
+                                 ("imperial", imperial_out, low_c * 1.8 + 32.0, high_c * 1.8 + 32.0)):
+        monkeypatch.setattr(tw, "_PROBE", _DISPLAY_PROBE.replace("LOW", repr(low)).replace("HIGH", repr(high)))
+        got[name], errors = tw._browse(out / "map.html", tmp_path / f"profile_{name}")
+        assert errors == []
+    metric, imperial = got["metric"], got["imperial"]
+    # the opening range: the roof range in °C, and the same range in °F (to the 0.01 the inputs show)
+    assert [float(v) for v in metric["opening"]] == pytest.approx([r.low_c, r.high_c], abs=0.01)
+    assert [float(v) for v in imperial["opening"]] == pytest.approx([r.low_c * 1.8 + 32, r.high_c * 1.8 + 32],
+                                                                     abs=0.02)
+    assert metric["line"].strip().endswith("°C") and imperial["line"].strip().endswith("°F")
+    # the same colours for the same range in either unit (one 8-bit grey level apart at most)
+    assert len(imperial["typed"]) == 4
+    for a, b in zip(metric["typed"], imperial["typed"]):
+        assert a[3] == b[3] == 255 and all(abs(x - y) <= 1 for x, y in zip(a[:3], b[:3])), (a, b)
+    assert len({tuple(p) for p in imperial["typed"]}) > 1  # the probe sees more than one colour
+    assert metric["barChanged"] and imperial["barChanged"]  # the bar in the legend follows the control
 
 
 def test_removal_volume_from_the_logged_wet_thickness(metric_run, tmp_path):

@@ -28,7 +28,8 @@ Colours (our own choice, chosen to read with colour-vision deficiency)
 
 Every layer but the second thermal view and the boards is shown when the page opens;
 all can be toggled in the layer list. A title block names the site, date and
-conditions; a legend carries the colour bars in degC; a metric scale bar sits bottom left.
+conditions; a legend carries the colour bars in degC (degF with ``[report] units = "imperial"``,
+as does the display-range control); a scale bar sits bottom left.
 """
 
 from __future__ import annotations
@@ -744,15 +745,16 @@ def _palette_hex(name: str) -> str:
     return rgb.astype(np.uint8).tobytes().hex()
 
 
-def _range_basis(result: "SurveyResult") -> str:
-    """The words under the display control: how the opening range was chosen."""
+def _range_basis(result: "SurveyResult", units: Any = None) -> str:
+    """The words under the display control: how the opening range was chosen (plain text, in ``units``)."""
     imagery = getattr(result, "imagery", None)
     area = wording_of(result.survey).area_short
     if imagery is None:
         return f"Opening range: 1st-99th percentile of the {area} pixels."
     r = imagery.surface_range
+    centre = f"{r.centre_c:.1f} °C" if units is None else f"{units.temp(r.centre_c):.1f} {units.temp_unit}"
     return (f"Opening range: {r.percentile_words} of the {area} alone (exclusions and ground "
-            f"outside the outline left out), centred on the dry background {r.centre_c:.1f} °C; ΔT centred on 0.")
+            f"outside the outline left out), centred on the dry background {centre}; ΔT centred on 0.")
 
 
 def _recolour_class():
@@ -766,6 +768,8 @@ def _recolour_class():
         colours them with the chosen palette and range, and swaps the overlay image (and its
         colour bar in the legend). Nothing is loaded from a network. ``window.wetmapDisplay``
         exposes ``set(index, low, high[, palette])`` and ``reset()`` (both return a promise).
+        Values, inputs and ``set`` are in the unit the map shows (``[report] units``: °C, or
+        °F and °F differences in imperial units).
         """
 
         _template = Template("""
@@ -883,6 +887,7 @@ def _recolour_class():
                   var lo = L.DomUtil.create("input", "wetmap-lo", line), hi;
                   line.appendChild(document.createTextNode(" to "));
                   hi = L.DomUtil.create("input", "wetmap-hi", line);
+                  line.appendChild(document.createTextNode(" " + c.unit));
                   [lo, hi].forEach(function (e) { e.type = "number"; e.step = "0.1"; e.style.width = "5em"; });
                   inputs.push([lo, hi]);
                   function changed() {
@@ -1016,14 +1021,18 @@ def build_map(result: "SurveyResult", *, tiles: str | None = None, tiles_attribu
     ):
         placed, bounds = _overlay(values, result, factor, proj)
         uri = png_data_uri(png_bytes(colourise(placed, vmin=lo, vmax=hi)))
-        shown = name.replace("°C", "°F") if units.imperial else name  # the display control below stays in °C
+        shown = name.replace("°C", "°F") if units.imperial else name
         layer = folium.raster_layers.ImageOverlay(image=uri, bounds=bounds, name=shown, show=show, opacity=0.95,
                                                   interactive=False, pixelated=True, className=cls)
         layer.add_to(m)
         bars.append((shown, colour_bar_png(lo, hi, label=shown, fahrenheit=kind if units.imperial else None)))
-        recolour.append((layer, {"label": name, "lo": round(lo, 2), "hi": round(hi, 2), **data_png(placed)}))
+        # the display control works in the unit shown: °F (temperatures) or °F differences in imperial units;
+        # a linear change of unit, so the colours it paints at the opening range are the ones drawn above
+        to_shown = units.temp if kind == "temperature" else units.delta
+        recolour.append((layer, {"label": shown, "unit": units.temp_unit, "lo": round(to_shown(lo), 2),
+                                 "hi": round(to_shown(hi), 2), **data_png(to_shown(placed))}))
     words = wording_of(result.survey)
-    m.add_child(_recolour_class()(recolour, basis=_range_basis(result), area=words.area_short))
+    m.add_child(_recolour_class()(recolour, basis=_range_basis(result, units), area=words.area_short))
 
     # Uncovered roof, exclusions, outline, sections.
     uncovered = uncovered_area(result, factor=factor) if result.coverage.uncovered_m2 > 0 else None
