@@ -111,3 +111,87 @@ def test_change_map_and_report_written_offline(tmp_path):
         pypdf = pytest.importorskip("pypdf")
         text = "\n".join(p.extract_text() for p in pypdf.PdfReader(str(pdf)).pages)
         assert "36.00 m²" in text and "33.00 m²" in text
+
+
+#: Exact conversion factor (NIST SP 811, appendix B): 1 ft² = 0.09290304 m² (1 ft = 0.3048 m).
+M2_PER_FT2 = 0.09290304
+
+
+def test_change_outputs_follow_the_later_surveys_imperial_units(tmp_path):
+    """Year 2 (invented demo roof) is surveyed with ``[report] units = "imperial"`` and its wet
+    area grows 1 m east: the change report and map show ft², and every figure converts back to
+    the metric one of change.json and of a metric change report (NIST SP 811 factor)."""
+    import re
+
+    old, new = tmp_path / "y1", tmp_path / "y2"
+    truth = write_roof_survey(old)
+    write_roof_survey(new)
+    toml = new / "survey.toml"
+    assert "[report]" not in toml.read_text(encoding="utf-8")
+    toml.write_text(toml.read_text(encoding="utf-8") + '\n[report]\nunits = "imperial"\n', encoding="utf-8")
+    x0, y0, x1, y1 = truth.wet[0].bounds
+    with rasterio.open(new / "thermal" / "roof_pass1.tif", "r+") as dst:
+        data = dst.read(1)
+        win = rasterio.windows.from_bounds(x1, y0, x1 + 1.0, y1, transform=dst.transform).round_offsets().round_lengths()
+        r0, c0 = int(win.row_off), int(win.col_off)
+        data[r0:r0 + int(win.height), c0:c0 + int(win.width)] += 2.5
+        dst.write(data, 1)
+    run_survey(old)
+    run_survey(new)
+    assert json.loads((new / "results" / "summary.json").read_text())["method"]["units"] == "imperial"
+    assert json.loads((old / "results" / "summary.json").read_text())["method"]["units"] == "metric"
+    res = CliRunner().invoke(main, ["compare", str(old), str(new)])
+    assert res.exit_code == 0, res.output
+    # the same comparison shown metric (the earlier survey as the later one: its units)
+    metric_out = tmp_path / "metric"
+    res = CliRunner().invoke(main, ["compare", str(new), str(old), "--out", str(metric_out)])
+    assert res.exit_code == 0, res.output
+
+    change = json.loads((new / "results" / "change.json").read_text())  # always metric
+    report = (new / "results" / "change_report.html").read_text(encoding="utf-8")
+    cells = {k: (float(m), v) for k, m, v in re.findall(r"data-key='(\w+)' data-metric='([^']+)'>([^<]+)<", report)}
+    assert set(cells) == {"old_wet_area_m2", "new_wet_area_m2", "growth_m2", "new_m2", "grown_m2", "shrunk_m2",
+                          "gone_m2"}
+    assert change["grown_m2"] > 4.0  # the 1 x 5 m growth (by construction)
+    for key, (metric, shown) in cells.items():
+        assert metric == pytest.approx(change[key], abs=1e-9), key
+        ft2 = float(re.match(r"[-+]?[\d,]+\.\d+", shown).group().replace(",", ""))
+        assert " ft²" in shown and "m²" not in shown, shown
+        assert ft2 * M2_PER_FT2 == pytest.approx(change[key], abs=0.005 * M2_PER_FT2 + 1e-9), key
+    # the parts table: areas in ft², each converting back to its metric value
+    assert "<th>Area (ft²)</th>" in report
+    parts = re.findall(r"<tr data-kind='(\w+)'><td class='num'>\d+</td><td>\w+</td><td class='num' "
+                       r"data-metric='([^']+)'>([\d,.]+)</td>", report)
+    assert parts and sum(float(m) for k, m, _ in parts if k == "grown") == pytest.approx(change["grown_m2"], abs=1e-3)
+    for _, m, v in parts:
+        assert float(v.replace(",", "")) * M2_PER_FT2 == pytest.approx(float(m), abs=0.005 * M2_PER_FT2 + 1e-9)
+    # the metric report of the reversed comparison: its "grown" is this one's "shrunk", in m²
+    metric_report = (metric_out / "change_report.html").read_text(encoding="utf-8")
+    metric_cells = dict(re.findall(r"data-key='(\w+)'>([^<]+)<", metric_report))
+    shrunk_m2 = float(re.match(r"[\d,.]+", metric_cells["shrunk_m2"]).group().replace(",", ""))
+    grown_ft2 = float(re.match(r"[\d,.]+", cells["grown_m2"][1]).group().replace(",", ""))
+    assert metric_cells["shrunk_m2"].split(" in ")[0].endswith(" m²")
+    assert grown_ft2 * M2_PER_FT2 == pytest.approx(shrunk_m2, abs=0.005 + 0.005 * M2_PER_FT2)
+    page = (new / "results" / "change_map.html").read_text(encoding="utf-8")
+    assert "ft²" in page or "ft\\u00b2" in page
+    assert not re.search(r"\d (?:m\\u00b2|m²)", page)
+
+
+def test_units_read_from_the_survey_toml_when_the_summary_does_not_say(tmp_path):
+    """Results written before summary.json recorded ``method.units``: the survey folder's
+    survey.toml says; with neither, metric."""
+    from wetmap.compare import read_units
+
+    folder = tmp_path / "s"
+    write_roof_survey(folder)
+    toml = folder / "survey.toml"
+    toml.write_text(toml.read_text(encoding="utf-8") + '\n[report]\nunits = "imperial"\n', encoding="utf-8")
+    run_survey(folder)
+    assert read_units(folder) == read_units(folder / "results") == "imperial"
+    summary = folder / "results" / "summary.json"
+    s = json.loads(summary.read_text())
+    del s["method"]["units"]
+    summary.write_text(json.dumps(s))
+    assert read_units(folder) == read_units(folder / "results") == "imperial"  # from survey.toml
+    toml.unlink()
+    assert read_units(folder / "results") == "metric"

@@ -23,9 +23,10 @@ from shapely.geometry import Polygon
 from shapely.geometry.base import BaseGeometry
 
 from .verdicts import STATUSES, counted_statuses
-from .errors import InputFileError, MissingFileError
+from .errors import InputFileError, MissingFileError, WetmapError
+from .survey import load_survey
 
-__all__ = ["ChangeKind", "Change", "Comparison", "compare_areas", "read_counted", "compare_results"]
+__all__ = ["ChangeKind", "Change", "Comparison", "compare_areas", "read_counted", "read_units", "compare_results"]
 
 ChangeKind = Literal["new", "grown", "shrunk", "gone"]
 COUNTED_DEFAULT = tuple(sorted(counted_statuses(include_unverified=True), key=STATUSES.index))
@@ -54,6 +55,8 @@ class Comparison:
     """The later survey's areas counted as wet."""
     counted: tuple[str, ...] = COUNTED_DEFAULT
     """The statuses counted as wet."""
+    units: str = "metric"
+    """How the change map and report show figures: the later survey's ``[report] units``."""
 
     def totals(self) -> dict[str, float]:
         by = {k: 0.0 for k in ("new", "grown", "shrunk", "gone")}
@@ -141,9 +144,37 @@ def read_counted(path: Path, *, counted: tuple[str, ...] = COUNTED_DEFAULT) -> t
     return geoms, crs, roof
 
 
+def read_units(path: Path) -> str:
+    """The ``[report] units`` of a run survey (``"metric"`` or ``"imperial"``).
+
+    Read from its results' ``summary.json`` (``method.units``, what the run showed its
+    figures in); for results written before that key, from the survey folder's
+    ``survey.toml`` (``path`` itself or the results folder's parent); ``"metric"`` when
+    neither says.
+    """
+    results = _results_dir(path)
+    summary = results / "summary.json"
+    if summary.is_file():
+        try:
+            units = json.loads(summary.read_text(encoding="utf-8")).get("method", {}).get("units")
+        except (ValueError, AttributeError):
+            units = None
+        if units in ("metric", "imperial"):
+            return units
+    for folder in (Path(path), results.parent):
+        if (folder / "survey.toml").is_file():
+            try:
+                return load_survey(folder).report.units
+            except WetmapError:  # a survey.toml edited since the run: its figures stay metric
+                return "metric"
+    return "metric"
+
+
 def compare_results(old: Path, new: Path, *, counted: tuple[str, ...] = COUNTED_DEFAULT,
                     min_part_m2: float = 0.0) -> Comparison:
     """Compare two surveys' results folders (or survey folders holding ``results/``).
+
+    The comparison is shown in the later survey's units (:func:`read_units`).
 
     Raises
     ------
@@ -163,4 +194,5 @@ def compare_results(old: Path, new: Path, *, counted: tuple[str, ...] = COUNTED_
             f"{new}: roof area {new_roof:.1f} m2 differs from {old}'s {old_roof:.1f} m2 by more than 1 %; "
             "compare surveys drawn on the same plan (same outline and exclusions)"
         )
-    return replace(compare_areas(old_geoms, new_geoms, min_part_m2=min_part_m2, crs=new_crs), counted=counted)
+    return replace(compare_areas(old_geoms, new_geoms, min_part_m2=min_part_m2, crs=new_crs), counted=counted,
+                   units=read_units(new))

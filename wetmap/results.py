@@ -256,6 +256,7 @@ class SurveyResult:
                 "board_origin_rule": self.takeoff.origin_rule if s.repair.board_m else None,
                 "replace_above_pct": s.repair.replace_above_pct,
                 "area_units": list(s.repair.area_units),
+                "units": getattr(getattr(s, "report", None), "units", "metric"),  # [report] units of the outputs
                 "processing": self._processing(),
             },
             "wetmap_version": __version__,

@@ -7,6 +7,11 @@ one row per changed part; WeasyPrint lays the same page out as a PDF when it is
 installed. Colours are Okabe-Ito (colour-blind safe), each kind also with its own line
 pattern: new (vermillion, solid), grown (orange, dashed), shrunk (sky blue, dotted), gone
 (bluish green, dash-dot).
+
+Figures follow the later survey's ``[report] units`` (``Comparison.units``): metric, or
+ft² and ft with the exact factors of NIST SP 811 (:class:`wetmap.export.units.DisplayUnits`);
+each converted table cell keeps its metric value in ``data-metric``. Coordinates of a
+georeferenced plan stay those of its CRS (metres).
 """
 
 from __future__ import annotations
@@ -15,6 +20,7 @@ import html
 import io
 import json
 import logging
+import math
 import warnings
 from pathlib import Path
 
@@ -26,6 +32,7 @@ from ..compare import Comparison
 from ..errors import ProcessingError
 from ..outputs import write_folder
 from .report import draw_geometry
+from .units import DisplayUnits, ticks_in
 from .webmap import PAGE_CSS, Projection, add_geojson, geojson_feature, leaflet_assets, png_data_uri, remote_references
 
 __all__ = ["CHANGE_STYLES", "build_change_map", "build_change_report", "change_figure", "write_change",
@@ -44,6 +51,16 @@ def _esc(value) -> str:
     return html.escape("" if value is None else str(value))
 
 
+def _units(comparison: "Comparison") -> DisplayUnits:
+    """The change outputs' units: the later survey's ``[report] units``."""
+    return DisplayUnits(system=getattr(comparison, "units", "metric"))
+
+
+def _area(u: DisplayUnits, area_m2: float, fmt: str = ",.2f") -> str:
+    """An area as plain text in the shown unit."""
+    return f"{u.area(float(area_m2)):{fmt}} {u.area_unit}"
+
+
 def build_change_map(comparison: "Comparison", *, old_name: str, new_name: str) -> str:
     """The text of ``change_map.html`` (self-contained, no network references)."""
     import folium
@@ -51,11 +68,14 @@ def build_change_map(comparison: "Comparison", *, old_name: str, new_name: str) 
     proj = Projection(comparison.crs)
     fig = Figure(title=_esc(f"Change between {old_name} and {new_name} (wetmap)"))
     s = comparison.summary()
+    u = _units(comparison)
+    a = {k: u.area(float(s[k])) for k in ("old_wet_area_m2", "new_wet_area_m2", "growth_m2", "new_m2", "grown_m2",
+                                            "shrunk_m2", "gone_m2")}
     header = Element("{{ this.text }}")
     header.text = (f'<div class="wetmap-header"><h1>Change in the wet area: {_esc(old_name)} → {_esc(new_name)}</h1>'
-                   f"<div>Wet area {s['old_wet_area_m2']:,.2f} → {s['new_wet_area_m2']:,.2f} m² "
-                   f"(growth {s['growth_m2']:+,.2f} m²); new {s['new_m2']:,.2f}, grown {s['grown_m2']:,.2f}, "
-                   f"shrunk {s['shrunk_m2']:,.2f}, gone {s['gone_m2']:,.2f} m². <span class='note'>Apparent "
+                   f"<div>Wet area {a['old_wet_area_m2']:,.2f} → {a['new_wet_area_m2']:,.2f} {u.area_unit} "
+                   f"(growth {a['growth_m2']:+,.2f} {u.area_unit}); new {a['new_m2']:,.2f}, grown {a['grown_m2']:,.2f}, "
+                   f"shrunk {a['shrunk_m2']:,.2f}, gone {a['gone_m2']:,.2f} {u.area_unit}. <span class='note'>Apparent "
                    "thermal anomalies compared, not measured moisture.</span></div></div>")
     fig.html.add_child(header, name="wetmap_header")
     if proj.local:
@@ -74,8 +94,8 @@ def build_change_map(comparison: "Comparison", *, old_name: str, new_name: str) 
                      tooltip="label")
     for kind, (colour, dash, _, words) in CHANGE_STYLES.items():
         parts = [c for c in comparison.changes if c.kind == kind]
-        feats = [geojson_feature(c.geometry, proj, f"{kind}{i}", {"kind": kind, "area": f"{c.area_m2:,.2f} m²",
-                                                           "what": words, "label": f"{kind}: {c.area_m2:,.2f} m²"})
+        feats = [geojson_feature(c.geometry, proj, f"{kind}{i}", {"kind": kind, "area": _area(u, c.area_m2),
+                                                           "what": words, "label": f"{kind}: {_area(u, c.area_m2)}"})
                  for i, c in enumerate(parts)]
 
         def style(f, colour=colour, dash=dash, kind=kind):
@@ -124,16 +144,25 @@ def change_figure(comparison: "Comparison", *, dpi: int = 130) -> bytes:
     draw_geometry(ax, list(comparison.old_areas), facecolor="none", edgecolor="#555555", linewidth=1.0, linestyle="--", zorder=4)
     draw_geometry(ax, list(comparison.new_areas), facecolor="none", edgecolor="black", linewidth=1.2, zorder=5)
     every = [*comparison.old_areas, *comparison.new_areas, *(c.geometry for c in comparison.changes)]
+    u = _units(comparison)
+    xlabel, ylabel = "plan x (m)", "plan y (m)"
+    ax.set_aspect("equal")
+    ax.ticklabel_format(useOffset=False, style="plain")
     if every:
         x0, y0, x1, y1 = shapely.total_bounds(np.asarray(every, dtype=object))
         pad = 0.05 * max(x1 - x0, y1 - y0, 1.0)
         ax.set_xlim(x0 - pad, x1 + pad)
         ax.set_ylim(y0 - pad, y1 + pad)
-    ax.set_aspect("equal")
-    ax.ticklabel_format(useOffset=False, style="plain")
+        if u.imperial:  # ticks at round feet (the data stay metric); a CRS's coordinates are in metres
+            ox, oy = (0.0, 0.0) if comparison.crs is None else (float(math.floor(x0)), float(math.floor(y0)))
+            ft_per_m = u.length(1.0)
+            ticks_in(ax.xaxis, x0 - pad, x1 + pad, scale=ft_per_m, origin=ox)
+            ticks_in(ax.yaxis, y0 - pad, y1 + pad, scale=ft_per_m, origin=oy)
+            xlabel, ylabel = (("plan x (ft)", "plan y (ft)") if comparison.crs is None else
+                              (f"ft east of easting {ox:,.0f} m ({comparison.crs})", f"ft north of northing {oy:,.0f} m"))
     ax.tick_params(labelsize=7)
-    ax.set_xlabel("plan x (m)", fontsize=8)
-    ax.set_ylabel("plan y (m)", fontsize=8)
+    ax.set_xlabel(xlabel, fontsize=8)
+    ax.set_ylabel(ylabel, fontsize=8)
     handles = [Patch(facecolor=c, edgecolor=c, alpha=0.6, linestyle=ls, label=k) for k, (c, _, ls, _) in
                CHANGE_STYLES.items()]
     handles += [Line2D([], [], color="#555555", linestyle="--", label="wet before"),
@@ -147,18 +176,27 @@ def change_figure(comparison: "Comparison", *, dpi: int = 130) -> bytes:
 def build_change_report(comparison: "Comparison", *, old_name: str, new_name: str, counted: tuple[str, ...]) -> str:
     """The text of ``change_report.html``: totals, a plan figure and one row per changed part."""
     s = comparison.summary()
+    u = _units(comparison)
     pct = "n/a" if s["growth_pct"] is None else f"{s['growth_pct']:+.1f} %"
-    rows = [("Wet area before", f"{s['old_wet_area_m2']:,.2f} m²", "old_wet_area_m2"),
-            ("Wet area now", f"{s['new_wet_area_m2']:,.2f} m²", "new_wet_area_m2"),
-            ("Growth", f"{s['growth_m2']:+,.2f} m² ({pct})", "growth_m2")]
-    rows += [(f"{k.capitalize()}: {CHANGE_STYLES[k][3]}", f"{s[f'{k}_m2']:,.2f} m² in {s['counts'][k]} part{'' if s['counts'][k] == 1 else 's'}",
+    rows = [("Wet area before", _area(u, s["old_wet_area_m2"]), "old_wet_area_m2"),
+            ("Wet area now", _area(u, s["new_wet_area_m2"]), "new_wet_area_m2"),
+            ("Growth", f"{_area(u, s['growth_m2'], '+,.2f')} ({pct})", "growth_m2")]
+    rows += [(f"{k.capitalize()}: {CHANGE_STYLES[k][3]}", f"{_area(u, s[f'{k}_m2'])} in {s['counts'][k]} part{'' if s['counts'][k] == 1 else 's'}",
               f"{k}_m2") for k in CHANGE_STYLES]
-    totals = "".join(f"<tr><th>{_esc(a)}</th><td class='num' data-key='{key}'>{_esc(b)}</td></tr>"
+
+    def metric(value: float) -> str:  # each converted cell keeps its metric value
+        return f" data-metric='{float(value)!r}'" if u.imperial else ""
+
+    totals = "".join(f"<tr><th>{_esc(a)}</th><td class='num' data-key='{key}'{metric(s[key])}>{_esc(b)}</td></tr>"
                      for a, b, key in rows)
     parts = sorted(comparison.changes, key=lambda c: (list(CHANGE_STYLES).index(c.kind), -c.area_m2))
+    local = comparison.crs is None  # plan coordinates: converted; a CRS's: its own metres
+    xy = (lambda v: u.length(float(v))) if local else float
+    xy_unit = u.length_unit if local else "m"
     body = "".join(
-        f"<tr data-kind='{c.kind}'><td class='num'>{i}</td><td>{c.kind}</td><td class='num'>{c.area_m2:,.2f}</td>"
-        f"<td class='num'>{c.geometry.centroid.x:,.2f}</td><td class='num'>{c.geometry.centroid.y:,.2f}</td></tr>"
+        f"<tr data-kind='{c.kind}'><td class='num'>{i}</td><td>{c.kind}</td>"
+        f"<td class='num'{metric(c.area_m2)}>{u.area(c.area_m2):,.2f}</td>"
+        f"<td class='num'>{xy(c.geometry.centroid.x):,.2f}</td><td class='num'>{xy(c.geometry.centroid.y):,.2f}</td></tr>"
         for i, c in enumerate(parts, 1)) or "<tr><td colspan='5'>No change.</td></tr>"
     png = change_figure(comparison)
     counted_words = " and ".join(counted)
@@ -181,9 +219,10 @@ def build_change_report(comparison: "Comparison", *, old_name: str, new_name: st
         f"<h2>Plan</h2><figure><img src='{png_data_uri(png)}' alt='plan of the changes'><figcaption class='small'>"
         "Changed parts filled by kind; earlier wet outlines dashed grey, later ones solid black. The interactive "
         "version is change_map.html.</figcaption></figure>"
-        "<h2>Changed parts</h2><table id='change-parts'><thead><tr><th>No.</th><th>Kind</th><th>Area (m²)</th>"
-        f"<th>Centre x (m)</th><th>Centre y (m)</th></tr></thead><tbody>{body}</tbody></table>"
-        "<p class='small'>Files: change.gpkg (layer change: kind, area_m2), change.json (these totals), "
+        f"<h2>Changed parts</h2><table id='change-parts'><thead><tr><th>No.</th><th>Kind</th><th>Area ({u.area_unit})</th>"
+        f"<th>Centre x ({xy_unit})</th><th>Centre y ({xy_unit})</th></tr></thead><tbody>{body}</tbody></table>"
+        "<p class='small'>Files: change.gpkg (layer change: kind, area_m2), change.json (these totals"
+        f"{', in m²' if u.imperial else ''}), "
         "change_map.html, change_report.html / .pdf. Prepared with wetmap compare.</p></body></html>")
 
 
