@@ -80,6 +80,16 @@ def test_hull_outputs_have_no_roofing_words(hull_run):
     assert _roof_words(out["quantities.csv"]) == []
     assert _roof_words("\n".join(summary["warnings"])) == []
     assert _roof_words(json.dumps(summary["bill"])) == []
+    # repair.dxf: its layers' names and descriptions and every text drawn (read back with ezdxf)
+    import ezdxf
+
+    doc = ezdxf.readfile(folder / "results" / "repair.dxf")
+    layers = {layer.dxf.name: layer.description for layer in doc.layers}
+    texts = [e.dxf.text for e in doc.modelspace().query("TEXT MTEXT") if e.dxftype() == "TEXT"]
+    texts += [e.text for e in doc.modelspace().query("MTEXT")]
+    assert "OUTLINE" in layers and "port hull side" in layers["OUTLINE"] and texts
+    assert _roof_words(" | ".join(f"{k}: {v}" for k, v in layers.items())) == []
+    assert _roof_words(" | ".join(texts)) == []
 
 
 def test_hull_outputs_speak_hull(hull_run):
@@ -107,6 +117,11 @@ def test_roof_sample_still_speaks_roof(tmp_path):
     assert {"roof_area_m2", "boards", "tearoff_area_m2"} <= set(header)
     items = [line["item"] for line in json.loads(out["summary.json"])["bill"]["lines"]]
     assert items[0] == "tear-off" and "replace" in items
+    import ezdxf
+
+    doc = ezdxf.readfile(folder / "results" / "repair.dxf")
+    descriptions = " | ".join(layer.description for layer in doc.layers)
+    assert {"roof", "insulation", "boards"} <= set(_roof_words(descriptions))
 
 
 def test_vocabulary_is_one_table_per_kind():

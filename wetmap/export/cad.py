@@ -32,17 +32,17 @@ from shapely.geometry.base import BaseGeometry
 
 from ..errors import ProcessingError
 from ..quantities import convert_area
-from ..wording import wording_of
+from ..wording import Wording, wording_of
 from .tables import quantities_of
 
 if TYPE_CHECKING:
     from ..results import SurveyResult
 
-__all__ = ["LAYERS", "LAYER_RGB", "STATUS_LAYER", "write_dxf", "write_dxf_beside", "polygon_rings"]
+__all__ = ["LAYERS", "LAYER_RGB", "STATUS_LAYER", "layers_for", "write_dxf", "write_dxf_beside", "polygon_rings"]
 
-#: Layer name -> (AutoCAD colour index, description).
+#: Layer name -> (AutoCAD colour index, description) of a roof survey (see :func:`layers_for`).
 LAYERS: dict[str, tuple[int, str]] = {
-    "OUTLINE": (7, "roof outline (or developed hull side), plan coordinates"),
+    "OUTLINE": (7, "roof outline, plan coordinates"),
     "EXCLUSIONS": (8, "curbs, rooftop units, skylights and other areas left out"),
     "SECTIONS": (9, "roof sections"),
     "ANOMALY-WET": (30, "apparent thermal anomalies confirmed wet by a core or reading"),
@@ -55,6 +55,29 @@ LAYERS: dict[str, tuple[int, str]] = {
     "CORES": (7, "cores and readings with their judgement"),
     "LABELS": (7, "ids and areas"),
 }
+
+def layers_for(words: Wording) -> dict[str, tuple[int, str]]:
+    """The drawing's layers in the survey's vocabulary: :data:`LAYERS` on a roof; on a hull
+    side the descriptions speak of the hull side, its readings and soundings, and there is
+    no board layer (a hull is cut back to dry core, not replaced board by board).
+
+    >>> from wetmap.wording import wording_for
+    >>> layers_for(wording_for("hull", side="port"))["OUTLINE"]
+    (7, 'port hull side outline (developed), plan coordinates')
+    """
+    if words.whole_boards:
+        return dict(LAYERS)
+    text = {
+        "OUTLINE": f"{words.area} outline (developed), plan coordinates",
+        "EXCLUSIONS": "fittings and other areas left out of the survey",
+        "SECTIONS": f"{words.area_short} sections",
+        "ANOMALY-WET": f"apparent thermal anomalies confirmed wet by {words.confirmations_any}",
+        "REPAIR": f"repair outlines: counted anomalies plus the margin, clipped to the {words.area_short}",
+        "CORES": f"{words.confirmations_all} with their judgement",
+    }
+    return {name: (colour, text.get(name, description)) for name, (colour, description) in LAYERS.items()
+            if name != "BOARDS"}
+
 
 #: Layer -> true colour (Okabe-Ito palette, Okabe & Ito 2008): vermillion, reddish purple,
 #: blue for the statuses (as on the map), orange for the repair, bluish green for boards.
@@ -131,7 +154,7 @@ def write_dxf(result: "SurveyResult", path: Path) -> None:
     doc.units = ezdxf.units.M
     doc.header["$MEASUREMENT"] = 1  # metric
     doc.header["$LUNITS"] = 2  # decimal
-    for name, (colour, description) in LAYERS.items():
+    for name, (colour, description) in layers_for(wording_of(result.survey)).items():
         layer = doc.layers.add(name, color=colour)
         layer.description = description
         if name in LAYER_RGB:
@@ -187,7 +210,7 @@ def write_dxf(result: "SurveyResult", path: Path) -> None:
                 flags=ezdxf.const.BOUNDARY_PATH_DEFAULT if hole else ezdxf.const.BOUNDARY_PATH_EXTERNAL)
         x, y = inside(part)
         label(f"R{k} repair {_area_text(part.area, units)}", (x, y - 1.2 * h))
-    for board in q.takeoff.boards:
+    for board in q.takeoff.boards if wording_of(result.survey).whole_boards else ():  # no board layer on a hull
         rings(board, "BOARDS")
     c = result.confirmations
     for i in range(len(c)):
