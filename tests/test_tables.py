@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import csv
 import json
+import re
 import shutil
 from decimal import ROUND_HALF_UP, Decimal
 from pathlib import Path
@@ -262,3 +263,31 @@ def test_quantities_carry_the_wet_area_range(plain):
     assert rng["low end"] == pytest.approx(low, abs=0.001)
     assert rng["high end"] == pytest.approx(high, abs=0.001)
     assert low <= summary["wet_area_m2"] <= high
+
+
+def test_the_part_outside_every_section_has_one_name_in_every_output(tmp_path):
+    """Section B dropped from the sample's sections: its part of the roof lies in no section.
+    Its sections.csv row, summary.json ``outside_sections`` and ``background`` entries and the
+    report all name it with the one constant (quantities and results share it)."""
+    from wetmap import results
+
+    assert results.OUTSIDE_SECTIONS is OUTSIDE_SECTIONS
+    folder = copy_sample(tmp_path / "survey")
+    path = folder / "plan" / "sections.geojson"
+    layer = json.loads(path.read_text(encoding="utf-8"))
+    layer["features"] = [f for f in layer["features"] if f["properties"]["name"] == "A"]
+    path.write_text(json.dumps(layer), encoding="utf-8")
+    out = tmp_path / "results"
+    run_survey(folder, out=out)
+    s = json.loads((out / "summary.json").read_text(encoding="utf-8"))
+    assert s["outside_sections"]["name"] == OUTSIDE_SECTIONS and s["outside_sections"]["area_m2"] > 100.0
+    background = s["background"]
+    names = [b["section"] for b in background] if isinstance(background, list) else list(background)
+    assert OUTSIDE_SECTIONS in names  # the rest of the roof has thermal data: a background group of its own
+    rows = list(csv.DictReader((out / "sections.csv").open(encoding="utf-8")))
+    assert rows[-1]["section"] == OUTSIDE_SECTIONS
+    report = (out / "report.html").read_text(encoding="utf-8")
+    assert OUTSIDE_SECTIONS in report
+    every = "".join(p.read_text(encoding="utf-8", errors="ignore") for p in out.iterdir()
+                    if p.suffix in (".csv", ".json", ".html", ".geojson"))
+    assert set(re.findall(r"\(outside[^)]*\)", every)) == {OUTSIDE_SECTIONS}

@@ -101,7 +101,9 @@ MARGIN_CHORD_FRACTION = 0.01
 #: ``pi*m**2`` on the corners (an inscribed polygon).
 QUAD_SEGS = int(np.ceil(np.pi / (4.0 * np.arccos(1.0 - MARGIN_CHORD_FRACTION))))
 
-#: Name given to the part of the roof that lies in no section.
+#: Name given to the part of the roof that lies in no section: its row of sections.csv and
+#: summary.json ``outside_sections``, and its dry-background group (``background``, the report).
+#: The one constant; :mod:`wetmap.results` shows it under the same name.
 OUTSIDE_SECTIONS = "(outside sections)"
 
 _TOUCH_M2 = 1e-6  # an overlap smaller than this is a touch, not an overlap

@@ -20,7 +20,7 @@ from .confirmations import Confirmations
 from .detect import Detection, large_share
 from .image_checks import ImageryReport
 from .passes import PassComparison
-from .quantities import BoardTakeoff, Quantities, SectionTotals
+from .quantities import OUTSIDE_SECTIONS, BoardTakeoff, Quantities, SectionTotals
 from .radiometry import Radiometry
 from .rasters import PlanGrid
 from .register import FrameReport
@@ -328,9 +328,6 @@ class SurveyResult:
 
 #: What plan x and y mean on a hull side (``summary.json`` ``plan_axes``).
 HULL_AXES = (("x", "station (m along the hull)"), ("y", "girth (m up from the keel)"))
-
-#: Name of the roof outside every section when sections are given (a background group of its own).
-OUTSIDE_SECTIONS = "(outside the sections)"
 
 
 def area_word(survey: Survey) -> str:
