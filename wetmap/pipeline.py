@@ -30,6 +30,7 @@ from .cooldown import plan_survey_window
 from .detect import EDGE_FLAG, UNIT_FLAG, Detection, background_warnings, default_background_m, edge_flags
 from .errors import InputFileError, ProcessingError, SurveyError, WetmapError
 from .export import cad, gis, report, tables, webmap
+from .export.forked import write_beside
 from .frames import read_frame
 from .image_checks import ImageryReport, assess_imagery, frame_views
 from .outputs import replacing
@@ -1076,13 +1077,21 @@ def _write_files(result: SurveyResult, folder: Path, *,
             gis.write_raster(result.detection.delta_c, result.grid, folder / "delta_c.tif")
         if result.passes is not None:
             gis.write_raster(result.passes.cooling_c_per_h, result.grid, folder / "cooling_c_per_h.tif")
-        if map_html:
-            webmap.write_map(result, folder / "map.html")
+        finish_pdf = None
         if report_html:
             report.write_report(result, folder / "report.html")
-            report.write_pdf(result, folder / "report.pdf", html_text=(folder / "report.html").read_text(encoding="utf-8"))
-        for writer in extra_writers:
-            writer(result, folder)
+            # WeasyPrint lays out in Python (holds the GIL): a forked process, while the map is written
+            finish_pdf = write_beside(report.write_pdf, folder / "report.pdf", result, folder / "report.pdf",
+                                      html_text=(folder / "report.html").read_text(encoding="utf-8"),
+                                      name="wetmap-pdf")
+        try:
+            if map_html:
+                webmap.write_map(result, folder / "map.html")
+            for writer in extra_writers:
+                writer(result, folder)
+        finally:
+            if finish_pdf is not None:
+                finish_pdf()
     finally:
         finish_dxf()
 

@@ -428,6 +428,7 @@ def suggest_cores(anomalies: list[BaseGeometry], status: tuple[Status, ...], ids
     labels, count = label_regions(band)
     unverified = [anomalies[i] for i in range(len(anomalies)) if status[i] == "unverified"]
     near_m = max(1.0, 2 * pixel_m)  # a boundary this close to an unverified anomaly is settled by its core
+    tree = shapely.STRtree(unverified)  # one query per band part, not a distance to every anomaly
     if count:
         sizes = np.bincount(labels.ravel(), minlength=count + 1)
         sizes[0] = 0
@@ -441,7 +442,10 @@ def suggest_cores(anomalies: list[BaseGeometry], status: tuple[Status, ...], ids
             dist = ndimage.distance_transform_edt(part)
             r, c = np.unravel_index(int(np.argmax(dist)), dist.shape)
             x, y = transform @ (sl[1].start + c - 1 + 0.5, sl[0].start + r - 1 + 0.5)
-            if any(a.distance(shapely.Point(x, y)) < near_m for a in unverified):
+            point = shapely.Point(x, y)
+            # candidates from the tree (within near_m, inclusive), then the strict test on each
+            if any(unverified[j].distance(point) < near_m
+                   for j in tree.query(point, predicate="dwithin", distance=near_m)):
                 continue
             found += 1
             area = sizes[lab] * pixel_m * pixel_m
