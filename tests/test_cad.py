@@ -8,6 +8,7 @@ data) into ``tmp_path``.
 from __future__ import annotations
 
 import shutil
+import sys
 from collections import defaultdict
 from pathlib import Path
 
@@ -173,7 +174,7 @@ def test_dxf_beside_raises_the_writers_error(sample, tmp_path, monkeypatch):
     with pytest.raises(ProcessingError, match="an audit error for the test"):
         cad.write_dxf_beside(result, tmp_path / "a.dxf")()
 
-    if cad.sys.platform.startswith("linux"):  # a process that dies without a word
+    if sys.platform.startswith("linux"):  # a process that dies without a word
         import os
 
         monkeypatch.setattr(cad, "write_dxf", lambda result, path: os._exit(3))

@@ -20,8 +20,6 @@ Layers (names of wetmap's own; see :data:`LAYERS`): ``OUTLINE``, ``EXCLUSIONS``,
 
 from __future__ import annotations
 
-import multiprocessing
-import sys
 from pathlib import Path
 from typing import TYPE_CHECKING, Callable
 
@@ -33,6 +31,7 @@ from shapely.geometry.base import BaseGeometry
 from ..errors import ProcessingError
 from ..quantities import convert_area
 from ..wording import Wording, wording_of
+from .forked import write_beside
 from .tables import quantities_of
 
 if TYPE_CHECKING:
@@ -260,51 +259,8 @@ def write_dxf(result: "SurveyResult", path: Path) -> None:
     doc.saveas(path)
 
 
-def _dxf_child(result: "SurveyResult", path: Path, conn) -> None:
-    """The forked process of :func:`write_dxf_beside`: write, then send ``None`` or the error."""
-    try:
-        write_dxf(result, path)
-        conn.send(None)
-    except BaseException as exc:  # noqa: BLE001 - every failure goes back to the parent
-        try:
-            conn.send(exc)
-        except Exception:  # an error that does not pickle: its text
-            conn.send(ProcessingError(f"{path.name}: {type(exc).__name__}: {exc}"))
-    finally:
-        conn.close()
-
-
 def write_dxf_beside(result: "SurveyResult", path: Path) -> Callable[[], None]:
-    """Start :func:`write_dxf` beside the caller's work; returns the function that waits for it.
-
-    ezdxf builds and writes every vertex in Python and holds the GIL, so a thread would not
-    help: on Linux the drawing is written by a forked process (which shares the results'
-    memory, copy on write) while the caller writes the other files. The returned function
-    waits for it and raises the writer's own error (a :class:`ProcessingError` when the
-    process died without one). Elsewhere the file is written at once and the returned
-    function does nothing. The file is the same either way.
-    """
-    if not sys.platform.startswith("linux"):
-        write_dxf(result, path)
-        return lambda: None
-    ctx = multiprocessing.get_context("fork")
-    parent, child = ctx.Pipe(duplex=False)
-    proc = ctx.Process(target=_dxf_child, args=(result, path, child), name="wetmap-dxf", daemon=True)
-    proc.start()
-    child.close()
-
-    def wait() -> None:
-        try:
-            error = parent.recv() if parent.poll(None) else None
-        except EOFError:  # the process ended without a word
-            error = None
-        finally:
-            proc.join()
-            parent.close()
-        if error is not None:
-            raise error
-        if proc.exitcode != 0:
-            raise ProcessingError(f"{path.name}: the process writing it ended with code {proc.exitcode} "
-                                  "(out of memory?); run again with more memory free")
-
-    return wait
+    """Start :func:`write_dxf` beside the caller's work (a forked process on Linux: ezdxf
+    builds every vertex in Python and holds the GIL); returns the function that waits for it
+    and raises the writer's own error. See :func:`wetmap.export.forked.write_beside`."""
+    return write_beside(write_dxf, path, result, path, name="wetmap-dxf")
