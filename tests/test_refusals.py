@@ -11,7 +11,6 @@ from __future__ import annotations
 import csv
 import json
 import math
-import os
 from pathlib import Path
 
 import numpy as np
@@ -22,7 +21,7 @@ from affine import Affine
 from click.testing import CliRunner
 
 from wetmap.demo import write_roof_survey
-from wetmap.errors import InputFileError, SurveyError, WetmapError
+from wetmap.errors import InputFileError, WetmapError
 from wetmap.pipeline import check_survey, process_survey, run_survey
 from wetmap.rasters import inspect_raster, plan_grid_for, read_onto_grid, sample_in_outline
 from wetmap.survey import load_survey

@@ -361,12 +361,8 @@ delta_c = 0.7
 # The tests
 # ======================================================================================
 
-import dataclasses  # noqa: E402
-import sys  # noqa: E402
-
 import pytest  # noqa: E402
 
-from wetmap import demo  # noqa: E402  (the bundled samples only: their generators, not this scene)
 from wetmap.register import SkinMap, fit_projective, register_points  # noqa: E402
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -458,8 +454,6 @@ def test_the_chosen_map_places_the_skin_within_a_pixel_or_two():
 def test_view_angle_estimate_follows_the_true_angle():
     """The angle from the local map's anisotropy against the true angle between the line of
     sight and the skin's normal (vector geometry of the renderer), on the bilge and topside."""
-    from wetmap.register import resample_frame  # noqa: F401  (the same estimate is used there)
-
     first, centre = FRAMES[0]
     cam = Camera(centre, tuple(float(v) for v in hull_point(first + 1.5, 1.15)), focal_px=FOCAL_PX)
     xy = marks_of(first)

@@ -227,7 +227,7 @@ def test_report_without_cores(sample_run):
 def test_report_shows_threshold_check_range_and_suggested_cores(sample_run):
     """Issue: the report shows the wet-area range, the threshold check and the suggestions,
     with the same figures as summary.json."""
-    result, out = sample_run[0], sample_run[1]
+    out = sample_run[1]
     page = (out / "report.html").read_text(encoding="utf-8")
     summary = json.loads((out / "summary.json").read_text())
     assert "id='threshold-check'" in page
