@@ -45,9 +45,9 @@ def psy():
 @pytest.mark.parametrize(
     ("air_c", "rh", "expected"),
     [
-        (20.0, 50.0, 9.261),  # CHECKS.md, Magnus (Alduchov & Eskridge 1996)
-        (10.0, 80.0, 6.708),  # CHECKS.md, Magnus (Alduchov & Eskridge 1996)
-        (30.0, 70.0, 23.930),  # CHECKS.md, Magnus (Alduchov & Eskridge 1996)
+        (20.0, 50.0, 9.261),  # Magnus (Alduchov & Eskridge 1996)
+        (10.0, 80.0, 6.708),  # Magnus (Alduchov & Eskridge 1996)
+        (30.0, 70.0, 23.930),  # Magnus (Alduchov & Eskridge 1996)
     ],
 )
 def test_dew_point_magnus_table(air_c, rh, expected):
@@ -91,11 +91,11 @@ def test_frost_point_over_water_is_warmer_than_over_ice_reading(air_c, low_k, hi
 
 
 def test_saturation_vapour_pressure_coefficients():
-    # Alduchov & Eskridge (1996) Magnus coefficients as listed in CHECKS.md; at 0 °C
+    # Alduchov & Eskridge (1996, J. Appl. Meteor. 35) Magnus coefficients; at 0 °C
     # the formula returns its leading coefficient.
     assert saturation_vapour_pressure_hpa(0.0) == pytest.approx(6.1094, rel=1e-12)
     assert saturation_vapour_pressure_hpa(0.0, over="ice") == pytest.approx(6.1121, rel=1e-12)
-    # CHECKS.md sky test case: dew point 10 °C <-> water vapour pressure 12.28 hPa.
+    # Dew point 10 °C <-> water vapour pressure 12.28 hPa (ASHRAE Handbook Fundamentals).
     # That is the ASHRAE (Hyland-Wexler) value; Magnus gives 12.26 hPa (0.16 % lower).
     assert saturation_vapour_pressure_hpa(10.0) == pytest.approx(12.28, abs=0.03)
 
@@ -123,15 +123,15 @@ def test_saturation_vapour_pressure_vectorised():
 @pytest.mark.parametrize(
     ("air_c", "rh", "psychrolib_value"),
     [
-        (20.0, 50.0, 9.272),  # CHECKS.md, psychrolib (ASHRAE Handbook Fundamentals)
-        (10.0, 80.0, 6.713),  # CHECKS.md, psychrolib (ASHRAE Handbook Fundamentals)
-        (30.0, 70.0, 23.928),  # CHECKS.md, psychrolib (ASHRAE Handbook Fundamentals)
+        (20.0, 50.0, 9.272),  # psychrolib (ASHRAE Handbook Fundamentals)
+        (10.0, 80.0, 6.713),  # psychrolib (ASHRAE Handbook Fundamentals)
+        (30.0, 70.0, 23.928),  # psychrolib (ASHRAE Handbook Fundamentals)
     ],
 )
 def test_dew_point_against_psychrolib_rows(psy, air_c, rh, psychrolib_value):
     live = psy.GetTDewPointFromRelHum(air_c, rh / 100.0)
     assert live == pytest.approx(psychrolib_value, abs=0.001)  # table matches the library
-    assert dew_point_c(air_c, rh) == pytest.approx(live, abs=0.02)  # CHECKS.md tolerance
+    assert dew_point_c(air_c, rh) == pytest.approx(live, abs=0.02)  # Magnus vs Hyland-Wexler
 
 
 def test_frost_point_against_psychrolib_row(psy):
@@ -231,7 +231,7 @@ def test_bad_options():
 
 
 def test_absolute_humidity_checks_value():
-    # CHECKS.md: 20 °C, 50 % RH -> 8.64 g m-3. That figure follows from the ASHRAE
+    # 20 °C, 50 % RH -> 8.64 g m-3 (ASHRAE Handbook Fundamentals). That figure follows from the ASHRAE
     # (Hyland-Wexler) saturation pressure, 2338.8 Pa; Magnus gives 2333.4 Pa (0.23 %
     # lower) and 8.624 g m-3, hence the tolerance of 0.02 g m-3.
     assert absolute_humidity_g_m3(20.0, 50.0) == pytest.approx(8.64, abs=0.02)
@@ -254,14 +254,14 @@ def test_absolute_humidity_against_psychrolib(psy):
 
 
 def test_swinbank():
-    # CHECKS.md, Swinbank (1963): 20 °C air -> 277.06 K (3.91 °C)
+    # Swinbank (1963): 20 °C air -> 277.06 K (3.91 °C)
     assert sky_temperature_swinbank_k(293.15) == pytest.approx(277.06, abs=0.005)
     with pytest.raises(ValueError, match="air_k"):
         sky_temperature_swinbank_k(-3.0)
 
 
 def test_berdahl_martin():
-    # CHECKS.md, Berdahl & Martin (1984): dew point 10 °C -> 0.7743; with 20 °C air
+    # Berdahl & Martin (1984): dew point 10 °C -> 0.7743; with 20 °C air
     # T_sky = eps^0.25 T_air -> 1.84 °C
     eps = sky_emissivity_berdahl_martin(10.0)
     assert eps == pytest.approx(0.7743, abs=5e-5)
@@ -269,22 +269,22 @@ def test_berdahl_martin():
 
 
 def test_clark_allen_energyplus_example():
-    # CHECKS.md: EnergyPlus Engineering Reference worked example, Clark & Allen,
+    # EnergyPlus Engineering Reference worked example, Clark & Allen,
     # 293 K air, 283 K dew point, clear: eps 0.815 and sky IR 340.6 W m-2 in the
     # reference; recomputed 0.8145 and 340.3 W m-2 (sigma from scipy.constants, CODATA).
     eps = sky_emissivity_clark_allen(283.0)
     assert eps == pytest.approx(0.8145, abs=5e-5)
     assert eps == pytest.approx(0.815, abs=1e-3)  # the reference rounds to 3 decimals
     sky_ir = eps * constants.sigma * 293.0**4
-    assert sky_ir == pytest.approx(340.3, abs=0.1)  # 340.38 here; CHECKS.md truncates
+    assert sky_ir == pytest.approx(340.3, abs=0.1)  # 340.38 here, 340.3 truncated
     assert sky_ir == pytest.approx(340.6, abs=0.5)
 
 
 @pytest.mark.parametrize(
     ("tenths", "eps_expected", "sky_c_expected"),
     [
-        (5, 0.863, 9.25),  # CHECKS.md, Clark & Allen cloud factor, N = 5
-        (10, 0.940, 15.35),  # CHECKS.md, Clark & Allen cloud factor, N = 10
+        (5, 0.863, 9.25),  # Clark & Allen (1978) cloud factor, N = 5
+        (10, 0.940, 15.35),  # Clark & Allen (1978) cloud factor, N = 10
     ],
 )
 def test_clark_allen_cloud_factor(tenths, eps_expected, sky_c_expected):

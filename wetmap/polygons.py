@@ -24,8 +24,8 @@ Outlines, area and perimeter
 The pixel outline (the staircase along pixel edges) has the exact pixel-count
 area but overstates the length of any boundary that is not axis-aligned: by
 the factor 4/pi = 1.27 on a large circle and by up to sqrt(2) on a 45-degree
-edge (PERFORMANCE_NOTES.md: 1.40 x 2 pi r at r = 5 px, 1.27 for large
-shapes). A contractor pricing edge detailing from it would pay for a quarter
+edge (a staircase disc of r = 5 px measures 1.40 x 2 pi r (44 pixel edges);
+1.27 for large shapes). A contractor pricing edge detailing from it would pay for a quarter
 more edge than there is. :func:`polygonize` therefore draws a smoothed outline
 built in integer pixel arithmetic (exact, no tolerances) in three steps:
 

@@ -122,7 +122,7 @@ def assign_status(anomalies: list[BaseGeometry], confirmations: Confirmations) -
 
 #: Where the cores do not bound the threshold on one side, the range extends this far
 #: from the chosen threshold (a setting: [detect] threshold_spread_c). Half the usual
-#: 1-2 degC night-time wet/dry contrast of TRADE_NOTES (trade sources); our choice.
+#: 1-2 degC night-time wet/dry contrast (common practice); our choice.
 DEFAULT_THRESHOLD_SPREAD_C = 0.5
 
 
