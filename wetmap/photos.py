@@ -96,6 +96,21 @@ def _resolve(folder: Path, written: str) -> Path | None:
     return path if path.is_relative_to(folder.resolve()) else None
 
 
+def _usable_photo(folder: Path, written: str, where: str, example: str, problems: list[str]) -> Path | None:
+    """The photo ``written`` resolved inside ``folder`` and readable, or ``None`` with one problem line
+    (``where`` names the file, row and column; ``example`` the path form to suggest)."""
+    path = _resolve(folder, written)
+    if path is None:
+        problems.append(f"{where}: not a path inside the survey folder; copy the photo into photos/ and give "
+                        f"its relative path, e.g. {example}")
+        return None
+    why = _image_problem(path)
+    if why:
+        problems.append(f"{where}: {why}; put a JPEG or PNG in the survey's photos/ folder or correct the path")
+        return None
+    return path
+
+
 def _core_photos(folder: Path, cores_file: Path | None, confirmations: "Confirmations | None",
                  problems: list[str]) -> list[Photo]:
     if confirmations is None or "photo" not in confirmations.extra:
@@ -107,14 +122,8 @@ def _core_photos(folder: Path, cores_file: Path | None, confirmations: "Confirma
             continue
         cid = confirmations.ids[i]
         where = f"{cores_file}: row {rows.get(cid, '?')} (id {cid}), column 'photo' = {written!r}"
-        path = _resolve(folder, written)
+        path = _usable_photo(folder, written, where, "photos/c1.jpg", problems)
         if path is None:
-            problems.append(f"{where}: not a path inside the survey folder; copy the photo into photos/ and give "
-                            "its relative path, e.g. photos/c1.jpg")
-            continue
-        why = _image_problem(path)
-        if why:
-            problems.append(f"{where}: {why}; put a JPEG or PNG in the survey's photos/ folder or correct the path")
             continue
         out.append(Photo(path, written, "cores.csv", rows.get(cid, 0), cid, float(confirmations.xs[i]),
                          float(confirmations.ys[i])))
@@ -178,14 +187,8 @@ def _table_photos(folder: Path, problems: list[str]) -> list[Photo]:
         if not written:
             problems.append(f"{table}: row {n}, column 'photo' is empty; give the photo's path, e.g. photos/p1.jpg")
             continue
-        path = _resolve(folder, written)
+        path = _usable_photo(folder, written, where, "photos/p1.jpg", problems)
         if path is None:
-            problems.append(f"{where}: not a path inside the survey folder; copy the photo into photos/ and give "
-                            "its relative path, e.g. photos/p1.jpg")
-            continue
-        why = _image_problem(path)
-        if why:
-            problems.append(f"{where}: {why}; put a JPEG or PNG in the survey's photos/ folder or correct the path")
             continue
         if len(xy) == 2:
             out.append(Photo(path, written, PHOTOS_TABLE, n, None, xy[0], xy[1], (row.get("caption") or "").strip()))
