@@ -16,7 +16,6 @@ georeferenced plan stay those of its CRS (metres).
 
 from __future__ import annotations
 
-import html
 import io
 import json
 import logging
@@ -33,6 +32,7 @@ from ..errors import ProcessingError
 from ..outputs import write_folder
 from .report import draw_geometry
 from .units import DisplayUnits, ticks_in
+from .units import esc_html as _esc
 from .webmap import PAGE_CSS, Projection, add_geojson, geojson_feature, leaflet_assets, png_data_uri, remote_references
 
 __all__ = ["CHANGE_STYLES", "build_change_map", "build_change_report", "change_figure", "write_change",
@@ -45,10 +45,6 @@ CHANGE_STYLES = {
     "shrunk": ("#56B4E9", "2 4", ":", "no longer counted wet, beside an area that still is"),
     "gone": ("#009E73", "8 3 2 3", "-.", "counted wet before, nothing of it now"),
 }
-
-
-def _esc(value) -> str:
-    return html.escape("" if value is None else str(value))
 
 
 def _units(comparison: "Comparison") -> DisplayUnits:

@@ -42,8 +42,9 @@ from ..photos import nearest_anomalies, survey_photos, thumbnail_uri
 from ..quantities import M_PER_FT
 from ..style import CORE_COLOURS, LAYER_COLOURS, STATUS_STYLES, THERMAL_CMAP, display_range
 from ..wording import Wording, wording_of
-from .units import (M2_PER_FT2_EXACT, M_PER_FT_EXACT, DisplayUnits, display_units, esc_html,
-                    format_value, ticks_in)
+from .units import M2_PER_FT2_EXACT, M_PER_FT_EXACT, DisplayUnits, display_units, ticks_in
+from .units import esc_html as _esc
+from .units import format_value as _fmt
 from .webmap import colourise, decimate, png_data_uri, remote_references
 
 if TYPE_CHECKING:
@@ -86,10 +87,6 @@ _SHOWN_KEYS = frozenset({
 # --------------------------------------------------------------------------------------
 # Small helpers
 # --------------------------------------------------------------------------------------
-
-
-_esc = esc_html
-_fmt = format_value
 
 
 def _cell(value: Any, key: str | None = None, fmt: str = ",.2f", suffix: str = "") -> str:

@@ -43,10 +43,6 @@ def format_value(value: Any, fmt: str = ",.2f") -> str:
     return esc_html(value)
 
 
-_esc = esc_html
-_fmt = format_value
-
-
 #: One foot in metres and one square foot in square metres, exactly (NIST SP 811, appendix B).
 M_PER_FT_EXACT = 0.3048
 M2_PER_FT2_EXACT = 0.09290304
@@ -101,18 +97,18 @@ class DisplayUnits:
     def area_text(self, area_m2: Any, fmt: str = ",.2f") -> str:
         """``area_m2`` as text with its unit(s)."""
         if not isinstance(area_m2, (int, float)) or isinstance(area_m2, bool):
-            return _fmt(area_m2, fmt)
-        text = f"{_fmt(self.area(area_m2), fmt)} {self.area_unit}"
+            return format_value(area_m2, fmt)
+        text = f"{format_value(self.area(area_m2), fmt)} {self.area_unit}"
         if self.imperial and self.squares:
             text += f" ({area_m2 / M2_PER_SQUARE:,.2f} squares)"
         return text
 
     def area_cell(self, area_m2: Any, key: str | None = None, fmt: str = ",.2f", *, unit: bool = True) -> str:
         """A table cell of an area: the value in the report's unit, the metric one in ``data-metric``."""
-        attr = f' data-key="{_esc(key)}"' if key else ""
+        attr = f' data-key="{esc_html(key)}"' if key else ""
         if self.imperial and isinstance(area_m2, (int, float)) and not isinstance(area_m2, bool):
             attr += f' data-metric="{float(area_m2)!r}"'
-        text = self.area_text(area_m2, fmt) if unit else _fmt(self.area(area_m2), fmt)
+        text = self.area_text(area_m2, fmt) if unit else format_value(self.area(area_m2), fmt)
         return f'<td class="num"{attr}>{text}</td>'
 
     def span(self, value: float, unit: str, decimals: int, *, signed: bool = False) -> str:
@@ -186,12 +182,12 @@ class DisplayUnits:
         return "".join(parts)
 
     def length_cell(self, length_m: Any, key: str | None = None, fmt: str = ",.2f") -> str:
-        attr = f' data-key="{_esc(key)}"' if key else ""
+        attr = f' data-key="{esc_html(key)}"' if key else ""
         if self.imperial and isinstance(length_m, (int, float)) and not isinstance(length_m, bool):
             attr += f' data-metric="{float(length_m)!r}"'
         value = self.length(length_m)
         suffix = f" {self.length_unit}" if isinstance(value, (int, float)) else ""
-        return f'<td class="num"{attr}>{_fmt(value, fmt)}{suffix}</td>'
+        return f'<td class="num"{attr}>{format_value(value, fmt)}{suffix}</td>'
 
 
 _NUM = r"[-+−]?\d[\d,]*(?:\.\d+)?"

@@ -58,6 +58,7 @@ from ..photos import nearest_anomalies, survey_photos, thumbnail_uri
 from ..style import CORE_COLOURS, LAYER_COLOURS, STATUS_STYLES, THERMAL_CMAP, StatusStyle, display_range
 from ..wording import Wording, wording_of
 from .units import display_units, ticks_in  # the report's units setting, one for every output
+from .units import esc_html as _esc
 
 if TYPE_CHECKING:
     from ..results import SurveyResult
@@ -349,10 +350,6 @@ def _overlay(values: np.ndarray, result: "SurveyResult", factor: int, proj: Proj
 # --------------------------------------------------------------------------------------
 # Text helpers
 # --------------------------------------------------------------------------------------
-
-
-def _esc(value: Any) -> str:
-    return html.escape("" if value is None else str(value))
 
 
 def _num(value: float | None, fmt: str, unit: str = "") -> str:
