@@ -65,7 +65,7 @@ def main(folder: Path) -> int:
             setattr(module, name, timed(label, getattr(module, name)))
     for module, name in [(tables, "write_summary"), (tables, "write_quantities"), (tables, "write_takeoff"),
                          (gis, "write_anomalies"), (gis, "write_repair"), (cad, "write_dxf"), (gis, "write_raster"),
-                         (webmap, "write_map"), (report_html, "write_report"), (report_html, "write_pdf"),
+                         (webmap, "write_map"), (report_html, "build_report"), (report_html, "write_pdf"),
                          (FullRasters, "place")]:
         if hasattr(module, name):
             setattr(module, name, timed(name, getattr(module, name)))

@@ -10,6 +10,7 @@ results exactly as they were.
 
 from __future__ import annotations
 
+import contextlib
 import logging
 from collections.abc import Callable
 from dataclasses import dataclass, replace
@@ -1063,8 +1064,8 @@ def _write_files(result: SurveyResult, folder: Path, *,
                  extra_writers: tuple[Callable[[SurveyResult, Path], None], ...] = (),
                  map_html: bool = True, report_html: bool = True) -> None:
     """Write every result file into ``folder`` (a staging folder of :func:`wetmap.outputs.replacing`)."""
-    finish_dxf = cad.write_dxf_beside(result, folder / "repair.dxf")  # a forked process (ezdxf holds the GIL)
-    try:
+    with contextlib.ExitStack() as waits:  # on leaving, wait for the forked writers (their errors raise)
+        waits.callback(cad.write_dxf_beside(result, folder / "repair.dxf"))  # ezdxf holds the GIL: a forked process
         tables.write_summary(result, folder / "summary.json")
         tables.write_quantities(result, folder / "quantities.csv")
         tables.write_takeoff(result, folder / "takeoff.xlsx")
@@ -1077,23 +1078,16 @@ def _write_files(result: SurveyResult, folder: Path, *,
             gis.write_raster(result.detection.delta_c, result.grid, folder / "delta_c.tif")
         if result.passes is not None:
             gis.write_raster(result.passes.cooling_c_per_h, result.grid, folder / "cooling_c_per_h.tif")
-        finish_pdf = None
         if report_html:
-            report.write_report(result, folder / "report.html")
+            text = report.build_report(result)
+            (folder / "report.html").write_text(text, encoding="utf-8")
             # WeasyPrint lays out in Python (holds the GIL): a forked process, while the map is written
-            finish_pdf = write_beside(report.write_pdf, folder / "report.pdf", result, folder / "report.pdf",
-                                      html_text=(folder / "report.html").read_text(encoding="utf-8"),
-                                      name="wetmap-pdf")
-        try:
-            if map_html:
-                webmap.write_map(result, folder / "map.html")
-            for writer in extra_writers:
-                writer(result, folder)
-        finally:
-            if finish_pdf is not None:
-                finish_pdf()
-    finally:
-        finish_dxf()
+            waits.callback(write_beside(report.write_pdf, folder / "report.pdf", result, folder / "report.pdf",
+                                        html_text=text, name="wetmap-pdf"))
+        if map_html:
+            webmap.write_map(result, folder / "map.html")
+        for writer in extra_writers:
+            writer(result, folder)
 
 
 #: Files of an earlier results folder that a run carries over (the plan of `wetmap window`).
