@@ -168,18 +168,21 @@ def test_margin_corners_within_the_chord_error(margin_m):
     assert disc.area == pytest.approx(2 * QUAD_SEGS * margin_m**2 * np.sin(np.pi / (2 * QUAD_SEGS)), rel=1e-4)
 
 
-@settings(max_examples=40, deadline=None)
+# derandomize: the same 40 examples every run, so the suite's time is fixed (no unlucky draw)
+@settings(max_examples=40, deadline=None, derandomize=True)
 @given(blobs(), st.sampled_from([(1.2, 2.4), (0.6, 0.6), (1.0, 3.0)]), st.sampled_from([1, 3, 7]))
 def test_board_counts_over_origins_equal_clipping_each_board(blob, board_m, steps):
     """The take-off counts every origin's boards from fine cells clipped once: the same
     counts as clipping each board of each origin against the outline."""
     from wetmap.quantities import _counts_over_origins, _grid_cells
 
-    mask, transform, pixel_m = blob
+    mask, _, _ = blob
     labels, count = label_regions(mask)
     if not count:
         return
-    scale = 40.0 * pixel_m  # blobs of metres, boards of about a metre
+    # 0.4 m a mask pixel: regions up to 24 m across (boards of about a metre), a few thousand
+    # board placings per example (scaling by the drawn pixel size made 600 m regions)
+    scale = 0.4
     polys = polygonize(labels, count, Affine.scale(scale, scale))
     repair = shapely.union_all([p.buffer(0.3 * scale, quad_segs=QUAD_SEGS) for p in polys])
     w, h = board_m
