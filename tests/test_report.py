@@ -237,3 +237,34 @@ def test_report_shows_threshold_check_range_and_suggested_cores(sample_run):
     assert f"{r['low_m2']:,.2f} to {r['high_m2']:,.2f} m²" in page
     rows = re.findall(r"<tr><td class='num'>\d+</td>", page.split("id='suggested-cores'")[1].split("</table>")[0])
     assert len(rows) == len(summary["suggested_cores"]) > 0
+
+
+def test_table_anomalies_keeps_cored_then_largest_in_id_order():
+    from types import SimpleNamespace as A
+
+    anomalies = [A(id=1, area_m2=5.0, status="unverified", confirmations=()),
+                 A(id=2, area_m2=1.0, status="wet", confirmations=("C1",)),
+                 A(id=3, area_m2=9.0, status="unverified", confirmations=()),
+                 A(id=4, area_m2=0.5, status="dry", confirmations=("C2",)),
+                 A(id=5, area_m2=7.0, status="unverified", confirmations=()),
+                 A(id=6, area_m2=0.7, status="unverified", confirmations=("M1",))]
+    assert [a.id for a in report.table_anomalies(anomalies, 6)] == [1, 2, 3, 4, 5, 6]
+    assert [a.id for a in report.table_anomalies(anomalies, 4)] == [2, 3, 4, 6]  # cored, then the largest
+    assert [a.id for a in report.table_anomalies(anomalies, 5)] == [2, 3, 4, 5, 6]
+    assert [a.id for a in report.table_anomalies(anomalies, 2)] == [2, 4, 6]  # cored ones are never left out
+
+
+def test_long_anomaly_table_points_to_the_full_list(sample_run, monkeypatch):
+    """Above MAX_TABLE_ANOMALIES rows the table says where every anomaly is listed; the
+    footer still counts them all."""
+    result, _ = sample_run
+    anomalies = result.anomalies
+    cored = [a.id for a in anomalies if a.confirmations or a.status != "unverified"]
+    assert 0 < len(cored) < len(anomalies)  # the sample has cored and uncored anomalies
+    monkeypatch.setattr(report, "MAX_TABLE_ANOMALIES", len(cored))
+    page = report.build_report(result, dpi=60)
+    rows = re.findall(r'<tr class="anomaly" data-status="\w+"><td class="num">(\d+)</td>', page)
+    assert [int(r) for r in rows] == cored
+    more = len(anomalies) - len(cored)
+    assert f"{more:,} more anomalies" in page and "quantities.csv" in page
+    assert f'<span data-key="anomaly_count">{len(anomalies)}</span>' in page

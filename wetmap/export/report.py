@@ -29,7 +29,7 @@ import io
 import logging
 import math
 from pathlib import Path
-from typing import TYPE_CHECKING, Any
+from typing import TYPE_CHECKING, Any, Sequence
 
 import numpy as np
 import shapely
@@ -840,6 +840,25 @@ def _figures(result: "SurveyResult", dpi: int) -> str:
     return "".join(out)
 
 
+#: The anomaly table of the report lists at most this many rows; the rest are in
+#: quantities.csv and takeoff.xlsx (a printed table of thousands of rows helps no reader
+#: and costs minutes of PDF layout).
+MAX_TABLE_ANOMALIES = 250
+
+
+def table_anomalies(anomalies: Sequence[Any], limit: int = MAX_TABLE_ANOMALIES) -> list[Any]:
+    """The anomalies the report's table lists, in id order: all when at most ``limit``;
+    else every anomaly with a core (or reading) inside or not unverified, then the
+    largest of the rest, up to ``limit`` rows (more when more than ``limit`` are cored)."""
+    if len(anomalies) <= limit:
+        return list(anomalies)
+    must = [a for a in anomalies if a.confirmations or a.status != "unverified"]
+    others = sorted((a for a in anomalies if not (a.confirmations or a.status != "unverified")),
+                    key=lambda a: (-a.area_m2, a.id))
+    keep = {id(a) for a in must + others[:max(0, limit - len(must))]}
+    return [a for a in anomalies if id(a) in keep]
+
+
 def _anomaly_table(result: "SurveyResult", summary: dict[str, Any]) -> str:
     counted = result.counted_statuses
     inside = _words(result).confirmations.capitalize()
@@ -849,7 +868,8 @@ def _anomaly_table(result: "SurveyResult", summary: dict[str, Any]) -> str:
             f"<th>Mean ΔT ({u.temp_unit})</th><th>Max ΔT ({u.temp_unit})</th><th>{inside} inside</th>"
             "<th>Counted wet</th></tr>")
     body = []
-    for a in result.anomalies:
+    listed = table_anomalies(result.anomalies, MAX_TABLE_ANOMALIES)
+    for a in listed:
         body.append(
             f'<tr class="anomaly" data-status="{_esc(a.status)}"><td class="num">{a.id}</td>'
             f"<td>{_esc(a.status)}</td><td>{_esc(a.section or '–')}</td>"
@@ -860,6 +880,13 @@ def _anomaly_table(result: "SurveyResult", summary: dict[str, Any]) -> str:
         )
     if not body:
         body.append('<tr><td colspan="9">No anomaly above the threshold.</td></tr>')
+    elif len(listed) < len(result.anomalies):
+        shown = {id(a) for a in listed}
+        rest = [a for a in result.anomalies if id(a) not in shown]
+        body.append(f'<tr class="more"><td colspan="9">{len(rest):,} more anomalies, each of '
+                    f'{u.area(max(a.area_m2 for a in rest)):,.2f} {u.area_unit} or less and none cored: '
+                    "every anomaly is listed in quantities.csv and in takeoff.xlsx (sheet “anomalies”); "
+                    "the totals below count them all.</td></tr>")
     by = {st: sum(1 for a in result.anomalies if a.status == st) for st in ("wet", "unverified", "dry")}
     foot = (
         f'<tr class="total"><th colspan="3">Wet, confirmed ({by["wet"]})</th>'
