@@ -70,12 +70,11 @@ def main(folder: Path) -> int:
         if hasattr(module, name):
             setattr(module, name, timed(name, getattr(module, name)))
 
-    beside = cad.write_dxf_beside
-
-    def dxf_beside(result, path):  # write_dxf above reports from the forked process; this the wait after
-        return timed("wait for repair.dxf (forked)", beside(result, path))
-
-    cad.write_dxf_beside = dxf_beside
+    # the forked writers report from their own processes; these time the parent's wait for each
+    dxf_beside, beside = cad.write_dxf_beside, pipeline.write_beside
+    cad.write_dxf_beside = lambda result, path: timed("wait for repair.dxf (forked)", dxf_beside(result, path))
+    pipeline.write_beside = lambda fn, path, *a, **k: timed(f"wait for {Path(path).name} (forked)",
+                                                           beside(fn, path, *a, **k))
     pipeline.process_survey = timed("process_survey (detection and all)", process_survey)
     tmp = Path(tempfile.mkdtemp(prefix="wetmap-stages-"))
     try:  # as `wetmap run` does: the window rasters live in the staging folder until written

@@ -1065,6 +1065,9 @@ def _write_files(result: SurveyResult, folder: Path, *,
                  map_html: bool = True, report_html: bool = True) -> None:
     """Write every result file into ``folder`` (a staging folder of :func:`wetmap.outputs.replacing`)."""
     with contextlib.ExitStack() as waits:  # on leaving, wait for the forked writers (their errors raise)
+        if report_html:  # the longest writer first: the figures, then WeasyPrint's layout (Python, holding the GIL)
+            waits.callback(write_beside(report.write_report, folder / "report.html", result, folder / "report.html",
+                                        pdf=folder / "report.pdf", name="wetmap-report"))
         waits.callback(cad.write_dxf_beside(result, folder / "repair.dxf"))  # ezdxf holds the GIL: a forked process
         tables.write_summary(result, folder / "summary.json")
         tables.write_quantities(result, folder / "quantities.csv")
@@ -1078,12 +1081,6 @@ def _write_files(result: SurveyResult, folder: Path, *,
             gis.write_raster(result.detection.delta_c, result.grid, folder / "delta_c.tif")
         if result.passes is not None:
             gis.write_raster(result.passes.cooling_c_per_h, result.grid, folder / "cooling_c_per_h.tif")
-        if report_html:
-            text = report.build_report(result)
-            (folder / "report.html").write_text(text, encoding="utf-8")
-            # WeasyPrint lays out in Python (holds the GIL): a forked process, while the map is written
-            waits.callback(write_beside(report.write_pdf, folder / "report.pdf", result, folder / "report.pdf",
-                                        html_text=text, name="wetmap-pdf"))
         if map_html:
             webmap.write_map(result, folder / "map.html")
         for writer in extra_writers:

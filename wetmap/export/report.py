@@ -1447,9 +1447,13 @@ def build_report(result: "SurveyResult", *, dpi: int = FIGURE_DPI) -> str:
     return page
 
 
-def write_report(result: "SurveyResult", path: Path, *, dpi: int = FIGURE_DPI) -> None:
-    """Write ``report.html`` (see :func:`build_report`)."""
-    Path(path).write_text(build_report(result, dpi=dpi), encoding="utf-8")
+def write_report(result: "SurveyResult", path: Path, *, dpi: int = FIGURE_DPI, pdf: Path | None = None) -> None:
+    """Write ``report.html`` (see :func:`build_report`) and, when ``pdf`` is given, the
+    same text laid out as a PDF there (:func:`write_pdf`)."""
+    text = build_report(result, dpi=dpi)
+    Path(path).write_text(text, encoding="utf-8")
+    if pdf is not None:
+        write_pdf(result, pdf, html_text=text)
 
 
 def _pdf_css(result: "SurveyResult") -> str:
