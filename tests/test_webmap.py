@@ -219,6 +219,29 @@ def test_map_is_written_and_loads_nothing_from_a_network(sample_run):
     assert "not measured moisture" in page
 
 
+def test_map_page_is_the_one_folium_renders(sample_run, monkeypatch):
+    """build_map keeps each element's rendered text as it is instead of letting branca
+    compile it as a template once more: the page is the one folium's own render gives
+    (element ids, random in folium, numbered here), and branca's Element is itself again after."""
+    import contextlib
+    import itertools
+
+    import branca.element
+
+    result, _ = sample_run
+
+    def numbered_ids():
+        counter = itertools.count()
+        monkeypatch.setattr(branca.element.Element, "_generate_id", classmethod(lambda cls: f"{next(counter):032x}"))
+
+    numbered_ids()
+    kept = webmap.build_map(result)
+    assert branca.element.Element.__name__ == "Element"  # the swap is undone
+    numbered_ids()
+    monkeypatch.setattr(webmap, "_rendered_text_kept", contextlib.nullcontext)
+    assert kept == webmap.build_map(result)
+
+
 def test_assets_are_installed_with_their_licence():
     from importlib import resources
 
