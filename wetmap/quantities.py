@@ -111,6 +111,7 @@ _TOUCH_M2 = 1e-6  # an overlap smaller than this is a touch, not an overlap
 #: Offsets tried along each board side when no board origin is given (odd, so that the
 #: median of the counts is one of them): 7 x 7 = 49 grid origins.
 ORIGIN_STEPS = 7
+_FINE_BATCH = 1 << 15  # fine cells clipped per batch (a few MB of boxes), batches run in threads
 _OVERLAP_NOTE_M2 = 0.01  # sections overlapping by more than this are reported
 
 
@@ -360,10 +361,36 @@ def board_takeoff(repair: BaseGeometry, *, board_m: tuple[float, float], roof: B
     w, h = board_m
     rot_repair = affinity.rotate(repair, -angle_deg, origin=pivot)
     cells = _grid_cells(rot_repair, ox, oy, w, h)
-    boards = tuple(affinity.rotate(c, angle_deg, origin=pivot) for c in cells)
+    boards = tuple(_rotated_about_origin(cells, angle_deg))
     tearoff = tuple(float(a) for a in overlap_areas(np.asarray(boards, dtype=object), roof))
     return BoardTakeoff(boards, len(boards), len(boards) * w * h, math.fsum(tearoff), float(angle_deg),
                         origin_xy, (float(w), float(h)), tearoff)
+
+
+def _unique_pairs(ij: np.ndarray) -> np.ndarray:
+    """``np.unique(ij, axis=0)`` of integer pairs (sorted by the first, then the second), by
+    one integer key per pair: numpy sorts one column of integers far faster than rows."""
+    if not len(ij):
+        return ij.reshape(0, 2)
+    lo = ij.min(axis=0)
+    span = int(ij[:, 1].max() - lo[1]) + 1
+    keys = np.unique((ij[:, 0] - lo[0]).astype(np.int64) * span + (ij[:, 1] - lo[1]))
+    return np.column_stack([keys // span + lo[0], keys % span + lo[1]]).astype(ij.dtype, copy=False)
+
+
+def _rotated_about_origin(geoms: np.ndarray, angle_deg: float) -> np.ndarray:
+    """``[affinity.rotate(g, angle_deg, origin=(0, 0)) for g in geoms]`` in one call: the same
+    matrix and the same arithmetic (shapely.affinity's), on every coordinate at once."""
+    angle = angle_deg * math.pi / 180.0
+    cosp, sinp = math.cos(angle), math.sin(angle)
+    cosp = 0.0 if abs(cosp) < 2.5e-16 else cosp
+    sinp = 0.0 if abs(sinp) < 2.5e-16 else sinp
+
+    def turn(coords: np.ndarray) -> np.ndarray:
+        x, y = coords.T
+        return np.stack([cosp * x + -sinp * y + 0.0, sinp * x + cosp * y + 0.0]).T
+
+    return shapely.transform(np.asarray(geoms, dtype=object), turn)
 
 
 def _grid_cells(rot_repair: BaseGeometry, ox: float, oy: float, w: float, h: float) -> np.ndarray:
@@ -376,7 +403,7 @@ def _grid_cells(rot_repair: BaseGeometry, ox: float, oy: float, w: float, h: flo
         j0, j1 = math.floor((ymin - oy) / h), math.ceil((ymax - oy) / h)
         ii, jj = np.meshgrid(np.arange(i0, i1), np.arange(j0, j1), indexing="ij")
         cand.append(np.column_stack([ii.ravel(), jj.ravel()]))
-    ij = np.unique(np.concatenate(cand), axis=0)  # sorted by i, then j: the order of one grid
+    ij = _unique_pairs(np.concatenate(cand))  # sorted by i, then j: the order of one grid
     x0 = ox + ij[:, 0] * w
     y0 = oy + ij[:, 1] * h
     cells = shapely.box(x0, y0, x0 + w, y0 + h)
@@ -401,12 +428,21 @@ def _counts_over_origins(rot_repair: BaseGeometry, ox0: float, oy0: float, w: fl
         j0, j1 = math.floor((ymin - oy0) / fh), math.ceil((ymax - oy0) / fh)
         ii, jj = np.meshgrid(np.arange(i0, i1), np.arange(j0, j1), indexing="ij")
         cand.append(np.column_stack([ii.ravel(), jj.ravel()]))
-    fine = np.unique(np.concatenate(cand), axis=0)
-    areas = np.zeros(len(fine))
-    for start in range(0, len(fine), 1 << 17):  # batches bound the memory of the cell boxes
-        part = fine[start:start + (1 << 17)]
+    fine = _unique_pairs(np.concatenate(cand))
+
+    def batch_areas(start: int) -> np.ndarray:  # batches bound the memory of the cell boxes
+        part = fine[start:start + _FINE_BATCH]
         x0, y0 = ox0 + part[:, 0] * fw, oy0 + part[:, 1] * fh
-        areas[start:start + len(part)] = overlap_areas(shapely.box(x0, y0, x0 + fw, y0 + fh), rot_repair)
+        return overlap_areas(shapely.box(x0, y0, x0 + fw, y0 + fh), rot_repair)
+
+    starts = range(0, len(fine), _FINE_BATCH)
+    workers = min(os.cpu_count() or 1, len(starts))
+    if workers > 1:  # shapely's predicates and clipping release the GIL: batches on every core
+        with ThreadPoolExecutor(workers) as pool:
+            done = list(pool.map(batch_areas, starts))
+    else:
+        done = [batch_areas(start) for start in starts]
+    areas = np.concatenate(done) if done else np.zeros(0)
     used = areas > 0
     fine, areas = fine[used], areas[used]
     counts = np.zeros(steps * steps, dtype=np.int64)
