@@ -268,3 +268,16 @@ def test_long_anomaly_table_points_to_the_full_list(sample_run, monkeypatch):
     more = len(anomalies) - len(cored)
     assert f"{more:,} more anomalies" in page and "quantities.csv" in page
     assert f'<span data-key="anomaly_count">{len(anomalies)}</span>' in page
+
+
+def test_long_suggestion_table_keeps_the_most_useful_and_says_where_all_are(sample_run, monkeypatch):
+    result, _ = sample_run
+    assert len(result.suggested_cores) == 1  # the sample's one suggestion, and two more made up from it
+    more = dataclasses.replace(result, suggested_cores=tuple(
+        dataclasses.replace(result.suggested_cores[0], reason=f"reason {k}") for k in range(3)))
+    monkeypatch.setattr(report, "MAX_TABLE_SUGGESTIONS", 2)
+    page = report.build_report(more, dpi=60)
+    table = page.split("id='suggested-cores'")[1].split("</table>")[0]
+    assert len(re.findall(r"<tr><td class='num'>\d+</td>", table)) == 2
+    assert "reason 0" in table and "reason 1" in table and "reason 2" not in table  # the first, most useful
+    assert "The 2 most useful of 3 suggestions" in page

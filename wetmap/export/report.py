@@ -844,6 +844,8 @@ def _figures(result: "SurveyResult", dpi: int) -> str:
 #: quantities.csv and takeoff.xlsx (a printed table of thousands of rows helps no reader
 #: and costs minutes of PDF layout).
 MAX_TABLE_ANOMALIES = 250
+#: ... and the table of suggested cores at most this many (the most useful first).
+MAX_TABLE_SUGGESTIONS = 50
 
 
 def table_anomalies(anomalies: Sequence[Any], limit: int = MAX_TABLE_ANOMALIES) -> list[Any]:
@@ -1245,7 +1247,8 @@ def _calibration(summary: dict[str, Any], w: Wording, result: "SurveyResult | No
             f"{_fmt(r['threshold_high_c'], '+.2f')} down to {_fmt(r['threshold_low_c'], '+.2f')} °C (the chosen "
             f"threshold ±0.5 °C, narrowed by what the {n} allow), widened by the outline's own uncertainty of "
             f"±{_fmt(r['geometric_m2'])} m² (pixel size times perimeter). Quote the range with the quantity.</p>")
-    cores = summary.get("suggested_cores") or []
+    every = summary.get("suggested_cores") or []
+    cores = every[:MAX_TABLE_SUGGESTIONS]  # the most useful first
     if cores:
         rows = "".join(
             f"<tr><td class='num'>{i}</td>"
@@ -1257,6 +1260,9 @@ def _calibration(summary: dict[str, Any], w: Wording, result: "SurveyResult | No
             "<th>No.</th>" + ("<th>x (m)</th><th>y (m)</th>" if result is None else
                               _position_heads(result, display_units(result))) + "<th>Kind</th><th>Why</th></tr></thead>"
             f"<tbody>{rows}</tbody></table><p class='small'>{_esc(w.next_sample)}</p>")
+        if len(every) > len(cores):
+            parts.append(f"<p class='small more'>The {len(cores)} most useful of {len(every):,} suggestions; "
+                         "all are in anomalies.gpkg (layer “suggested_cores”), map.html and summary.json.</p>")
     return "".join(parts)
 
 
