@@ -338,5 +338,5 @@ def test_stages_run_alone_and_compose_into_the_run(flown):
     anomalies, _ = anomalies_of(plan, on_grid, found, judged, imagery)
     assert [a.exact.equals(b.exact) for a, b in zip(anomalies, result.anomalies)] == [True] * len(anomalies)
     assert [a.delta_mean_c for a in anomalies] == [a.delta_mean_c for a in result.anomalies]
-    quantities, _ = quantity_stage(plan, anomalies, on_grid.full_grid.pixel_m)
+    quantities, _ = quantity_stage(plan, anomalies)
     assert quantities.repair.equals(result.repair) and quantities.takeoff.count == result.takeoff.count

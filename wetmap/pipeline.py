@@ -36,7 +36,7 @@ from .frames import read_frame
 from .image_checks import ImageryReport, assess_imagery, frame_views
 from .outputs import replacing
 from .passes import PassComparison, align_to_grid, choose_primary, compare_passes, group_passes, pass_contrast_c
-from .polygons import REPAIR_TOLERANCE_PX, SIMPLIFY_TOLERANCE_PX, RegionStats, label_regions, simplify_outlines
+from .polygons import SIMPLIFY_TOLERANCE_PX, RegionStats, label_regions, simplify_outlines
 from .prework import prepare_survey
 from .quantities import Quantities, compute_quantities, largest_overlap
 from .radiometry import (Radiometry, apparent_from_surface, atmospheric_transmittance, section_emissivity_correction,
@@ -982,17 +982,13 @@ def anomalies_of(plan: Plan, on_grid: OnGrid, found: Found, judged: Judged,
     return anomalies, tuple(warnings)
 
 
-def quantity_stage(plan: Plan, anomalies: tuple[Anomaly, ...], pixel_m: float) -> tuple[Quantities, tuple[str, ...]]:
-    """Repair outline, board take-off, section totals and bill (:func:`wetmap.quantities.compute_quantities`).
-
-    The margin is grown from the exact outlines simplified within
-    :data:`~wetmap.polygons.REPAIR_TOLERANCE_PX` pixels of ``pixel_m``."""
+def quantity_stage(plan: Plan, anomalies: tuple[Anomaly, ...]) -> tuple[Quantities, tuple[str, ...]]:
+    """Repair outline, board take-off, section totals and bill (:func:`wetmap.quantities.compute_quantities`)."""
     survey = plan.survey
-    exact = [a.exact for a in anomalies]
     quantities = compute_quantities(
-        exact, [a.status for a in anomalies], outline=plan.outline,
+        [a.exact for a in anomalies], [a.status for a in anomalies], outline=plan.outline,
         exclusions=plan.exclusions, sections=list(plan.sections), settings=survey.repair, prices=survey.prices,
-        kind=survey.survey.kind, drawn=simplify_outlines(exact, tolerance=REPAIR_TOLERANCE_PX * pixel_m),
+        kind=survey.survey.kind, drawn=[a.geometry for a in anomalies],
         wet_thickness_mm=plan.confirmations.wet_thickness_mm,
     )
     warnings = list(quantities.notes)
@@ -1047,7 +1043,7 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
     imagery = image_check_stage(plan, on_grid, found)
     anomalies, flag_warnings = anomalies_of(plan, on_grid, found, judged, imagery)
     _emit(progress, "repair quantities")
-    quantities, quantity_warnings = quantity_stage(plan, anomalies, on_grid.full_grid.pixel_m)
+    quantities, quantity_warnings = quantity_stage(plan, anomalies)
     warnings = (*conditions, *plan.warnings, *on_grid.warnings, *found.warnings, *judged.warnings,
                 *imagery.warnings, *flag_warnings, *quantity_warnings)
     return SurveyResult(

@@ -97,7 +97,6 @@ __all__ = [
     "pixel_edge_perimeter",
     "SIMPLIFY_TOLERANCE_PX",
     "simplify_outlines",
-    "REPAIR_TOLERANCE_PX",
 ]
 
 logger = logging.getLogger(__name__)
@@ -120,13 +119,6 @@ _BATCH_UNIT_EDGES = 1 << 18
 #: quarter of a pixel of the exact one (Hausdorff distance), a fraction of the half-pixel
 #: the outline is uncertain by anyway.
 SIMPLIFY_TOLERANCE_PX = 0.25
-
-#: Tolerance, in pixels, of the outlines grown by the repair margin: half a pixel, the
-#: uncertainty of the outline itself. Buffering costs grow faster than the vertex count
-#: (about 12 s for 0.51 M vertices, 5 s for 0.36 M on the 256 Mpx benchmark roof), so the
-#: margin is grown from copies simplified this far; the repair outline then lies within
-#: half a pixel of the margin around the exact outlines.
-REPAIR_TOLERANCE_PX = 0.5
 
 
 # --------------------------------------------------------------------------- checks
