@@ -41,6 +41,8 @@ from make_mosaics import make  # noqa: E402
 QUIET_LOAD = 0.6
 QUIET_WAIT_S = 900
 LOADS: list[float] = []
+LOG: list[str] = []  # one line a measurement, as printed
+STARTED = time.time()
 
 
 def wait_quiet() -> float:
@@ -100,8 +102,9 @@ def bench(sizes: list[int], repeat: int, whole_up_to: int) -> list[dict]:
                 seconds, peak, out = run(cmds[k])
                 got[k].append((seconds, peak))
                 counts[k] = out.strip().splitlines()[0].split()[0] if out.strip() else "?"
-                print(f"{size:>4} Mpx  {k:<13} {seconds:7.1f} s  {peak:8.0f} MB  ({counts[k]} polygons; "
-                      f"load {LOADS[-1]:.2f} at start)", flush=True)
+                LOG.append(f"{size:>4} Mpx  {k:<13} {seconds:7.1f} s  {peak:8.0f} MB  ({counts[k]} polygons; "
+                           f"load {LOADS[-1]:.2f} at start)")
+                print(LOG[-1], flush=True)
         row = {"mpx": size, "counts": counts}
         for k in kinds:
             row[k] = (statistics.median(s for s, _ in got[k]), statistics.median(m for _, m in got[k]))
@@ -203,16 +206,31 @@ def main() -> int:
     if args.cluster:
         text += "\n" + cluster_run(args.cluster)
     print(text)
-    if not args.no_write:
-        (HERE / "RESULTS.md").write_text(
-            "# Benchmark results\n\nWritten by `python benchmarks/run_benchmarks.py "
-            f"--sizes {' '.join(map(str, args.sizes))} --repeat {args.repeat}` on {time.strftime('%Y-%m-%d')}.\n"
+    if not args.no_write:  # this run's section above the earlier runs' (they stay: the log of the work)
+        path = HERE / "RESULTS.md"
+        earlier = path.read_text(encoding="utf-8") if path.is_file() else ""
+        earlier = earlier.split("\n## ", 1)[1] if "\n## " in earlier else ""
+        section = (
+            f"## {time.strftime('%Y-%m-%d %H:%M', time.gmtime(STARTED))}-{time.strftime('%H:%M UTC', time.gmtime())}, "
+            f"commit {commit()}\n\nWritten by `python benchmarks/run_benchmarks.py {' '.join(sys.argv[1:])}`. "
             f"Machine: {machine()}.\n\n{text}\n"
             "Seconds: wall time of a fresh process (start-up and imports included), median of the repeats; MB: "
             "its peak resident memory. Ratios: wetmap / naive chain. Each run waited for a 1-minute load average "
-            f"below {QUIET_LOAD} (highest at a start: {max(LOADS):.2f}; the loads at the start of each run are "
-            "in the log).\n", encoding="utf-8")
+            f"below {QUIET_LOAD} (highest at a start: {max(LOADS):.2f}).\n\n```\n" + "\n".join(LOG) + "\n```\n")
+        path.write_text("# Benchmark results\n\n" + section + ("\n## " + earlier if earlier else ""), encoding="utf-8")
     return 0
+
+
+def commit() -> str:
+    """The checked-out commit (``+changes`` when the tree differs from it), or ``?`` outside git."""
+    try:
+        head = subprocess.run(["git", "rev-parse", "--short", "HEAD"], cwd=HERE, capture_output=True, text=True,
+                              check=True).stdout.strip()
+        dirty = subprocess.run(["git", "status", "--porcelain", "--untracked-files=no"], cwd=HERE,
+                               capture_output=True, text=True, check=True).stdout.strip()
+    except (OSError, subprocess.CalledProcessError):
+        return "?"
+    return head + (" +changes" if dirty else "")
 
 
 if __name__ == "__main__":
