@@ -886,7 +886,8 @@ def _anomaly_table(result: "SurveyResult", summary: dict[str, Any]) -> str:
         shown = {id(a) for a in listed}
         rest = [a for a in result.anomalies if id(a) not in shown]
         body.append(f'<tr class="more"><td colspan="9">{len(rest):,} more anomalies, each of '
-                    f'{u.area(max(a.area_m2 for a in rest)):,.2f} {u.area_unit} or less and none cored: '
+                    f'{u.area(max(a.area_m2 for a in rest)):,.2f} {u.area_unit} or less, none with a '
+                    f'{_esc(_words(result).confirmation)} inside: '
                     "every anomaly is listed in quantities.csv and in takeoff.xlsx (sheet “anomalies”); "
                     "the totals below count them all.</td></tr>")
     by = {st: sum(1 for a in result.anomalies if a.status == st) for st in ("wet", "unverified", "dry")}
