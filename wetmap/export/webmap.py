@@ -648,7 +648,8 @@ def _rendered_text_kept():
     Jinja template only to render it back unchanged: on the 256 Mpx benchmark roof,
     3.3 s of the map's 8 s and a copy of every layer. While this is active those
     wrappers keep the text as it is (also when it happens to contain ``{{``, which the
-    template would have eaten); elements made with no text behave as before.
+    template would have eaten); elements made with no text behave as before. The swap is
+    process-wide: wetmap renders one map at a time (no two maps in threads at once).
     """
     import branca.element as be
 
