@@ -614,3 +614,30 @@ def test_board_range_in_outputs(tmp_path):
     assert "Board grid origin" in html
     if low < high:
         assert any("whole boards:" in w and "board_origin" in w for w in s["warnings"])
+
+
+def test_unique_pairs_equal_numpy_unique_rows():
+    """The take-off's one-key unique of integer pairs: numpy's np.unique(axis=0) as the reference."""
+    from wetmap.quantities import _unique_pairs
+
+    rng = np.random.default_rng(7)
+    for _ in range(50):
+        ij = rng.integers(-60, 60, size=(int(rng.integers(1, 3000)), 2))
+        got, ref = _unique_pairs(ij), np.unique(ij, axis=0)
+        assert got.dtype == ref.dtype and np.array_equal(got, ref)
+    assert _unique_pairs(np.empty((0, 2), dtype=np.int64)).shape == (0, 2)
+
+
+@pytest.mark.parametrize("angle_deg", [0.0, 17.3, 90.0, -33.1, 180.0, 271.5])
+def test_boards_turned_in_one_call_equal_shapely_affinity(angle_deg):
+    """Boards turned back to plan coordinates in one call: the same coordinates, bit for bit,
+    as shapely.affinity.rotate about the origin (the reference)."""
+    from wetmap.quantities import _rotated_about_origin
+
+    x0 = 500000.3 + 1.7 * np.arange(40)
+    y0 = 5400000.1 + np.arange(40.0)
+    cells = shapely.box(x0, y0, x0 + 1.2, y0 + 2.4)
+    got = _rotated_about_origin(cells, angle_deg)
+    for g, c in zip(got, cells):
+        assert np.array_equal(shapely.get_coordinates(g),
+                              shapely.get_coordinates(affinity.rotate(c, angle_deg, origin=(0.0, 0.0))))
