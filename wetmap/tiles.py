@@ -95,7 +95,7 @@ from .rasters import GDAL_CACHE_BYTES, PlanGrid, RasterInfo, aligned, inspect_ra
 from .seams import MergedRegions, TilePieces, merge_pieces, tile_pieces
 from .survey import Survey
 from .windows import (PixelEdges, block_mean, choose_tile_px, labels_at, pixel_edges, preview_factor, preview_need,
-                      rasterize_window, section_labels, upsample_window_fast, windows_of)
+                      rasterize_window, section_labels, windows_of)
 
 __all__ = [
     "ArraySource",
@@ -409,7 +409,7 @@ def _keep_task(scratch: _Scratch, i: int, block: int, model: Any, cut: float, co
     row0, col0, rows, cols = scratch.windows[i]
     masked = scratch.masked(i)
     labels = scratch.labels(i)
-    diff = model.evaluate(labels, shape=(rows, cols), row0=row0, col0=col0, upsample=upsample_window_fast)
+    diff = model.evaluate(labels, shape=(rows, cols), row0=row0, col0=col0)
     np.subtract(masked, diff, out=diff)  # surface - background, NaN where not usable
     keep = np.isfinite(masked)
     keep &= ~(diff > cut)
@@ -437,8 +437,7 @@ def _final_task(scratch: _Scratch, i: int, block: int, model: Any, threshold_c: 
     if model is None:
         bg = np.full((rows, cols), np.nan, dtype=np.float32)
     else:
-        bg = model.evaluate(scratch.labels(i), shape=(rows, cols), row0=row0, col0=col0,
-                            upsample=upsample_window_fast)
+        bg = model.evaluate(scratch.labels(i), shape=(rows, cols), row0=row0, col0=col0)
     delta = masked - bg
     del masked
     scratch.save("delta", i, delta)
@@ -1037,7 +1036,7 @@ def _core_deltas(store: _Scratch, model: Any, core_rc: tuple[np.ndarray, np.ndar
             masked = store.masked(i)
             labels = store.labels(i)
             lab = None if labels is None else labels[a - wr0:a - wr0 + 1, b - wc0:b - wc0 + 1]
-            bg = model.evaluate(lab, shape=(1, 1), row0=int(a), col0=int(b), upsample=upsample_window_fast)
+            bg = model.evaluate(lab, shape=(1, 1), row0=int(a), col0=int(b))
             vals.append(float(masked[a - wr0, b - wc0] - bg[0, 0]))
         v = np.asarray(vals, dtype=np.float32)
         if np.isfinite(v).any():

@@ -20,8 +20,6 @@ import numpy as np
 import shapely
 from affine import Affine
 
-from .detect import interp_axis
-
 __all__ = [
     "TILE_TARGET_PX",
     "WHOLE_ARRAY_MAX_PX",
@@ -36,7 +34,6 @@ __all__ = [
     "choose_tile_px",
     "preview_factor",
     "windows_of",
-    "upsample_window_fast",
     "block_mean",
 ]
 
@@ -289,31 +286,6 @@ def windows_of(shape: tuple[int, int], tile_px: int) -> list[tuple[int, int, int
     rows, cols = shape
     return [(r, c, min(tile_px, rows - r), min(tile_px, cols - c))
             for r in range(0, rows, tile_px) for c in range(0, cols, tile_px)]
-
-
-def upsample_window_fast(grid: np.ndarray, block: int, *, shape: tuple[int, int], row0: int = 0,
-                         col0: int = 0) -> np.ndarray:
-    """:func:`wetmap.detect.upsample_window`, bit for bit, without gathering columns.
-
-    The same float32 operations in the same order, applied to each run of columns that
-    share their two block nodes (a broadcast instead of a fancy-indexed gather): about
-    twice as fast. Checked bit for bit against the reference in tests/test_tiles.py.
-    """
-    rows, cols = shape
-    r0, r1, wr = interp_axis(row0, rows, grid.shape[0], block)
-    c0, c1, wc = interp_axis(col0, cols, grid.shape[1], block)
-    g = grid.astype(np.float32)
-    by_row = g[r0] * (1 - wr)[:, None] + g[r1] * wr[:, None]  # (rows, block cols)
-    out = np.empty(shape, dtype=np.float32)
-    one_minus = 1 - wc
-    starts = np.flatnonzero(np.r_[True, (c0[1:] != c0[:-1]) | (c1[1:] != c1[:-1])])
-    ends = np.r_[starts[1:], cols]
-    for s, e in zip(starts, ends):
-        a, b = int(c0[s]), int(c1[s])
-        part = out[:, s:e]
-        np.multiply(by_row[:, a:a + 1], one_minus[s:e], out=part)
-        part += by_row[:, b:b + 1] * wc[s:e]
-    return out
 
 
 def block_mean(values: np.ndarray, factor: int) -> np.ndarray:
