@@ -217,6 +217,7 @@ def test_report_without_cores(sample_run):
         verdicts=Verdicts(status=("unverified",) * len(result.anomalies),
                           confirmation_ids=((),) * len(result.anomalies), anomaly_of=np.empty(0, dtype=np.intp)),
         suggested_cores=(),
+        photos=tuple(ph for ph in result.photos if ph[0].core is None),  # no cores: no core photos
     )
     page = report.build_report(bare, dpi=60)
     assert "No cores or readings were given" in page

@@ -9,8 +9,9 @@ A survey may hold a ``photos/`` folder. A photo is tied
   optional ``caption``.
 
 Each photo must be an image Pillow reads (JPEG, PNG, ...). A missing or unreadable photo
-is one warning line naming the file, the row, the column and the fix (:func:`check_photos`,
-run before any work); the photo is then left out, and the rest of the run goes on. The report and the map embed each photo
+is one warning line naming the file, the row, the column and the fix (:func:`find_photos`,
+run before any work); the photo is then left out, and the rest of the run goes on. Each photo
+is tied to its nearest anomaly once a run (``SurveyResult.photos``). The report and the map embed each photo
 downscaled (:data:`THUMB_PX` on its long side) as a base64 JPEG ``data:`` URI, so both
 files still work offline and stay small.
 """
@@ -33,8 +34,7 @@ if TYPE_CHECKING:
 
     from .confirmations import Confirmations
 
-__all__ = ["Photo", "PHOTOS_TABLE", "THUMB_PX", "survey_photos", "check_photos", "thumbnail_uri",
-           "nearest_anomalies"]
+__all__ = ["Photo", "PHOTOS_TABLE", "THUMB_PX", "find_photos", "thumbnail_uri", "nearest_anomalies"]
 
 #: The table of located photos, in the survey folder.
 PHOTOS_TABLE = "photos.csv"
@@ -195,19 +195,13 @@ def _table_photos(folder: Path, problems: list[str]) -> list[Photo]:
     return out
 
 
-def check_photos(folder: Path, cores_file: Path | None, confirmations: "Confirmations | None") -> list[str]:
-    """Problem lines for every missing or unreadable photo (cores.csv ``photo``, photos.csv)."""
+def find_photos(folder: Path, cores_file: Path | None,
+                confirmations: "Confirmations | None") -> tuple[list[Photo], list[str]]:
+    """The survey's usable photos, cores' first then photos.csv's, and a problem line for every
+    missing or unreadable one (cores.csv ``photo``, photos.csv); each file is opened once."""
     problems: list[str] = []
-    _core_photos(Path(folder), cores_file, confirmations, problems)
-    _table_photos(Path(folder), problems)
-    return problems
-
-
-def survey_photos(folder: Path, cores_file: Path | None, confirmations: "Confirmations | None") -> list[Photo]:
-    """The survey's usable photos, cores' first then photos.csv's (the others were warned about by
-    :func:`check_photos`)."""
-    problems: list[str] = []
-    return _core_photos(Path(folder), cores_file, confirmations, problems) + _table_photos(Path(folder), problems)
+    found = _core_photos(Path(folder), cores_file, confirmations, problems) + _table_photos(Path(folder), problems)
+    return found, problems
 
 
 def nearest_anomalies(photos: Sequence[Photo], geometries: Sequence["BaseGeometry"]) -> list[tuple[int, float]]:

@@ -35,6 +35,7 @@ from .export.forked import write_beside
 from .frames import read_frame
 from .image_checks import ImageryReport, assess_imagery, frame_views
 from .outputs import replacing
+from .photos import Photo, nearest_anomalies
 from .passes import PassComparison, align_to_grid, choose_primary, compare_passes, group_passes, pass_contrast_c
 from .polygons import SIMPLIFY_TOLERANCE_PX, RegionStats, label_regions, simplify_outlines
 from .prework import prepare_survey
@@ -621,6 +622,8 @@ class Plan:
     radiometry: Radiometry
     background_m: float
     warnings: tuple[str, ...]
+    photos: tuple[Photo, ...] = ()
+    """The usable site photos, found and checked once (:func:`wetmap.photos.find_photos`)."""
 
     @property
     def section_geoms(self) -> list:
@@ -652,7 +655,7 @@ def plan_stage(survey: Survey, *, progress: Progress | None = None) -> Plan:
     return Plan(survey=survey, outline=outline, exclusions=exclusions, roof=roof, surveyed=surveyed,
                 bands_m2=bands_m2, sections=sections, specular=prepared.specular, confirmations=conf,
                 group_names=_group_names(sections, area_word(survey)), radiometry=radiometry,
-                background_m=background_m, warnings=tuple(warnings))
+                background_m=background_m, warnings=tuple(warnings), photos=prepared.photos)
 
 
 class _CoresRule:
@@ -1057,6 +1060,8 @@ def process_survey(folder: str | Path, *, progress: Progress | None = None, sche
         full_rasters=None if on_grid.tiled is None else on_grid.tiled.full_rasters, imagery=imagery,
         cores_threshold=from_cores.found[-1] if from_cores is not None and from_cores.found else None,
         section_checks=judged.section_checks,
+        photos=tuple((p, i, d) for p, (i, d) in zip(plan.photos, nearest_anomalies(
+            plan.photos, [a.geometry for a in anomalies]))),
     )
 
 

@@ -23,7 +23,7 @@ from shapely.geometry.base import BaseGeometry
 from .confirmations import Confirmations, read_confirmations
 from .errors import ProcessingError, WetmapError
 from .frames import read_frame
-from .photos import check_photos
+from .photos import Photo, find_photos
 from .rasters import RasterInfo, footprint, inspect_raster, plan_grid_for, sample_in_outline
 from .survey import Mosaic, Survey
 from .vectors import Section, read_layer, read_outline, read_sections
@@ -62,6 +62,8 @@ class Prepared:
     """Placement of each ``[[mosaic]]``, in survey order."""
     confirmations: Confirmations | None
     warnings: tuple[str, ...]
+    photos: tuple[Photo, ...] = ()
+    """The usable site photos (:func:`wetmap.photos.find_photos`)."""
 
 
 def _union(geoms) -> BaseGeometry:
@@ -175,8 +177,8 @@ def prepare_survey(survey: Survey) -> Prepared:
         if confirmations is not None and outline is not None and len(confirmations):
             _check_cores_near(survey, confirmations, outline, problems)
     # a missing or unreadable photo: one warning naming the file, row and fix
-    warnings.extend(f"{line} (left out of the report and the map until then)" for line in
-                    check_photos(survey.folder, survey.cores.path if survey.cores else None, confirmations))
+    photos, photo_problems = find_photos(survey.folder, survey.cores.path if survey.cores else None, confirmations)
+    warnings.extend(f"{line} (left out of the report and the map until then)" for line in photo_problems)
 
     if roof is not None and survey.repair.board_m is not None and roof.area > 0:
         along, across = survey.repair.board_m
@@ -192,7 +194,7 @@ def prepare_survey(survey: Survey) -> Prepared:
     assert outline is not None and roof is not None  # a missing outline is a problem above
     return Prepared(outline=outline, exclusions=exclusions, roof=roof, sections=tuple(sections), specular=specular,
                     infos=tuple(infos), confirmations=confirmations,  # type: ignore[arg-type]
-                    warnings=tuple(warnings))
+                    warnings=tuple(warnings), photos=tuple(photos))
 
 
 def _check_crs_at_site(survey: Survey, crs_text: str, outline: BaseGeometry, problems: list[str],

@@ -20,6 +20,7 @@ from .confirmations import Confirmations
 from .detect import Detection, large_share
 from .image_checks import ImageryReport
 from .passes import PassComparison
+from .photos import Photo
 from .quantities import OUTSIDE_SECTIONS, BoardTakeoff, Quantities, SectionTotals
 from .radiometry import Radiometry
 from .rasters import PlanGrid
@@ -162,6 +163,9 @@ class SurveyResult:
     """``[detect] delta_c = "cores"``: the range the cores allowed and the threshold taken."""
     section_checks: tuple[tuple[str, ThresholdCheck], ...] = ()
     """``(section name, ThresholdCheck)``: the threshold against the cores inside each section."""
+    photos: tuple[tuple[Photo, int, float], ...] = ()
+    """``(photo, index of the nearest anomaly or -1, distance to its outline m)``: the usable
+    site photos, cores' first then photos.csv's (:mod:`wetmap.photos`)."""
 
     @property
     def counted_statuses(self) -> frozenset[Status]:

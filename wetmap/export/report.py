@@ -38,7 +38,7 @@ from shapely.geometry.base import BaseGeometry
 from .. import __version__
 from ..conditions import dew_point_c, frost_point_c
 from ..errors import ProcessingError
-from ..photos import nearest_anomalies, survey_photos, thumbnail_uri
+from ..photos import thumbnail_uri
 from ..quantities import M_PER_FT
 from ..style import CORE_COLOURS, LAYER_COLOURS, STATUS_STYLES, THERMAL_CMAP, display_range
 from ..wording import Wording, wording_of
@@ -1174,16 +1174,14 @@ def _photo_pairs(result: "SurveyResult", dpi: int = 110) -> str:
     nearest anomaly), both embedded; nothing when the survey has no photos."""
 
     s = result.survey
-    photos = survey_photos(s.folder, s.cores.path if s.cores else None, result.confirmations)
-    if not photos:
+    if not result.photos:
         return ""
     w = _words(result)
     c = result.confirmations
     index = {cid: i for i, cid in enumerate(c.ids)}
-    near = nearest_anomalies(photos, [a.geometry for a in result.anomalies])
     hull = s.survey.kind == "hull"
     out = ["<h3 id='photos'>Photos beside the thermal view</h3>"]
-    for p, (ai, dist) in zip(photos, near):
+    for p, ai, dist in result.photos:
         if p.core is not None:
             i = index[p.core]
             bits = [f"graded {c.grade[i]}"]

@@ -55,7 +55,7 @@ from shapely.geometry.base import BaseGeometry
 from affine import Affine
 
 from ..errors import ProcessingError
-from ..photos import nearest_anomalies, survey_photos, thumbnail_uri
+from ..photos import thumbnail_uri
 from ..style import CORE_COLOURS, LAYER_COLOURS, STATUS_STYLES, THERMAL_CMAP, StatusStyle, display_range
 from ..wording import Wording, wording_of
 from .units import display_units, ticks_in  # the report's units setting, one for every output
@@ -379,12 +379,9 @@ def _status_legend(status: str, w: Wording) -> str:
 
 def _photo_html(result: "SurveyResult", units=None) -> tuple[dict[str, str], dict[int, str]]:
     """Popup HTML of the survey's photos: by core id, and by anomaly id (photos.csv, nearest anomaly)."""
-    s = result.survey
-    photos = survey_photos(s.folder, s.cores.path if s.cores else None, result.confirmations)
     by_core: dict[str, str] = {}
     by_anomaly: dict[int, str] = {}
-    near = nearest_anomalies(photos, [a.geometry for a in result.anomalies])
-    for p, (ai, dist) in zip(photos, near):
+    for p, ai, dist in result.photos:
         img = (f'<img class="wetmap-photo" src="{thumbnail_uri(p.path, max_px=480)}" alt="{_esc(p.written)}" '
                f'style="display:block;max-width:300px;height:auto"><span>{_esc(p.written)}'
                + (f": {_esc(p.caption)}" if p.caption else "") + "</span>")
