@@ -393,17 +393,22 @@ def _rotated_about_origin(geoms: np.ndarray, angle_deg: float) -> np.ndarray:
     return shapely.transform(np.asarray(geoms, dtype=object), turn)
 
 
-def _grid_cells(rot_repair: BaseGeometry, ox: float, oy: float, w: float, h: float) -> np.ndarray:
-    """Boards (in the grid's frame) of the grid with corner ``(ox, oy)`` that ``rot_repair`` overlaps."""
-    # candidate boards: those under the bounding box of each repair polygon (not of them all,
-    # which on a big roof with scattered repairs is most of the roof)
+def _cells_under(rot_repair: BaseGeometry, ox: float, oy: float, w: float, h: float) -> np.ndarray:
+    """``(i, j)`` of the ``w`` x ``h`` cells from ``(ox, oy)`` under the bounding box of each
+    polygon of ``rot_repair`` (not of them all, which on a big roof with scattered repairs is
+    most of the roof), unique, sorted by ``i`` then ``j``."""
     cand = []
     for xmin, ymin, xmax, ymax in shapely.bounds(shapely.get_parts(rot_repair)):
         i0, i1 = math.floor((xmin - ox) / w), math.ceil((xmax - ox) / w)
         j0, j1 = math.floor((ymin - oy) / h), math.ceil((ymax - oy) / h)
         ii, jj = np.meshgrid(np.arange(i0, i1), np.arange(j0, j1), indexing="ij")
         cand.append(np.column_stack([ii.ravel(), jj.ravel()]))
-    ij = _unique_pairs(np.concatenate(cand))  # sorted by i, then j: the order of one grid
+    return _unique_pairs(np.concatenate(cand))
+
+
+def _grid_cells(rot_repair: BaseGeometry, ox: float, oy: float, w: float, h: float) -> np.ndarray:
+    """Boards (in the grid's frame) of the grid with corner ``(ox, oy)`` that ``rot_repair`` overlaps."""
+    ij = _cells_under(rot_repair, ox, oy, w, h)  # candidate boards, in the order of one grid
     x0 = ox + ij[:, 0] * w
     y0 = oy + ij[:, 1] * h
     cells = shapely.box(x0, y0, x0 + w, y0 + h)
@@ -422,13 +427,7 @@ def _counts_over_origins(rot_repair: BaseGeometry, ox0: float, oy0: float, w: fl
     ``[(i, j) for i in range(steps) for j in range(steps)]``.
     """
     fw, fh = w / steps, h / steps
-    cand = []
-    for xmin, ymin, xmax, ymax in shapely.bounds(shapely.get_parts(rot_repair)):
-        i0, i1 = math.floor((xmin - ox0) / fw), math.ceil((xmax - ox0) / fw)
-        j0, j1 = math.floor((ymin - oy0) / fh), math.ceil((ymax - oy0) / fh)
-        ii, jj = np.meshgrid(np.arange(i0, i1), np.arange(j0, j1), indexing="ij")
-        cand.append(np.column_stack([ii.ravel(), jj.ravel()]))
-    fine = _unique_pairs(np.concatenate(cand))
+    fine = _cells_under(rot_repair, ox0, oy0, fw, fh)
 
     def batch_areas(start: int) -> np.ndarray:  # batches bound the memory of the cell boxes
         part = fine[start:start + _FINE_BATCH]
